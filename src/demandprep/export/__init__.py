@@ -1,0 +1,1 @@
+"""Build folders: Parquet, manifest, data dictionary, report."""

@@ -1,0 +1,1 @@
+"""Ingest: raw files into the warehouse, with quarantine and ledger."""

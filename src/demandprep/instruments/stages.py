@@ -1,0 +1,5 @@
+"""Build stages of this step, in order (filled in by its owner)."""
+
+from demandprep.stages import Stage
+
+INSTRUMENT_STAGES: tuple[Stage, ...] = ()

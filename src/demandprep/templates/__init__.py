@@ -1,0 +1,1 @@
+"""Config templates shipped with the package."""

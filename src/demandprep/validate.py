@@ -1,0 +1,56 @@
+"""Guard a warehouse table with its pandera model, in batches so large tables stay out of core."""
+
+from __future__ import annotations
+
+import duckdb
+import pandera.errors
+import pandera.polars as pa
+import polars as pl
+
+from demandprep.errors import UserError
+
+BATCH_ROWS = 1_000_000
+SHOWN_FAILURES = 5
+
+
+def validate_table(
+    con: duckdb.DuckDBPyConnection,
+    table: str,
+    model: type[pa.DataFrameModel],
+    batch_rows: int = BATCH_ROWS,
+) -> int:
+    """Validate every row of `table` against `model`; returns the row count, raises on failure."""
+    rows = 0
+    reader = con.execute(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
+    for batch in reader:
+        frame = pl.from_arrow(batch)
+        assert isinstance(frame, pl.DataFrame)
+        validate_frame(frame, model, table, first_row=rows)
+        rows += frame.height
+    if rows == 0:
+        validate_frame(pl.from_arrow(reader.schema.empty_table()), model, table, first_row=0)
+    return rows
+
+
+def validate_frame(
+    frame: pl.DataFrame, model: type[pa.DataFrameModel], table: str, first_row: int = 0
+) -> None:
+    """Validate one frame; a failure names the table, the checks and the first failing rows."""
+    try:
+        model.validate(frame, lazy=True)
+    except (pandera.errors.SchemaErrors, pandera.errors.SchemaError) as error:
+        raise UserError(
+            f"stage output {table!r} breaks its schema {model.__name__}: {_summary(error)}",
+            "this is a bad input or a bug; the failing rows are shown above.",
+        ) from None
+
+
+def _summary(error: Exception) -> str:
+    cases = getattr(error, "failure_cases", None)
+    if cases is None:
+        return str(error).splitlines()[0]
+    frame = cases if isinstance(cases, pl.DataFrame) else pl.from_pandas(cases)
+    return "; ".join(
+        f"{row.get('column')}: {row.get('check')} (value {row.get('failure_case')!r})"
+        for row in frame.head(SHOWN_FAILURES).to_dicts()
+    )

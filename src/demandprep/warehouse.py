@@ -1,0 +1,90 @@
+"""Open the embedded DuckDB warehouse with the configured settings, one writer at a time.
+
+A second process that wants to write the same warehouse waits up to `lock_timeout_seconds`
+on an advisory lock file beside the database, then stops with a clear message.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import os
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+import duckdb
+
+from demandprep.config import WarehouseSection
+from demandprep.errors import UserError
+
+POLL_SECONDS = 0.2
+
+
+def lock_path(database: Path) -> Path:
+    """The advisory lock file that guards writes to `database`."""
+    return database.with_name(database.name + ".lock")
+
+
+@contextmanager
+def writer_lock(database: Path, timeout_seconds: float) -> Iterator[None]:
+    """Hold the warehouse's writer lock, waiting at most `timeout_seconds` for it."""
+    path = lock_path(database)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with path.open("a+") as handle:
+        _acquire(handle, path, timeout_seconds)
+        handle.seek(0)
+        handle.truncate()
+        handle.write(str(os.getpid()))
+        handle.flush()
+        try:
+            yield
+        finally:
+            fcntl.flock(handle, fcntl.LOCK_UN)
+
+
+def _acquire(handle, path: Path, timeout_seconds: float) -> None:
+    deadline = time.monotonic() + timeout_seconds
+    while True:
+        try:
+            fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            return
+        except BlockingIOError:
+            if time.monotonic() >= deadline:
+                holder = path.read_text().strip() or "unknown"
+                raise UserError(
+                    f"{path.with_suffix('')}: another demandprep process (pid {holder}) is "
+                    f"writing this warehouse; waited {timeout_seconds:g} s.",
+                    "wait for it to finish or raise warehouse.lock_timeout_seconds.",
+                ) from None
+            time.sleep(POLL_SECONDS)
+
+
+def connect(settings: WarehouseSection, read_only: bool = False) -> duckdb.DuckDBPyConnection:
+    """A DuckDB connection to the warehouse file with memory, threads and spill folder set."""
+    settings.path.parent.mkdir(parents=True, exist_ok=True)
+    settings.temp_directory.mkdir(parents=True, exist_ok=True)
+    config = {
+        "memory_limit": settings.memory_limit,
+        "threads": settings.threads,
+        "temp_directory": str(settings.temp_directory),
+        "preserve_insertion_order": False,
+    }
+    try:
+        return duckdb.connect(str(settings.path), read_only=read_only, config=config)
+    except duckdb.IOException as error:
+        raise UserError(
+            f"{settings.path}: cannot open the warehouse ({str(error).splitlines()[0]}).",
+            "another program may hold it open; close it and retry.",
+        ) from None
+
+
+@contextmanager
+def open_warehouse(settings: WarehouseSection) -> Iterator[duckdb.DuckDBPyConnection]:
+    """The warehouse opened for writing, holding the writer lock until the block ends."""
+    with writer_lock(settings.path, settings.lock_timeout_seconds):
+        con = connect(settings)
+        try:
+            yield con
+        finally:
+            con.close()

@@ -1,5 +1,20 @@
-"""Build stages of this step, in order (filled in by its owner)."""
+"""Build stages of the chooser-alternative build, in order."""
 
+from demandprep.choices.build import (
+    build_choice_history,
+    build_choice_occasions,
+    build_choice_sets,
+    build_choices,
+    build_choosers,
+    prepare_choice_inputs,
+)
 from demandprep.stages import Stage
 
-CHOICE_STAGES: tuple[Stage, ...] = ()
+CHOICE_STAGES: tuple[Stage, ...] = (
+    Stage("choice_inputs", prepare_choice_inputs),
+    Stage("choice_occasions", build_choice_occasions),
+    Stage("choice_history", build_choice_history),
+    Stage("choice_sets", build_choice_sets),
+    Stage("choosers", build_choosers),
+    Stage("choices", build_choices),
+)

@@ -1,5 +1,118 @@
-"""Build stages of this step, in order (filled in by its owner)."""
+"""The market-level build: receipt lines to the share table, one static SQL file per step.
 
+Stages, in order (each SQL file writes the table it is named for, then its pandera model in
+demandprep.schemas.market guards it):
+
+  market_settings        check config columns against the warehouse, write settings tables
+  market_calendar        010  date -> period start, days in period
+  market_skus            020  in-scope SKU -> product, firm, nest, equivalent units per unit
+  market_products_attrs  030  product -> firm, nest, characteristics
+  market_geographies     040  store -> geography
+  market_visits          050  visits per store and period (all categories)
+  market_sku_sales       060  exact demand sums per geography, period, SKU
+  market_product_sales   070  demand per market and product
+  product_universe       080  keep rules
+  market_availability    090  products on the shelf (for zero shares)
+  market_products        100  inside products per market (kept, fringe, zero rows)
+  market_sizes           110  every assumption's size per market
+  markets                120  size, inside quantity, outside share (stops when s_0 <= 0)
+  shares                 130  the share table, long over assumptions
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+from demandprep.context import BuildContext
+from demandprep.market import checks
+from demandprep.market.inputs import create_input_views
+from demandprep.market.settings import check_inputs, market_params, write_settings
+from demandprep.schemas.market import MARKET_MODELS
+from demandprep.sqlfiles import run_sql
 from demandprep.stages import Stage
+from demandprep.validate import validate_table
 
-MARKET_STAGES: tuple[Stage, ...] = ()
+SQL_FILES: dict[str, str] = {
+    "market_calendar": "market/010_market_calendar.sql",
+    "market_skus": "market/020_market_skus.sql",
+    "market_product_attributes": "market/030_market_product_attributes.sql",
+    "market_store_geographies": "market/040_market_store_geographies.sql",
+    "market_store_visits": "market/050_market_store_visits.sql",
+    "market_sku_sales": "market/060_market_sku_sales.sql",
+    "market_product_sales": "market/070_market_product_sales.sql",
+    "product_universe": "market/080_product_universe.sql",
+    "market_availability": "market/090_market_availability.sql",
+    "market_products": "market/100_market_products.sql",
+    "market_sizes": "market/110_market_sizes.sql",
+    "markets": "market/120_markets.sql",
+    "shares": "market/130_shares.sql",
+}
+
+
+Check = Callable[[BuildContext], None]
+
+
+def build_table(ctx: BuildContext, table: str, checks_first: tuple[Check, ...] = ()) -> int:
+    """Run the SQL file that writes `table`, run `checks_first`, validate; returns its rows."""
+    run_sql(ctx.con, SQL_FILES[table], market_params(ctx.config))
+    for check in checks_first:
+        check(ctx)
+    return validate_table(ctx.con, table, MARKET_MODELS[table])
+
+
+def settings_stage(ctx: BuildContext) -> None:
+    """Check the config's columns against the warehouse and write the settings tables."""
+    check_inputs(ctx.con, ctx.config)
+    write_settings(ctx.con, ctx.config)
+    create_input_views(ctx.con)
+
+
+def _table_stage(table: str, *after: Check, first: tuple[Check, ...] = ()) -> Check:
+    def run(ctx: BuildContext) -> None:
+        rows = build_table(ctx, table, first)
+        ctx.facts.setdefault("market", {}).setdefault("rows", {})[table] = rows
+        for check in after:
+            check(ctx)
+
+    run.__name__ = f"build_{table}"
+    run.__doc__ = f"Build and validate the {table} table."
+    return run
+
+
+def _check_attributes(ctx: BuildContext) -> None:
+    checks.check_product_attributes(ctx, market_params(ctx.config))
+
+
+def _check_characteristics(ctx: BuildContext) -> None:
+    # the SQL carries characteristics by star; make sure each configured one arrived
+    columns = [row[0] for row in ctx.con.execute("describe shares").fetchall()]
+    missing = [c for c in ctx.config.products.characteristics if c not in columns]
+    if missing:
+        raise AssertionError(f"shares lost characteristic columns {missing}")
+
+
+MARKET_STAGES: tuple[Stage, ...] = (
+    Stage("market_settings", settings_stage),
+    Stage("market_calendar", _table_stage("market_calendar")),
+    Stage("market_skus", _table_stage("market_skus", checks.check_skus)),
+    Stage("market_product_attributes", _table_stage("market_product_attributes", _check_attributes)),
+    Stage("market_store_geographies", _table_stage("market_store_geographies")),
+    Stage("market_store_visits", _table_stage("market_store_visits", checks.check_store_coverage)),
+    Stage("market_sku_sales", _table_stage("market_sku_sales", checks.check_fractional_quantities)),
+    Stage("market_product_sales", _table_stage("market_product_sales", checks.check_net_demand)),
+    Stage("product_universe", _table_stage("product_universe", checks.check_universe)),
+    Stage("market_availability", _table_stage("market_availability")),
+    Stage("market_products", _table_stage("market_products")),
+    Stage("market_sizes", _table_stage("market_sizes", checks.check_market_sizes)),
+    # the outside-share check names the markets; it runs before the schema's generic check
+    Stage("markets", _table_stage("markets", first=(checks.check_outside_shares,))),
+    Stage("shares", _table_stage("shares", _check_characteristics)),
+)
+
+
+def run_market_stages(ctx: BuildContext) -> None:
+    """Run every market stage in order (what tests and benchmarks call directly)."""
+    from demandprep.stages import run_stage
+
+    for stage in MARKET_STAGES:
+        run_stage(stage, ctx)

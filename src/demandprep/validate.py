@@ -21,7 +21,7 @@ def validate_table(
 ) -> int:
     """Validate every row of `table` against `model`; returns the row count, raises on failure."""
     rows = 0
-    reader = con.execute(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
+    reader = con.sql(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
     for batch in reader:
         frame = pl.from_arrow(batch)
         assert isinstance(frame, pl.DataFrame)

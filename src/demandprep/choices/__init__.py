@@ -1,1 +1,36 @@
-"""choices build."""
+"""The chooser-alternative build: card visits -> one row per choice occasion and alternative.
+
+Stages (demandprep.choices.stages) run static SQL from sql/choices/ in DuckDB, out of core, and
+write `choices` and `choosers` (pandera models in demandprep.schemas.choices). Decisions:
+
+- Chooser: a loyalty card, pseudonymised as HMAC-SHA256(key, card) (32 hex digits); the key
+  comes from the environment variable choices.pseudonym_key_env and the build refuses to run
+  without it. The card -> chooser map is a working table dropped at the end of the build.
+- Occasion: a receipt with a card and a sale line (`store/receipt`). With occasions =
+  'category_visits' only visits that bought an alternative; with 'all_visits' every visit,
+  choosing `none` when it bought none (`none` is in every set). Void lines net against their
+  sale; returns are not choices.
+- Alternatives: products (catalogue keys joined with '|', the market build's ids) kept by the
+  market build's product universe; the others become the composite `fringe` when
+  products.universe.rest = 'fringe', or count as no purchase when it is 'outside'.
+- Several alternatives in one visit: 'largest_spend' (ties: quantity, then id), 'split' (one
+  occasion `store/receipt/n` per product, n by spend; each weighs 1/n in loyalty), 'drop' (the
+  visit is no occasion and leaves no history).
+- Choice set: the store's latest shelf-price snapshot on or before the day (if younger than
+  choice_set_window_days), else the alternatives the store sold on the choice_set_window_days
+  days before. The chosen alternative is added when missing (added_to_set, counted).
+- Price: shelf price, else the store-period median net unit price, else the store's last
+  observed price within price_window_days, else the regional median (stores.region, else the
+  whole chain); price_source says which. Store-period prices are facts of the whole period,
+  like a weekly shelf price.
+- History, from earlier visits only: previous_choice (bought at the latest earlier category
+  purchase), purchase_count, days_since_last_purchase, and Guadagni & Little (1983) loyalty.
+  Loyalty starts from the chooser's purchase shares during the first loyalty_burn_in_days days
+  after their first occasion (zero without a burn-in purchase); occasions in that window are
+  flagged burn_in and have no loyalty. The recursion is computed in closed form in blocks
+  (sql/choices/047_choice_loyalty_events.sql), exact to about 1e-260.
+- Sampling (choices.sampled_alternatives = K): the chosen alternative plus K others drawn
+  uniformly without replacement, ordered by md5(occasion, alternative) so every rebuild draws
+  the same (McFadden 1978).
+- Holdout: a second keyed hash of the chooser read as a uniform number < holdout_fraction.
+"""

@@ -1,1 +1,1 @@
-"""market build."""
+"""Market build: receipt lines to the aggregate share table (see demandprep.market.stages)."""

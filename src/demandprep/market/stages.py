@@ -1,22 +1,37 @@
 """The market-level build: receipt lines to the share table, one static SQL file per step.
 
-Stages, in order (each SQL file writes the table it is named for, then its pandera model in
-demandprep.schemas.market guards it):
+Stages, in order; each runs sql/market/<NNN>_<table>.sql, which writes the table it is named
+for, then the table's pandera model (demandprep.schemas.market) guards it:
 
-  market_settings        check config columns against the warehouse, write settings tables
-  market_calendar        010  date -> period start, days in period
-  market_skus            020  in-scope SKU -> product, firm, nest, equivalent units per unit
-  market_products_attrs  030  product -> firm, nest, characteristics
-  market_geographies     040  store -> geography
-  market_visits          050  visits per store and period (all categories)
-  market_sku_sales       060  exact demand sums per geography, period, SKU
-  market_product_sales   070  demand per market and product
-  product_universe       080  keep rules
-  market_availability    090  products on the shelf (for zero shares)
-  market_products        100  inside products per market (kept, fringe, zero rows)
-  market_sizes           110  every assumption's size per market
-  markets                120  size, inside quantity, outside share (stops when s_0 <= 0)
-  shares                 130  the share table, long over assumptions
+  market_settings            check config columns against the warehouse, write settings tables
+  market_calendar            010  date -> period start, days in period
+  market_skus                020  in-scope SKU -> product, firm, nest, equivalent units per unit
+  market_product_attributes  030  product -> firm, nest, characteristics (from its first SKU)
+  market_store_geographies   040  store -> geography
+  market_store_visits        050  visits per store and period (all categories)
+  market_sku_sales           060  exact (decimal) demand sums per geography, period and SKU
+  market_product_sales       070  demand per market and product
+  product_universe           080  keep rules: top N, volume share, market presence
+  market_availability        090  universe products on the shelf (for zero shares)
+  market_products            100  inside products per market: kept, fringe, zero-sale rows
+  market_sizes               110  every assumption's size per market, side by side
+  markets                    120  size, inside quantity, outside share (stops when s_0 <= 0)
+  shares                     130  the share table, long over assumptions
+
+Choices made here, so that they are written down once:
+- demand lines are sales and voids (a void cancels a re-scan of the same visit and carries
+  negative quantities, so leaving it out would count the re-scan); returns join only when
+  sources.receipts.returns_in_demand; a market-product with net demand <= 0 counts as not sold;
+- with equivalent_unit.kind = 'item', a weight-sold line's kg count as units (with a warning);
+- the fringe product has no firm, nest or characteristics (nulls); its price is its revenue
+  over its equivalent units;
+- zero-sale rows exist only where the shelf-price file shows the product in the market; their
+  price is the mean shelf price per equivalent unit and promo_share is null;
+- zero_shares = 'add_one' uses s_j = (q_j + 1) / (M + J + 1) and s_0 = (M - Q + 1) / (M + J + 1)
+  in every market (J inside products, Q their total), a Laplace-type rule after Gandhi, Lu &
+  Shi, recalled from memory and not checked against the paper;
+- sums that could depend on thread order are exact decimals or ordered sums, so a rebuild gives
+  identical tables.
 """
 
 from __future__ import annotations
@@ -29,7 +44,7 @@ from demandprep.market.inputs import create_input_views
 from demandprep.market.settings import check_inputs, market_params, write_settings
 from demandprep.schemas.market import MARKET_MODELS
 from demandprep.sqlfiles import run_sql
-from demandprep.stages import Stage
+from demandprep.stages import Stage, run_stage
 from demandprep.validate import validate_table
 
 SQL_FILES: dict[str, str] = {
@@ -95,7 +110,9 @@ MARKET_STAGES: tuple[Stage, ...] = (
     Stage("market_settings", settings_stage),
     Stage("market_calendar", _table_stage("market_calendar")),
     Stage("market_skus", _table_stage("market_skus", checks.check_skus)),
-    Stage("market_product_attributes", _table_stage("market_product_attributes", _check_attributes)),
+    Stage(
+        "market_product_attributes", _table_stage("market_product_attributes", _check_attributes)
+    ),
     Stage("market_store_geographies", _table_stage("market_store_geographies")),
     Stage("market_store_visits", _table_stage("market_store_visits", checks.check_store_coverage)),
     Stage("market_sku_sales", _table_stage("market_sku_sales", checks.check_fractional_quantities)),
@@ -112,7 +129,5 @@ MARKET_STAGES: tuple[Stage, ...] = (
 
 def run_market_stages(ctx: BuildContext) -> None:
     """Run every market stage in order (what tests and benchmarks call directly)."""
-    from demandprep.stages import run_stage
-
     for stage in MARKET_STAGES:
         run_stage(stage, ctx)

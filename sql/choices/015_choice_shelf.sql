@@ -1,0 +1,31 @@
+-- Shelf-price rows of category SKUs that map to an alternative, with promo and extra attributes.
+create or replace table choice_shelf as
+
+with
+
+shelf as (
+    select
+        cast(store as varchar) as store,
+        cast(date as date) as date,
+        cast(sku as varchar) as sku,
+        columns(lambda c: list_contains($shelf_carried, c)),
+    from shelf_prices
+),
+
+mapped as (
+    select sku, alternative from choice_alternative_map where alternative is not null
+),
+
+final as (
+    select
+        store,
+        date,
+        sku,
+        alternative,
+        columns(lambda c: list_contains($shelf_carried, c)),
+    from shelf
+    join mapped using (sku)
+)
+
+select store, date, sku, alternative, columns(lambda c: list_contains($shelf_carried, c))
+from final;

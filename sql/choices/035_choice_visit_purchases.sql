@@ -1,0 +1,29 @@
+-- Category purchases of card visits: net quantity and spend per visit and alternative.
+-- alternative is null for products outside the universe when products.universe.rest = 'outside'.
+create or replace table choice_visit_purchases as
+
+with
+
+visit_lines as (
+    select
+        choice_visits.visit,
+        choice_sales.alternative,
+        choice_sales.quantity,
+        choice_sales.net_amount,
+    from choice_sales
+    join choice_visits using (store, receipt)
+),
+
+final as (
+    select
+        visit,
+        alternative,
+        sum(quantity) as quantity,
+        sum(net_amount) as spend,
+    from visit_lines
+    group by visit, alternative
+    -- a voided re-scan nets to zero; keep what was actually bought
+    having sum(quantity) > 1e-9
+)
+
+select visit, alternative, quantity, spend from final;

@@ -1,0 +1,112 @@
+-- Choice occasions: card visits that chose an alternative (and, when choices.occasions =
+-- 'all_visits', visits without a category purchase choosing $outside), after the
+-- multiple-purchase policy: 'largest_spend' keeps the largest spend (ties: larger quantity,
+-- then alternative id), 'split' makes one occasion per alternative, 'drop' drops the visit.
+-- history_weight is the visit's share in the loyalty recursion: 1, or 1/n for n split products.
+create or replace table choice_occasions as
+
+with
+
+visits as (
+    select
+        choice_visits.visit,
+        choice_visits.store,
+        choice_visits.occasion_at,
+        choice_visits.day,
+        choice_pseudonyms.chooser,
+    from choice_visits
+    join choice_pseudonyms using (card)
+),
+
+purchases as (
+    select visit, alternative, quantity, spend
+    from choice_visit_purchases
+    where alternative is not null
+),
+
+ranked_purchases as (
+    select
+        visit,
+        alternative,
+        quantity,
+        spend,
+        count(*) over (partition by visit) as visit_products,
+        row_number() over (
+            partition by visit order by spend desc, quantity desc, alternative
+        ) as spend_rank,
+    from purchases
+),
+
+kept_purchases as (
+    select
+        visit,
+        case
+            when visit_products > 1 and $multiple_purchases = 'split'
+                then visit || '/' || spend_rank
+            else visit
+        end as occasion,
+        alternative,
+        quantity,
+        spend,
+        case
+            when $multiple_purchases = 'split' then 1.0 / visit_products
+            else 1.0
+        end as history_weight,
+    from ranked_purchases
+    where visit_products = 1
+        or $multiple_purchases = 'split'
+        or ($multiple_purchases = 'largest_spend' and spend_rank = 1)
+),
+
+outside_visits as (
+    select
+        visit,
+        visit as occasion,
+        $outside as alternative,
+        cast(null as double) as quantity,
+        cast(null as double) as spend,
+        0.0 as history_weight,
+    from visits
+    anti join purchases using (visit)
+    where $occasion_mode = 'all_visits'
+),
+
+all_occasions as (
+    select visit, occasion, alternative, quantity, spend, history_weight from kept_purchases
+    union all
+    select visit, occasion, alternative, quantity, spend, history_weight from outside_visits
+),
+
+final as (
+    select
+        all_occasions.occasion,
+        all_occasions.visit,
+        visits.chooser,
+        visits.store,
+        visits.occasion_at,
+        visits.day,
+        choice_calendar.period_start,
+        all_occasions.alternative as chosen_alternative,
+        all_occasions.alternative <> $outside as is_purchase,
+        all_occasions.quantity,
+        all_occasions.spend,
+        all_occasions.history_weight,
+    from all_occasions
+    join visits using (visit)
+    join choice_calendar using (day)
+)
+
+select
+    occasion,
+    visit,
+    chooser,
+    store,
+    occasion_at,
+    day,
+    period_start,
+    chosen_alternative,
+    is_purchase,
+    quantity,
+    spend,
+    history_weight,
+from final;

@@ -1,0 +1,73 @@
+-- Purchases after the burn-in window, prepared for the closed form of the loyalty recursion
+-- (Guadagni & Little 1983):  L_j(n) = lambda L_j(n-1) + (1 - lambda) x_j(n),  where x_j(n) is
+-- the weight of j in the chooser's n-th purchase visit after burn-in. Unrolled,
+--     L_j(n) = lambda^n L_j(0) + (1 - lambda) * sum_{r <= n} lambda^(n - r) x_j(r).
+-- lambda^(n - r) = lambda^(n - s) * lambda^-(r - s) for any s, so within a block of B purchases
+-- starting at s the sum is a running sum of lambda^-position * x (position = r - s < B; B is
+-- chosen so lambda^-B stays near exp(600)). Older blocks enter through the previous block's
+-- total; blocks before that are weighted by lambda^B, about exp(-600), and vanish.
+create or replace table choice_loyalty_events as
+
+with
+
+purchase_visits as (
+    select visit, chooser, loyalty_rank + 1 as purchase_rank
+    from choice_visit_history
+    where is_purchase and not burn_in
+),
+
+events as (
+    select
+        purchase_visits.chooser,
+        choice_occasions.chosen_alternative as alternative,
+        purchase_visits.purchase_rank,
+        sum(choice_occasions.history_weight) as weight,
+    from purchase_visits
+    join choice_occasions using (visit)
+    group by all
+),
+
+blocked as (
+    select
+        *,
+        (purchase_rank - 1) // $loyalty_block as block,
+        (purchase_rank - 1) % $loyalty_block as block_position,
+    from events
+),
+
+summed as (
+    select
+        *,
+        sum(weight * pow($smoothing, -block_position)) over (
+            partition by chooser, alternative, block order by purchase_rank
+            rows between unbounded preceding and current row
+        ) as block_sum,
+    from blocked
+),
+
+block_totals as (
+    select
+        chooser,
+        alternative,
+        block,
+        max_by(block_sum, purchase_rank) as block_total,
+    from summed
+    group by chooser, alternative, block
+),
+
+final as (
+    select
+        summed.chooser,
+        summed.alternative,
+        summed.purchase_rank,
+        summed.block,
+        summed.block_sum,
+        coalesce(block_totals.block_total, 0.0) as previous_block_total,
+    from summed
+    left join block_totals
+        on block_totals.chooser = summed.chooser
+        and block_totals.alternative = summed.alternative
+        and block_totals.block = summed.block - 1
+)
+
+select chooser, alternative, purchase_rank, block, block_sum, previous_block_total from final;

@@ -1,0 +1,118 @@
+-- Loyalty of every alternative the chooser has bought (or started with), for each number n of
+-- purchases after the burn-in window, from the closed form prepared in 047; alternatives never
+-- bought have loyalty 0. Each purchase of an alternative (and the start before its first one)
+-- holds until the next purchase of it, so its block sums are spread over that stretch of n:
+--   L_j(n) = lambda^n L_j(0)
+--          + (1 - lambda) lambda^p * (running sum of block b)
+--          + (1 - lambda) lambda^(p + 1) * lambda^(B - 1) * (total of block b - 1)
+-- where the latest purchase before n sits at position p = (n - 1) % B of block b = (n - 1) // B.
+create or replace table choice_visit_loyalty as
+
+with
+
+chooser_ranks as (
+    select chooser, max(loyalty_rank) as last_rank
+    from choice_visit_history
+    where not burn_in
+    group by chooser
+),
+
+first_purchases as (
+    select chooser, alternative, min(purchase_rank) as first_rank
+    from choice_loyalty_events
+    group by chooser, alternative
+),
+
+start_stretches as (
+    select
+        choice_loyalty_start.chooser,
+        choice_loyalty_start.alternative,
+        0 as from_rank,
+        coalesce(first_purchases.first_rank - 1, chooser_ranks.last_rank) as to_rank,
+        cast(null as bigint) as event_block,
+        0.0 as block_sum,
+        0.0 as previous_block_total,
+    from choice_loyalty_start
+    join chooser_ranks using (chooser)
+    left join first_purchases using (chooser, alternative)
+),
+
+purchase_stretches as (
+    select
+        choice_loyalty_events.chooser,
+        choice_loyalty_events.alternative,
+        choice_loyalty_events.purchase_rank as from_rank,
+        least(
+            coalesce(
+                lead(choice_loyalty_events.purchase_rank) over (
+                    partition by choice_loyalty_events.chooser, choice_loyalty_events.alternative
+                    order by choice_loyalty_events.purchase_rank
+                ) - 1,
+                chooser_ranks.last_rank
+            ),
+            chooser_ranks.last_rank
+        ) as to_rank,
+        choice_loyalty_events.block as event_block,
+        choice_loyalty_events.block_sum,
+        choice_loyalty_events.previous_block_total,
+    from choice_loyalty_events
+    join chooser_ranks using (chooser)
+),
+
+stretches as (
+    select * from start_stretches
+    union all
+    select * from purchase_stretches
+),
+
+ranks as (
+    select
+        chooser,
+        alternative,
+        event_block,
+        block_sum,
+        previous_block_total,
+        unnest(range(from_rank, to_rank + 1)) as loyalty_rank,
+    from stretches
+    where to_rank >= from_rank
+),
+
+valued as (
+    select
+        ranks.chooser,
+        ranks.loyalty_rank,
+        ranks.alternative,
+        pow($smoothing, ranks.loyalty_rank) * coalesce(choice_loyalty_start.start_loyalty, 0.0)
+        + case when ranks.loyalty_rank = 0 then 0.0 else
+            (1 - $smoothing) * (
+                pow($smoothing, (ranks.loyalty_rank - 1) % $loyalty_block) * case
+                    when ranks.event_block = (ranks.loyalty_rank - 1) // $loyalty_block
+                        then ranks.block_sum
+                    else 0.0
+                end
+                + pow($smoothing, (ranks.loyalty_rank - 1) % $loyalty_block + 1) * (
+                    pow($smoothing, $loyalty_block - 1) * case
+                        when ranks.event_block = (ranks.loyalty_rank - 1) // $loyalty_block
+                            then ranks.previous_block_total
+                        when ranks.event_block = (ranks.loyalty_rank - 1) // $loyalty_block - 1
+                            then ranks.block_sum
+                        else 0.0
+                    end
+                )
+            )
+        end as loyalty,
+    from ranks
+    left join choice_loyalty_start using (chooser, alternative)
+),
+
+final as (
+    select
+        chooser,
+        loyalty_rank,
+        -- a map is looked up by key, so the order of its entries does not matter
+        map_from_entries(list({'key': alternative, 'value': loyalty})) as loyalty_by_alternative,
+    from valued
+    group by chooser, loyalty_rank
+)
+
+select chooser, loyalty_rank, loyalty_by_alternative from final;

@@ -1,0 +1,31 @@
+-- Median net unit price paid per store, market period and alternative (all receipts).
+create or replace table choice_store_period_prices as
+
+with
+
+sale_lines as (
+    select
+        choice_sales.store,
+        choice_calendar.period_start,
+        choice_sales.alternative,
+        choice_sales.net_amount / choice_sales.quantity as unit_price,
+        choice_sales.discounted,
+    from choice_sales
+    join choice_calendar using (day)
+    where choice_sales.line_kind = 'sale'
+        and choice_sales.quantity > 0
+        and choice_sales.alternative is not null
+),
+
+final as (
+    select
+        store,
+        period_start,
+        alternative,
+        median(unit_price) as unit_price,
+        avg(cast(discounted as double)) as discount_share,
+    from sale_lines
+    group by store, period_start, alternative
+)
+
+select store, period_start, alternative, unit_price, discount_share from final;

@@ -1,0 +1,124 @@
+-- One row per occasion with everything its rows need but prices and attributes: the choice set
+-- as a sorted list (the store-day's set, plus the chosen alternative when it was missing from
+-- it), sampled when choices.sampled_alternatives is set, and the history from earlier
+-- occasions (previous purchase, loyalty by alternative, counts).
+-- Sampling keeps the chosen alternative plus $sample_size others drawn uniformly without
+-- replacement (McFadden 1978: conditional logit on such sets stays consistent): the others are
+-- ordered by md5(occasion, alternative), so the draw is fixed by the occasion on every rebuild.
+create or replace table choice_occasion_sets as
+
+with
+
+previous_purchases as (
+    -- only ever searched with list_contains, so the order of the list does not matter
+    select visit, list(chosen_alternative) as alternatives
+    from choice_occasions
+    where is_purchase
+    group by visit
+),
+
+occasions as (
+    select
+        choice_occasions.occasion,
+        choice_occasions.visit,
+        choice_occasions.chooser,
+        choice_occasions.store,
+        choice_occasions.occasion_at,
+        choice_occasions.day,
+        choice_occasions.chosen_alternative,
+        choice_occasions.is_purchase,
+        choice_occasions.quantity,
+        choice_occasions.spend,
+        coalesce(choice_store_day_sets.alternatives, []) as store_day_set,
+        choice_visit_history.burn_in,
+        choice_visit_history.purchase_count,
+        choice_visit_history.days_since_last_purchase,
+        coalesce(previous_purchases.alternatives, []) as previous_alternatives,
+        choice_visit_loyalty.loyalty_by_alternative,
+    from choice_occasions
+    left join choice_store_day_sets using (store, day)
+    join choice_visit_history using (visit)
+    left join previous_purchases
+        on previous_purchases.visit = choice_visit_history.last_purchase_visit
+    left join choice_visit_loyalty
+        on choice_visit_loyalty.chooser = choice_occasions.chooser
+        and choice_visit_loyalty.loyalty_rank = choice_visit_history.loyalty_rank
+),
+
+full_sets as (
+    select
+        *,
+        not list_contains(store_day_set, chosen_alternative) as chosen_added,
+        case
+            when list_contains(store_day_set, chosen_alternative) then store_day_set
+            else list_sort(list_append(store_day_set, chosen_alternative))
+        end as full_set,
+    from occasions
+),
+
+sampled_sets as (
+    select
+        *,
+        len(full_set) as choice_set_size,
+        $sample_size is not null and len(full_set) > $sample_size + 1 as sampled,
+        case
+            when $sample_size is null or len(full_set) <= $sample_size + 1 then full_set
+            else list_sort(list_append(
+                list_slice(
+                    list_transform(
+                        list_sort(list_transform(
+                            list_filter(full_set, lambda a: a <> chosen_alternative),
+                            lambda a: [md5(occasion || chr(31) || a), a]
+                        )),
+                        lambda drawn: drawn[2]
+                    ),
+                    1,
+                    $sample_size
+                ),
+                chosen_alternative
+            ))
+        end as alternatives,
+    from full_sets
+),
+
+final as (
+    select
+        occasion,
+        chooser,
+        store,
+        occasion_at,
+        day,
+        chosen_alternative,
+        quantity,
+        spend,
+        chosen_added,
+        choice_set_size,
+        sampled,
+        alternatives,
+        burn_in,
+        purchase_count,
+        days_since_last_purchase,
+        previous_alternatives,
+        loyalty_by_alternative,
+    from sampled_sets
+)
+
+select
+    occasion,
+    chooser,
+    store,
+    occasion_at,
+    day,
+    chosen_alternative,
+    quantity,
+    spend,
+    chosen_added,
+    choice_set_size,
+    sampled,
+    alternatives,
+    burn_in,
+    purchase_count,
+    days_since_last_purchase,
+    previous_alternatives,
+    loyalty_by_alternative,
+from final;

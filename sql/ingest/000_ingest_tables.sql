@@ -1,0 +1,47 @@
+-- the ingest's own tables; created once, never dropped by a run
+create table if not exists raw_lines (
+    file_id varchar not null,
+    line_no bigint not null,
+    receipt varchar not null,
+    line bigint,
+    store varchar not null,
+    sold_at timestamp not null,
+    sku varchar not null,
+    quantity double not null,
+    amount double not null,
+    discount double not null,
+    card varchar,
+    line_kind varchar not null,
+);
+
+create table if not exists quarantine (
+    file_id varchar not null,
+    source varchar not null,
+    path varchar not null,
+    line_no bigint,
+    reason varchar not null,
+    detail varchar,
+    original_text varchar,
+);
+
+create table if not exists ledger (
+    file_id varchar not null,
+    source varchar not null,
+    path varchar not null,
+    version bigint not null,
+    bytes bigint not null,
+    sha256 varchar not null,
+    first_sold_at timestamp,
+    last_sold_at timestamp,
+    rows_read bigint not null,
+    rows_accepted bigint not null,
+    rows_quarantined bigint not null,
+    status varchar not null,
+    ingested_at timestamp not null,
+);
+
+create table if not exists ledger_reasons (
+    file_id varchar not null,
+    reason varchar not null,
+    rows bigint not null,
+);

@@ -1,0 +1,161 @@
+-- every receipt line of one batch of files, typed, with the first rule it breaks (reason null = accepted);
+-- duplicates are found afterwards among the accepted lines (030)
+create temp table ingest_checked as
+with
+
+source_lines as (
+    select * from ingest_source_lines
+),
+
+store_timezones as (
+    select store, timezone from ingest_store_timezones
+),
+
+trimmed as (
+    select
+        ordinal,
+        path,
+        line_no,
+        nullif(trim(receipt), '') as receipt,
+        nullif(trim(line), '') as line_text,
+        nullif(trim(store), '') as store,
+        nullif(trim(sold_at), '') as sold_at_text,
+        nullif(trim(sku), '') as sku,
+        nullif(trim(quantity), '') as quantity_text,
+        nullif(trim(amount), '') as amount_text,
+        nullif(trim(discount), '') as discount_text,
+        nullif(trim(card), '') as card,
+        coalesce(lower(nullif(trim(line_kind), '')), 'sale') as line_kind,
+    from source_lines
+),
+
+typed as (
+    select
+        *,
+        try_cast(line_text as bigint) as line,
+        case
+            when $timestamp_format is null then try_cast(sold_at_text as timestamp)
+            else try_strptime(sold_at_text, $timestamp_format)
+        end as sold_at_written,
+        ingest_number(quantity_text, $decimal) as quantity,
+        ingest_number(amount_text, $decimal) as amount,
+        ingest_number(discount_text, $decimal) as discount,
+    from trimmed
+),
+
+-- written in the source's timezone when one is configured: convert to the store's local time
+localised as (
+    select
+        typed.*,
+        case
+            when $source_timezone is null then sold_at_written
+            else timezone(
+                coalesce(store_timezones.timezone, $source_timezone),
+                timezone($source_timezone, sold_at_written)
+            )
+        end as sold_at,
+    from typed
+    left join store_timezones on store_timezones.store = typed.store
+),
+
+known_stores as (
+    select distinct store from stores
+),
+
+known_skus as (
+    select distinct sku from catalogue
+),
+
+flagged as (
+    select
+        localised.*,
+        known_stores.store is not null as store_known,
+        known_skus.sku is not null as sku_known,
+    from localised
+    left join known_stores on known_stores.store = localised.store
+    left join known_skus on known_skus.sku = localised.sku
+),
+
+classified as (
+    select
+        *,
+        case
+            when receipt is null or store is null or sold_at_text is null or sku is null
+                or quantity_text is null or amount_text is null
+                then 'missing_required_field'
+            when (line_text is not null and line is null)
+                or sold_at is null
+                or quantity is null
+                or amount is null
+                or (discount_text is not null and discount is null)
+                then 'unparseable_field'
+            when line_kind not in ('sale', 'return', 'void') then 'unknown_line_kind'
+            when sold_at < $valid_from or sold_at >= $valid_until then 'timestamp_out_of_range'
+            when line_kind = 'sale' and quantity <= 0 then 'non_positive_quantity'
+            when line_kind = 'sale' and amount < 0 then 'negative_amount'
+            when line_kind = 'return' and (quantity >= 0 or amount > 0) then 'return_not_negative'
+            when not store_known then 'unknown_store'
+            when not sku_known then 'unknown_sku'
+        end as reason,
+    from flagged
+),
+
+final as (
+    select
+        ordinal,
+        path,
+        line_no,
+        receipt,
+        line,
+        store,
+        sold_at,
+        sku,
+        quantity,
+        amount,
+        coalesce(discount, 0) as discount,
+        card,
+        line_kind,
+        reason,
+        case reason
+            when 'missing_required_field' then 'empty: ' || concat_ws(', ',
+                case when receipt is null then 'receipt' end,
+                case when store is null then 'store' end,
+                case when sold_at_text is null then 'sold_at' end,
+                case when sku is null then 'sku' end,
+                case when quantity_text is null then 'quantity' end,
+                case when amount_text is null then 'amount' end)
+            when 'unparseable_field' then concat_ws('; ',
+                case when line_text is not null and line is null then 'line=' || line_text end,
+                case when sold_at is null then 'sold_at=' || sold_at_text end,
+                case when quantity is null then 'quantity=' || quantity_text end,
+                case when amount is null then 'amount=' || amount_text end,
+                case when discount_text is not null and discount is null
+                    then 'discount=' || discount_text end)
+            when 'unknown_line_kind' then 'line_kind=' || line_kind
+            when 'timestamp_out_of_range' then 'sold_at=' || strftime(sold_at, '%Y-%m-%d %H:%M:%S')
+            when 'non_positive_quantity' then 'quantity=' || quantity_text
+            when 'negative_amount' then 'amount=' || amount_text
+            when 'return_not_negative' then 'quantity=' || quantity_text || ', amount=' || amount_text
+            when 'unknown_store' then 'store=' || store
+            when 'unknown_sku' then 'sku=' || sku
+        end as detail,
+    from classified
+)
+
+select
+    ordinal,
+    path,
+    line_no,
+    receipt,
+    line,
+    store,
+    sold_at,
+    sku,
+    quantity,
+    amount,
+    discount,
+    card,
+    line_kind,
+    reason,
+    detail,
+from final

@@ -1,0 +1,101 @@
+-- accepted lines that repeat one already accepted: the same store, sale day, receipt and line
+-- earlier in this batch (same file or an earlier file) or in raw_lines (an earlier run); a line
+-- without a line number repeats when its receipt (store, day, receipt) was already accepted
+-- from another file
+create temp table ingest_duplicates as
+with
+
+candidates as (
+    select
+        ordinal,
+        path,
+        store,
+        sold_at::date as sale_day,
+        receipt,
+        line,
+    from ingest_checked
+    where reason is null
+),
+
+-- only the days this batch covers: raw_lines is appended in time order, so this prunes
+accepted_before as (
+    select
+        store,
+        sold_at::date as sale_day,
+        receipt,
+        line,
+    from raw_lines
+    where sold_at >= $first_day and sold_at < $after_last_day
+),
+
+-- a cheap first pass on one hashed key; the exact rule then runs on the few keys it keeps
+keyed as (
+    select
+        *,
+        hash(store, sale_day, receipt, line) as key_hash,
+    from candidates
+    where line is not null
+),
+
+hashes_seen_twice as (
+    select key_hash
+    from keyed
+    group by all
+    having count(*) > 1
+),
+
+repeated_in_batch as (
+    select ordinal
+    from keyed
+    semi join hashes_seen_twice using (key_hash)
+    qualify row_number() over (
+        partition by store, sale_day, receipt, line order by ordinal
+    ) > 1
+),
+
+receipt_in_earlier_file as (
+    select
+        ordinal,
+        row_number() over (
+            partition by store, sale_day, receipt order by ordinal
+        ) as copy,
+        first_value(path) over (
+            partition by store, sale_day, receipt order by ordinal
+        ) as first_path,
+        path,
+    from candidates
+    where line is null
+),
+
+line_in_earlier_run as (
+    select candidates.ordinal
+    from candidates
+    semi join accepted_before
+        on accepted_before.store = candidates.store
+        and accepted_before.sale_day = candidates.sale_day
+        and accepted_before.receipt = candidates.receipt
+        and accepted_before.line = candidates.line
+    where candidates.line is not null
+),
+
+receipt_in_earlier_run as (
+    select candidates.ordinal
+    from candidates
+    semi join accepted_before
+        on accepted_before.store = candidates.store
+        and accepted_before.sale_day = candidates.sale_day
+        and accepted_before.receipt = candidates.receipt
+    where candidates.line is null
+),
+
+final as (
+    select ordinal from repeated_in_batch
+    union
+    select ordinal from receipt_in_earlier_file where path <> first_path
+    union
+    select ordinal from line_in_earlier_run
+    union
+    select ordinal from receipt_in_earlier_run
+)
+
+select ordinal from final

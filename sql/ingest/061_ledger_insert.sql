@@ -1,0 +1,18 @@
+-- one ledger row per file version of the batch
+insert into ledger
+select
+    files.file_id,
+    files.source,
+    files.path,
+    files.version,
+    files.bytes,
+    files.sha256,
+    counts.first_sold_at,
+    counts.last_sold_at,
+    counts.rows_read,
+    counts.rows_accepted,
+    counts.rows_quarantined,
+    'current' as status,
+    $ingested_at as ingested_at,
+from ingest_batch_files as files
+join ingest_file_counts as counts using (file_id)

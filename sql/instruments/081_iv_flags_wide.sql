@@ -1,0 +1,18 @@
+-- One boolean column per instrument flag (e.g. iv_hausman_missing).
+create or replace table iv_flags_wide as
+
+with
+
+flag_rows as (
+    select
+        market,
+        product,
+        flag,
+        value,
+    from instrument_flags
+)
+
+pivot flag_rows
+on flag
+using first(value)
+group by market, product

@@ -1,0 +1,24 @@
+-- What export writes per assumption: every shares row with its instruments. Fringe rows and
+-- zero-share rows without an instruments row keep null iv_ columns.
+create or replace table share_table as
+
+with
+
+share_rows as (
+    select * from shares
+),
+
+instrument_rows as (
+    select * from instruments
+),
+
+final as (
+    select
+        share_rows.*,
+        instrument_rows.* exclude (market, product),
+    from share_rows
+    left join instrument_rows using (market, product)
+)
+
+select * from final
+order by assumption, market, product

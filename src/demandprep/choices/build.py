@@ -1,0 +1,194 @@
+"""The chooser-alternative build's stage functions: each runs static SQL from sql/choices/.
+
+Order: inputs (alternatives, shelf prices, category lines) -> occasions (visits, pseudonyms,
+multiple-purchase policy) -> history (previous purchase, loyalty) -> sets (availability,
+sampling, prices, attributes) -> choosers -> choices (assembled, validated, counted).
+Everything long-table-sized is streamed: the per-occasion table choice_occasion_sets is
+sorted once, and `choices` unnests it joined only to small tables, keeping its order.
+Intermediate tables are named choice_*; the last stage drops them, the card -> chooser map first.
+"""
+
+from __future__ import annotations
+
+from demandprep.choices.facts import choice_facts, warn_on_facts
+from demandprep.choices.pseudonyms import build_pseudonym_table, is_short_key, pseudonym_key
+from demandprep.choices.settings import FRINGE, OUTSIDE, ChoiceSettings, load_choice_settings
+from demandprep.choices.validation import insertion_order_kept, validate_by_occasion
+from demandprep.context import BuildContext
+from demandprep.errors import UserError
+from demandprep.schemas.choices import Choices, Choosers
+from demandprep.sqlfiles import run_sql
+from demandprep.validate import validate_table
+
+INTERMEDIATE_TABLES = (
+    "choice_pseudonyms",
+    "choice_universe",
+    "choice_sku_products",
+    "choice_alternative_map",
+    "choice_shelf",
+    "choice_sales",
+    "choice_calendar",
+    "choice_store_regions",
+    "choice_visits",
+    "choice_visit_purchases",
+    "choice_occasions",
+    "choice_visit_history",
+    "choice_loyalty_start",
+    "choice_loyalty_events",
+    "choice_store_day_sales",
+    "choice_store_period_prices",
+    "choice_region_period_prices",
+    "choice_store_days",
+    "choice_visit_loyalty",
+    "choice_set_candidates",
+    "choice_store_day_sets",
+    "choice_occasion_sets",
+    "choice_alternative_prices",
+    "choice_alternative_attributes",
+    "choice_store_day_info",
+)
+
+
+def _settings(ctx: BuildContext) -> ChoiceSettings:
+    return load_choice_settings(ctx.con, ctx.config)
+
+
+def _run(ctx: BuildContext, settings: ChoiceSettings, *names: str) -> None:
+    params = settings.params()
+    for name in names:
+        run_sql(ctx.con, f"choices/{name}.sql", params)
+
+
+def prepare_choice_inputs(ctx: BuildContext) -> None:
+    """Check settings and key; map SKUs to alternatives; stage shelf prices and category lines."""
+    settings = _settings(ctx)
+    key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
+    if is_short_key(key):
+        ctx.warn(
+            f"the pseudonym key in {ctx.config.choices.pseudonym_key_env} is shorter than 16 "
+            "bytes; a longer random key makes pseudonyms harder to reverse."
+        )
+    if not settings.has_universe:
+        ctx.warn(
+            "no product_universe table (market build): every category product is an "
+            "alternative of its own in the choice build."
+        )
+    _run(ctx, settings, *_input_files(settings))
+    _check_reserved_alternatives(ctx)
+    _check_universe_matches(ctx, settings)
+
+
+def _input_files(settings: ChoiceSettings) -> list[str]:
+    # each optional input (market build, shelf file and its promo column, store regions) has a
+    # variant of its SQL file, so no file has to test for a table or column that may be absent
+    shelf = "015_choice_shelf_empty"
+    if settings.has_shelf_prices:
+        shelf = "015_choice_shelf" if settings.shelf_has_promo else "015_choice_shelf_without_promo"
+    return [
+        "005_choice_universe" if settings.has_universe else "005_choice_universe_without_market",
+        "008_choice_sku_products_from_market"
+        if settings.has_market_skus
+        else "008_choice_sku_products",
+        "010_choice_alternative_map",
+        shelf,
+        "020_choice_sales",
+        "025_choice_calendar",
+        "027_choice_store_regions"
+        if settings.has_region
+        else "027_choice_store_regions_without_region",
+    ]
+
+
+def _check_reserved_alternatives(ctx: BuildContext) -> None:
+    clash = ctx.con.execute(
+        "select min(product) from choice_alternative_map where product in ($outside, $fringe)",
+        {"outside": OUTSIDE, "fringe": FRINGE},
+    ).fetchone()[0]
+    if clash is not None:
+        raise UserError(
+            f"a product of the catalogue is named {clash!r}, the name the choice build gives "
+            "the outside option or the composite of the other products.",
+            "change that product's key values in the catalogue.",
+        )
+
+
+def _check_universe_matches(ctx: BuildContext, settings: ChoiceSettings) -> None:
+    if not settings.has_universe:
+        return
+    unmatched = ctx.con.execute(
+        "select count(*) from choice_universe where kept "
+        "and product not in (select product from choice_alternative_map)"
+    ).fetchone()[0]
+    if unmatched:
+        ctx.warn(
+            f"{unmatched} kept products of product_universe match no catalogue SKU of the "
+            "category in the choice build (product ids built differently?)."
+        )
+
+
+def build_choice_occasions(ctx: BuildContext) -> None:
+    """Card visits, chooser pseudonyms and the occasions after the multiple-purchase policy."""
+    settings = _settings(ctx)
+    _run(ctx, settings, "030_choice_visits")
+    key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
+    build_pseudonym_table(ctx.con, key, ctx.config.choices.holdout_fraction)
+    _run(ctx, settings, "035_choice_visit_purchases", "040_choice_occasions")
+
+
+def build_choice_history(ctx: BuildContext) -> None:
+    """Each occasion's history from earlier occasions: previous purchase, counts, loyalty."""
+    settings = _settings(ctx)
+    _run(
+        ctx,
+        settings,
+        "045_choice_visit_history",
+        "046_choice_loyalty_start",
+        "047_choice_loyalty_events",
+        "048_choice_visit_loyalty",
+    )
+
+
+def build_choice_sets(ctx: BuildContext) -> None:
+    """Choice sets per occasion (sampled if configured) and alternative prices and attributes."""
+    settings = _settings(ctx)
+    _run(
+        ctx,
+        settings,
+        "050_choice_store_day_sales",
+        "052_choice_store_period_prices",
+        "054_choice_region_period_prices",
+        "055_choice_store_days",
+        "060_choice_set_candidates",
+        "061_choice_store_day_sets",
+        "062_choice_occasion_sets",
+        "070_choice_alternative_prices",
+        "075_choice_alternative_attributes",
+        "078_choice_store_day_info",
+    )
+
+
+def build_choosers(ctx: BuildContext) -> None:
+    """The choosers table (pseudonym, holdout, demographics, counts), validated."""
+    settings = _settings(ctx)
+    name = "080_choosers" if settings.has_households else "080_choosers_without_households"
+    _run(ctx, settings, name)
+    validate_table(ctx.con, "choosers", Choosers)
+
+
+def build_choices(ctx: BuildContext) -> None:
+    """The long choices table, validated by whole occasions; records facts and cleans up."""
+    settings = _settings(ctx)
+    # rows leave the unnest occasion by occasion; keep them in that order on disk
+    with insertion_order_kept(ctx.con):
+        _run(ctx, settings, "090_choices")
+    validate_by_occasion(ctx.con, "choices", Choices)
+    facts = choice_facts(ctx.con, ctx.config)
+    ctx.facts["choices"] = facts
+    warn_on_facts(ctx, facts)
+    drop_intermediate_tables(ctx)
+
+
+def drop_intermediate_tables(ctx: BuildContext) -> None:
+    """Drop the choice_* working tables (the card -> chooser map first)."""
+    for table in INTERMEDIATE_TABLES:
+        ctx.con.execute(f"drop table if exists {table}")

@@ -1,0 +1,200 @@
+"""Write every file of one build into its staging folder: data, dictionary, report, manifest."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+
+import pandas as pd
+
+from demandprep.context import BuildContext
+from demandprep.export import csv_safe, stata
+from demandprep.export.dictionary import (
+    ColumnEntry,
+    ModelMap,
+    NoteMap,
+    dictionary_document,
+    document_columns,
+    schema_models,
+    step_notes,
+    write_dictionary,
+)
+from demandprep.export.manifest import OutputFile, build_manifest, write_manifest
+from demandprep.export.parquet import write_query_parquet
+from demandprep.export.quick_logit import LogitEstimate, quick_logit
+from demandprep.export.report import ReportInputs, write_report
+from demandprep.export.tables import OutputTable, output_query, plan_outputs
+
+
+@dataclass
+class BuildOutputs:
+    """What `write_build` wrote: the folder, its data files and everything else it holds."""
+
+    folder: Path
+    build_id: str
+    built_at: datetime
+    tables: list[OutputFile] = field(default_factory=list)
+    others: list[OutputFile] = field(default_factory=list)
+    estimates: list[LogitEstimate] = field(default_factory=list)
+    manifest: Path | None = None
+
+
+def write_build(
+    ctx: BuildContext,
+    staging_dir: Path,
+    built_at: datetime | None = None,
+    models: ModelMap | None = None,
+) -> BuildOutputs:
+    """Write the whole build into `staging_dir` (named by the build id); the manifest comes last."""
+    built = BuildOutputs(staging_dir, staging_dir.name, built_at or datetime.now(UTC))
+    models = schema_models() if models is None else models
+    notes = step_notes(ctx.con, ctx.config)
+    entries: dict[str, list[tuple[ColumnEntry, str]]] = {}
+    with _timed(ctx, "export.parquet"):
+        for output in plan_outputs(ctx.con, ctx.config):
+            table, documented = write_output_table(ctx, output, staging_dir, models, notes)
+            built.tables.append(table)
+            entries[output.file_name] = documented
+    built.others += [
+        OutputFile(path) for path in write_dictionary(staging_dir, dictionary_document(entries))
+    ]
+    with _timed(ctx, "export.extra_formats"):
+        built.others += write_extra_formats(ctx, built.tables, entries)
+    with _timed(ctx, "export.quick_logit"):
+        built.estimates = quick_logit_all(ctx)
+    with _timed(ctx, "export.report"):
+        report = write_report(
+            ctx,
+            staging_dir,
+            ReportInputs(
+                built.build_id,
+                built.built_at.isoformat(timespec="seconds"),
+                _outputs_frame(staging_dir, built.tables),
+                built.estimates,
+            ),
+        )
+    built.others.append(OutputFile(report))
+    built.manifest = write_manifest(
+        staging_dir,
+        build_manifest(
+            ctx,
+            built.build_id,
+            built.built_at,
+            staging_dir,
+            built.tables + built.others,
+            {"quick_logit": [estimate.as_dict() for estimate in built.estimates]},
+        ),
+    )
+    return built
+
+
+def write_output_table(
+    ctx: BuildContext,
+    output: OutputTable,
+    folder: Path,
+    models: ModelMap,
+    notes: NoteMap | None = None,
+) -> tuple[OutputFile, list[tuple[ColumnEntry, str]]]:
+    """Write one data file with its columns documented; returns it and its dictionary entries."""
+    query = output_query(ctx.con, output, ctx.config)
+    columns = ctx.con.sql(query.sql, params=query.params).columns
+    docs = document_columns(output.kind, columns, ctx.config, models, notes)
+    written = write_query_parquet(
+        ctx.con,
+        query.sql,
+        query.params,
+        folder / output.file_name,
+        ctx.config.export.row_group_rows,
+        {name: entry.as_metadata() for name, entry in docs.items()},
+        {
+            "demandprep.table": output.kind,
+            **{f"demandprep.{k}": v for k, v in output.metadata.items()},
+        },
+        output.sort_keys,
+    )
+    types = {item.name: str(item.type) for item in written.schema}
+    return (
+        OutputFile(written.path, written.rows, written.schema),
+        [(docs[name], types[name]) for name in columns],
+    )
+
+
+def write_extra_formats(
+    ctx: BuildContext,
+    tables: list[OutputFile],
+    entries: dict[str, list[tuple[ColumnEntry, str]]],
+) -> list[OutputFile]:
+    """CSV and Stata copies of the data files, as configured in `export.extra_formats`."""
+    written: list[OutputFile] = []
+    formats = ctx.config.export.extra_formats
+    for table in tables:
+        source = table.path.name
+        if "csv" in formats:
+            path = _subfolder(table.path, "csv") / f"{table.path.stem}.csv"
+            rows = csv_safe.write_safe_csv(table.path, path)
+            written.append(OutputFile(path, rows, table.schema, derived_from=source))
+        if "dta" in formats:
+            written += _dta_copy(ctx, table, entries[source])
+    return written
+
+
+def quick_logit_all(ctx: BuildContext) -> list[LogitEstimate]:
+    """Quick logit estimates for every assumption; a positive price coefficient is a warning."""
+    estimates = [
+        e for name in ctx.config.market_size for e in quick_logit(ctx.con, ctx.config, name)
+    ]
+    for estimate in estimates:
+        if estimate.price_coefficient > 0:
+            ctx.warn(
+                f"quick logit ({estimate.method.upper()}, assumption {estimate.assumption!r}): "
+                f"the price coefficient is positive ({estimate.price_coefficient:.3g})"
+            )
+    return estimates
+
+
+def _dta_copy(
+    ctx: BuildContext, table: OutputFile, entries: list[tuple[ColumnEntry, str]]
+) -> list[OutputFile]:
+    if not stata.dta_fits(table.path):
+        ctx.warn(
+            f"{table.path.stem}.dta not written: {table.rows} rows exceed the "
+            f"{stata.MAX_ROWS}-row limit for Stata copies; use the Parquet or CSV file"
+        )
+        return []
+    path = _subfolder(table.path, "dta") / f"{table.path.stem}.dta"
+    labels = {entry.column: entry.description for entry, _ in entries}
+    rows = stata.write_dta(table.path, path, labels)
+    return [OutputFile(path, rows, derived_from=table.path.name)]
+
+
+def _subfolder(data_file: Path, name: str) -> Path:
+    folder = data_file.parent / name
+    folder.mkdir(exist_ok=True)
+    return folder
+
+
+def _outputs_frame(folder: Path, tables: list[OutputFile]) -> pd.DataFrame:
+    return pd.DataFrame(
+        [
+            {
+                "file": table.path.relative_to(folder).as_posix(),
+                "rows": table.rows,
+                "columns": len(table.schema) if table.schema is not None else None,
+                "MB": round(table.path.stat().st_size / 1e6, 3),
+            }
+            for table in tables
+        ]
+    )
+
+
+@contextmanager
+def _timed(ctx: BuildContext, name: str) -> Iterator[None]:
+    started = time.perf_counter()
+    try:
+        yield
+    finally:
+        ctx.timings[name] = round(time.perf_counter() - started, 3)

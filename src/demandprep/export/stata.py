@@ -1,0 +1,81 @@
+"""Stata .dta copies of the Parquet files (format 118, Unicode), with the dictionary as labels.
+
+pandas writes a .dta from a whole in-memory frame, so tables above `MAX_ROWS` are not converted;
+the caller records a warning instead. The file's time stamp is fixed so the bytes are repeatable.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping
+from datetime import datetime
+from pathlib import Path
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+MAX_ROWS = 5_000_000
+STATA_VERSION = 118
+LABEL_CHARS = 80
+STR_MAX = 2045
+# Why fixed: the header's time stamp would otherwise make every rebuild differ.
+FIXED_TIME_STAMP = datetime(2000, 1, 1)
+
+
+def dta_fits(parquet_path: Path) -> bool:
+    """Whether the table is small enough to convert in memory."""
+    return pq.ParquetFile(parquet_path).metadata.num_rows <= MAX_ROWS
+
+
+def write_dta(parquet_path: Path, dta_path: Path, labels: Mapping[str, str]) -> int:
+    """Write `parquet_path` as a Stata file; column labels come from `labels`; returns rows."""
+    table = pq.read_table(parquet_path)
+    frame, convert_dates = _stata_frame(table)
+    long_text = [
+        name
+        for name in frame.columns
+        if frame[name].dtype == object and frame[name].str.len().max(skipna=True) > STR_MAX
+    ]
+    with dta_path.open("wb") as handle:
+        frame.to_stata(
+            handle,
+            write_index=False,
+            convert_dates=convert_dates,
+            time_stamp=FIXED_TIME_STAMP,
+            data_label=parquet_path.stem[:LABEL_CHARS],
+            variable_labels={
+                name: labels[name][:LABEL_CHARS] for name in frame.columns if name in labels
+            },
+            version=STATA_VERSION,
+            convert_strl=long_text or None,
+        )
+        handle.flush()
+        os.fsync(handle.fileno())
+    return table.num_rows
+
+
+def _stata_frame(table: pa.Table) -> tuple[pd.DataFrame, dict[str, str]]:
+    """A pandas frame Stata can store: booleans as 0/1 bytes, text nulls as empty strings."""
+    convert_dates: dict[str, str] = {}
+    columns: dict[str, pd.Series] = {}
+    for item in table.schema:
+        values = table.column(item.name)
+        if pa.types.is_null(item.type):
+            series = pd.Series(float("nan"), index=range(table.num_rows))
+        elif pa.types.is_boolean(item.type):
+            series = pd.Series(values.to_pandas(), dtype="Int8").astype("float64")
+            if not series.isna().any():
+                series = series.astype("int8")
+        elif pa.types.is_date(item.type):
+            series = pd.to_datetime(values.to_pandas())
+            convert_dates[item.name] = "td"
+        elif pa.types.is_timestamp(item.type):
+            series = pd.to_datetime(values.to_pandas())
+            convert_dates[item.name] = "tc"
+        elif pa.types.is_string(item.type) or pa.types.is_large_string(item.type):
+            series = pd.Series(values.to_pylist(), dtype=object).fillna("")
+        else:
+            series = values.to_pandas()
+        columns[item.name] = series
+    return pd.DataFrame(columns), convert_dates

@@ -1,0 +1,94 @@
+"""What one ingest run did, per file and in total, and its summary table for the console."""
+
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Literal
+
+from rich.table import Table
+
+FileStatus = Literal["new", "unchanged", "replaced", "failed"]
+FILE_STATUSES: tuple[FileStatus, ...] = ("new", "unchanged", "replaced", "failed")
+
+
+@dataclass(frozen=True)
+class FileResult:
+    """The outcome of one input file: its status, row counts and, when it failed, why."""
+
+    source: str
+    path: Path
+    status: FileStatus
+    file_id: str | None = None
+    rows_read: int = 0
+    rows_accepted: int = 0
+    quarantined: dict[str, int] = field(default_factory=dict)
+    error: str | None = None
+
+    @property
+    def rows_quarantined(self) -> int:
+        """Rows of this file sent to quarantine, all reasons together."""
+        return sum(self.quarantined.values())
+
+    def __str__(self) -> str:
+        # a failure's message already starts with the file's path
+        return self.error or str(self.path)
+
+
+@dataclass
+class IngestSummary:
+    """Every file's result for one run, in the order the files were ingested."""
+
+    files: list[FileResult] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        """False when any file could not be ingested (the CLI then exits non-zero)."""
+        return not self.failed
+
+    @property
+    def failed(self) -> list[FileResult]:
+        """The files that could not be ingested; each prints as its one-line error message."""
+        return [result for result in self.files if result.status == "failed"]
+
+    def count(self, status: FileStatus) -> int:
+        """How many files ended with `status`."""
+        return sum(1 for result in self.files if result.status == status)
+
+    @property
+    def rows_read(self) -> int:
+        """Rows read this run, over every file."""
+        return sum(result.rows_read for result in self.files)
+
+    @property
+    def rows_accepted(self) -> int:
+        """Rows accepted this run, over every file."""
+        return sum(result.rows_accepted for result in self.files)
+
+    @property
+    def quarantined(self) -> dict[str, int]:
+        """Rows quarantined this run, by reason, over every file."""
+        total: Counter[str] = Counter()
+        for result in self.files:
+            total.update(result.quarantined)
+        return dict(sorted(total.items()))
+
+
+def summary_table(summary: IngestSummary) -> Table:
+    """The run's summary as a rich table: files by status, then rows by outcome and reason."""
+    table = Table(title="ingest summary", show_header=True, header_style="bold")
+    table.add_column("what")
+    table.add_column("count", justify="right")
+    for status in FILE_STATUSES:
+        table.add_row(f"files {status}", f"{summary.count(status):,}")
+    table.add_section()
+    table.add_row("rows read", f"{summary.rows_read:,}")
+    table.add_row("rows accepted", f"{summary.rows_accepted:,}")
+    quarantined = summary.quarantined
+    table.add_row("rows quarantined", f"{sum(quarantined.values()):,}")
+    for reason, rows in quarantined.items():
+        table.add_row(f"  {reason}", f"{rows:,}")
+    for result in summary.failed:
+        table.add_row(f"[red]failed: {result.path.name}", "", end_section=False)
+    return table

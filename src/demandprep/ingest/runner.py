@@ -1,0 +1,295 @@
+"""Ingest every configured source: references first, then receipts, in atomic batches.
+
+New and changed files of a source are read in batches (consecutive files, up to BATCH_BYTES
+and BATCH_FILES; a large file is a batch alone), each in a single DuckDB transaction: the older
+versions' rows go, the accepted rows and the quarantined lines come in, the ledger rows are
+written, and `rows read = accepted + quarantined` is verified per file before COMMIT. A crash
+at any point leaves the warehouse as it was before the batch; the next run ingests its files
+whole. When a batch fails (a file cannot be read, or its header lacks a mapped column), it is
+rolled back and its files are retried one by one: the broken file is ledgered as failed and
+reported, the others go in. A ledger mismatch stops the run.
+
+Progress: `progress(event, **info)` is called with
+- "start": files (count of files found), bytes (total size of the files to read);
+- "file_start": source, path, status ('new'|'unchanged'|'changed'), bytes;
+- "file_step": source, path (first file of the batch), paths, step ('staged' with rows read,
+  then 'inserting' just before accepted rows are written);
+- "file_done": source, path, status ('new'|'unchanged'|'replaced'|'failed'), rows (read),
+  accepted, quarantined, error;
+- "done": summary (the IngestSummary).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from typing import Any
+
+import duckdb
+
+from demandprep.config import ProjectConfig
+from demandprep.errors import UserError
+from demandprep.ingest import ledger
+from demandprep.ingest.files import (
+    DiscoveredFile,
+    configured_sources,
+    current_versions,
+    discover_source,
+)
+from demandprep.ingest.loaders import Loader, ReceiptLoader, ReferenceLoader
+from demandprep.ingest.reader import (
+    FileUnreadable,
+    create_source_view,
+    drop_staging,
+    file_columns,
+    first_line,
+    map_columns,
+    render_quarantined,
+    stage_files,
+)
+from demandprep.ingest.receipts import prepare_receipts
+from demandprep.ingest.references import (
+    REFERENCE_SPECS,
+    layout_changed,
+    reset_reference,
+    table_columns,
+)
+from demandprep.ingest.results import FileResult, IngestSummary, summary_table
+from demandprep.sqlfiles import run_sql
+
+BATCH_BYTES = 64 * 1024 * 1024
+BATCH_FILES = 256
+
+Progress = Callable[..., Any]
+
+__all__ = [
+    "DiscoveredFile",
+    "FileResult",
+    "IngestSummary",
+    "Progress",
+    "discover_files",
+    "ensure_tables",
+    "ingest_all",
+    "ingest_batch",
+    "ingest_file",
+    "summary_table",
+]
+
+
+def ensure_tables(con: duckdb.DuckDBPyConnection) -> None:
+    """Create the ingest's tables and session macros when missing."""
+    con.execute("set enable_progress_bar = false")  # the CLI draws its own progress
+    run_sql(con, "ingest/000_ingest_tables.sql")
+    run_sql(con, "ingest/005_ingest_macros.sql")
+
+
+def discover_files(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[DiscoveredFile]:
+    """Every input file of every source, in load order, as new, unchanged or changed."""
+    ensure_tables(con)
+    known = current_versions(con)
+    found = []
+    for name, source in configured_sources(config):
+        spec = REFERENCE_SPECS.get(name)
+        reload_all = spec is not None and layout_changed(con, spec, source)
+        found += discover_source(name, source.resolved_files(), known, reload_all)
+    return found
+
+
+def ingest_all(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig, progress: Progress | None = None
+) -> IngestSummary:
+    """Ingest every new or changed file of every source; returns what happened to each file."""
+    notify = progress or _ignore
+    ensure_tables(con)
+    _reset_changed_layouts(con, config)
+    discovered = discover_files(con, config)
+    to_read = [item for item in discovered if item.status != "unchanged"]
+    notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
+    summary = IngestSummary()
+    for item in discovered:
+        if item.status == "unchanged":
+            _report(notify, summary, _unchanged(item))
+    receipts_prepared = False
+    for batch in batches(to_read):
+        if batch[0].source == "receipts" and not receipts_prepared:
+            prepare_receipts(con, config)  # after the stores are loaded: their timezones
+            receipts_prepared = True
+        for item in batch:
+            notify(
+                "file_start",
+                source=item.source,
+                path=item.path,
+                status=item.status,
+                bytes=item.bytes,
+            )
+        for result in ingest_batch(con, config, batch, progress=notify):
+            _report(notify, summary, result)
+    notify("done", summary=summary)
+    return summary
+
+
+def _report(notify: Progress, summary: IngestSummary, result: FileResult) -> None:
+    summary.files.append(result)
+    notify(
+        "file_done",
+        source=result.source,
+        path=result.path,
+        status=result.status,
+        rows=result.rows_read,
+        accepted=result.rows_accepted,
+        quarantined=result.rows_quarantined,
+        error=result.error,
+    )
+
+
+def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
+    """Consecutive files of one source, up to BATCH_BYTES and BATCH_FILES per batch."""
+    batch: list[DiscoveredFile] = []
+    size = 0
+    for item in files:
+        full = len(batch) >= BATCH_FILES or size + item.bytes > BATCH_BYTES
+        if batch and (item.source != batch[0].source or full):
+            yield batch
+            batch, size = [], 0
+        batch.append(item)
+        size += item.bytes
+    if batch:
+        yield batch
+
+
+def _reset_changed_layouts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
+    for name, source in configured_sources(config):
+        spec = REFERENCE_SPECS.get(name)
+        if spec is not None and layout_changed(con, spec, source):
+            reset_reference(con, spec)
+
+
+def loader_for(config: ProjectConfig, source_name: str) -> Loader:
+    """The loader of one configured source."""
+    source = getattr(config.sources, source_name)
+    if source_name == "receipts":
+        return ReceiptLoader(source, config)
+    return ReferenceLoader(source, REFERENCE_SPECS[source_name])
+
+
+def ingest_file(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    discovered: DiscoveredFile,
+    progress: Progress | None = None,
+) -> FileResult:
+    """Load one discovered file in its own transaction; an unchanged file is left alone."""
+    if discovered.status == "unchanged":
+        return _unchanged(discovered)
+    return ingest_batch(con, config, [discovered], progress)[0]
+
+
+def ingest_batch(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    files: list[DiscoveredFile],
+    progress: Progress | None = None,
+) -> list[FileResult]:
+    """Load new or changed files of one source in one transaction (file by file if it fails)."""
+    ensure_tables(con)
+    loader = loader_for(config, files[0].source)
+    con.execute("begin transaction")
+    try:
+        if files[0].source == "receipts":
+            _ensure_receipt_settings(con, config)
+        results = _load_batch(con, loader, files, progress or _ignore)
+        con.execute("commit")
+    except (FileUnreadable, UserError, duckdb.Error) as error:
+        con.execute("rollback")
+        if len(files) > 1:
+            return [item for one in files for item in ingest_batch(con, config, [one], progress)]
+        return [_failed(con, files[0], error)]
+    except BaseException:
+        con.execute("rollback")
+        raise
+    finally:
+        drop_staging(con)
+    return results
+
+
+def _load_batch(
+    con: duckdb.DuckDBPyConnection,
+    loader: Loader,
+    files: list[DiscoveredFile],
+    notify: Progress,
+) -> list[FileResult]:
+    source, first = loader.source, files[0].path
+    columns = file_columns(con, first, source)
+    mapped = map_columns(first, columns, source.columns, source.header)
+    batch = ledger.assign_versions(con, files[0].source, files)
+    ledger.create_batch_table(con, batch)
+    if any(item.previous_file_id for item in files):
+        _remove_previous(con, loader)
+    step = {"source": files[0].source, "path": first, "paths": [item.path for item in files]}
+    rows = stage_files(con, [item.path for item in files], source, columns, mapped)
+    notify("file_step", step="staged", rows=rows, **step)
+    create_source_view(con, mapped, loader.names())
+    loader.check(con, first, mapped)
+    render_quarantined(con, columns, source)
+    notify("file_step", step="inserting", **step)
+    loader.insert(con)
+    run_sql(con, "ingest/050_quarantine_insert.sql")
+    ids = ledger.id_range(batch)
+    loader.count_accepted(con, ids)
+    counts = ledger.count_batch(con, batch)
+    ledger.check_balance(batch, counts)
+    loader.validate(con, ids)
+    ledger.record_batch(con, batch)
+    ledger.validate_batch(con, ids)
+    return [_loaded(item, counts[item.file_id]) for item in batch]
+
+
+def _remove_previous(con: duckdb.DuckDBPyConnection, loader: Loader) -> None:
+    loader.remove_previous(con)
+    con.execute(
+        "delete from quarantine where file_id in (select previous_file_id "
+        "from ingest_batch_files where previous_file_id is not null)"
+    )
+    ledger.supersede_previous(con)
+
+
+def _loaded(item: ledger.BatchFile, counts: ledger.FileCounts) -> FileResult:
+    found = item.discovered
+    return FileResult(
+        found.source,
+        found.path,
+        "replaced" if found.previous_file_id else "new",
+        item.file_id,
+        counts.rows_read,
+        counts.rows_accepted,
+        counts.quarantined,
+    )
+
+
+def _unchanged(item: DiscoveredFile) -> FileResult:
+    return FileResult(item.source, item.path, "unchanged", file_id=item.previous_file_id)
+
+
+def _ensure_receipt_settings(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
+    missing = [name for name in ("catalogue", "stores") if not table_columns(con, name)]
+    if missing:
+        raise UserError(
+            f"the {' and '.join(missing)} table is not loaded, so receipts cannot be checked.",
+            "fix the reference file reported above and run ingest again.",
+        )
+    exists = con.execute(
+        "select count(*) from duckdb_tables() where table_name = 'ingest_store_timezones'"
+    ).fetchone()[0]
+    if not exists:
+        prepare_receipts(con, config)
+
+
+def _failed(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, error: Exception) -> FileResult:
+    message = error.one_line() if isinstance(error, UserError) else first_line(error)
+    if not message.startswith(str(item.path)):
+        message = f"{item.path}: {message}"
+    file_id = ledger.record_failure(con, item)
+    return FileResult(item.source, item.path, "failed", file_id, error=message)
+
+
+def _ignore(event: str, **info: Any) -> None:
+    """The default progress callback: nothing to show."""

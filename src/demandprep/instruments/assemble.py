@@ -1,0 +1,56 @@
+"""Pivot the long instrument rows into iv_ columns and join them to the shares."""
+
+from __future__ import annotations
+
+from demandprep.context import BuildContext
+from demandprep.instruments.columns import require_table
+from demandprep.schemas.instruments import (
+    InstrumentColumnsModel,
+    InstrumentsModel,
+    ShareTableModel,
+)
+from demandprep.sqlfiles import run_sql
+from demandprep.validate import validate_table
+
+
+def assemble_instruments(ctx: BuildContext) -> None:
+    """Build `instruments` (one row per inside product-market) and `instrument_columns`."""
+    run_sql(ctx.con, "instruments/080_iv_values_wide.sql")
+    run_sql(ctx.con, "instruments/081_iv_flags_wide.sql")
+    run_sql(ctx.con, "instruments/082_instrument_columns.sql")
+    run_sql(ctx.con, "instruments/090_instruments.sql")
+    validate_table(ctx.con, "instrument_columns", InstrumentColumnsModel)
+    validate_table(ctx.con, "instruments", InstrumentsModel)
+    ctx.facts["instrument_columns"] = instrument_column_names(ctx)
+    _note_missing_other_market_prices(ctx)
+
+
+def build_share_table(ctx: BuildContext) -> None:
+    """Build `share_table` = shares left join instruments, what export writes per assumption."""
+    require_table(ctx.con, "shares", "the market build's share rows")
+    run_sql(ctx.con, "instruments/100_share_table.sql")
+    validate_table(ctx.con, "share_table", ShareTableModel)
+
+
+def instrument_column_names(ctx: BuildContext, role: str = "instrument") -> list[str]:
+    """The iv_ columns of this build with the given role ('instrument' or 'flag'), by name."""
+    rows = ctx.con.execute(
+        "select column_name from instrument_columns where role = $role order by column_name",
+        {"role": role},
+    ).fetchall()
+    return [name for (name,) in rows]
+
+
+def _note_missing_other_market_prices(ctx: BuildContext) -> None:
+    if "iv_hausman_missing" not in instrument_column_names(ctx, role="flag"):
+        return
+    row = ctx.con.execute(
+        "select count(*) filter (where iv_hausman_missing), count(*) from instruments"
+    ).fetchone()
+    missing, total = row if row else (0, 0)
+    ctx.facts["hausman_missing"] = {"product_markets": int(missing), "of": int(total)}
+    if missing:
+        ctx.warn(
+            f"iv_hausman_price is null (flagged iv_hausman_missing) for {missing} of {total} "
+            "product-markets: no other market of the same period sells the product."
+        )

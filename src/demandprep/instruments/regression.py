@@ -1,0 +1,104 @@
+"""The first-stage partial F test in numpy: price on excluded instruments and exogenous terms.
+
+Definition (homoskedastic, the classic F of nested least-squares models):
+
+    F = ((RSS_r - RSS_u) / q) / (RSS_u / (n - k_u))
+
+RSS_u: residual sum of squares of price on [constant, exogenous, fixed effects, instruments];
+RSS_r: the same without the instruments; q = rank(full) - rank(restricted), the number of
+independent excluded instruments; k_u = rank of the full design, fixed effects included.
+It equals linearmodels' IV2SLS first-stage ``f.stat`` with cov_type="unadjusted", debiased=True.
+
+Fixed effects: the one with most levels is absorbed exactly by demeaning within its groups
+(its levels are added to the rank); any other enters as dummy columns. Ranks are numerical ranks
+of the column-scaled designs, so collinear columns (e.g. characteristics constant within a
+product under product fixed effects) are dropped instead of breaking the solve.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+VANISHED = 1e-10
+
+
+@dataclass(frozen=True)
+class PartialFTest:
+    """Result of the first-stage partial F test."""
+
+    partial_f: float | None
+    df_num: int
+    df_den: int
+    p_value: float | None
+    coefficients: list[float]
+
+
+def partial_f_test(
+    endogenous: np.ndarray,
+    instruments: np.ndarray,
+    exogenous: np.ndarray,
+    fixed_effects: list[np.ndarray] | None = None,
+) -> PartialFTest:
+    """Partial F of `instruments` (n x q) for `endogenous` (n), given `exogenous` (n x k) + a
+    constant and the integer-coded `fixed_effects` (each of length n)."""
+    y = np.asarray(endogenous, dtype=float)
+    z = np.asarray(instruments, dtype=float).reshape(len(y), -1)
+    x = np.column_stack([np.ones(len(y)), np.asarray(exogenous, dtype=float).reshape(len(y), -1)])
+    codes = sorted(fixed_effects or [], key=lambda c: len(np.unique(c)), reverse=True)
+    absorbed_levels = 0
+    if codes:
+        x = np.column_stack([x, *[_dummies(c) for c in codes[1:]]])
+        y, z, x = (_demean(a, codes[0]) for a in (y, z, x))
+        absorbed_levels = len(np.unique(codes[0]))
+    rss_r, rank_r, _ = _least_squares(x, y)
+    rss_u, rank_u, beta = _least_squares(np.column_stack([x, z]), y)
+    df_num = rank_u - rank_r
+    df_den = len(y) - rank_u - absorbed_levels
+    coefficients = [float(b) for b in beta[x.shape[1] :]]
+    if df_num <= 0 or df_den <= 0 or rss_u <= 0:
+        return PartialFTest(None, df_num, df_den, None, coefficients)
+    f_value = ((rss_r - rss_u) / df_num) / (rss_u / df_den)
+    p_value = float(stats.f.sf(f_value, df_num, df_den))
+    return PartialFTest(float(f_value), df_num, df_den, p_value, coefficients)
+
+
+def _least_squares(design: np.ndarray, y: np.ndarray) -> tuple[float, int, np.ndarray]:
+    """Residual sum of squares, numerical rank and coefficients of y on design."""
+    scale = np.linalg.norm(design, axis=0)
+    scale[scale == 0] = 1.0
+    # Scaling each column leaves the fitted values unchanged and makes the rank cut-off fair.
+    scaled, _, rank, _ = np.linalg.lstsq(design / scale, y, rcond=None)
+    residual = y - (design / scale) @ scaled
+    return float(residual @ residual), int(rank), scaled / scale
+
+
+def _dummies(codes: np.ndarray) -> np.ndarray:
+    levels, index = np.unique(codes, return_inverse=True)
+    out = np.zeros((len(codes), len(levels)))
+    out[np.arange(len(codes)), index] = 1.0
+    return out
+
+
+def _demean(values: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """Subtract group means (the within transformation of a one-way fixed effect)."""
+    _, index = np.unique(codes, return_inverse=True)
+    counts = np.bincount(index)
+    matrix = values.reshape(len(values), -1)
+    demeaned = matrix.copy()
+    for j in range(matrix.shape[1]):
+        demeaned[:, j] -= (np.bincount(index, weights=matrix[:, j]) / counts)[index]
+    # A column constant within groups leaves rounding noise, which scaling would blow up into a
+    # spurious regressor: zero it so the rank drops it.
+    before = np.linalg.norm(matrix, axis=0)
+    after = np.linalg.norm(demeaned, axis=0)
+    demeaned[:, after <= VANISHED * before] = 0.0
+    return demeaned.reshape(values.shape)
+
+
+def is_finite(value: float | None) -> bool:
+    """Whether a statistic is a usable number."""
+    return value is not None and math.isfinite(value)

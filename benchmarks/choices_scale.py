@@ -22,6 +22,7 @@ import json
 import os
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -265,7 +266,9 @@ def main() -> None:
     parser.add_argument("--occasions", type=int, default=10_000_000)
     parser.add_argument("--alternatives", type=int, default=15)
     parser.add_argument("--memory-limit", default="2GB")
-    parser.add_argument("--workdir", type=Path, default=Path("benchmarks/.choices_scale"))
+    parser.add_argument(
+        "--workdir", type=Path, default=Path(tempfile.gettempdir()) / "demandprep_choices_scale"
+    )
     parser.add_argument("--child", choices=("generate", "build", "baseline"))
     args = parser.parse_args()
     args.workdir.mkdir(parents=True, exist_ok=True)

@@ -2,10 +2,13 @@
 
 from __future__ import annotations
 
+import re
 from importlib import resources
 from typing import Any
 
 import duckdb
+
+LINE_COMMENT = re.compile(r"--[^\n]*")
 
 
 def sql_text(name: str) -> str:
@@ -18,8 +21,13 @@ def run_sql(
 ) -> duckdb.DuckDBPyConnection:
     """Execute one static SQL file; user choices arrive only as named parameters."""
     text = sql_text(name)
-    used = {key: value for key, value in (params or {}).items() if f"${key}" in text}
+    code = LINE_COMMENT.sub("", text)  # a $name inside a comment is not a parameter
+    used = {key: value for key, value in (params or {}).items() if _mentions(code, key)}
     return con.execute(text, used) if used else con.execute(text)
+
+
+def _mentions(code: str, key: str) -> bool:
+    return re.search(rf"\${re.escape(key)}\b", code) is not None
 
 
 def quote_identifier(name: str) -> str:

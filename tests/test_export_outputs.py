@@ -11,13 +11,13 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from demandprep.schemas.market import Shares
 from export_fixtures import RAW_CARD, export_config, fill_warehouse, shared_build
 
 from demandprep.errors import UserError
 from demandprep.export.csv_safe import escape_formula_cells
 from demandprep.export.manifest import file_sha256
 from demandprep.export.tables import OutputTable, output_query
+from demandprep.schemas.market import Shares
 
 
 @pytest.fixture(scope="module")
@@ -184,9 +184,8 @@ def test_manifest_records_inputs_outputs_timings_and_warnings(build: Path, manif
 
 def test_fixture_tables_follow_the_step_schemas() -> None:
     # The export is tested on these tables, so they must be what the steps really write.
-    from demandprep.schemas import choices, ingest, instruments, market
-
     from demandprep.choices.validation import validate_by_occasion
+    from demandprep.schemas import choices, ingest, instruments, market
     from demandprep.validate import validate_table
 
     con = duckdb.connect()

@@ -1,4 +1,4 @@
-"""The `demandprep` command: write a starter config, check it, ingest, build, serve, run the demo."""
+"""The `demandprep` command: starter config, check, ingest, build, serve, and the demo."""
 
 from __future__ import annotations
 
@@ -170,4 +170,3 @@ def demo_command(
         ingest_with_progress(project)
         folder = build_with_progress(project)
         console.print(f"demo config: {config_path}\nreport: {folder / 'report.html'}")
-

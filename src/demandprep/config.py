@@ -290,7 +290,8 @@ def load_config(path: Path | str, check_files: bool = True) -> ProjectConfig:
     try:
         raw = tomllib.loads(path.read_text(encoding="utf-8"))
     except tomllib.TOMLDecodeError as error:
-        raise UserError(f"{path}: not valid TOML ({error}).", "check quoting and brackets.") from None
+        message = f"{path}: not valid TOML ({error})."
+        raise UserError(message, "check quoting and brackets.") from None
     return parse_config(raw, path, check_files)
 
 

@@ -1,4 +1,4 @@
-"""The build's stage list, defined once and walked by the CLI's direct runner and the Prefect flow."""
+"""The build's stage list, defined once; the CLI's direct runner and the Prefect flow walk it."""
 
 from __future__ import annotations
 
@@ -37,9 +37,7 @@ def run_stage(stage: Stage, ctx: BuildContext) -> None:
     ctx.timings[stage.name] = round(time.perf_counter() - started, 3)
 
 
-def run_build_stages(
-    ctx: BuildContext, on_stage: Callable[[Stage], None] | None = None
-) -> None:
+def run_build_stages(ctx: BuildContext, on_stage: Callable[[Stage], None] | None = None) -> None:
     """Run every stage in order; `on_stage` is told before each one (for progress display)."""
     for stage in build_stages(ctx.config):
         if on_stage is not None:

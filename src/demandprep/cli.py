@@ -93,8 +93,8 @@ def ingest_command(config: ConfigArg) -> None:
         summary = ingest_with_progress(load_config(config))
         if not summary.ok:
             raise UserError(
-                f"{len(summary.failed)} input file(s) could not be read: {summary.failed[0]}.",
-                "fix or remove the file and run ingest again; the other files went in.",
+                f"{len(summary.failed)} input file(s) could not be read and the other files "
+                f"went in; the first: {summary.failed[0]}"
             )
 
 
@@ -138,8 +138,8 @@ def run_command(config: ConfigArg) -> None:
         build_with_progress(project)
         if not summary.ok:
             raise UserError(
-                f"{len(summary.failed)} input file(s) could not be read: {summary.failed[0]}.",
-                "the build used every other file; fix that file and run again.",
+                f"{len(summary.failed)} input file(s) could not be read and the build used "
+                f"every other file; the first: {summary.failed[0]}"
             )
 
 

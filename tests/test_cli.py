@@ -63,3 +63,17 @@ def test_check_lists_every_source_it_would_read(tmp_path: Path) -> None:
     for source in ("receipts", "catalogue", "stores", "households", "shelf_prices"):
         assert source in result.output
     assert "is valid" in result.output
+
+
+def test_ingest_with_an_unreadable_file_loads_the_rest_and_exits_1(tmp_path: Path) -> None:
+    project = tmp_path / "faults"
+    shutil.copytree(Path(__file__).resolve().parents[1] / "data_samples" / "faults", project)
+    broken = project / "receipts" / "receipts_zz_broken.csv"
+    broken.write_bytes(b"\xff\xfe\x00garbage\x00\n\x00\x01")
+    result = RUNNER.invoke(app, ["ingest", str(project / "demandprep.toml")], terminal_width=300)
+    assert result.exit_code == 1, result.output
+    error_lines = [line for line in result.output.splitlines() if line.startswith("error:")]
+    assert len(error_lines) == 1
+    assert "receipts_zz_broken.csv" in error_lines[0]
+    assert "the other files went in" in error_lines[0]
+    assert "files new" in result.output

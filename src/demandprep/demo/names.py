@@ -124,7 +124,7 @@ GROCERY_ITEMS: dict[str, tuple[tuple[str, int, int | None], ...]] = {
         ("Dark chocolate bar", 139, 100),
         ("Mixed nuts", 349, 200),
         ("Popcorn", 119, 100),
-        ("Cereal bars 6 pack", 229, 150),
+        ("Oat bars 6 pack", 229, 150),
     ),
     "frozen": (
         ("Frozen peas", 149, 1000),

@@ -11,8 +11,9 @@ straight in DuckDB, then runs, each in its own process:
 - baseline: one bare DuckDB query writing a table of the same rows (occasion x shelf row,
             ordered the same way) under the same limit.
 
-Each child reports its peak resident memory (VmHWM) and wall time; the script prints both and
-their ratios to the memory limit and to each other. No assertion: this is a measurement.
+Each child reports its peak resident memory (VmHWM) and wall time (the build also per stage);
+the script prints both, their ratios to the memory limit and to each other, and how far each
+peak lies above the limit. No assertion: this is a measurement.
 """
 
 from __future__ import annotations
@@ -106,20 +107,9 @@ def peak_rss_bytes() -> int:
     raise RuntimeError("no VmHWM in /proc/self/status")
 
 
-def parse_bytes(text: str) -> int:
-    """'2GB' -> bytes (DuckDB reads GB as 1000^3, GiB as 1024^3)."""
-    units = {
-        "KB": 10**3,
-        "MB": 10**6,
-        "GB": 10**9,
-        "TB": 10**12,
-        "KIB": 2**10,
-        "MIB": 2**20,
-        "GIB": 2**30,
-        "TIB": 2**40,
-    }
-    number = text.upper().rstrip("BITGMK")
-    return int(float(number) * units[text.upper()[len(number) :].strip()])
+def reset_peak_rss() -> None:
+    """Start a new VmHWM measurement (Linux: writing 5 to clear_refs resets the peak)."""
+    Path("/proc/self/clear_refs").write_text("5")
 
 
 def sizes(occasions: int) -> dict[str, int]:
@@ -193,16 +183,22 @@ def run_build(database: Path, memory_limit: str) -> dict:
     con = connect(config.warehouse)
     ctx = BuildContext(con=con, config=config)
     started = time.perf_counter()
+    peak = peak_rss_bytes()
+    stage_peaks = {}
     for stage in CHOICE_STAGES:
+        reset_peak_rss()
         run_stage(stage, ctx)
+        stage_peaks[stage.name] = peak_rss_bytes()
+        peak = max(peak, stage_peaks[stage.name])
     seconds = time.perf_counter() - started
     rows = con.execute("select count(*) from choices").fetchone()[0]
     con.close()
     return {
         "rows": rows,
         "seconds": round(seconds, 1),
-        "peak_bytes": peak_rss_bytes(),
+        "peak_bytes": peak,
         "stage_seconds": ctx.timings,
+        "stage_peak_gib": {name: round(value / 2**30, 2) for name, value in stage_peaks.items()},
     }
 
 
@@ -283,6 +279,8 @@ def main() -> None:
         return
     if not database.exists():
         child("generate", args)
+    from demandprep.memory import parse_bytes
+
     limit = parse_bytes(args.memory_limit)
     baseline = child("baseline", args)
     build = child("build", args)
@@ -295,13 +293,15 @@ def main() -> None:
         print(
             f"  {name:30s} rows {result['rows']:>13,}  {result['seconds']:>8.1f} s  "
             f"peak {result['peak_bytes'] / gib:6.2f} GiB  "
-            f"peak / limit {result['peak_bytes'] / limit:5.2f}"
+            f"peak / limit {result['peak_bytes'] / limit:5.2f}  "
+            f"above limit {(result['peak_bytes'] - limit) / gib:5.2f} GiB"
         )
     print(
         f"  build / baseline: peak memory {build['peak_bytes'] / baseline['peak_bytes']:.2f}, "
         f"time {build['seconds'] / max(baseline['seconds'], 0.1):.2f}"
     )
     print(f"  stage seconds: {build['stage_seconds']}")
+    print(f"  stage peak GiB: {build['stage_peak_gib']}")
 
 
 if __name__ == "__main__":

@@ -8,6 +8,7 @@ import pandera.polars as pa
 import polars as pl
 
 from demandprep.errors import UserError
+from demandprep.memory import memory_shared_with_batches
 
 BATCH_ROWS = 1_000_000
 SHOWN_FAILURES = 5
@@ -21,14 +22,15 @@ def validate_table(
 ) -> int:
     """Validate every row of `table` against `model`; returns the row count, raises on failure."""
     rows = 0
-    reader = con.sql(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
-    for batch in reader:
-        frame = pl.from_arrow(batch)
-        assert isinstance(frame, pl.DataFrame)
-        validate_frame(frame, model, table, first_row=rows)
-        rows += frame.height
-    if rows == 0:
-        validate_frame(pl.from_arrow(reader.schema.empty_table()), model, table, first_row=0)
+    with memory_shared_with_batches(con):
+        reader = con.sql(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
+        for batch in reader:
+            frame = pl.from_arrow(batch)
+            assert isinstance(frame, pl.DataFrame)
+            validate_frame(frame, model, table, first_row=rows)
+            rows += frame.height
+        if rows == 0:
+            validate_frame(pl.from_arrow(reader.schema.empty_table()), model, table, first_row=0)
     return rows
 
 

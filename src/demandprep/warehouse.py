@@ -17,6 +17,7 @@ import duckdb
 
 from demandprep.config import WarehouseSection
 from demandprep.errors import UserError
+from demandprep.memory import remember_memory_limit
 
 POLL_SECONDS = 0.2
 
@@ -71,12 +72,14 @@ def connect(settings: WarehouseSection, read_only: bool = False) -> duckdb.DuckD
         "preserve_insertion_order": False,
     }
     try:
-        return duckdb.connect(str(settings.path), read_only=read_only, config=config)
+        con = duckdb.connect(str(settings.path), read_only=read_only, config=config)
     except duckdb.IOException as error:
         raise UserError(
             f"{settings.path}: cannot open the warehouse ({str(error).splitlines()[0]}).",
             "another program may hold it open; close it and retry.",
         ) from None
+    remember_memory_limit(con, settings.memory_limit)
+    return con
 
 
 @contextmanager

@@ -14,6 +14,7 @@ import duckdb
 import pandera.polars as pa
 import polars as pl
 
+from demandprep.memory import memory_shared_with_batches
 from demandprep.validate import BATCH_ROWS, validate_frame
 
 
@@ -37,7 +38,7 @@ def validate_by_occasion(
     """Validate `table` against `model` in batches cut between occasions; returns the rows."""
     rows = 0
     carry: pl.DataFrame | None = None
-    with insertion_order_kept(con):
+    with insertion_order_kept(con), memory_shared_with_batches(con):
         reader = con.cursor().sql(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
         for batch in reader:
             frame = pl.from_arrow(batch)

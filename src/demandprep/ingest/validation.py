@@ -8,6 +8,7 @@ import duckdb
 import pandera.polars as pa
 import polars as pl
 
+from demandprep.memory import memory_shared_with_batches
 from demandprep.validate import BATCH_ROWS, validate_frame
 
 
@@ -20,14 +21,15 @@ def validate_query(
     batch_rows: int = BATCH_ROWS,
 ) -> int:
     """Validate every row `sql` returns against `model`; returns the row count."""
-    reader = con.sql(sql, params=params or None).to_arrow_reader(batch_rows)
     rows = 0
-    try:
-        for batch in reader:
-            frame = pl.from_arrow(batch)
-            assert isinstance(frame, pl.DataFrame)
-            validate_frame(frame, model, table, first_row=rows)
-            rows += frame.height
-    finally:
-        reader.close()  # an unread rest would keep the connection busy (no rollback possible)
+    with memory_shared_with_batches(con):
+        reader = con.sql(sql, params=params or None).to_arrow_reader(batch_rows)
+        try:
+            for batch in reader:
+                frame = pl.from_arrow(batch)
+                assert isinstance(frame, pl.DataFrame)
+                validate_frame(frame, model, table, first_row=rows)
+                rows += frame.height
+        finally:
+            reader.close()  # an unread rest would keep the connection busy (no rollback)
     return rows

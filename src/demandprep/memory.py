@@ -1,0 +1,69 @@
+"""Share the warehouse memory limit between DuckDB and the Python batches it hands out.
+
+DuckDB keeps its buffer pool (cached table blocks included) up to `memory_limit`; a batch that
+Python validates lives outside that pool. While batches are read, DuckDB is held to a share of
+the limit so that DuckDB and the batch together stay near the configured figure; afterwards
+the configured limit is set again, exactly, from the value `warehouse.connect` remembered.
+A connection opened elsewhere has no remembered value and keeps its limit untouched (DuckDB
+reports its limit rounded, so it could not be set back exactly).
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterator
+from contextlib import contextmanager
+
+import duckdb
+
+LIMIT_VARIABLE = "demandprep_memory_limit"
+BATCH_READ_SHARE = 0.5  # DuckDB's share while batches are read; a scan needs little of it
+SCAN_FLOOR_BYTES = 128 * 2**20  # DuckDB's documented minimum per thread is about 128 MB
+BYTE_UNITS = {
+    "B": 1,
+    "KB": 10**3,
+    "MB": 10**6,
+    "GB": 10**9,
+    "TB": 10**12,
+    "KIB": 2**10,
+    "MIB": 2**20,
+    "GIB": 2**30,
+    "TIB": 2**40,
+}
+SIZE_PATTERN = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([KMGT]?I?B)\s*$", re.IGNORECASE)
+
+
+def parse_bytes(text: str) -> int:
+    """'2GB' -> 2_000_000_000, '1.8 GiB' -> bytes (DuckDB: GB = 1000^3, GiB = 1024^3)."""
+    match = SIZE_PATTERN.match(text)
+    if match is None:
+        raise ValueError(f"not a memory size: {text!r} (expected e.g. '2GB' or '512MiB')")
+    number, unit = match.groups()
+    return int(float(number) * BYTE_UNITS[unit.upper()])
+
+
+def remember_memory_limit(con: duckdb.DuckDBPyConnection, configured: str) -> None:
+    """Keep the configured limit on the connection, so it can be set back without rounding."""
+    con.execute(f"set variable {LIMIT_VARIABLE} = $limit", {"limit": configured})
+
+
+def remembered_memory_limit(con: duckdb.DuckDBPyConnection) -> str | None:
+    """The limit `warehouse.connect` set on this connection, or None."""
+    return con.execute("select getvariable($name)", {"name": LIMIT_VARIABLE}).fetchone()[0]
+
+
+@contextmanager
+def memory_shared_with_batches(
+    con: duckdb.DuckDBPyConnection, share: float = BATCH_READ_SHARE
+) -> Iterator[None]:
+    """Within the block DuckDB may use `share` of its limit; the rest is left to the batches."""
+    configured = remembered_memory_limit(con)
+    if configured is None:
+        yield
+        return
+    reduced = max(SCAN_FLOOR_BYTES, int(parse_bytes(configured) * share))
+    con.execute("set memory_limit = $limit", {"limit": f"{reduced}B"})
+    try:
+        yield
+    finally:
+        con.execute("set memory_limit = $limit", {"limit": configured})

@@ -1,0 +1,65 @@
+"""Sharing the memory limit with Python batches: DuckDB is held to a share, then set back."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from demandprep.config import WarehouseSection
+from demandprep.memory import memory_shared_with_batches, parse_bytes
+from demandprep.warehouse import connect
+
+
+def _limit(con: duckdb.DuckDBPyConnection) -> str:
+    return con.execute("select current_setting('memory_limit')").fetchone()[0]
+
+
+@pytest.mark.parametrize("text", ["2GB", "512MB", "1.5GiB", "300MiB", "64KB"])
+def test_parse_bytes_agrees_with_duckdb(text: str) -> None:
+    # reference: DuckDB's own reading of the same size, reported back in bytes as it set it
+    con = duckdb.connect(config={"memory_limit": text})
+    expected = duckdb.connect(config={"memory_limit": f"{parse_bytes(text)}B"})
+    assert _limit(con) == _limit(expected)
+
+
+def test_parse_bytes_names_a_bad_size() -> None:
+    with pytest.raises(ValueError, match="not a memory size: '2 lots'"):
+        parse_bytes("2 lots")
+
+
+def _warehouse(tmp_path: Path) -> duckdb.DuckDBPyConnection:
+    return connect(
+        WarehouseSection(
+            path=tmp_path / "w.duckdb",
+            temp_directory=tmp_path / "spill",
+            memory_limit="2GB",
+            threads=1,
+        )
+    )
+
+
+def test_batches_get_half_the_limit_and_it_is_set_back_exactly(tmp_path: Path) -> None:
+    con = _warehouse(tmp_path)
+    before = _limit(con)
+    with memory_shared_with_batches(con):
+        during = _limit(con)
+    assert before == "1.8 GiB"  # 2e9 bytes as DuckDB prints them
+    assert during == "953.6 MiB"  # 1e9 bytes
+    assert _limit(con) == before
+
+
+def test_limit_is_set_back_when_the_block_fails(tmp_path: Path) -> None:
+    con = _warehouse(tmp_path)
+    before = _limit(con)
+    with pytest.raises(RuntimeError), memory_shared_with_batches(con):
+        raise RuntimeError("a batch failed")
+    assert _limit(con) == before
+
+
+def test_a_connection_opened_elsewhere_keeps_its_limit() -> None:
+    con = duckdb.connect(config={"memory_limit": "2GB"})
+    before = _limit(con)
+    with memory_shared_with_batches(con):
+        assert _limit(con) == before

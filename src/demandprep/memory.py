@@ -44,12 +44,13 @@ def parse_bytes(text: str) -> int:
 
 def remember_memory_limit(con: duckdb.DuckDBPyConnection, configured: str) -> None:
     """Keep the configured limit on the connection, so it can be set back without rounding."""
-    con.execute(f"set variable {LIMIT_VARIABLE} = $limit", {"limit": configured})
+    _set(con, f"set variable {LIMIT_VARIABLE} = $limit", configured)
 
 
 def remembered_memory_limit(con: duckdb.DuckDBPyConnection) -> str | None:
     """The limit `warehouse.connect` set on this connection, or None."""
-    return con.execute("select getvariable($name)", {"name": LIMIT_VARIABLE}).fetchone()[0]
+    # fetchall, not fetchone: a result read to its end leaves the connection free
+    return con.execute("select getvariable($name)", {"name": LIMIT_VARIABLE}).fetchall()[0][0]
 
 
 @contextmanager
@@ -62,8 +63,13 @@ def memory_shared_with_batches(
         yield
         return
     reduced = max(SCAN_FLOOR_BYTES, int(parse_bytes(configured) * share))
-    con.execute("set memory_limit = $limit", {"limit": f"{reduced}B"})
+    _set(con, "set memory_limit = $limit", f"{reduced}B")
     try:
         yield
     finally:
-        con.execute("set memory_limit = $limit", {"limit": configured})
+        _set(con, "set memory_limit = $limit", configured)
+
+
+def _set(con: duckdb.DuckDBPyConnection, statement: str, limit: str) -> None:
+    # fetched, so no unfinished result holds the connection (a streamed read may follow)
+    con.execute(statement, {"limit": limit}).fetchall()

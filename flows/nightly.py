@@ -38,10 +38,10 @@ from demandprep.flows.retry import raise_if_failed, retry_read_errors
 from demandprep.ingest.files import DiscoveredFile
 from demandprep.ingest.results import FileResult
 from demandprep.ingest.runner import (
-    _reset_changed_layouts,  # private until the ingest exposes it (asked for)
     discover_files,
     ensure_tables,
     ingest_file,
+    reset_changed_layouts,
 )
 from demandprep.stages import Stage, build_stages, run_stage
 from demandprep.warehouse import open_warehouse
@@ -59,7 +59,7 @@ def discover_task(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list
     """Every input file with its status against the ledger: new, changed or unchanged."""
     ensure_tables(con)
     # as the direct ingest does first: a reference whose column mapping changed is reloaded whole
-    _reset_changed_layouts(con, config)
+    reset_changed_layouts(con, config)
     return discover_files(con, config)
 
 

@@ -13,10 +13,6 @@ from demandprep.ingest.results import FileResult
 # content. EOFError covers a gzip file cut short while it is still being written.
 READ_ERRORS: tuple[type[BaseException], ...] = (OSError, EOFError, duckdb.IOException)
 
-# The ingest ledgers a file it cannot open or decode as failed, with the reader's message
-# "<path>: cannot be read (...)"; mapping and schema problems get other messages.
-UNREADABLE_MARK = ": cannot be read ("
-
 
 class InputUnreadable(OSError):
     """An input file the ingest could not open or decode (it was ledgered as failed)."""
@@ -42,6 +38,6 @@ def raise_if_failed(result: FileResult) -> FileResult:
     if result.status != "failed":
         return result
     error = result.error or "no reason given"
-    if UNREADABLE_MARK in error:
+    if result.unreadable:
         raise InputUnreadable(error)
     raise InputRejected(f"{result.path}: rejected by the ingest: {error}")

@@ -206,6 +206,7 @@ def test_mapping_naming_a_column_the_file_lacks_fails_with_a_one_line_error(
         assert "\n" not in result.error
         assert str(result.path) in result.error
         assert "'loyalty_no'" in result.error
+        assert not result.unreadable  # a mapping problem: another attempt would fail the same
     assert not summary.ok
     assert query(config, "select count(*) from raw_lines") == [(0,)]
     assert query(config, "select count(*) from catalogue") == [(4,)]

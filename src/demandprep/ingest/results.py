@@ -25,6 +25,8 @@ class FileResult:
     rows_accepted: int = 0
     quarantined: dict[str, int] = field(default_factory=dict)
     error: str | None = None
+    # the file could not be opened or decoded at all (a later attempt may succeed)
+    unreadable: bool = False
 
     @property
     def rows_quarantined(self) -> int:

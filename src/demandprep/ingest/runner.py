@@ -38,6 +38,7 @@ from demandprep.ingest.files import (
 from demandprep.ingest.loaders import Loader, ReceiptLoader, ReferenceLoader
 from demandprep.ingest.reader import (
     FileUnreadable,
+    HeaderMismatch,
     create_source_view,
     drop_staging,
     file_columns,
@@ -100,7 +101,7 @@ def ingest_all(
     """Ingest every new or changed file of every source; returns what happened to each file."""
     notify = progress or _ignore
     ensure_tables(con)
-    _reset_changed_layouts(con, config)
+    reset_changed_layouts(con, config)
     discovered = discover_files(con, config)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
@@ -156,7 +157,8 @@ def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
         yield batch
 
 
-def _reset_changed_layouts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
+def reset_changed_layouts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
+    """Empty each reference table whose column mapping changed, so its files load again whole."""
     for name, source in configured_sources(config):
         spec = REFERENCE_SPECS.get(name)
         if spec is not None and layout_changed(con, spec, source):
@@ -288,7 +290,17 @@ def _failed(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, error: Excepti
     if not message.startswith(str(item.path)):
         message = f"{item.path}: {message}"
     file_id = ledger.record_failure(con, item)
-    return FileResult(item.source, item.path, "failed", file_id, error=message)
+    unreadable = _is_unreadable(error)
+    return FileResult(
+        item.source, item.path, "failed", file_id, error=message, unreadable=unreadable
+    )
+
+
+def _is_unreadable(error: Exception) -> bool:
+    """A failure to open or decode the file (worth another attempt), not one of its content."""
+    if isinstance(error, HeaderMismatch):
+        return False
+    return isinstance(error, (FileUnreadable, duckdb.IOException))
 
 
 def _ignore(event: str, **info: Any) -> None:

@@ -5,9 +5,11 @@ from __future__ import annotations
 from pathlib import Path
 
 import duckdb
+import pyarrow.parquet as pq
 import pytest
 
 from demandprep.config import WarehouseSection
+from demandprep.export import parquet
 from demandprep.memory import memory_shared_with_batches, parse_bytes
 from demandprep.warehouse import connect
 
@@ -63,3 +65,24 @@ def test_a_connection_opened_elsewhere_keeps_its_limit() -> None:
     before = _limit(con)
     with memory_shared_with_batches(con):
         assert _limit(con) == before
+
+
+def test_parquet_export_streams_under_half_the_limit(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    con = _warehouse(tmp_path)
+    con.execute("create table t as select range as k from range(5000)")
+    seen: list[str] = []
+    write_batches = parquet._write_batches
+
+    def watched(reader, *args):  # noqa: ANN001, ANN202 - passes through to the real writer
+        seen.append(_limit(con.cursor()))
+        return write_batches(reader, *args)
+
+    monkeypatch.setattr(parquet, "_write_batches", watched)
+    written = parquet.write_query_parquet(
+        con, "select k from t order by k", {}, tmp_path / "t.parquet", 1024, {}, {}, ("k",)
+    )
+    assert seen == ["953.6 MiB"]
+    assert _limit(con) == "1.8 GiB"
+    assert pq.read_table(written.path).column("k").to_pylist() == list(range(5000))

@@ -18,6 +18,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from demandprep import __version__
+from demandprep.memory import memory_shared_with_batches
 
 COMPRESSION = "zstd"
 COMPRESSION_LEVEL = 6
@@ -45,8 +46,22 @@ def write_query_parquet(
     """Write the rows of `sql` to `path`; each column carries its dictionary entry as metadata.
 
     `sort_keys` names the leading ORDER BY columns of `sql`; they are declared in the file.
+    While the rows stream, DuckDB keeps to a share of its memory limit (the batches and the
+    Parquet writer's row group live outside it).
     """
-    reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
+    with memory_shared_with_batches(con):
+        reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
+        return _write_batches(reader, path, row_group_rows, column_docs, table_metadata, sort_keys)
+
+
+def _write_batches(
+    reader: pa.RecordBatchReader,
+    path: Path,
+    row_group_rows: int,
+    column_docs: Mapping[str, Mapping[str, str]],
+    table_metadata: Mapping[str, str],
+    sort_keys: Sequence[str],
+) -> WrittenTable:
     schema = documented_schema(reader.schema, column_docs, table_metadata)
     names = schema.names
     sorting = [pq.SortingColumn(names.index(key)) for key in sort_keys]

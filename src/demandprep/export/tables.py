@@ -87,8 +87,14 @@ def plan_outputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[
                 for name in config.market_size
             ]
         else:
-            outputs.append(OutputTable(kind, kind, table, keys, keys_unique=unique))
+            outputs.append(output_table(kind))
     return outputs
+
+
+def output_table(kind: str) -> OutputTable:
+    """The one data file of a kind written once per build (not per assumption), e.g. 'choices'."""
+    table, keys, _required, unique = _KINDS[kind]
+    return OutputTable(kind, kind, table, keys, keys_unique=unique)
 
 
 def table_columns(con: duckdb.DuckDBPyConnection, table: str) -> list[str]:

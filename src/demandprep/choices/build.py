@@ -35,6 +35,7 @@ INTERMEDIATE_TABLES = (
     "choice_visit_history",
     "choice_loyalty_start",
     "choice_loyalty_events",
+    "choice_loyalty_values",
     "choice_store_day_sales",
     "choice_store_period_prices",
     "choice_region_period_prices",
@@ -144,7 +145,8 @@ def build_choice_history(ctx: BuildContext) -> None:
         "045_choice_visit_history",
         "046_choice_loyalty_start",
         "047_choice_loyalty_events",
-        "048_choice_visit_loyalty",
+        "048_choice_loyalty_values",
+        "049_choice_visit_loyalty",
     )
 
 

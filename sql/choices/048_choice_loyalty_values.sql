@@ -1,12 +1,12 @@
 -- Loyalty of every alternative the chooser has bought (or started with), for each number n of
--- purchases after the burn-in window, from the closed form prepared in 047; alternatives never
--- bought have loyalty 0. Each purchase of an alternative (and the start before its first one)
+-- purchases after the burn-in window, from the closed form prepared in 047, one row each
+-- (049 gathers them per chooser and n); alternatives never bought have loyalty 0. Each purchase of an alternative (and the start before its first one)
 -- holds until the next purchase of it, so its block sums are spread over that stretch of n:
 --   L_j(n) = lambda^n L_j(0)
 --          + (1 - lambda) lambda^p * (running sum of block b)
 --          + (1 - lambda) lambda^(p + 1) * lambda^(B - 1) * (total of block b - 1)
 -- where the latest purchase before n sits at position p = (n - 1) % B of block b = (n - 1) // B.
-create or replace table choice_visit_loyalty as
+create or replace table choice_loyalty_values as
 
 with
 
@@ -103,16 +103,6 @@ valued as (
         end as loyalty,
     from ranks
     left join choice_loyalty_start using (chooser, alternative)
-),
-
-final as (
-    select
-        chooser,
-        loyalty_rank,
-        -- a map is looked up by key, so the order of its entries does not matter
-        map_from_entries(list({'key': alternative, 'value': loyalty})) as loyalty_by_alternative,
-    from valued
-    group by chooser, loyalty_rank
 )
 
-select chooser, loyalty_rank, loyalty_by_alternative from final;
+select chooser, loyalty_rank, alternative, loyalty from valued;

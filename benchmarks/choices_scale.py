@@ -27,6 +27,10 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from demandprep.context import BuildContext
 
 KEY_ENV = "DEMANDPREP_PSEUDONYM_KEY"
 DAYS = 364
@@ -207,7 +211,7 @@ def run_build(database: Path, memory_limit: str) -> dict:
     }
 
 
-def export_choice_files(ctx, folder: Path) -> None:
+def export_choice_files(ctx: BuildContext, folder: Path) -> None:
     """Write the build's choice files as the export does (its order, row groups, metadata)."""
     from demandprep.export.build import write_output_table
     from demandprep.export.dictionary import schema_models

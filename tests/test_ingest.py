@@ -229,6 +229,34 @@ def test_unreadable_file_is_reported_and_the_other_files_go_in(tmp_path: Path) -
     ) == [("failed", 0)]
 
 
+def _swap_first_two_columns(path: Path) -> None:
+    lines = path.read_bytes().split(b"\n")
+    swapped = []
+    for line in lines:
+        fields = line.split(b";")
+        if len(fields) > 1:
+            fields[0], fields[1] = fields[1], fields[0]
+        swapped.append(b";".join(fields))
+    path.write_bytes(b"\n".join(swapped))
+
+
+def test_file_with_its_columns_in_another_order_goes_in_on_its_own(tmp_path: Path) -> None:
+    # the batch's header check fails, the files are then loaded one by one: nothing is lost
+    config = faults_config(tmp_path)
+    folder = config.config_path.parent
+    expected = classify_receipts(folder)
+    second = sorted((folder / "receipts").glob("receipts_*.csv"))[1]
+    _swap_first_two_columns(second)
+    summary = ingest(config)
+    receipts = [r for r in summary.files if r.source == "receipts"]
+    assert [r.status for r in receipts] == ["new", "new"]
+    assert {str(r.path): r.rows_accepted for r in receipts} == {
+        path: e.accepted for path, e in expected.items()
+    }
+    good = sum(e.accepted for e in expected.values())
+    assert query(config, "select count(*) from raw_lines") == [(good,)]
+
+
 def test_failed_file_is_tried_again_on_the_next_run(tmp_path: Path) -> None:
     path = copy_faults(tmp_path)
     text = path.read_text()

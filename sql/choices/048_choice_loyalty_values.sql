@@ -1,7 +1,8 @@
 -- Loyalty of every alternative the chooser has bought (or started with), for each number n of
 -- purchases after the burn-in window, from the closed form prepared in 047, one row each
--- (049 gathers them per chooser and n); alternatives never bought have loyalty 0. Each purchase of an alternative (and the start before its first one)
--- holds until the next purchase of it, so its block sums are spread over that stretch of n:
+-- (049 gathers them per chooser and n); alternatives never bought have loyalty 0. Each purchase
+-- of an alternative (and the start before its first one) holds until the next purchase of it,
+-- so its block sums are spread over that stretch of n:
 --   L_j(n) = lambda^n L_j(0)
 --          + (1 - lambda) lambda^p * (running sum of block b)
 --          + (1 - lambda) lambda^(p + 1) * lambda^(B - 1) * (total of block b - 1)

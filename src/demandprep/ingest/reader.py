@@ -56,8 +56,12 @@ CSV_OPTIONS = (
 )
 
 
-class FileUnreadable(Exception):
-    """The file cannot be opened or decoded at all (not a problem of single lines)."""
+class FileRefused(Exception):
+    """The file as a whole cannot go in (not a problem of single lines, which are quarantined)."""
+
+
+class FileUnreadable(FileRefused):
+    """The file cannot be opened or decoded at all; a later attempt may succeed."""
 
 
 @dataclass(frozen=True)
@@ -201,7 +205,7 @@ def _stage_csv(
     )
 
 
-class HeaderMismatch(FileUnreadable):
+class HeaderMismatch(FileRefused):
     """A file's header does not hold the mapped columns where the batch's first file has them."""
 
 

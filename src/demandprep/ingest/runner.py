@@ -37,8 +37,8 @@ from demandprep.ingest.files import (
 )
 from demandprep.ingest.loaders import Loader, ReceiptLoader, ReferenceLoader
 from demandprep.ingest.reader import (
+    FileRefused,
     FileUnreadable,
-    HeaderMismatch,
     create_source_view,
     drop_staging,
     file_columns,
@@ -200,7 +200,7 @@ def ingest_batch(
             _ensure_receipt_settings(con, config)
         results = _load_batch(con, loader, files, progress or _ignore)
         con.execute("commit")
-    except (FileUnreadable, UserError, duckdb.Error) as error:
+    except (FileRefused, UserError, duckdb.Error) as error:
         con.execute("rollback")
         if len(files) > 1:
             return [item for one in files for item in ingest_batch(con, config, [one], progress)]
@@ -290,17 +290,11 @@ def _failed(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, error: Excepti
     if not message.startswith(str(item.path)):
         message = f"{item.path}: {message}"
     file_id = ledger.record_failure(con, item)
-    unreadable = _is_unreadable(error)
+    # opening or decoding failed (worth another attempt), not the file's content
+    unreadable = isinstance(error, (FileUnreadable, duckdb.IOException))
     return FileResult(
         item.source, item.path, "failed", file_id, error=message, unreadable=unreadable
     )
-
-
-def _is_unreadable(error: Exception) -> bool:
-    """A failure to open or decode the file (worth another attempt), not one of its content."""
-    if isinstance(error, HeaderMismatch):
-        return False
-    return isinstance(error, (FileUnreadable, duckdb.IOException))
 
 
 def _ignore(event: str, **info: Any) -> None:

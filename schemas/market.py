@@ -113,15 +113,16 @@ class MarketStoreGeographies(pa.DataFrameModel):
 
 
 class MarketStoreVisits(pa.DataFrameModel):
-    """Visits (distinct receipts with a sale line, any category) per store and period."""
+    """Visits (receipts with a sale line, any category) per store and period."""
 
     store: str = described("Store id of the receipt lines.")
     period_start: datetime.date = described(PERIOD_START)
     visits: int = described(
-        "Distinct receipts with at least one sale line.",
-        "receipts",
-        "count(distinct receipt)",
-        ge=1,
+        "Visits (receipts with at least one sale line) whose first sale line falls in this "
+        "store and period; a visit is a receipt id within markets.receipt_ids_unique_per.",
+        "visits",
+        "count of distinct (store, day, receipt) by default",
+        ge=0,
     )
     sale_lines: int = described("Sale lines of the store in the period.", "lines", ge=1)
 
@@ -361,9 +362,9 @@ class Markets(pa.DataFrameModel):
         "Inside products with a row in the share table (J).", "products", "count of rows", ge=1
     )
     visits: int = described(
-        "Distinct receipts (all categories) in the market.",
-        "receipts",
-        "sum over stores of distinct receipts",
+        "Visits (receipts of any category; see markets.receipt_ids_unique_per) in the market.",
+        "visits",
+        "sum over stores of market_store_visits.visits",
         ge=0,
     )
 

@@ -236,6 +236,24 @@ class MarketAvailability(pa.DataFrameModel):
         unique = ["market", "product"]
 
 
+class MarketZeroSales(pa.DataFrameModel):
+    """Zero-share product-markets: universe products on the shelf that sold nothing there."""
+
+    market: str = described(MARKET)
+    geography: str = described(GEOGRAPHY)
+    period_start: datetime.date = described(PERIOD_START)
+    product: str = described(PRODUCT)
+    shelf_price: float = described(
+        "Mean shelf price per equivalent unit over the market's shelf-price rows.",
+        "currency per equivalent unit",
+        "mean(price / equivalent_per_unit)",
+    )
+
+    class Config:
+        strict = True
+        unique = ["market", "product"]
+
+
 PRICE = described(
     "Net price per equivalent unit; for a zero-sale row, the mean shelf price per equivalent unit.",
     "currency per equivalent unit",
@@ -459,6 +477,7 @@ MARKET_MODELS: dict[str, type[pa.DataFrameModel]] = {
     "market_product_sales": MarketProductSales,
     "product_universe": ProductUniverse,
     "market_availability": MarketAvailability,
+    "market_zero_sales": MarketZeroSales,
     "market_products": MarketProducts,
     "market_sizes": MarketSizes,
     "markets": Markets,

@@ -31,6 +31,7 @@ from market_fixtures import (
 
 from demandprep.config import parse_config
 from demandprep.errors import UserError
+from demandprep.export import report_data
 from demandprep.market.stages import MARKET_STAGES, run_market_stages
 from demandprep.stages import run_stage
 
@@ -616,3 +617,80 @@ def test_unknown_receipt_id_scope_is_refused_naming_the_key_and_the_choices(tmp_
         f"{config_path}: key 'markets.receipt_ids_unique_per': Input should be 'store_day', "
         "'store' or 'chain' (got 'till')."
     )
+
+
+# --- zero-share product-markets: counted whatever the policy -----------------------------------
+
+SKU_PRODUCTS = {"A1": ALDER, "A2": ALDER, "B1": BIRCH, "C1": CEDAR}
+
+
+def _many_zeros_world():
+    world = tiny_world()
+    world.shelf_prices = [
+        ("S1", WEEK1, "A1", 5.0, False),  # sold there: not a zero
+        ("S1", WEEK2, "C1", 3.0, False),  # zero
+        ("S1", date(2024, 1, 10), "C1", 3.0, False),  # the same zero, another shelf day
+        ("S2", WEEK1, "C1", 3.0, False),  # zero
+        ("S3", WEEK2, "A2", 5.0, False),  # zero
+        ("S3", WEEK2, "B1", 9.0, False),  # zero
+        ("S3", WEEK1, "B1", 9.0, False),  # S3 sells nothing in week 1: no market, no zero
+        ("S2", WEEK1, "G1", 1.0, False),  # grocery: not in scope
+    ]
+    return world
+
+
+def _expected_zero_share_product_markets(world) -> set[tuple[str, str]]:
+    """(market, product) on the shelf in a market that sold something, where it sold nothing."""
+    net: dict[tuple[str, str], float] = {}
+    markets = set()
+    for line in world.lines:
+        if line.kind in ("sale", "void") and line.sku in SKU_PRODUCTS:
+            market = f"{line.store}/{_week_start(line.day)}"
+            key = (market, SKU_PRODUCTS[line.sku])
+            net[key] = net.get(key, 0.0) + line.quantity
+    markets = {market for (market, _), quantity in net.items() if quantity > 0}
+    sold = {key for key, quantity in net.items() if quantity > 0}
+    shelf = {
+        (f"{store}/{_week_start(day)}", SKU_PRODUCTS[sku])
+        for store, day, sku, _price, _promo in world.shelf_prices
+        if sku in SKU_PRODUCTS
+    }
+    return {key for key in shelf - sold if key[0] in markets}
+
+
+def test_zero_share_product_markets_dropped_by_the_policy_are_counted_and_warned():
+    world = _many_zeros_world()
+    expected = _expected_zero_share_product_markets(world)
+    assert len(expected) == 4
+    ctx = build(world, shares={"zero_shares": "drop"})
+    assert ctx.facts["market"]["zero_share_product_markets"] == 4
+    assert rows(ctx, "select count(*) from shares where is_zero_share") == [(0,)]
+    shown = ", ".join(f"{product} in {market}" for market, product in sorted(expected))
+    assert (
+        "shares.zero_shares = 'drop': 4 product-markets on the shelf without sales have no row "
+        f"in the share table ({shown})."
+    ) in ctx.warnings
+
+
+def test_zero_share_product_markets_kept_by_the_policy_are_the_same_count():
+    world = _many_zeros_world()
+    expected = _expected_zero_share_product_markets(world)
+    ctx = build(world, shares={"zero_shares": "keep"})
+    assert ctx.facts["market"]["zero_share_product_markets"] == len(expected)
+    kept = rows(ctx, "select market, product from shares where is_zero_share order by all")
+    assert kept == sorted(expected)
+    assert not [w for w in ctx.warnings if w.startswith("shares.zero_shares")]
+
+
+def test_report_counts_zero_share_product_markets_before_the_drop_policy():
+    world = _many_zeros_world()
+    ctx = build(world, shares={"zero_shares": "drop"})
+    ctx.con.execute("create view share_table as select * from shares")
+    counts = report_data.zero_share_counts(ctx.con)
+    before = counts[counts["series"] == "on the shelf, no sales"]
+    per_period = dict(zip(before["period_start"].dt.date, before["rows"], strict=True))
+    expected = _expected_zero_share_product_markets(world)
+    assert per_period == {
+        WEEK1: sum(market.endswith(str(WEEK1)) for market, _ in expected),
+        WEEK2: sum(market.endswith(str(WEEK2)) for market, _ in expected),
+    }

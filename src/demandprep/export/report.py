@@ -107,7 +107,9 @@ def _ledger_body(ctx: BuildContext) -> str:
 
 def _zero_shares_body(ctx: BuildContext) -> str:
     figure = report_plots.zero_shares(report_data.zero_share_counts(ctx.con))
-    policy = _note(f"zero-share policy: {ctx.config.shares.zero_shares}")
+    zeros = ctx.facts.get("market", {}).get("zero_share_product_markets")
+    counted = "" if zeros is None else f"; {zeros} product-markets on the shelf without sales"
+    policy = _note(f"zero-share policy: {ctx.config.shares.zero_shares}{counted}")
     return policy + _plot(figure, "zero-share counts")
 
 

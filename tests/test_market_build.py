@@ -694,3 +694,17 @@ def test_report_counts_zero_share_product_markets_before_the_drop_policy():
         WEEK1: sum(market.endswith(str(WEEK1)) for market, _ in expected),
         WEEK2: sum(market.endswith(str(WEEK2)) for market, _ in expected),
     }
+
+
+def test_a_receipt_scope_too_wide_for_daily_restarting_tills_stops_with_a_hint():
+    world = tiny_world()
+    world.lines = _daily_restart_lines()
+    with pytest.raises(UserError) as error:
+        build(world, markets=_markets_section("store"))
+    # week 2 repeats receipt numbers of week 1 only: no visit begins there
+    assert str(error.value) == (
+        "market_size.visits (method 'visits') has no usable size for 3 markets: "
+        "S1/2024-01-08, S2/2024-01-08, S3/2024-01-08. Hint: those markets have no visits: no "
+        "sale lines, or only receipt ids counted in an earlier period; check "
+        "markets.receipt_ids_unique_per."
+    )

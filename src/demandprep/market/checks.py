@@ -176,7 +176,8 @@ def _size_hint(method: str) -> str:
     return {
         "population": "give every store of those geographies a positive population.",
         "table": "add one row per geography and period start to the market-size file.",
-        "visits": "those markets have no sale lines; check the receipts.",
+        "visits": "those markets have no visits: no sale lines, or only receipt ids counted in "
+        "an earlier period; check markets.receipt_ids_unique_per.",
     }.get(method, "check the inputs of this assumption.")
 
 

@@ -100,7 +100,8 @@ catalogue_products as (
 ),
 visits as (
     select store, date_trunc('week', sold_at)::date as period_start,
-        count(distinct receipt) as visits
+        -- a visit is (store, business day, receipt), as markets.receipt_ids_unique_per's default
+        count(distinct (sold_at::date, receipt)) as visits
     from raw_lines
     where line_kind = 'sale'
     group by all

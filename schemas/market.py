@@ -113,15 +113,16 @@ class MarketStoreGeographies(pa.DataFrameModel):
 
 
 class MarketStoreVisits(pa.DataFrameModel):
-    """Visits (distinct receipts with a sale line, any category) per store and period."""
+    """Visits (receipts with a sale line, any category) per store and period."""
 
     store: str = described("Store id of the receipt lines.")
     period_start: datetime.date = described(PERIOD_START)
     visits: int = described(
-        "Distinct receipts with at least one sale line.",
-        "receipts",
-        "count(distinct receipt)",
-        ge=1,
+        "Visits (receipts with at least one sale line) whose first sale line falls in this "
+        "store and period; a visit is a receipt id within markets.receipt_ids_unique_per.",
+        "visits",
+        "count of distinct (store, day, receipt) by default",
+        ge=0,
     )
     sale_lines: int = described("Sale lines of the store in the period.", "lines", ge=1)
 
@@ -223,6 +224,24 @@ class MarketAvailability(pa.DataFrameModel):
     """Universe products on the shelf per market, from the shelf-price file."""
 
     market: str = described(MARKET)
+    product: str = described(PRODUCT)
+    shelf_price: float = described(
+        "Mean shelf price per equivalent unit over the market's shelf-price rows.",
+        "currency per equivalent unit",
+        "mean(price / equivalent_per_unit)",
+    )
+
+    class Config:
+        strict = True
+        unique = ["market", "product"]
+
+
+class MarketZeroSales(pa.DataFrameModel):
+    """Zero-share product-markets: universe products on the shelf that sold nothing there."""
+
+    market: str = described(MARKET)
+    geography: str = described(GEOGRAPHY)
+    period_start: datetime.date = described(PERIOD_START)
     product: str = described(PRODUCT)
     shelf_price: float = described(
         "Mean shelf price per equivalent unit over the market's shelf-price rows.",
@@ -361,9 +380,9 @@ class Markets(pa.DataFrameModel):
         "Inside products with a row in the share table (J).", "products", "count of rows", ge=1
     )
     visits: int = described(
-        "Distinct receipts (all categories) in the market.",
-        "receipts",
-        "sum over stores of distinct receipts",
+        "Visits (receipts of any category; see markets.receipt_ids_unique_per) in the market.",
+        "visits",
+        "sum over stores of market_store_visits.visits",
         ge=0,
     )
 
@@ -458,6 +477,7 @@ MARKET_MODELS: dict[str, type[pa.DataFrameModel]] = {
     "market_product_sales": MarketProductSales,
     "product_universe": ProductUniverse,
     "market_availability": MarketAvailability,
+    "market_zero_sales": MarketZeroSales,
     "market_products": MarketProducts,
     "market_sizes": MarketSizes,
     "markets": Markets,

@@ -126,7 +126,7 @@ class ChoiceWorld:
                     "line_kind": "sale",
                 }
             )
-        return f"{store}/{receipt}"
+        return f"{store}/{at:%Y-%m-%d}/{receipt}"
 
     def write(self, con: duckdb.DuckDBPyConnection) -> None:
         """Write every table into the warehouse with the contract's column types."""

@@ -356,3 +356,32 @@ def test_a_product_named_like_the_outside_option_is_a_user_error():
     world.visit("S1", at(MONDAY), "card1", [("a1", 1, 2.0)])
     with pytest.raises(UserError, match="a product of the catalogue is named 'none'"):
         world.build()
+
+
+def test_receipt_numbers_restarting_daily_are_separate_visits_of_the_market_identity():
+    world = ChoiceWorld()
+    three_products(world)
+    # each day the till starts again at receipt 1: two visits of card1, two of card2
+    days = (MONDAY, MONDAY + timedelta(days=1))
+    bought = {("card1", days[0]): "a1", ("card1", days[1]): "c1"}
+    for day in days:
+        world.visit("S1", at(day), "card1", [(bought["card1", day], 1, 2.0)], receipt="1")
+        world.visit("S1", at(day, 11), "card2", [("b1", 1, 3.0)], receipt="2")
+    frame = choices_frame(world.build())
+    chosen = frame.filter(pl.col("chosen")).sort("occasion")
+    # one occasion per (store, business day, receipt), computed here from the lines
+    triples = sorted({(x["store"], x["sold_at"].date(), x["receipt"]) for x in world.lines})
+    assert chosen["occasion"].to_list() == [f"{s}/{d:%Y-%m-%d}/{r}" for s, d, r in triples]
+    assert chosen["alternative"].to_list() == ["A", "B", "C", "B"]
+    assert chosen["quantity"].to_list() == [1.0] * 4
+
+
+def test_receipt_ids_unique_per_store_keep_one_visit_across_midnight():
+    world = ChoiceWorld()
+    three_products(world)
+    world.visit("S1", at(MONDAY, 23), "card1", [("a1", 1, 2.0)], receipt="7")
+    world.visit("S1", at(MONDAY + timedelta(days=1), 0), "card1", [("a1", 1, 2.0)], receipt="7")
+    frame = choices_frame(world.build({"markets": {"receipt_ids_unique_per": "store"}}))
+    chosen = frame.filter(pl.col("chosen"))
+    assert chosen["occasion"].to_list() == ["S1/7"]
+    assert chosen["quantity"].to_list() == [2.0]

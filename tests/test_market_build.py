@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import copy
 import math
-from datetime import date
+from datetime import date, timedelta
 
 import pytest
 from market_fixtures import (
@@ -29,10 +29,14 @@ from market_fixtures import (
     tiny_world,
 )
 
+from demandprep.config import parse_config
 from demandprep.errors import UserError
-from demandprep.market.stages import run_market_stages
+from demandprep.export import report_data
+from demandprep.market.stages import MARKET_STAGES, run_market_stages
+from demandprep.stages import run_stage
 
 ALDER, BIRCH, CEDAR = "Alder|beans|250", "Birch|ground|500", "Cedar|capsules|100"
+STAGE_NAMES = [stage.name for stage in MARKET_STAGES]
 
 
 def build(world=None, **sections):
@@ -514,3 +518,193 @@ def test_rebuild_gives_identical_tables():
     for table in ("shares", "markets", "market_products", "product_universe"):
         query = f"select * from {table} order by all"  # noqa: S608
         assert first.con.execute(query).fetchall() == second.con.execute(query).fetchall()
+
+
+# --- visit identity: (store, business day, receipt) by default ---------------------------------
+
+
+def _daily_restart_lines() -> list[Line]:
+    """Each store's receipts run 1..n every day (n varies), over ten days: two weeks."""
+    lines = []
+    for store_number, store in enumerate(("S1", "S2", "S3")):
+        for offset in range(10):
+            day = WEEK1 + timedelta(days=offset)
+            for number in range(1, 3 + (offset + store_number) % 4):
+                sku = "A1" if number % 2 else "G1"
+                lines.append(Line(str(number), store, day, sku, 1, 5.0))
+                if number == 2:  # a second line on the same receipt is still one visit
+                    lines.append(Line(str(number), store, day, "C1", 1, 3.0))
+    return lines
+
+
+def _week_start(day: date) -> date:
+    return day - timedelta(days=day.weekday())
+
+
+def store_visits(world, **sections) -> dict[tuple[str, date], int]:
+    """{(store, period start): visits} after the market stages up to market_store_visits."""
+    ctx = build_context(world, market_config(**sections))
+    for stage in MARKET_STAGES[: 1 + STAGE_NAMES.index("market_store_visits")]:
+        run_stage(stage, ctx)
+    query = "select store, period_start, visits from market_store_visits"
+    return {(store, period): visits for store, period, visits in rows(ctx, query)}
+
+
+def _markets_section(unique_per: str) -> dict:
+    return {"geography": "store", "categories": ["coffee"], "receipt_ids_unique_per": unique_per}
+
+
+def test_visits_count_store_day_receipt_triples_when_receipt_numbers_restart_daily():
+    world = tiny_world()
+    world.lines = _daily_restart_lines()
+    ctx = build(world)  # default: receipt ids are unique per store and day
+    expected: dict[tuple[str, date], set] = {}
+    for line in world.lines:
+        if line.kind == "sale":
+            key = (line.store, _week_start(line.day))
+            expected.setdefault(key, set()).add((line.store, line.day, line.receipt))
+    counted = {
+        (store, period): visits
+        for store, period, visits in rows(
+            ctx, "select store, period_start, visits from market_store_visits"
+        )
+    }
+    assert counted == {key: len(triples) for key, triples in expected.items()}
+    assert sum(counted.values()) == len({(x.store, x.day, x.receipt) for x in world.lines})
+    sizes = {m: s for (a, m), s in sizes_by(ctx).items()}
+    assert sizes["S1/2024-01-01"] == pytest.approx(2.0 * len(expected[("S1", WEEK1)]))
+
+
+def test_visits_with_receipt_ids_unique_per_store_count_each_store_receipt_once():
+    world = tiny_world()
+    world.lines = _daily_restart_lines()
+    counted = store_visits(world, markets=_markets_section("store"))
+    # each (store, receipt) is one visit, in the period of its first line
+    first_day: dict[tuple[str, str], date] = {}
+    for line in world.lines:
+        key = (line.store, line.receipt)
+        first_day[key] = min(first_day.get(key, line.day), line.day)
+    expected: dict[tuple[str, date], int] = {}
+    for (store, _receipt), day in first_day.items():
+        period = (store, _week_start(day))
+        expected[period] = expected.get(period, 0) + 1
+    assert {key: visits for key, visits in counted.items() if visits} == expected
+    # receipts 1..n of week 2 were all seen in week 1: no visits there, so no visits size
+    assert set(counted) - set(expected) == {("S1", WEEK2), ("S2", WEEK2), ("S3", WEEK2)}
+
+
+def test_visits_with_receipt_ids_unique_per_chain_count_a_receipt_once_in_its_first_store():
+    world = tiny_world()
+    world.lines = [
+        Line("c1", "S1", WEEK1, "A1", 1, 5.0),
+        Line("c1", "S2", WEEK1 + timedelta(days=1), "A1", 1, 5.0),  # the same id, later
+        Line("c2", "S2", WEEK1, "A1", 1, 5.0),
+        Line("c3", "S2", WEEK1, "G1", 1, 1.0),
+    ]
+    chain = store_visits(world, markets=_markets_section("chain"))
+    assert chain == {("S1", WEEK1): 1, ("S2", WEEK1): 2}
+    per_store = store_visits(world, markets=_markets_section("store"))
+    assert per_store == {("S1", WEEK1): 1, ("S2", WEEK1): 3}
+
+
+def test_unknown_receipt_id_scope_is_refused_naming_the_key_and_the_choices(tmp_path):
+    raw = copy.deepcopy(BASE_CONFIG)
+    raw["markets"] = _markets_section("till")
+    config_path = tmp_path / "demandprep.toml"
+    with pytest.raises(UserError) as error:
+        parse_config(raw, config_path, check_files=False)
+    assert str(error.value) == (
+        f"{config_path}: key 'markets.receipt_ids_unique_per': Input should be 'store_day', "
+        "'store' or 'chain' (got 'till')."
+    )
+
+
+# --- zero-share product-markets: counted whatever the policy -----------------------------------
+
+SKU_PRODUCTS = {"A1": ALDER, "A2": ALDER, "B1": BIRCH, "C1": CEDAR}
+
+
+def _many_zeros_world():
+    world = tiny_world()
+    world.shelf_prices = [
+        ("S1", WEEK1, "A1", 5.0, False),  # sold there: not a zero
+        ("S1", WEEK2, "C1", 3.0, False),  # zero
+        ("S1", date(2024, 1, 10), "C1", 3.0, False),  # the same zero, another shelf day
+        ("S2", WEEK1, "C1", 3.0, False),  # zero
+        ("S3", WEEK2, "A2", 5.0, False),  # zero
+        ("S3", WEEK2, "B1", 9.0, False),  # zero
+        ("S3", WEEK1, "B1", 9.0, False),  # S3 sells nothing in week 1: no market, no zero
+        ("S2", WEEK1, "G1", 1.0, False),  # grocery: not in scope
+    ]
+    return world
+
+
+def _expected_zero_share_product_markets(world) -> set[tuple[str, str]]:
+    """(market, product) on the shelf in a market that sold something, where it sold nothing."""
+    net: dict[tuple[str, str], float] = {}
+    markets = set()
+    for line in world.lines:
+        if line.kind in ("sale", "void") and line.sku in SKU_PRODUCTS:
+            market = f"{line.store}/{_week_start(line.day)}"
+            key = (market, SKU_PRODUCTS[line.sku])
+            net[key] = net.get(key, 0.0) + line.quantity
+    markets = {market for (market, _), quantity in net.items() if quantity > 0}
+    sold = {key for key, quantity in net.items() if quantity > 0}
+    shelf = {
+        (f"{store}/{_week_start(day)}", SKU_PRODUCTS[sku])
+        for store, day, sku, _price, _promo in world.shelf_prices
+        if sku in SKU_PRODUCTS
+    }
+    return {key for key in shelf - sold if key[0] in markets}
+
+
+def test_zero_share_product_markets_dropped_by_the_policy_are_counted_and_warned():
+    world = _many_zeros_world()
+    expected = _expected_zero_share_product_markets(world)
+    assert len(expected) == 4
+    ctx = build(world, shares={"zero_shares": "drop"})
+    assert ctx.facts["market"]["zero_share_product_markets"] == 4
+    assert rows(ctx, "select count(*) from shares where is_zero_share") == [(0,)]
+    shown = ", ".join(f"{product} in {market}" for market, product in sorted(expected))
+    assert (
+        "shares.zero_shares = 'drop': 4 product-markets on the shelf without sales have no row "
+        f"in the share table ({shown})."
+    ) in ctx.warnings
+
+
+def test_zero_share_product_markets_kept_by_the_policy_are_the_same_count():
+    world = _many_zeros_world()
+    expected = _expected_zero_share_product_markets(world)
+    ctx = build(world, shares={"zero_shares": "keep"})
+    assert ctx.facts["market"]["zero_share_product_markets"] == len(expected)
+    kept = rows(ctx, "select market, product from shares where is_zero_share order by all")
+    assert kept == sorted(expected)
+    assert not [w for w in ctx.warnings if w.startswith("shares.zero_shares")]
+
+
+def test_report_counts_zero_share_product_markets_before_the_drop_policy():
+    world = _many_zeros_world()
+    ctx = build(world, shares={"zero_shares": "drop"})
+    ctx.con.execute("create view share_table as select * from shares")
+    counts = report_data.zero_share_counts(ctx.con)
+    before = counts[counts["series"] == "on the shelf, no sales"]
+    per_period = dict(zip(before["period_start"].dt.date, before["rows"], strict=True))
+    expected = _expected_zero_share_product_markets(world)
+    assert per_period == {
+        WEEK1: sum(market.endswith(str(WEEK1)) for market, _ in expected),
+        WEEK2: sum(market.endswith(str(WEEK2)) for market, _ in expected),
+    }
+
+
+def test_a_receipt_scope_too_wide_for_daily_restarting_tills_stops_with_a_hint():
+    world = tiny_world()
+    world.lines = _daily_restart_lines()
+    with pytest.raises(UserError) as error:
+        build(world, markets=_markets_section("store"))
+    # week 2 repeats receipt numbers of week 1 only: no visit begins there
+    assert str(error.value) == (
+        "market_size.visits (method 'visits') has no usable size for 3 markets: "
+        "S1/2024-01-08, S2/2024-01-08, S3/2024-01-08. Hint: those markets have no visits: no "
+        "sale lines, or only receipt ids counted in an earlier period; check "
+        "markets.receipt_ids_unique_per."
+    )

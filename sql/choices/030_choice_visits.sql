@@ -1,4 +1,10 @@
 -- Store visits (receipts with at least one sale line) made with a loyalty card.
+-- A visit has the market build's identity (sql/market/050_market_store_visits.sql): a receipt id
+-- within the scope $receipt_ids_unique_per, so with store_day (the default: tills that restart
+-- their numbers every day) it is store, business day (sold_at::date) and receipt, and its id is
+-- store/day/receipt. With 'chain' a visit still belongs to one store here (an occasion happens
+-- in a store), so a chain-unique id that shows up in two stores stays two visits, and its id
+-- is store/receipt as with 'store'.
 create or replace table choice_visits as
 
 with
@@ -13,22 +19,31 @@ sale_lines as (
     where line_kind = 'sale'
 ),
 
+identified_lines as (
+    select
+        *,
+        case when $receipt_ids_unique_per = 'store_day' then sold_at::date end as visit_day,
+    from sale_lines
+),
+
 receipts as (
     select
         store,
+        visit_day,
         receipt,
         min(sold_at) as occasion_at,
         -- a receipt scanned with two cards keeps the smaller id (counted in the facts)
         min(card) as card,
         count(distinct card) as card_count,
-    from sale_lines
-    group by store, receipt
+    from identified_lines
+    group by store, visit_day, receipt
 ),
 
 final as (
     select
-        store || '/' || receipt as visit,
+        concat_ws('/', store, strftime(visit_day, '%Y-%m-%d'), receipt) as visit,
         store,
+        visit_day,
         receipt,
         occasion_at,
         cast(occasion_at as date) as day,
@@ -38,4 +53,4 @@ final as (
     where card is not null
 )
 
-select visit, store, receipt, occasion_at, day, card, card_count from final;
+select visit, store, visit_day, receipt, occasion_at, day, card, card_count from final;

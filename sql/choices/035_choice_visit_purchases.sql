@@ -11,7 +11,11 @@ visit_lines as (
         choice_sales.quantity,
         choice_sales.net_amount,
     from choice_sales
-    join choice_visits using (store, receipt)
+    join choice_visits
+        on choice_visits.store = choice_sales.store
+        and choice_visits.receipt = choice_sales.receipt
+        -- visit_day is set when the visit's identity includes the business day
+        and coalesce(choice_visits.visit_day, choice_sales.day) = choice_sales.day
 ),
 
 final as (

@@ -1,6 +1,12 @@
--- Visits per store and period: distinct receipts with at least one sale line, whatever the
--- category, and the sale lines counted. (Lines of SKUs missing from the catalogue are
--- quarantined by the ingest, so every line here has a category.)
+-- Visits per store and period: receipts with at least one sale line, whatever the category, and
+-- the sale lines counted. (Lines of SKUs missing from the catalogue are quarantined by the
+-- ingest, so every line here has a category.)
+-- A visit is one receipt id within the scope $receipt_ids_unique_per says ids are unique in:
+--   store_day  (store, business day, receipt): tills that restart numbers every day; the day is
+--              sold_at::date, as in the ingest's duplicate-line key
+--   store      (store, receipt)
+--   chain      (receipt)
+-- A visit counts once, in the store and period of its first sale line.
 create or replace table market_store_visits as
 
 with
@@ -21,23 +27,54 @@ calendar as (
     from market_calendar
 ),
 
+-- the parts of a visit's identity; a part outside the configured scope is null for every line
+identified_lines as (
+    select
+        store,
+        receipt,
+        sold_at,
+        case when $receipt_ids_unique_per <> 'chain' then store end as visit_store,
+        case when $receipt_ids_unique_per = 'store_day' then sold_at::date end as visit_day,
+    from sale_lines
+),
+
+visits as (
+    select
+        -- the first line by time, then store, so a rebuild places every visit alike
+        min({'sold_at': sold_at, 'store': store}) as first_line,
+    from identified_lines
+    group by visit_store, visit_day, receipt
+),
+
+visits_in_periods as (
+    select
+        visits.first_line.store as store,
+        calendar.period_start,
+        count(*) as visits,
+    from visits
+    inner join calendar on calendar.date = visits.first_line.sold_at::date
+    group by all
+),
+
 lines_in_periods as (
     select
         sale_lines.store,
         calendar.period_start,
-        sale_lines.receipt,
+        count(*) as sale_lines,
     from sale_lines
     inner join calendar on calendar.date = sale_lines.sold_at::date
+    group by all
 ),
 
 final as (
     select
-        store,
-        period_start,
-        count(distinct receipt) as visits,
-        count(*) as sale_lines,
+        lines_in_periods.store,
+        lines_in_periods.period_start,
+        -- zero where every receipt of the store-period began in an earlier period
+        coalesce(visits_in_periods.visits, 0) as visits,
+        lines_in_periods.sale_lines,
     from lines_in_periods
-    group by all
+    left join visits_in_periods using (store, period_start)
 )
 
 select

@@ -1,6 +1,7 @@
 -- One row per market and inside product: the kept products that sold, the composite 'fringe'
 -- product of the rest when $rest = 'fringe' (with $rest = 'outside' the rest joins the outside
--- good), and, unless $zero_shares = 'drop', kept products on the shelf that did not sell.
+-- good), and, unless $zero_shares = 'drop', kept products on the shelf that did not sell
+-- (market_zero_sales).
 -- price = net revenue / equivalent units; a zero-sale row takes the mean shelf price instead.
 create or replace table market_products as
 
@@ -28,24 +29,18 @@ universe as (
     from product_universe
 ),
 
-availability as (
+unsold_on_shelf as (
     select
         market,
+        geography,
+        period_start,
         product,
         shelf_price,
-    from market_availability
+    from market_zero_sales
 ),
 
 attributes as (
     select * from market_product_attributes
-),
-
-markets as (
-    select distinct
-        market,
-        geography,
-        period_start,
-    from sales
 ),
 
 kept_sales as (
@@ -94,22 +89,20 @@ sold_priced as (
 
 zero_sales as (
     select
-        markets.market,
-        markets.geography,
-        markets.period_start,
-        availability.product,
+        market,
+        geography,
+        period_start,
+        product,
         0.0 as units,
         0.0 as equivalent_quantity,
         0.0 as net_revenue,
         0.0 as gross_revenue,
-        availability.shelf_price as price,
-        availability.shelf_price as gross_price,
+        shelf_price as price,
+        shelf_price as gross_price,
         null::double as promo_share,
         false as is_fringe,
         true as is_zero_share,
-    from availability
-    inner join markets using (market)
-    anti join kept_sales using (market, product)
+    from unsold_on_shelf
     where $zero_shares <> 'drop'
 ),
 

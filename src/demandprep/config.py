@@ -144,6 +144,10 @@ class MarketsSection(Section):
     period: Literal["day", "week", "month", "quarter"] = "week"
     week_starts_on: Weekday = "monday"
     categories: list[str] = Field(min_length=1)
+    # What makes a receipt id one visit: "store_day" when tills restart their numbers every day
+    # (a visit is store, business day and receipt, the ingest's duplicate key), "store" when an
+    # id is never reused in a store, "chain" when it is never reused anywhere in the chain.
+    receipt_ids_unique_per: Literal["store_day", "store", "chain"] = "store_day"
 
 
 class EquivalentUnit(Section):

@@ -117,6 +117,7 @@ class ChoiceSettings:
             "loyalty_block": self.loyalty_block,
             "sample_size": choices.sampled_alternatives,
             "period": config.markets.period,
+            "receipt_ids_unique_per": config.markets.receipt_ids_unique_per,
             "week_start": ISO_WEEKDAY[config.markets.week_starts_on],
             "outside": OUTSIDE,
             "fringe": FRINGE,

@@ -23,6 +23,7 @@ from demandprep.export.dictionary import (
     step_notes,
     write_dictionary,
 )
+from demandprep.export.input_warnings import input_warnings
 from demandprep.export.manifest import OutputFile, build_manifest, write_manifest
 from demandprep.export.parquet import write_query_parquet
 from demandprep.export.quick_logit import LogitEstimate, quick_logit
@@ -51,6 +52,8 @@ def write_build(
 ) -> BuildOutputs:
     """Write the whole build into `staging_dir` (named by the build id); the manifest comes last."""
     built = BuildOutputs(staging_dir, staging_dir.name, built_at or datetime.now(UTC))
+    for message in input_warnings(ctx.con):
+        ctx.warn(message)
     models = schema_models() if models is None else models
     notes = step_notes(ctx.con, ctx.config)
     entries: dict[str, list[tuple[ColumnEntry, str]]] = {}

@@ -19,6 +19,7 @@ from matplotlib.figure import Figure
 from demandprep import __version__
 from demandprep.context import BuildContext
 from demandprep.export import report_data, report_plots
+from demandprep.export.input_warnings import files_needing_attention
 from demandprep.export.quick_logit import LogitEstimate
 
 REPORT_NAME = "report.html"
@@ -31,6 +32,8 @@ td, th { border: 1px solid #ccc; padding: 0.2em 0.5em; text-align: left; }
 th { background: #f3f3f3; }
 img.plot { max-width: 100%; display: block; margin: 0.5em 0; }
 .warning { color: #8a4b00; } .note { color: #555; font-size: 0.9em; }
+section.warnings { border: 2px solid #d9a441; background: #fff8e8; padding: 0 1em 0.5em; }
+section.warnings h2 { border-bottom: none; margin-top: 0.5em; }
 """
 
 
@@ -57,7 +60,8 @@ def write_report(ctx: BuildContext, folder: Path, inputs: ReportInputs) -> Path:
 def render_report(ctx: BuildContext, inputs: ReportInputs) -> str:
     """The report page as one HTML string."""
     sections = [
-        _section("Build", _build_table(ctx, inputs) + _warnings(ctx.warnings)),
+        _warnings_box(ctx),
+        _section("Build", _build_table(ctx, inputs)),
         _section("Files", _table(inputs.outputs)),
         _section("Shares", _shares_body(ctx)),
         _section("Outside share", _outside_share_body(ctx)),
@@ -107,7 +111,9 @@ def _ledger_body(ctx: BuildContext) -> str:
 
 def _zero_shares_body(ctx: BuildContext) -> str:
     figure = report_plots.zero_shares(report_data.zero_share_counts(ctx.con))
-    policy = _note(f"zero-share policy: {ctx.config.shares.zero_shares}")
+    zeros = ctx.facts.get("market", {}).get("zero_share_product_markets")
+    counted = "" if zeros is None else f"; {zeros} product-markets on the shelf without sales"
+    policy = _note(f"zero-share policy: {ctx.config.shares.zero_shares}{counted}")
     return policy + _plot(figure, "zero-share counts")
 
 
@@ -155,11 +161,32 @@ def _build_table(ctx: BuildContext, inputs: ReportInputs) -> str:
     return _table(rows)
 
 
+def _warnings_box(ctx: BuildContext) -> str:
+    """Every warning of the build, then the input files behind them, above everything else."""
+    body = _warnings(ctx.warnings) + _attention_table(ctx)
+    return f'<section id="warnings" class="warnings">\n<h2>Warnings</h2>\n{body}\n</section>'
+
+
 def _warnings(warnings: Sequence[str]) -> str:
     if not warnings:
         return _note("no warnings")
     items = "".join(f'<li class="warning">{html.escape(w)}</li>' for w in warnings)
-    return f"<h3>Warnings</h3><ul>{items}</ul>"
+    return f"<ul>{items}</ul>"
+
+
+def _attention_table(ctx: BuildContext) -> str:
+    files = files_needing_attention(ctx.con)
+    if not files:
+        return ""
+    rows = pd.DataFrame(
+        {
+            "file": [item.name for item in files],
+            "source": [item.source for item in files],
+            "status": [item.status for item in files],
+            "reason": [item.reason or "" for item in files],
+        }
+    )
+    return _note("input files needing attention (latest version of each)") + _table(rows)
 
 
 def _estimates_table(estimates: Sequence[LogitEstimate]) -> str:

@@ -163,7 +163,7 @@ def quarantine_reasons(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
 
 def zero_share_counts(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """Zero-share product rows per period: per assumption in the share table, and before the
-    zero-share policy (products on the shelf that sold nothing, from `market_products`)."""
+    zero-share policy (products on the shelf that sold nothing, from `market_zero_sales`)."""
     frame = con.sql(
         """
         select assumption as series, period_start, count(*) filter (where share = 0) as rows
@@ -172,21 +172,24 @@ def zero_share_counts(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
         order by series, period_start
         """
     ).df()
-    [(has_products,)] = con.execute(
-        "select count(*) from duckdb_tables() where table_name = 'market_products' "
+    [(has_zero_sales,)] = con.execute(
+        "select count(*) from duckdb_tables() where table_name = 'market_zero_sales' "
         "and schema_name = current_schema()"
     ).fetchall()
-    if not has_products:
+    if not has_zero_sales:
         return frame
+    # every period of the share table, so a period without zeros shows 0 rather than nothing
     before = con.sql(
         """
+        with periods as (select distinct period_start from share_table)
         select
             'on the shelf, no sales' as series,
-            period_start,
-            count(*) filter (where is_zero_share) as rows
-        from market_products
+            periods.period_start,
+            count(zero.product) as rows
+        from periods
+        left join market_zero_sales as zero using (period_start)
         group by all
-        order by period_start
+        order by periods.period_start
         """
     ).df()
     return pd.concat([before, frame], ignore_index=True)

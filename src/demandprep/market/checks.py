@@ -142,6 +142,21 @@ def check_universe(ctx: BuildContext) -> None:
     ctx.facts.setdefault("market", {})["products_kept"] = int(kept)
 
 
+def check_zero_sales(ctx: BuildContext) -> None:
+    """Count the zero-share product-markets; warn that the 'drop' policy leaves them out."""
+    count, first = ctx.con.execute(
+        "select count(*), list(product || ' in ' || market order by market, product)[:$shown] "
+        "from market_zero_sales",
+        {"shown": SHOWN},
+    ).fetchone()
+    ctx.facts.setdefault("market", {})["zero_share_product_markets"] = int(count)
+    if count and ctx.config.shares.zero_shares == "drop":
+        ctx.warn(
+            f"shares.zero_shares = 'drop': {count} product-markets on the shelf without sales "
+            f"have no row in the share table ({_listed(first, count)})."
+        )
+
+
 def check_market_sizes(ctx: BuildContext) -> None:
     """Stop when an assumption gives no usable size for some markets, naming them."""
     rows = ctx.con.execute(
@@ -161,7 +176,8 @@ def _size_hint(method: str) -> str:
     return {
         "population": "give every store of those geographies a positive population.",
         "table": "add one row per geography and period start to the market-size file.",
-        "visits": "those markets have no sale lines; check the receipts.",
+        "visits": "those markets have no visits: no sale lines, or only receipt ids counted in "
+        "an earlier period; check markets.receipt_ids_unique_per.",
     }.get(method, "check the inputs of this assumption.")
 
 

@@ -236,6 +236,7 @@ def market_params(config: ProjectConfig) -> dict[str, Any]:
     return {
         "period": markets.period,
         "week_start": WEEKDAY_NUMBERS[markets.week_starts_on],
+        "receipt_ids_unique_per": markets.receipt_ids_unique_per,
         "unit_kind": unit.kind,
         "unit_grams": unit.grams,
         "returns_in_demand": config.sources.receipts.returns_in_demand,

@@ -13,6 +13,7 @@ for, then the table's pandera model (demandprep.schemas.market) guards it:
   market_product_sales       070  demand per market and product
   product_universe           080  keep rules: top N, volume share, market presence
   market_availability        090  universe products on the shelf (for zero shares)
+  market_zero_sales          095  zero-share product-markets (on the shelf, no sales), any policy
   market_products            100  inside products per market: kept, fringe, zero-sale rows
   market_sizes               110  every assumption's size per market, side by side
   markets                    120  size, inside quantity, outside share (stops when s_0 <= 0)
@@ -26,7 +27,8 @@ Choices made here, so that they are written down once:
 - the fringe product has no firm, nest or characteristics (nulls); its price is its revenue
   over its equivalent units;
 - zero-sale rows exist only where the shelf-price file shows the product in the market; their
-  price is the mean shelf price per equivalent unit and promo_share is null;
+  price is the mean shelf price per equivalent unit and promo_share is null; they are counted
+  (facts, and a warning when zero_shares = 'drop' leaves them out) whatever the policy;
 - zero_shares = 'add_one' uses s_j = (q_j + 1) / (M + J + 1) and s_0 = (M - Q + 1) / (M + J + 1)
   in every market (J inside products, Q their total), a Laplace-type rule after Gandhi, Lu &
   Shi, recalled from memory and not checked against the paper;
@@ -57,6 +59,7 @@ SQL_FILES: dict[str, str] = {
     "market_product_sales": "market/070_market_product_sales.sql",
     "product_universe": "market/080_product_universe.sql",
     "market_availability": "market/090_market_availability.sql",
+    "market_zero_sales": "market/095_market_zero_sales.sql",
     "market_products": "market/100_market_products.sql",
     "market_sizes": "market/110_market_sizes.sql",
     "markets": "market/120_markets.sql",
@@ -119,6 +122,7 @@ MARKET_STAGES: tuple[Stage, ...] = (
     Stage("market_product_sales", _table_stage("market_product_sales", checks.check_net_demand)),
     Stage("product_universe", _table_stage("product_universe", checks.check_universe)),
     Stage("market_availability", _table_stage("market_availability")),
+    Stage("market_zero_sales", _table_stage("market_zero_sales", checks.check_zero_sales)),
     Stage("market_products", _table_stage("market_products")),
     Stage("market_sizes", _table_stage("market_sizes", checks.check_market_sizes)),
     # the outside-share check names the markets; it runs before the schema's generic check

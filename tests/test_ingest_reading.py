@@ -110,6 +110,16 @@ def test_one_crlf_line_among_lf_lines_goes_in(tmp_path: Path) -> None:
     assert kinds == [("sale",)]
 
 
+def test_a_whole_crlf_file_later_in_the_batch_goes_in(tmp_path: Path) -> None:
+    config_path = copy_faults(tmp_path)
+    lines = [clean_line(n) for n in range(300)]
+    path = write_receipts(config_path.parent, "receipts_2024-03-05.csv", lines, end=b"\r\n")
+    config, summary = ingest(config_path)
+    assert summary.ok
+    assert ledger_counts(config, path) == (reference_records(path), 300, 0)
+    assert accepted(config, path) == 300
+
+
 def test_a_lone_carriage_return_quarantines_its_line_alone(tmp_path: Path) -> None:
     config_path = copy_faults(tmp_path)
     lines = [clean_line(n) for n in range(4000)]
@@ -157,14 +167,15 @@ size = "people"
 """
 
 
-def test_households_written_by_the_csv_module_with_crlf_go_in_whole(tmp_path: Path) -> None:
+def test_households_appended_by_the_csv_module_with_crlf_go_in_whole(tmp_path: Path) -> None:
     config_path = copy_faults(tmp_path)
     config_path.write_text(config_path.read_text() + HOUSEHOLDS_SOURCE)
     path = config_path.parent / "households.csv"
     rows = [["member", "people"]] + [[f"M-{n}", str(1 + n % 4)] for n in range(50)]
-    with path.open("w", newline="", encoding="utf-8") as handle:
-        csv.writer(handle).writerows(rows)  # reference: the csv module ends lines with CRLF
-    assert path.read_bytes().count(b"\r\n") == 51
+    path.write_text("".join(",".join(row) + "\n" for row in rows[:21]), encoding="utf-8")
+    with path.open("a", newline="", encoding="utf-8") as handle:
+        csv.writer(handle).writerows(rows[21:])  # reference: the csv module ends lines with CRLF
+    assert path.read_bytes().count(b"\r\n") == 30
     config, summary = ingest(config_path)
     assert summary.ok
     assert ledger_counts(config, path) == (50, 50, 0)

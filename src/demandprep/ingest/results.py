@@ -9,8 +9,8 @@ from typing import Literal
 
 from rich.table import Table
 
-FileStatus = Literal["new", "unchanged", "replaced", "failed"]
-FILE_STATUSES: tuple[FileStatus, ...] = ("new", "unchanged", "replaced", "failed")
+FileStatus = Literal["new", "unchanged", "replaced", "failed", "empty"]
+FILE_STATUSES: tuple[FileStatus, ...] = ("new", "unchanged", "replaced", "failed", "empty")
 
 
 @dataclass(frozen=True)

@@ -41,9 +41,7 @@ from demandprep.ingest.reader import (
     FileUnreadable,
     create_source_view,
     drop_staging,
-    file_columns,
     first_line,
-    map_columns,
     render_quarantined,
     stage_files,
 )
@@ -220,29 +218,33 @@ def _load_batch(
     notify: Progress,
 ) -> list[FileResult]:
     source, first = loader.source, files[0].path
-    columns = file_columns(con, first, source)
-    mapped = map_columns(first, columns, source.columns, source.header)
     batch = ledger.assign_versions(con, files[0].source, files)
     ledger.create_batch_table(con, batch)
     if any(item.previous_file_id for item in files):
         _remove_previous(con, loader)
     step = {"source": files[0].source, "path": first, "paths": [item.path for item in files]}
-    rows = stage_files(con, [item.path for item in files], source, columns, mapped)
-    notify("file_step", step="staged", rows=rows, **step)
-    create_source_view(con, mapped, loader.names())
-    loader.check(con, first, mapped)
-    render_quarantined(con, columns, source)
-    notify("file_step", step="inserting", **step)
-    loader.insert(con)
-    run_sql(con, "ingest/050_quarantine_insert.sql")
+    staged = stage_files(con, [item.path for item in files], source, files[0].source)
+    notify("file_step", step="staged", rows=sum(staged.records.values()), **step)
     ids = ledger.id_range(batch)
-    loader.count_accepted(con, ids)
+    with_records = [item.path for item in files if staged.records[str(item.path)]]
+    if with_records:
+        create_source_view(con, staged.mapped, loader.names())
+        loader.check(con, with_records[0], staged.mapped)
+        render_quarantined(con, staged.columns, source)
+        notify("file_step", step="inserting", **step)
+        loader.insert(con)
+        run_sql(con, "ingest/050_quarantine_insert.sql")
+        loader.count_accepted(con, ids)
+    else:
+        # nothing but empty files: no table is created or typed from them
+        run_sql(con, "ingest/059_no_accepted_counts.sql")
     counts = ledger.count_batch(con, batch)
     ledger.check_balance(batch, counts)
-    loader.validate(con, ids)
+    if with_records:
+        loader.validate(con, ids)
     ledger.record_batch(con, batch)
     ledger.validate_batch(con, ids)
-    return [_loaded(item, counts[item.file_id]) for item in batch]
+    return [_loaded(item, counts[item.file_id], staged.lines) for item in batch]
 
 
 def _remove_previous(con: duckdb.DuckDBPyConnection, loader: Loader) -> None:
@@ -254,16 +256,27 @@ def _remove_previous(con: duckdb.DuckDBPyConnection, loader: Loader) -> None:
     ledger.supersede_previous(con)
 
 
-def _loaded(item: ledger.BatchFile, counts: ledger.FileCounts) -> FileResult:
+def _loaded(
+    item: ledger.BatchFile, counts: ledger.FileCounts, lines: dict[str, int]
+) -> FileResult:
     found = item.discovered
+    status = "replaced" if found.previous_file_id else "new"
+    message = None
+    if counts.rows_read == 0:
+        # a warning, not a failure: ledgered once, read again only when its checksum changes
+        status = "empty"
+        message = f"{found.path}: the file is empty" + (
+            " (it has only a header)." if lines.get(str(found.path)) else "."
+        )
     return FileResult(
         found.source,
         found.path,
-        "replaced" if found.previous_file_id else "new",
+        status,
         item.file_id,
         counts.rows_read,
         counts.rows_accepted,
         counts.quarantined,
+        error=message,
     )
 
 

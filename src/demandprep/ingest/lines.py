@@ -95,5 +95,5 @@ def _kept(lines: pa.Array) -> pa.Array:
 def _extend(head: bytes, length: int, more: bytes) -> tuple[bytes, int]:
     length += len(more)
     if length > MAX_LINE_BYTES:
-        return (head + more[: KEPT_BYTES])[:KEPT_BYTES], length
+        return (head + more[:KEPT_BYTES])[:KEPT_BYTES], length
     return head + more, length

@@ -180,8 +180,7 @@ def _stage_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: File
     # each file's physical lines, cut apart from any CSV parser (lines.py), then one record
     # per line: text, fields, and why the reader refuses it (010); then the count per file
     con.execute(
-        "create temp table ingest_lines "
-        "(position integer, line_no bigint, raw blob, length bigint)"
+        "create temp table ingest_lines (position integer, line_no bigint, raw blob, length bigint)"
     )
     for position, path in enumerate(paths):
         if path.stat().st_size == 0:

@@ -256,9 +256,7 @@ def _remove_previous(con: duckdb.DuckDBPyConnection, loader: Loader) -> None:
     ledger.supersede_previous(con)
 
 
-def _loaded(
-    item: ledger.BatchFile, counts: ledger.FileCounts, lines: dict[str, int]
-) -> FileResult:
+def _loaded(item: ledger.BatchFile, counts: ledger.FileCounts, lines: dict[str, int]) -> FileResult:
     found = item.discovered
     status = "replaced" if found.previous_file_id else "new"
     message = None

@@ -8,36 +8,54 @@ lines as (
     select
         position,
         line_no,
+        text as valid_text,
         raw,
         length,
     from ingest_lines
 ),
 
+-- lines.py gives valid UTF-8 as text and anything else as bytes
 decoded as (
     select
         *,
-        try(decode(raw)) as decoded_text,
+        coalesce(valid_text, try(decode(raw))) as decoded_text,
     from lines
 ),
 
--- CRLF is one terminator: the LF is gone already, the CR just before it goes here
+without_lf as (
+    select
+        *,
+        case
+            when ends_with(decoded_text, chr(10)) then left(decoded_text, -1)
+            else decoded_text
+        end as line_text,
+    from decoded
+),
+
+-- CRLF is one terminator: the CR just before the LF goes too
 unterminated as (
     select
         *,
         case
-            when ends_with(decoded_text, chr(13)) then left(decoded_text, -1)
-            else decoded_text
+            when ends_with(line_text, chr(13)) then left(line_text, -1)
+            else line_text
         end as text,
-    from decoded
+    from without_lf
 ),
 
--- a field: quoted ("", doubled quotes inside), or not starting with a quote, or empty
+-- a field: quoted ("" inside is one quote), or not starting with a quote, or empty; the
+-- general pattern costs some microseconds a line, so lines without quotes skip it
 split as (
     select
         *,
         case
             when text is null then null
             when not contains(text, '"') then string_split(text, $delimiter)
+            -- every field quoted, no quote inside one (a common export): split between them
+            when regexp_full_match(
+                text,
+                '"[^"]*"(?:' || regexp_escape($delimiter) || '"[^"]*")*'
+            ) then string_split(text[2:-2], '"' || $delimiter || '"')
             when regexp_full_match(
                 text,
                 '(?:"(?:[^"]|"")*"|[^"' || regexp_escape($delimiter) || '][^'
@@ -80,8 +98,12 @@ final as (
         (position::bigint << 40) + line_no as ordinal,
         position,
         line_no,
-        -- a line that is not valid text keeps its bytes, escaped
-        coalesce(text, raw::varchar) as text,
+        case
+            -- a too-long line keeps its start; one that is not valid text, its bytes escaped
+            when reason = 'line_too_long' then left(coalesce(text, raw::varchar), $kept_bytes)
+            when text is null then regexp_replace(raw::varchar, '(\x0D)?\x0A$', '')
+            else text
+        end as text,
         case when reason is null then split_fields end as fields,
         reason,
         case reason
@@ -94,7 +116,7 @@ final as (
             when 'stray_carriage_return' then 'a carriage return (CR) inside the line'
             when 'unclosed_quote' then 'a quoted field is not closed on its line'
         end as detail,
-        coalesce(text, raw::varchar) <> '' and not ($header and line_no = 1) as record,
+        (text is null or text <> '') and not ($header and line_no = 1) as record,
     from classified
 )
 

@@ -34,7 +34,7 @@ import pyarrow as pa
 
 from demandprep.config import FileSource
 from demandprep.errors import UserError
-from demandprep.ingest.lines import MAX_LINE_BYTES, LinesUnreadable, line_chunks
+from demandprep.ingest.lines import KEPT_BYTES, MAX_LINE_BYTES, LinesUnreadable, line_chunks
 from demandprep.sqlfiles import quote_identifier, run_sql
 
 FILE_PATH_COLUMN = "ingest_file_path"
@@ -180,7 +180,8 @@ def _stage_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: File
     # each file's physical lines, cut apart from any CSV parser (lines.py), then one record
     # per line: text, fields, and why the reader refuses it (010); then the count per file
     con.execute(
-        "create temp table ingest_lines (position integer, line_no bigint, raw blob, length bigint)"
+        "create temp table ingest_lines "
+        "(position integer, line_no bigint, text varchar, raw blob, length bigint)"
     )
     for position, path in enumerate(paths):
         if path.stat().st_size == 0:
@@ -201,6 +202,7 @@ def _stage_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: File
             "header": source.header,
             "encoding": source.encoding,
             "max_line_bytes": MAX_LINE_BYTES,
+            "kept_bytes": KEPT_BYTES,
         },
     )
     con.execute("drop table ingest_lines")

@@ -244,3 +244,44 @@ def test_a_wrong_delimiter_is_named_with_the_key_to_fix(tmp_path: Path) -> None:
     others = sum(r.rows_accepted for r in summary.files if r.source == "receipts")
     assert query(config, "select count(*) from raw_lines") == [(others,)]
     assert accepted(config, path) == 0
+
+
+def test_blank_lines_are_no_records_and_keep_the_numbering(tmp_path: Path) -> None:
+    config_path = copy_faults(tmp_path)
+    lines = [clean_line(n) for n in range(6)]
+    lines[2:2] = [b"", b"\r"]  # lines 4 and 5 are blank
+    lines[6] += b";;"  # the fifth record, on line 8
+    path = write_receipts(config_path.parent, "receipts_2024-03-05.csv", lines)
+    config, summary = ingest(config_path)
+    assert summary.ok
+    assert reference_records(path) == 6
+    assert ledger_counts(config, path) == (6, 5, 1)
+    assert quarantined(config, path) == [(8, "wrong_column_count")]
+    numbers = query(
+        config,
+        "select line_no from raw_lines join ledger using (file_id) where path = $p order by 1",
+        {"p": str(path)},
+    )
+    assert [n for (n,) in numbers] == [2, 3, 6, 7, 9]
+
+
+def test_quoted_fields_are_read_as_the_csv_module_reads_them(tmp_path: Path) -> None:
+    config_path = copy_faults(tmp_path)
+    quoted = [
+        b'"R00001";"1";"B01";"2024-03-05 10:00:00";"K100";"1";"6,49";"M;17";"0,00";"sale"',
+        b'R00002;1;B01;2024-03-05 10:00:00;K100;1;6,49;"M ""17""; x";0,00;sale',
+        b'R00003;1;B01;2024-03-05 10:00:00;K100;1;6,49;"";0,00;sale',
+        b'R00004;1;B01;2024-03-05 10:00:00;K100;1;6,49;a"b;0,00;sale',
+        b'R00005;1;B01;2024-03-05 10:00:00;K100;1;6,49;"M"17;0,00;sale',
+    ]
+    path = write_receipts(config_path.parent, "receipts_2024-03-05.csv", quoted)
+    config, summary = ingest(config_path)
+    assert summary.ok
+    # reference: Python's csv module, the fourth line's card field
+    cards = [next(csv.reader([line.decode()], delimiter=";"))[7] for line in quoted[:4]]
+    stored = query(
+        config,
+        "select coalesce(card, '') from raw_lines where receipt like 'R0000%' order by receipt",
+    )
+    assert [card for (card,) in stored] == cards
+    assert quarantined(config, path) == [(6, "unparseable_field")]

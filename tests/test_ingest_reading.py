@@ -285,3 +285,22 @@ def test_quoted_fields_are_read_as_the_csv_module_reads_them(tmp_path: Path) -> 
     )
     assert [card for (card,) in stored] == cards
     assert quarantined(config, path) == [(6, "unparseable_field")]
+
+
+def test_a_file_without_header_numbers_its_first_line_one(tmp_path: Path) -> None:
+    config_path = copy_faults(tmp_path)
+    source = HOUSEHOLDS_SOURCE.replace('card = "member"', 'card = "1"').replace(
+        'size = "people"', 'size = "2"'
+    )
+    source = source.replace(
+        'files = ["households.csv"]', 'files = ["households.csv"]\nheader = false'
+    )
+    config_path.write_text(config_path.read_text() + source)
+    path = config_path.parent / "households.csv"
+    path.write_bytes(b"M-1,2\nM-2,3\nM-3,4,5\nM-4,1\n")
+    config, summary = ingest(config_path)
+    assert summary.ok
+    assert ledger_counts(config, path) == (4, 3, 1)
+    assert quarantined(config, path) == [(3, "wrong_column_count")]
+    stored = query(config, "select line_no, card from ref_households order by line_no")
+    assert stored == [(1, "M-1"), (2, "M-2"), (4, "M-4")]

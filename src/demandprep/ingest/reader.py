@@ -254,9 +254,10 @@ def _first_lines(
     if header:
         sql = "select position, fields, detail from ingest_fields where line_no = 1"
     else:
+        # every file with a record, the first one that splits giving the width
         sql = (
-            "select position, arg_min(fields, line_no), null from ingest_fields "
-            "where record and fields is not null group by position"
+            "select position, arg_min(fields, line_no) filter (where fields is not null), "
+            "'no line splits into fields' from ingest_fields where record group by position"
         )
     return {position: (fields, detail) for position, fields, detail in con.execute(sql).fetchall()}
 
@@ -264,13 +265,14 @@ def _first_lines(
 def _header_columns(
     path: Path, fields: list[str] | None, detail: str | None, source: FileSource, name: str
 ) -> tuple[SourceColumn, ...]:
-    if not source.header:
-        return tuple(SourceColumn(f"column{i}", "VARCHAR") for i in range(len(fields or ())))
     if fields is None:
+        line = "header line" if source.header else "lines"
         raise UserError(
-            f"{path}: its header line cannot be read ({detail}).",
+            f"{path}: its {line} cannot be read ({detail}).",
             f"check the file and sources.{name}.encoding in the config.",
         )
+    if not source.header:
+        return tuple(SourceColumn(f"column{i}", "VARCHAR") for i in range(len(fields)))
     if len(fields) == 1:
         _check_delimiter(path, fields[0], source.delimiter, name)
     return tuple(SourceColumn(field, "VARCHAR") for field in fields)

@@ -13,9 +13,10 @@ from pathlib import Path
 
 import pytest
 from ingest_fixtures import copy_faults
+from rich.console import Console
 
 from demandprep.config import load_config
-from demandprep.ingest.runner import ingest_all
+from demandprep.ingest.runner import ingest_all, summary_table
 from demandprep.warehouse import open_warehouse
 
 HEADER = b"ticket;row;branch;stamp;article;qty;value;member;disc;kind"
@@ -227,6 +228,9 @@ def test_header_only_file_is_empty(tmp_path: Path) -> None:
     assert query(config, "select status, reason from ledger where path = $p", {"p": str(path)}) == [
         ("empty", "the file has only a header")
     ]
+    console = Console(width=200, record=True)
+    console.print(summary_table(summary))
+    assert "empty: receipts_2024-03-05.csv" in console.export_text()
 
 
 def test_a_wrong_delimiter_is_named_with_the_key_to_fix(tmp_path: Path) -> None:

@@ -93,4 +93,7 @@ def summary_table(summary: IngestSummary) -> Table:
         table.add_row(f"  {reason}", f"{rows:,}")
     for result in summary.failed:
         table.add_row(f"[red]failed: {result.path.name}", "", end_section=False)
+    for result in summary.files:
+        if result.status == "empty":  # a warning: ledgered once, not read again unless changed
+            table.add_row(f"[yellow]empty: {result.path.name}", "", end_section=False)
     return table

@@ -220,7 +220,12 @@ def _stage_csv(
             continue  # no line at all: an empty file
         fields, detail = firsts[position]
         columns = _header_columns(path, fields, detail, source, name)
-        mapped = map_columns(path, columns, source.columns, source.header)
+        try:
+            mapped = map_columns(path, columns, source.columns, source.header)
+        except UserError:
+            if source.header and len(columns) == 1:
+                _check_delimiter(path, columns[0].name, source.delimiter, name)
+            raise
         if first_mapped is None:
             first_columns, first_mapped = columns, mapped
         where = {column.name: index for index, column in enumerate(columns, start=1)}
@@ -273,13 +278,14 @@ def _header_columns(
         )
     if not source.header:
         return tuple(SourceColumn(f"column{i}", "VARCHAR") for i in range(len(fields)))
-    if len(fields) == 1:
-        _check_delimiter(path, fields[0], source.delimiter, name)
     return tuple(SourceColumn(field, "VARCHAR") for field in fields)
 
 
 def _check_delimiter(path: Path, header: str, configured: str, name: str) -> None:
-    """A one-column header that another common delimiter would split: name the right one."""
+    """A one-column header that another common delimiter would split: name the right one.
+
+    Asked only when the mapping does not fit the header, so a true one-column file passes.
+    """
     for candidate in COMMON_DELIMITERS:
         if candidate != configured and candidate in header:
             raise UserError(

@@ -7,14 +7,17 @@ written, and `rows read = accepted + quarantined` is verified per file before CO
 at any point leaves the warehouse as it was before the batch; the next run ingests its files
 whole. When a batch fails (a file cannot be read, or its header lacks a mapped column), it is
 rolled back and its files are retried one by one: the broken file is ledgered as failed and
-reported, the others go in. A ledger mismatch stops the run.
+reported, the others go in. A ledger mismatch stops the run. `rows read` is each file's count
+of records from its physical lines (reader.py), not from the parser's output. A file without
+records (zero bytes, or a header alone) is ledgered `empty` with its reason and reported as a
+warning (status 'empty'), not a failure; it is read again only when its checksum changes.
 
 Progress: `progress(event, **info)` is called with
 - "start": files (count of files found), bytes (total size of the files to read);
 - "file_start": source, path, status ('new'|'unchanged'|'changed'), bytes;
 - "file_step": source, path (first file of the batch), paths, step ('staged' with rows read,
   then 'inserting' just before accepted rows are written);
-- "file_done": source, path, status ('new'|'unchanged'|'replaced'|'failed'), rows (read),
+- "file_done": source, path, status ('new'|'unchanged'|'replaced'|'failed'|'empty'), rows (read),
   accepted, quarantined, error;
 - "done": summary (the IngestSummary).
 """

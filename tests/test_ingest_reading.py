@@ -308,3 +308,18 @@ def test_a_file_without_header_numbers_its_first_line_one(tmp_path: Path) -> Non
     assert quarantined(config, path) == [(3, "wrong_column_count")]
     stored = query(config, "select line_no, card from ref_households order by line_no")
     assert stored == [(1, "M-1"), (2, "M-2"), (4, "M-4")]
+
+
+def test_a_corrupt_gzip_file_fails_alone_as_unreadable(tmp_path: Path) -> None:
+    config_path = copy_faults(tmp_path)
+    config_path.write_text(config_path.read_text().replace("receipts_*.csv", "*"))
+    path = config_path.parent / "receipts" / "r.csv.gz"
+    path.write_bytes(gzip.compress(HEADER + b"\n" + clean_line(1) + b"\n")[:-12] + b"\x00" * 40)
+    config, summary = ingest(config_path)
+    (result,) = summary.failed
+    assert result.path == path and result.unreadable
+    assert result.error.startswith(f"{path}: cannot be read (")
+    assert "\n" not in result.error
+    others = sum(r.rows_accepted for r in summary.files if r.source == "receipts")
+    assert others > 0
+    assert query(config, "select count(*) from raw_lines") == [(others,)]

@@ -17,7 +17,7 @@ from pandera.api.polars.model_config import BaseConfig
 from demandprep.ingest.reasons import REASONS
 
 LINE_KINDS = ["sale", "return", "void"]
-FILE_STATUSES = ["current", "superseded", "failed"]
+FILE_STATUSES = ["current", "superseded", "failed", "empty"]
 
 
 def described(description: str, unit: str = "", formula: str = "", **checks: Any) -> Any:
@@ -102,10 +102,14 @@ class Ledger(pa.DataFrameModel):
     rows_accepted: int = described("Records accepted into the warehouse.", ge=0)
     rows_quarantined: int = described("Records sent to quarantine.", ge=0)
     status: str = described(
-        "current (in the warehouse), superseded (replaced by a newer version) or failed.",
+        "current (in the warehouse), superseded (replaced by a newer version), failed or "
+        "empty (no records).",
         isin=FILE_STATUSES,
     )
     ingested_at: datetime.datetime = described("When this version was ingested (local time).")
+    reason: str = described(
+        "Why the file failed, was refused or is empty; null for other files.", nullable=True
+    )
 
     class Config(BaseConfig):
         name = "ledger"

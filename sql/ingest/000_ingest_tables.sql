@@ -45,3 +45,6 @@ create table if not exists ledger_reasons (
     reason varchar not null,
     rows bigint not null,
 );
+
+-- why a file failed, was refused or is empty (null for a current file); older warehouses gain it
+alter table ledger add column if not exists reason varchar;

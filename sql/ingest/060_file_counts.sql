@@ -1,5 +1,6 @@
--- per file of the batch: records the reader met, rows accepted (ingest_accepted_counts, from
--- the target table) and rows quarantined (from the quarantine table)
+-- per file of the batch: its records as the line cutter counted them (ingest_file_records, not
+-- the parser's output), rows accepted (ingest_accepted_counts, from the target table) and rows
+-- quarantined (from the quarantine table); a file without records is empty
 create temp table ingest_file_counts as
 with
 
@@ -10,20 +11,12 @@ files as (
     from ingest_batch_files
 ),
 
-staged as (
-    select
-        ingest_file_path as path,
-        count(*) as records,
-    from ingest_stage
-    group by all
-),
-
-rejected as (
+records as (
     select
         path,
-        count(*) as records,
-    from ingest_rejected
-    group by all
+        lines,
+        records,
+    from ingest_file_records
 ),
 
 quarantined as (
@@ -38,14 +31,18 @@ quarantined as (
 final as (
     select
         files.file_id,
-        coalesce(staged.records, 0) + coalesce(rejected.records, 0) as rows_read,
+        coalesce(records.records, 0) as rows_read,
         coalesce(accepted.rows, 0) as rows_accepted,
         coalesce(quarantined.rows, 0) as rows_quarantined,
         accepted.first_sold_at,
         accepted.last_sold_at,
+        case
+            when coalesce(records.records, 0) > 0 then null
+            when coalesce(records.lines, 0) = 0 then 'the file is empty'
+            else 'the file has only a header'
+        end as empty_reason,
     from files
-    left join staged using (path)
-    left join rejected using (path)
+    left join records using (path)
     left join ingest_accepted_counts as accepted using (file_id)
     left join quarantined using (file_id)
 )
@@ -57,4 +54,5 @@ select
     rows_quarantined,
     first_sold_at,
     last_sold_at,
+    empty_reason,
 from final

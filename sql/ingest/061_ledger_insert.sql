@@ -1,4 +1,4 @@
--- one ledger row per file version of the batch
+-- one ledger row per file version of the batch; a file without records is ledgered empty
 insert into ledger
 select
     files.file_id,
@@ -12,7 +12,8 @@ select
     counts.rows_read,
     counts.rows_accepted,
     counts.rows_quarantined,
-    'current' as status,
+    case when counts.empty_reason is null then 'current' else 'empty' end as status,
     $ingested_at as ingested_at,
+    counts.empty_reason as reason,
 from ingest_batch_files as files
 join ingest_file_counts as counts using (file_id)

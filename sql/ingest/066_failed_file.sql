@@ -13,4 +13,5 @@ select
     0 as rows_accepted,
     0 as rows_quarantined,
     'failed' as status,
-    $ingested_at as ingested_at
+    $ingested_at as ingested_at,
+    null::varchar as reason,

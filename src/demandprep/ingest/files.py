@@ -59,9 +59,10 @@ def file_sha256(path: Path) -> str:
 
 
 def current_versions(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], tuple[str, str]]:
-    """(source, path) -> (file_id, sha256) of every file's current ledger row."""
+    """(source, path) -> (file_id, sha256) of every file's current (or empty) ledger row."""
+    # an empty file is read once: not again until its checksum changes
     rows = con.execute(
-        "select source, path, file_id, sha256 from ledger where status = 'current'"
+        "select source, path, file_id, sha256 from ledger where status in ('current', 'empty')"
     ).fetchall()
     return {(source, path): (file_id, sha) for source, path, file_id, sha in rows}
 

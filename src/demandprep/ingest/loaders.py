@@ -16,7 +16,7 @@ import duckdb
 from demandprep.config import FileSource, ProjectConfig
 from demandprep.ingest import receipts as receipt_rules
 from demandprep.ingest import references as refs
-from demandprep.ingest.reader import SourceColumn, file_columns
+from demandprep.ingest.reader import FileRefused, SourceColumn, file_columns
 from demandprep.ingest.validation import validate_query
 from demandprep.schemas.ingest import REFERENCE_MODELS
 from demandprep.sqlfiles import quote_identifier
@@ -123,7 +123,15 @@ class ReferenceLoader:
     ) -> dict[str, str]:
         if self.source.format == "parquet":
             return {column.name: column.type for column in mapped.values()}
-        sniffed = {c.name: c.type for c in file_columns(con, path, self.source, typed=True)}
+        # DuckDB's sniffer refuses some files the reader takes (a lone CR, mixed line ends):
+        # then every column is typed from its values below. It runs on its own cursor, so its
+        # error does not abort the batch's transaction.
+        with con.cursor() as sniffer:
+            try:
+                typed = file_columns(sniffer, path, self.source, typed=True)
+            except FileRefused:
+                typed = ()
+        sniffed = {c.name: c.type for c in typed}
         for ours, theirs in mapped.items():
             if ours not in self.spec.fixed_types and sniffed.get(theirs.name) == "VARCHAR":
                 sniffed[theirs.name] = refs.mostly_typed(con, ours, self._decimal())

@@ -1,54 +1,62 @@
-"""Read a batch of files of one source with DuckDB's own readers, every field as text.
+"""Read a batch of files of one source, every field as text, every input line accounted for.
 
-CSV goes through one `read_csv` call over the batch's files with reject capture: records the
-reader cannot split into the header's columns land in `ingest_rejected` with their original
-text. Parquet goes through `read_parquet`. After `stage_files`, these temporary objects exist
-until `drop_staging`:
+CSV is read line by line, not by a CSV parser that may join or drop lines. A line ends at LF;
+CRLF is one terminator; a final line without terminator counts; a blank line is no record (it
+keeps its number); a quoted field may not span lines. `lines.py` cuts each file into its
+physical lines, apart from any parser; `010_line_fields.sql` splits each line at the source's
+delimiter, with '"' quoting ('""' inside quotes is a quote). Each file is read with its own
+header: files of one batch may have their columns in another order. A line the reader refuses
+goes to `ingest_rejected` with its number and reason (`unclosed_quote`,
+`stray_carriage_return`, `line_too_long`, `unparseable_field` for bytes that are not valid in
+the encoding or a misplaced quote, `wrong_column_count`, empty trailing fields included). The
+count of each file's records comes from the line cutter (`ingest_file_records`), so the ledger
+checks `records = accepted + quarantined` against a count the parser did not make. Parquet
+goes through `read_parquet`. After `stage_files`, these temporary objects exist until
+`drop_staging`:
 
-- `ingest_stage`: ordinal (reader order over the batch), every source column, and
-  `ingest_file_path`;
-- `ingest_rejected`: path, line_no, reason, detail, original_text of each refused record;
-- `ingest_numbered` (view): the stage with the physical line number of each record;
+- `ingest_fields`: ordinal, position, line_no, text, fields, reason, detail, record per line;
+- `ingest_stage`: ordinal (file position << 40 + line number), `ingest_file_path`, line_no and
+  every mapped source column (CSV: a view of the accepted-shape lines);
+- `ingest_rejected`: path, line_no, reason, detail, original_text of each refused line;
+- `ingest_file_records`: path, lines (physical, header included), records per file;
+- `ingest_numbered` (view): the stage with each record's physical line number (header = 1);
 - `ingest_source_lines` (view, `create_source_view`): ordinal, path, line_no + our names.
-
-Line numbers are physical lines, header included, as DuckDB counts them: exact unless the file
-has blank lines or quoted fields spanning lines before that line (then records are counted).
-DuckDB matches later files' headers to the first file's by name and stops on a missing column;
-the runner then retries the batch file by file, so such a file fails alone.
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from contextlib import contextmanager, suppress
 from dataclasses import dataclass
 from pathlib import Path
 
 import duckdb
+import numpy as np
+import pyarrow as pa
 
 from demandprep.config import FileSource
 from demandprep.errors import UserError
+from demandprep.ingest.lines import KEPT_BYTES, MAX_LINE_BYTES, LinesUnreadable, line_chunks
 from demandprep.sqlfiles import quote_identifier, run_sql
 
 FILE_PATH_COLUMN = "ingest_file_path"
-STAGING_TABLES = (
-    "ingest_headers",
+STAGING_OBJECTS = (
+    "ingest_source_lines",
+    "ingest_numbered",
+    "ingest_stage",
     "ingest_rendered",
     "ingest_duplicates",
     "ingest_checked",
     "ingest_file_counts",
     "ingest_accepted_counts",
-    "ingest_gaps",
     "ingest_rejected",
-    "ingest_file_offsets",
-    "ingest_stage",
-    "ingest_reject_errors",
-    "ingest_reject_scans",
+    "ingest_file_records",
+    "ingest_file_layouts",
+    "ingest_fields",
+    "ingest_lines",
 )
-STAGING_VIEWS = ("ingest_source_lines", "ingest_numbered")
 TEXT_TYPES = ("VARCHAR",)
 TIMESTAMP_TYPES = ("TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "DATE")
 ZONED_TIMESTAMP_TYPES = ("TIMESTAMP WITH TIME ZONE",)
+COMMON_DELIMITERS = (";", ",", "\t", "|")
 
 CSV_OPTIONS = (
     "delim = $delimiter, header = $header, encoding = $encoding, "
@@ -129,110 +137,188 @@ def map_columns(
     return mapped
 
 
-def stage_files(
-    con: duckdb.DuckDBPyConnection,
-    paths: list[Path],
-    source: FileSource,
-    columns: tuple[SourceColumn, ...],
-    mapped: dict[str, SourceColumn],
-) -> int:
-    """Read the batch's files whole into `ingest_stage` and `ingest_rejected`; returns rows read.
+@dataclass(frozen=True)
+class Staged:
+    """What staging a batch found: the first file's columns and mapping, lines per file."""
 
-    `columns` are the first file's (sniffed once); every file is read with them, and a file
-    whose header does not hold the mapped columns at the same places stops the batch.
+    columns: tuple[SourceColumn, ...]
+    mapped: dict[str, SourceColumn]
+    lines: dict[str, int]  # path -> physical lines (header included)
+    records: dict[str, int]  # path -> records (data lines: header and blank lines left out)
+
+
+def stage_files(
+    con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource, name: str
+) -> Staged:
+    """Read the batch's files into `ingest_stage` and `ingest_rejected` (needs the batch table).
+
+    CSV: every file's own header is checked against the mapping; files with their columns in
+    another order go in the same batch. Parquet: the first file's columns are used for all.
     """
     drop_staging(con)
-    try:
-        if source.format == "parquet":
+    if source.format == "parquet":
+        columns = file_columns(con, paths[0], source)
+        mapped = map_columns(paths[0], columns, source.columns, source.header)
+        try:
             _stage_parquet(con, paths)
-        else:
-            with insertion_order_kept(con):
-                _stage_csv(con, paths, source, columns)
-            if source.header:
-                _check_headers(con, paths, mapped)
-    except duckdb.Error as error:
-        names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
-        raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
-    staged = con.execute("select count(*) from ingest_stage").fetchone()[0]
-    rejected = con.execute("select count(*) from ingest_rejected").fetchone()[0]
-    return int(staged) + int(rejected)
+        except duckdb.Error as error:
+            names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
+            raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
+    else:
+        _stage_lines(con, paths, source)
+        columns, mapped = _stage_csv(con, paths, source, name)
+    rows = con.execute("select path, lines, records from ingest_file_records").fetchall()
+    return Staged(
+        columns,
+        mapped,
+        {path: int(lines) for path, lines, _ in rows},
+        {path: int(records) for path, _, records in rows},
+    )
 
 
-@contextmanager
-def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
-    """Keep insertion order while the block runs, then restore the connection's setting."""
-    before = con.execute("select current_setting('preserve_insertion_order')").fetchone()[0]
-    con.execute("set preserve_insertion_order = true")
-    try:
-        yield
-    finally:
-        # an aborted transaction refuses the reset; the error that aborted it matters more
-        with suppress(duckdb.Error):
-            con.execute(f"set preserve_insertion_order = {'true' if before else 'false'}")
+def _stage_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
+    # each file's physical lines, cut apart from any CSV parser (lines.py), then one record
+    # per line: text, fields, and why the reader refuses it (010); then the count per file
+    con.execute(
+        "create temp table ingest_lines "
+        "(position integer, line_no bigint, text varchar, raw blob, length bigint)"
+    )
+    for position, path in enumerate(paths):
+        if path.stat().st_size == 0:
+            continue  # nothing to open (an empty .gz is not even valid gzip)
+        try:
+            for chunk in line_chunks(path, source.encoding):
+                positions = pa.array(np.full(chunk.num_rows, position, dtype=np.int32))
+                con.register("ingest_line_chunk", chunk.add_column(0, "position", positions))
+                con.execute("insert into ingest_lines select * from ingest_line_chunk")
+                con.unregister("ingest_line_chunk")
+        except LinesUnreadable as error:
+            raise FileUnreadable(f"{path}: cannot be read ({error}).") from None
+    run_sql(
+        con,
+        "ingest/010_line_fields.sql",
+        {
+            "delimiter": source.delimiter,
+            "header": source.header,
+            "encoding": source.encoding,
+            "max_line_bytes": MAX_LINE_BYTES,
+            "kept_bytes": KEPT_BYTES,
+        },
+    )
+    con.execute("drop table ingest_lines")
+    run_sql(con, "ingest/011_file_records.sql")
 
 
 def _stage_csv(
+    con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource, name: str
+) -> tuple[tuple[SourceColumn, ...], dict[str, SourceColumn]]:
+    # every file's own header (or first line) gives its width and where the mapped columns are
+    firsts = _first_lines(con, source.header)
+    layouts, first_columns, first_mapped = [], None, None
+    for position, path in enumerate(paths):
+        if position not in firsts:
+            continue  # no line at all: an empty file
+        fields, detail = firsts[position]
+        columns = _header_columns(path, fields, detail, source, name)
+        try:
+            mapped = map_columns(path, columns, source.columns, source.header)
+        except UserError:
+            if source.header and len(columns) == 1:
+                _check_delimiter(path, columns[0].name, source.delimiter, name)
+            raise
+        if first_mapped is None:
+            first_columns, first_mapped = columns, mapped
+        where = {column.name: index for index, column in enumerate(columns, start=1)}
+        layouts.append((position, len(columns), {c.name: where[c.name] for c in mapped.values()}))
+    if first_mapped is None:  # every file is empty: the mapping is checked when one has lines
+        first_columns, first_mapped = (), {}
+    names = list(dict.fromkeys(column.name for column in first_mapped.values()))
+    _create_layouts(con, layouts, names)
+    run_sql(con, "ingest/012_rejected_lines.sql", {"header": source.header})
+    fields = ", ".join(
+        f"f.fields[l.{_position_column(i)}] as {quote_identifier(column)}"
+        for i, column in enumerate(names)
+    )
+    con.execute(
+        "create temp view ingest_stage as "  # noqa: S608 (quoted identifiers)
+        f"select f.ordinal, b.path as {FILE_PATH_COLUMN}, f.line_no"
+        + (f", {fields}" if fields else "")
+        + " from ingest_fields f join ingest_file_layouts l using (position) "
+        "join ingest_batch_files b using (position) "
+        "where f.record and f.reason is null and len(f.fields) = l.width"
+    )
+    con.execute("create temp view ingest_numbered as select * from ingest_stage")
+    mapped_text = {ours: SourceColumn(c.name, "VARCHAR") for ours, c in first_mapped.items()}
+    return first_columns, mapped_text
+
+
+def _first_lines(
+    con: duckdb.DuckDBPyConnection, header: bool
+) -> dict[int, tuple[list[str] | None, str | None]]:
+    """position -> (fields, why unreadable) of each file's header, or first record without one."""
+    if header:
+        sql = "select position, fields, detail from ingest_fields where line_no = 1"
+    else:
+        # every file with a record, the first one that splits giving the width
+        sql = (
+            "select position, arg_min(fields, line_no) filter (where fields is not null), "
+            "'no line splits into fields' from ingest_fields where record group by position"
+        )
+    return {position: (fields, detail) for position, fields, detail in con.execute(sql).fetchall()}
+
+
+def _header_columns(
+    path: Path, fields: list[str] | None, detail: str | None, source: FileSource, name: str
+) -> tuple[SourceColumn, ...]:
+    if fields is None:
+        line = "header line" if source.header else "lines"
+        raise UserError(
+            f"{path}: its {line} cannot be read ({detail}).",
+            f"check the file and sources.{name}.encoding in the config.",
+        )
+    if not source.header:
+        return tuple(SourceColumn(f"column{i}", "VARCHAR") for i in range(len(fields)))
+    return tuple(SourceColumn(field, "VARCHAR") for field in fields)
+
+
+def _check_delimiter(path: Path, header: str, configured: str, name: str) -> None:
+    """A one-column header that another common delimiter would split: name the right one.
+
+    Asked only when the mapping does not fit the header, so a true one-column file passes.
+    """
+    for candidate in COMMON_DELIMITERS:
+        if candidate != configured and candidate in header:
+            raise UserError(
+                f"{path}: the header has one column; the file seems to use {candidate!r} "
+                f"(configured: {configured!r}).",
+                f"set sources.{name}.delimiter = {candidate!r} in the config.",
+            )
+
+
+def _position_column(index: int) -> str:
+    return f"column_{index}"
+
+
+def _create_layouts(
     con: duckdb.DuckDBPyConnection,
-    paths: list[Path],
-    source: FileSource,
-    columns: tuple[SourceColumn, ...],
+    layouts: list[tuple[int, int, dict[str, int]]],
+    names: list[str],
 ) -> None:
-    # Sniffing costs more than reading a small daily file, so the files are read with the first
-    # file's columns and no detection; the header line comes in as each file's first record.
-    # With insertion order kept, records arrive in file order: row_number() minus the file's
-    # offset is the record's rank in the file, the header being record 1.
-    params = csv_parameters([str(path) for path in paths], source)
-    params["header"] = False
-    params["columns"] = {column.name: "VARCHAR" for column in columns}
+    """`ingest_file_layouts`: per file position, its width and each mapped column's place."""
+    places = ", ".join(f"{_position_column(i)} integer" for i in range(len(names)))
     con.execute(
-        "create temp table ingest_stage as "
-        "select row_number() over () as ordinal, * "
-        f"from read_csv($paths, {CSV_OPTIONS}, auto_detect = false, columns = $columns, "
-        f"filename = '{FILE_PATH_COLUMN}', "
-        "store_rejects = true, ignore_errors = true, rejects_limit = 0, "
-        "rejects_table = 'ingest_reject_errors', rejects_scan = 'ingest_reject_scans')",
-        params,
+        "create temp table ingest_file_layouts (position integer, width integer"
+        + (f", {places})" if places else ")")
     )
-    run_sql(con, "ingest/010_file_offsets.sql")
-    run_sql(con, "ingest/011_rejected_records.sql")
-    run_sql(con, "ingest/012_record_gaps.sql", {"header_lines": 0})
+    if not layouts:
+        return
+    values = [[position for position, _, _ in layouts], [width for _, width, _ in layouts]]
+    values += [[where[name] for _, _, where in layouts] for name in names]
+    selects = ", ".join(f"unnest($c{i})" for i in range(len(values)))
     con.execute(
-        "create temp view ingest_numbered as "
-        "select s.*, s.ordinal - o.start_ordinal + coalesce(g.rejected_before, 0) as line_no "
-        f"from ingest_stage s join ingest_file_offsets o on o.path = s.{FILE_PATH_COLUMN} "
-        f"asof left join ingest_gaps g on g.path = s.{FILE_PATH_COLUMN} "
-        "and s.ordinal - o.start_ordinal > g.accepted_before"
+        f"insert into ingest_file_layouts select {selects}",
+        {f"c{i}": column for i, column in enumerate(values)},
     )
-
-
-class HeaderMismatch(FileRefused):
-    """A file's header does not hold the mapped columns where the batch's first file has them."""
-
-
-def _check_headers(
-    con: duckdb.DuckDBPyConnection, paths: list[Path], mapped: dict[str, SourceColumn]
-) -> None:
-    run_sql(con, "ingest/014_header_records.sql")
-    names = sorted({column.name for column in mapped.values()})
-    params = {f"name_{i}": name for i, name in enumerate(names)}
-    same = (
-        " and ".join(
-            f"s.{quote_identifier(name)} is not distinct from $name_{i}"
-            for i, name in enumerate(names)
-        )
-        or "true"
-    )
-    bad = con.execute(
-        "select f.path from ingest_batch_files f "  # noqa: S608 (quoted identifiers)
-        "left join ingest_headers h using (path) left join ingest_stage s using (ordinal) "
-        f"where h.ordinal is null or not ({same}) order by f.position limit 1",
-        params,
-    ).fetchone()
-    if bad is not None:
-        raise HeaderMismatch(
-            f"{bad[0]}: its header does not have the mapped columns where {paths[0].name} has them."
-        )
-    con.execute("delete from ingest_stage where ordinal in (select ordinal from ingest_headers)")
 
 
 def _stage_parquet(con: duckdb.DuckDBPyConnection, paths: list[Path]) -> None:
@@ -246,6 +332,7 @@ def _stage_parquet(con: duckdb.DuckDBPyConnection, paths: list[Path]) -> None:
         {"paths": [str(path) for path in paths]},
     )
     run_sql(con, "ingest/013_no_rejected_records.sql")
+    run_sql(con, "ingest/014_parquet_records.sql")
     con.execute(
         "create temp view ingest_numbered as "
         "select * exclude (ingest_row_number), ingest_row_number as line_no from ingest_stage"
@@ -289,42 +376,34 @@ def render_quarantined(
 ) -> None:
     """`ingest_rendered`: the original text of each staged record that broke a rule.
 
-    CSV: the fields joined by the delimiter, quoted where the field needs it (the line as
-    written unless the source quoted fields that did not need it). Parquet: the row as JSON.
-    Only the quarantined records are rendered.
+    CSV: the line as written (without its terminator). Parquet: the row as JSON. Only the
+    quarantined records are rendered.
     """
     if source.format == "parquet":
         pairs = ", ".join(
             f"{quote_identifier(c.name)} := {quote_identifier(c.name)}" for c in columns
         )
-        body, params = f"to_json(struct_pack({pairs}))", None
+        body, table = f"to_json(struct_pack({pairs}))", "ingest_stage"
     else:
-        fields = ", ".join(_csv_field(column) for column in columns)
-        body, params = f"concat_ws($delimiter, {fields})", {"delimiter": source.delimiter}
+        body, table = "text", "ingest_fields"
     con.execute(
         "create or replace temp table ingest_rendered as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {body} as original_text from ingest_stage "
-        "where ordinal in (select ordinal from ingest_checked where reason is not null)",
-        params,
+        f"select ordinal, {body} as original_text from {table} "
+        "where ordinal in (select ordinal from ingest_checked where reason is not null)"
     )
-
-
-def _csv_field(column: SourceColumn) -> str:
-    name = quote_identifier(column.name)
-    needs_quotes = (
-        f"contains({name}, $delimiter) or contains({name}, '\"') "
-        f"or contains({name}, chr(10)) or contains({name}, chr(13))"
-    )
-    quoted = f"'\"' || replace({name}, '\"', '\"\"') || '\"'"
-    return f"coalesce(case when {needs_quotes} then {quoted} else {name} end, '')"
 
 
 def drop_staging(con: duckdb.DuckDBPyConnection) -> None:
-    """Remove every temporary object of the previous batch."""
-    for view in STAGING_VIEWS:
-        con.execute(f"drop view if exists {view}")
-    for table in STAGING_TABLES:
-        con.execute(f"drop table if exists {table}")
+    """Remove every temporary object of the previous batch (views before the tables they read)."""
+    found = dict(
+        con.execute(
+            "select view_name, 'view' from duckdb_views() where temporary "
+            "union all select table_name, 'table' from duckdb_tables() where temporary"
+        ).fetchall()
+    )
+    for name in STAGING_OBJECTS:
+        if name in found:
+            con.execute(f"drop {found[name]} {name}")
 
 
 def first_line(error: Exception) -> str:

@@ -20,11 +20,16 @@ DUPLICATE_LINE = "duplicate_line"
 DUPLICATE_KEY = "duplicate_key"
 NON_POSITIVE_VALUE = "non_positive_value"
 UNKNOWN_TIMEZONE = "unknown_timezone"
+UNCLOSED_QUOTE = "unclosed_quote"
+STRAY_CARRIAGE_RETURN = "stray_carriage_return"
+LINE_TOO_LONG = "line_too_long"
 
 REASONS: dict[str, str] = {
-    WRONG_COLUMN_COUNT: "the line has more or fewer fields than the header",
-    UNPARSEABLE_FIELD: "a field cannot be read as its type (number, timestamp, date, flag) "
-    "or the line is not valid CSV in the configured encoding",
+    WRONG_COLUMN_COUNT: "the line has more or fewer fields than the header (empty trailing "
+    "fields count)",
+    UNPARSEABLE_FIELD: "a field cannot be read as its type (number, timestamp, date, flag), "
+    "the line is not valid text in the configured encoding, or a quoted field has text after "
+    "its closing quote",
     MISSING_REQUIRED_FIELD: "a required field is empty",
     UNKNOWN_LINE_KIND: "the line kind is not one of sale, return, void",
     TIMESTAMP_OUT_OF_RANGE: "the sale time falls outside sources.receipts.valid_from/valid_to",
@@ -39,6 +44,12 @@ REASONS: dict[str, str] = {
     "or from another file of the same source)",
     NON_POSITIVE_VALUE: "a shelf price or market size of zero or less",
     UNKNOWN_TIMEZONE: "a store timezone that is not a known IANA zone name",
+    UNCLOSED_QUOTE: "a quoted field is not closed before the end of its line (fields may not "
+    "span lines)",
+    STRAY_CARRIAGE_RETURN: "a carriage return (CR) inside the line, not just before its line "
+    "feed (a line ends at LF; CRLF is one terminator)",
+    LINE_TOO_LONG: "the line is longer than the reader's limit of 1 MiB; its first 4 KiB are "
+    "kept as its original text",
 }
 
 

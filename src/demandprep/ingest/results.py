@@ -9,8 +9,8 @@ from typing import Literal
 
 from rich.table import Table
 
-FileStatus = Literal["new", "unchanged", "replaced", "failed"]
-FILE_STATUSES: tuple[FileStatus, ...] = ("new", "unchanged", "replaced", "failed")
+FileStatus = Literal["new", "unchanged", "replaced", "failed", "empty"]
+FILE_STATUSES: tuple[FileStatus, ...] = ("new", "unchanged", "replaced", "failed", "empty")
 
 
 @dataclass(frozen=True)
@@ -93,4 +93,7 @@ def summary_table(summary: IngestSummary) -> Table:
         table.add_row(f"  {reason}", f"{rows:,}")
     for result in summary.failed:
         table.add_row(f"[red]failed: {result.path.name}", "", end_section=False)
+    for result in summary.files:
+        if result.status == "empty":  # a warning: ledgered once, not read again unless changed
+            table.add_row(f"[yellow]empty: {result.path.name}", "", end_section=False)
     return table

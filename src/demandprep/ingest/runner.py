@@ -7,14 +7,17 @@ written, and `rows read = accepted + quarantined` is verified per file before CO
 at any point leaves the warehouse as it was before the batch; the next run ingests its files
 whole. When a batch fails (a file cannot be read, or its header lacks a mapped column), it is
 rolled back and its files are retried one by one: the broken file is ledgered as failed and
-reported, the others go in. A ledger mismatch stops the run.
+reported, the others go in. A ledger mismatch stops the run. `rows read` is each file's count
+of records from its physical lines (reader.py), not from the parser's output. A file without
+records (zero bytes, or a header alone) is ledgered `empty` with its reason and reported as a
+warning (status 'empty'), not a failure; it is read again only when its checksum changes.
 
 Progress: `progress(event, **info)` is called with
 - "start": files (count of files found), bytes (total size of the files to read);
 - "file_start": source, path, status ('new'|'unchanged'|'changed'), bytes;
 - "file_step": source, path (first file of the batch), paths, step ('staged' with rows read,
   then 'inserting' just before accepted rows are written);
-- "file_done": source, path, status ('new'|'unchanged'|'replaced'|'failed'), rows (read),
+- "file_done": source, path, status ('new'|'unchanged'|'replaced'|'failed'|'empty'), rows (read),
   accepted, quarantined, error;
 - "done": summary (the IngestSummary).
 """
@@ -41,9 +44,7 @@ from demandprep.ingest.reader import (
     FileUnreadable,
     create_source_view,
     drop_staging,
-    file_columns,
     first_line,
-    map_columns,
     render_quarantined,
     stage_files,
 )
@@ -220,29 +221,33 @@ def _load_batch(
     notify: Progress,
 ) -> list[FileResult]:
     source, first = loader.source, files[0].path
-    columns = file_columns(con, first, source)
-    mapped = map_columns(first, columns, source.columns, source.header)
     batch = ledger.assign_versions(con, files[0].source, files)
     ledger.create_batch_table(con, batch)
     if any(item.previous_file_id for item in files):
         _remove_previous(con, loader)
     step = {"source": files[0].source, "path": first, "paths": [item.path for item in files]}
-    rows = stage_files(con, [item.path for item in files], source, columns, mapped)
-    notify("file_step", step="staged", rows=rows, **step)
-    create_source_view(con, mapped, loader.names())
-    loader.check(con, first, mapped)
-    render_quarantined(con, columns, source)
-    notify("file_step", step="inserting", **step)
-    loader.insert(con)
-    run_sql(con, "ingest/050_quarantine_insert.sql")
+    staged = stage_files(con, [item.path for item in files], source, files[0].source)
+    notify("file_step", step="staged", rows=sum(staged.records.values()), **step)
     ids = ledger.id_range(batch)
-    loader.count_accepted(con, ids)
+    with_records = [item.path for item in files if staged.records[str(item.path)]]
+    if with_records:
+        create_source_view(con, staged.mapped, loader.names())
+        loader.check(con, with_records[0], staged.mapped)
+        render_quarantined(con, staged.columns, source)
+        notify("file_step", step="inserting", **step)
+        loader.insert(con)
+        run_sql(con, "ingest/050_quarantine_insert.sql")
+        loader.count_accepted(con, ids)
+    else:
+        # nothing but empty files: no table is created or typed from them
+        run_sql(con, "ingest/059_no_accepted_counts.sql")
     counts = ledger.count_batch(con, batch)
     ledger.check_balance(batch, counts)
-    loader.validate(con, ids)
+    if with_records:
+        loader.validate(con, ids)
     ledger.record_batch(con, batch)
     ledger.validate_batch(con, ids)
-    return [_loaded(item, counts[item.file_id]) for item in batch]
+    return [_loaded(item, counts[item.file_id], staged.lines) for item in batch]
 
 
 def _remove_previous(con: duckdb.DuckDBPyConnection, loader: Loader) -> None:
@@ -254,16 +259,25 @@ def _remove_previous(con: duckdb.DuckDBPyConnection, loader: Loader) -> None:
     ledger.supersede_previous(con)
 
 
-def _loaded(item: ledger.BatchFile, counts: ledger.FileCounts) -> FileResult:
+def _loaded(item: ledger.BatchFile, counts: ledger.FileCounts, lines: dict[str, int]) -> FileResult:
     found = item.discovered
+    status = "replaced" if found.previous_file_id else "new"
+    message = None
+    if counts.rows_read == 0:
+        # a warning, not a failure: ledgered once, read again only when its checksum changes
+        status = "empty"
+        message = f"{found.path}: the file is empty" + (
+            " (it has only a header)." if lines.get(str(found.path)) else "."
+        )
     return FileResult(
         found.source,
         found.path,
-        "replaced" if found.previous_file_id else "new",
+        status,
         item.file_id,
         counts.rows_read,
         counts.rows_accepted,
         counts.quarantined,
+        error=message,
     )
 
 

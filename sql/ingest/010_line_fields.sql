@@ -1,0 +1,132 @@
+-- one row per physical line of the batch's files: its text without the terminator, its fields
+-- split at the configured delimiter ('"' quotes a field, '""' inside quotes is one quote, a
+-- quoted field ends on its line) and, when the reader refuses the line, why
+create temp table ingest_fields as
+with
+
+lines as (
+    select
+        position,
+        line_no,
+        text as valid_text,
+        raw,
+        length,
+    from ingest_lines
+),
+
+-- lines.py gives valid UTF-8 as text and anything else as bytes
+decoded as (
+    select
+        *,
+        coalesce(valid_text, try(decode(raw))) as decoded_text,
+    from lines
+),
+
+without_lf as (
+    select
+        *,
+        case
+            when ends_with(decoded_text, chr(10)) then left(decoded_text, -1)
+            else decoded_text
+        end as line_text,
+    from decoded
+),
+
+-- CRLF is one terminator: the CR just before the LF goes too
+unterminated as (
+    select
+        *,
+        case
+            when ends_with(line_text, chr(13)) then left(line_text, -1)
+            else line_text
+        end as text,
+    from without_lf
+),
+
+-- a field: quoted ("" inside is one quote), or not starting with a quote, or empty; the
+-- general pattern costs some microseconds a line, so lines without quotes skip it
+split as (
+    select
+        *,
+        case
+            when text is null then null
+            when not contains(text, '"') then string_split(text, $delimiter)
+            -- every field quoted, no quote inside one (a common export): split between them
+            when regexp_full_match(
+                text,
+                '"[^"]*"(?:' || regexp_escape($delimiter) || '"[^"]*")*'
+            ) then string_split(text[2:-2], '"' || $delimiter || '"')
+            when regexp_full_match(
+                text,
+                '(?:"(?:[^"]|"")*"|[^"' || regexp_escape($delimiter) || '][^'
+                || regexp_escape($delimiter) || ']*|)(?:' || regexp_escape($delimiter)
+                || '(?:"(?:[^"]|"")*"|[^"' || regexp_escape($delimiter) || '][^'
+                || regexp_escape($delimiter) || ']*|))*'
+            ) then list_transform(
+                regexp_extract_all(
+                    text,
+                    '(?:^|' || regexp_escape($delimiter) || ')("(?:[^"]|"")*"|[^"'
+                    || regexp_escape($delimiter) || '][^' || regexp_escape($delimiter)
+                    || ']*|)',
+                    1
+                ),
+                lambda field: case
+                    when starts_with(field, '"') then replace(field[2:-2], '""', '"')
+                    else field
+                end
+            )
+        end as split_fields,
+    from unterminated
+),
+
+classified as (
+    select
+        *,
+        case
+            when length > $max_line_bytes then 'line_too_long'
+            when text is null then 'unparseable_field'
+            when contains(text, chr(13)) then 'stray_carriage_return'
+            when split_fields is null and (length(text) - length(replace(text, '"', ''))) % 2 = 1
+                then 'unclosed_quote'
+            when split_fields is null then 'unparseable_field'
+        end as reason,
+    from split
+),
+
+final as (
+    select
+        (position::bigint << 40) + line_no as ordinal,
+        position,
+        line_no,
+        case
+            -- a too-long line keeps its start; one that is not valid text, its bytes escaped
+            when reason = 'line_too_long' then left(coalesce(text, raw::varchar), $kept_bytes)
+            when text is null then regexp_replace(raw::varchar, '(\x0D)?\x0A$', '')
+            else text
+        end as text,
+        case when reason is null then split_fields end as fields,
+        reason,
+        case reason
+            when 'line_too_long' then 'the line has ' || length || ' bytes, more than '
+                || $max_line_bytes || '; original_text keeps its start'
+            when 'unparseable_field' then case
+                when text is null then 'the line is not valid ' || $encoding
+                else 'a quoted field has text after its closing quote'
+            end
+            when 'stray_carriage_return' then 'a carriage return (CR) inside the line'
+            when 'unclosed_quote' then 'a quoted field is not closed on its line'
+        end as detail,
+        (text is null or text <> '') and not ($header and line_no = 1) as record,
+    from classified
+)
+
+select
+    ordinal,
+    position,
+    line_no,
+    text,
+    fields,
+    reason,
+    detail,
+    record,
+from final

@@ -1,0 +1,113 @@
+"""Cut a CSV file into its physical lines, apart from any CSV parser, in Arrow chunks.
+
+A line ends at LF (byte 10). The LF is not part of the line (the arrays here may still carry
+it); the reader drops it and a CR just before it (CRLF is one terminator). A final line
+without terminator counts; the empty rest after a final LF is no line. Lines are numbered
+from 1 (the header, when there is one). A CR anywhere else, or a quote, is the reader's
+business, not the cutter's.
+
+The file is decompressed (`.gz`, `.zst`) and decoded to UTF-8 (latin-1, utf-16; a UTF-8 byte
+order mark is dropped) by chunks of CHUNK_BYTES; numpy finds each chunk's LF bytes and the
+lines become an Arrow array over the chunk's own buffer, so memory stays bounded and no Python
+code runs per line. A line that spans chunks is joined in Python; past MAX_LINE_BYTES it keeps
+only its first KEPT_BYTES (its full length travels with it), so one huge line costs no more
+memory than a chunk. Invalid UTF-8 is not refused here: such a line reaches the reader as bytes
+and is quarantined there.
+"""
+
+from __future__ import annotations
+
+import codecs
+from collections.abc import Iterator
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+
+CHUNK_BYTES = 8 * 1024 * 1024
+MAX_LINE_BYTES = 1024 * 1024  # a receipt line is some 100 bytes; past this it is a fault
+KEPT_BYTES = 4096  # of a too-long line, kept as its original text
+UTF8_BOM = codecs.BOM_UTF8
+LF = 10
+COMPRESSION = {".gz": "gzip", ".zst": "zstd"}
+
+
+class LinesUnreadable(Exception):
+    """The file cannot be opened, decompressed or decoded as a whole."""
+
+
+def line_chunks(path: Path, encoding: str) -> Iterator[pa.Table]:
+    """The file's lines as tables of (line_no, text, raw, length), in order.
+
+    `text` holds a line that is valid UTF-8 (else null, and `raw` holds its bytes); either may
+    still end with its LF. `length` is the line's full length in bytes, without the LF.
+    """
+    next_line = 1
+    for lines, lengths in _cut_lines(_utf8_chunks(path, encoding)):
+        numbers = np.arange(next_line, next_line + len(lines), dtype=np.int64)
+        next_line += len(lines)
+        yield _line_table(numbers, lines, lengths)
+
+
+def _line_table(numbers: np.ndarray, lines: pa.Array, lengths: np.ndarray) -> pa.Table:
+    # valid UTF-8 (nearly always) goes in as text, so DuckDB need not check every line again
+    try:
+        text = lines.cast(pa.string())
+        raw = pa.nulls(len(lines), pa.binary())
+    except pa.ArrowInvalid:
+        text, raw = pa.nulls(len(lines), pa.string()), lines
+    return pa.table({"line_no": numbers, "text": text, "raw": raw, "length": lengths})
+
+
+def _utf8_chunks(path: Path, encoding: str) -> Iterator[bytes]:
+    compression = COMPRESSION.get(path.suffix.lower())
+    decoder = None if encoding == "utf-8" else codecs.getincrementaldecoder(encoding)()
+    first = True
+    try:
+        with pa.input_stream(str(path), compression=compression) as stream:
+            while True:
+                read = stream.read(CHUNK_BYTES)
+                chunk = read
+                if decoder is not None:
+                    chunk = decoder.decode(read, final=not read).encode("utf-8")
+                elif first and chunk.startswith(UTF8_BOM):
+                    chunk = chunk[len(UTF8_BOM) :]
+                first = False
+                if chunk:
+                    yield chunk
+                if not read:
+                    return
+    except (OSError, pa.ArrowException, UnicodeDecodeError) as error:
+        message = str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
+        raise LinesUnreadable(message) from None
+
+
+def _cut_lines(chunks: Iterator[bytes]) -> Iterator[tuple[pa.Array, np.ndarray]]:
+    """(lines, full lengths) as they complete; a line cut by a chunk's end is finished by the
+    next chunk. The lines of a chunk share its buffer (each with its LF), without copies."""
+    head, head_length = b"", 0  # the unfinished line so far (truncated once too long)
+    for chunk in chunks:
+        ends = np.flatnonzero(np.frombuffer(chunk, dtype=np.uint8) == LF)
+        if not len(ends):
+            head, head_length = _extend(head, head_length, chunk)
+            continue
+        head, head_length = _extend(head, head_length, chunk[: ends[0]])
+        yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
+        if len(ends) > 1:
+            start = int(ends[0]) + 1
+            offsets = (ends + 1 - start).astype(np.int32)
+            body = pa.py_buffer(chunk).slice(start, int(ends[-1]) + 1 - start)
+            lines = pa.BinaryArray.from_buffers(
+                pa.binary(), len(offsets) - 1, [None, pa.py_buffer(offsets), body]
+            )
+            yield lines, np.diff(offsets).astype(np.int64) - 1
+        head, head_length = _extend(b"", 0, chunk[int(ends[-1]) + 1 :])
+    if head_length:
+        yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
+
+
+def _extend(head: bytes, length: int, more: bytes) -> tuple[bytes, int]:
+    length += len(more)
+    if length > MAX_LINE_BYTES:
+        return (head + more[:KEPT_BYTES])[:KEPT_BYTES], length
+    return head + more, length

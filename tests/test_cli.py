@@ -14,6 +14,7 @@ from typer.testing import CliRunner
 from demandprep import __version__
 from demandprep.cli import app
 from demandprep.config import load_config
+from demandprep.export.folder import published_builds
 
 RUNNER = CliRunner()
 TEMPLATES = Path(__file__).resolve().parents[1] / "src" / "demandprep" / "templates"
@@ -44,15 +45,18 @@ def test_init_refuses_to_overwrite(tmp_path: Path) -> None:
     assert target.read_text() == "keep me"
 
 
-def test_check_of_a_broken_config_exits_1_with_one_line(tmp_path: Path) -> None:
+def test_check_of_a_broken_config_lists_every_problem_one_line_each(tmp_path: Path) -> None:
     config = tmp_path / "demandprep.toml"
     shutil.copy(TEMPLATES / "starter.toml", config)
-    result = RUNNER.invoke(app, ["check", str(config)])
+    result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
     assert result.exit_code == 1
     lines = [line for line in result.output.splitlines() if line.strip()]
-    assert len(lines) == 1, result.output
-    assert lines[0].startswith("error:")
-    assert "'sources.receipts.files'" in lines[0]
+    assert [line.split("'")[1] for line in lines] == [
+        "sources.receipts.files",
+        "sources.catalogue.files",
+        "sources.stores.files",
+    ], result.output
+    assert all(line.startswith(f"error: {config}: key 'sources.") for line in lines)
     assert "Traceback" not in result.output
 
 
@@ -106,15 +110,15 @@ def test_bracketed_text_from_a_file_header_prints_literally(tmp_path: Path) -> N
 
 
 def test_hint_naming_a_config_section_prints_it(tmp_path: Path) -> None:
+    # the fault fixture maps no pack size, which the default weight unit needs
     config = faults_project(tmp_path)
     assert RUNNER.invoke(app, ["ingest", str(config)]).exit_code == 0
-    text = config.read_text().replace("[markets]\n", '[markets]\ngeography = "chain"\n', 1)
-    config.write_text(text)
     result = RUNNER.invoke(app, ["build", str(config)], terminal_width=2000)
     assert result.exit_code == 1, result.output
     assert error_lines(result.output) == [
-        "error: config key 'markets.geography': column 'chain' is not in the stores table "
-        "(columns: store, region). Hint: map it under [sources.stores.columns] and ingest again."
+        "error: config key 'products.equivalent_unit.size_column': column 'pack_size' is not in "
+        "the catalogue table (columns: sku, category, firm, pack_grams). Hint: map it under "
+        "[sources.catalogue.columns] and ingest again."
     ]
 
 
@@ -122,8 +126,7 @@ def test_run_stops_after_the_ingest_when_every_receipts_file_fails(tmp_path: Pat
     config = faults_project(tmp_path)
     receipts = sorted((config.parent / "receipts").glob("*.csv"))
     for path in receipts:
-        lines = path.read_text().splitlines(keepends=True)
-        path.write_text(lines[0].replace("ticket", "tikket", 1) + "".join(lines[1:]))
+        path.write_bytes(path.read_bytes().replace(b"ticket;", b"tikket;", 1))
     result = RUNNER.invoke(app, ["run", str(config)], terminal_width=2000)
     assert result.exit_code == 1, result.output
     lines = error_lines(result.output)
@@ -149,7 +152,7 @@ class SampleRun:
         return self.config.parent / "builds"
 
     def published(self) -> list[str]:
-        return sorted(p.name for p in self.builds.iterdir() if p.is_dir() and p.name[0] != ".")
+        return [build.name for build in published_builds(self.builds)]
 
 
 @pytest.fixture(scope="module")
@@ -184,7 +187,7 @@ def test_outside_a_terminal_progress_is_one_log_line_per_stage_and_batch(
 ) -> None:
     lines = sample_run.output.splitlines()
     stage_lines = [line for line in lines if line.startswith("stage ")]
-    assert stage_lines[0].startswith("stage settings done in ")
+    assert stage_lines[0].startswith("stage market_settings done in ")
     assert all(re.fullmatch(r"stage \w+ done in \d+\.\d s", line) for line in stage_lines)
     batch_lines = [line for line in lines if line.startswith("ingest ")]
     assert re.fullmatch(
@@ -223,7 +226,7 @@ def test_check_reports_every_problem_it_can_find_before_a_run(
     text = text.replace('files = ["stores.csv"]\ndelimiter = ";"', 'files = ["stores.csv"]', 1)
     text = text.replace('keys = ["firm", "pack_grams"]', 'keys = ["firm", "pack_grams", "roast"]')
     text = text.replace('categories = ["coffee"]', 'categories = ["coffee", "tea"]', 1)
-    config.write_text(text)
+    config.write_text(text + '\n[products.equivalent_unit]\nkind = "item"\n')
     monkeypatch.delenv("DEMANDPREP_PSEUDONYM_KEY", raising=False)
     result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
     assert result.exit_code == 1, result.output
@@ -247,10 +250,8 @@ def test_check_reports_every_problem_it_can_find_before_a_run(
     ]
 
 
-def test_check_refuses_a_short_pseudonym_key(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    config = faults_project(tmp_path)
+def test_check_refuses_a_short_pseudonym_key(monkeypatch: pytest.MonkeyPatch) -> None:
+    config = SAMPLE / "demandprep.toml"
     monkeypatch.setenv("DEMANDPREP_PSEUDONYM_KEY", "short")
     result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
     assert result.exit_code == 1, result.output
@@ -260,8 +261,8 @@ def test_check_refuses_a_short_pseudonym_key(
     ]
 
 
-def test_check_of_a_sound_project_passes(tmp_path: Path) -> None:
-    config = faults_project(tmp_path)
+def test_check_of_a_sound_project_passes() -> None:
+    config = SAMPLE / "demandprep.toml"
     result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
     assert result.exit_code == 0, result.output
     assert error_lines(result.output) == []

@@ -267,3 +267,34 @@ def test_check_of_a_sound_project_passes() -> None:
     assert result.exit_code == 0, result.output
     assert error_lines(result.output) == []
     assert result.output.splitlines()[-1].startswith(f"ok {config} is valid")
+
+
+def test_check_names_each_role_column_its_source_does_not_provide(tmp_path: Path) -> None:
+    config = faults_project(tmp_path)
+    config.write_text(
+        config.read_text()
+        + '\n[products.equivalent_unit]\nkind = "item"\n'
+        + '\n[market_size.catchment]\nmethod = "population"\nunits_per_person_per_day = 0.01\n'
+        + '\n[instruments]\ncharacteristic_sums = ["pack_grams"]\n'
+        + 'cost_shifters = { join_on = ["period"], columns = ["fuel_index"] }\n'
+        + '\n[choices]\ndemographics = ["income_band"]\n'
+    )
+    result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
+    assert result.exit_code == 1, result.output
+    assert error_lines(result.output) == [
+        "error: config key 'market_size.catchment.population_column' names 'population', which "
+        "sources.stores.columns does not map (it maps store, region). Hint: map it under "
+        "[sources.stores.columns] or remove it from market_size.catchment.population_column.",
+        "error: config key 'instruments.cost_shifters.columns' names 'fuel_index' but there is "
+        "no [sources.cost_shifters] section. Hint: configure [sources.cost_shifters] or remove "
+        "it from instruments.cost_shifters.columns.",
+        "error: config key 'instruments.cost_shifters.join_on' names 'period' but there is no "
+        "[sources.cost_shifters] section. Hint: configure [sources.cost_shifters] or remove it "
+        "from instruments.cost_shifters.join_on.",
+        "error: config key 'choices.demographics' names 'income_band' but there is no "
+        "[sources.households] section. Hint: configure [sources.households] or remove it from "
+        "choices.demographics.",
+        "error: config key 'instruments.characteristic_sums' names 'pack_grams', which "
+        "products.characteristics does not list. Hint: list it in products.characteristics so "
+        "the market build carries it.",
+    ]

@@ -107,7 +107,8 @@ def inputs_table(project: ProjectConfig) -> Table:
             continue
         files = source.resolved_files()
         size = sum(path.stat().st_size for path in files) / 1e6
-        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", str(files[0]))
+        # a path is shown as it is, brackets included (Text is never read as markup)
+        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", Text(str(files[0])))
     return table
 
 

@@ -99,7 +99,7 @@ def stop_with(problems: list[UserError]) -> None:
 
 def inputs_table(project: ProjectConfig) -> Table:
     """A table of every input source with its file count and total size."""
-    table = Table(title=f"inputs of {project.project.name}")
+    table = Table(title=Text(f"inputs of {project.project.name}"))
     for column in ("source", "format", "files", "MB", "first file"):
         table.add_column(column, justify="right" if column in ("files", "MB") else "left")
     for name, source in project.sources:

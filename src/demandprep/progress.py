@@ -69,7 +69,8 @@ class IngestLog:
         elif event == "file_done":
             self._file_done(info)
         elif event == "done" and self._unchanged:
-            self._write(f"ingest unchanged: {self._unchanged:,} files already in")
+            count = self._unchanged
+            self._write(f"ingest unchanged: {_files(count)} already in the warehouse")
 
     def _file_done(self, info: dict[str, Any]) -> None:
         path = Path(info["path"])
@@ -88,11 +89,14 @@ def batch_line(files: list[dict[str, Any]], seconds: float) -> str:
     count = len(files)
     rows = sum(int(item.get("rows") or 0) for item in files)
     failed = sum(1 for item in files if item.get("status") in ("failed", "refused"))
-    noun = "file" if count == 1 else "files"
     return (
-        f"ingest {files[0]['source']}: {count} {noun} done in {seconds:.1f} s "
+        f"ingest {files[0]['source']}: {_files(count)} done in {seconds:.1f} s "
         f"({rows:,} rows read, {failed} failed)"
     )
+
+
+def _files(count: int) -> str:
+    return f"{count:,} file" if count == 1 else f"{count:,} files"
 
 
 def _megabytes(info: dict[str, Any]) -> str:

@@ -196,3 +196,11 @@ def test_native_toml_values_and_quoted_dates_still_load(demo_config: Path) -> No
     assert isinstance(config.warehouse.path, Path)
     native = edited(demo_config, 'valid_from = "2024-01-01"', "valid_from = 2024-01-01")
     assert load_config(native).sources.receipts.valid_from.isoformat() == "2024-01-01"
+
+
+def test_fraction_where_an_integer_belongs_asks_for_a_whole_number(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, "threads = 2", "threads = 2.5"))
+    assert message == (
+        f"{demo_config}: key 'warehouse.threads': got 2.5, expected an integer. "
+        "Hint: write a whole number."
+    )

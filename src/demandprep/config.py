@@ -415,6 +415,8 @@ def _shown(value: Any) -> str:
 
 
 def _type_hint(kind: str, name: str, given: Any) -> str:
+    if kind in UNQUOTED_TYPES and not isinstance(given, str):
+        return "write a whole number." if UNQUOTED_TYPES[kind] is int else "write a number."
     if kind in UNQUOTED_TYPES:
         example = _unquoted_example(UNQUOTED_TYPES[kind], given)
         shown = f", e.g. {name} = {example}" if example else ""

@@ -204,3 +204,11 @@ def test_fraction_where_an_integer_belongs_asks_for_a_whole_number(demo_config: 
         f"{demo_config}: key 'warehouse.threads': got 2.5, expected an integer. "
         "Hint: write a whole number."
     )
+
+
+def test_number_where_a_flag_belongs_asks_for_true_or_false(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, "\nenabled = true", "\nenabled = 1"))
+    assert message == (
+        f"{demo_config}: key 'choices.enabled': got 1, expected true or false. "
+        "Hint: write true or false."
+    )

@@ -346,6 +346,11 @@ BOUNDS = {
     "less_than_equal": "<=",
 }
 UNQUOTED_TYPES = {"int_type": int, "int_from_float": int, "float_type": float, "bool_type": bool}
+UNQUOTED_HINTS = {
+    int: "write a whole number.",
+    float: "write a number.",
+    bool: "write true or false.",
+}
 
 
 def _problem(problem: Any, path: Path) -> UserError:
@@ -416,7 +421,7 @@ def _shown(value: Any) -> str:
 
 def _type_hint(kind: str, name: str, given: Any) -> str:
     if kind in UNQUOTED_TYPES and not isinstance(given, str):
-        return "write a whole number." if UNQUOTED_TYPES[kind] is int else "write a number."
+        return UNQUOTED_HINTS[UNQUOTED_TYPES[kind]]
     if kind in UNQUOTED_TYPES:
         example = _unquoted_example(UNQUOTED_TYPES[kind], given)
         shown = f", e.g. {name} = {example}" if example else ""

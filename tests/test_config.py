@@ -212,3 +212,13 @@ def test_number_where_a_flag_belongs_asks_for_true_or_false(demo_config: Path) -
         f"{demo_config}: key 'choices.enabled': got 1, expected true or false. "
         "Hint: write true or false."
     )
+
+
+def test_several_problems_print_as_the_first_and_say_how_many_more(demo_config: Path) -> None:
+    edited(demo_config, "threads = 2", 'threads = "2"')
+    message = error_of(edited(demo_config, "top_n = 20", 'top_n = "20"'))
+    assert message == (
+        f"{demo_config}: key 'warehouse.threads': got '2' (text), expected an integer. "
+        "Hint: write numbers and true/false without quotes, e.g. threads = 2. "
+        "(1 more problem: `demandprep check` lists them all.)"
+    )

@@ -319,7 +319,10 @@ class ConfigInvalid(UserError):
     """A config that fails validation: prints as its first problem, `problems` holds them all."""
 
     def __init__(self, problems: list[UserError]) -> None:
-        super().__init__(problems[0].message, problems[0].hint)
+        first, more = problems[0], len(problems) - 1
+        counted = f"{more} more problem{'s' if more > 1 else ''}"
+        note = f"({counted}: `demandprep check` lists them all.)" if more else ""
+        super().__init__(first.message, " ".join(filter(None, (first.hint, note))) or None)
         self.problems = problems
 
 

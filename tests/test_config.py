@@ -130,3 +130,95 @@ def test_committed_sample_config_validates_and_finds_its_files() -> None:
     receipts = config.sources.receipts.resolved_files()
     assert len(receipts) == 49  # 7 weeks of daily drops (SAMPLE.md)
     assert config.sources.receipts.valid_to.isoformat() == "2024-02-18"
+
+
+def test_quoted_number_is_refused_with_a_hint(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, "top_n = 20", 'top_n = "20"'))
+    assert message == (
+        f"{demo_config}: key 'products.universe.top_n': got '20' (text), expected an integer. "
+        "Hint: write numbers and true/false without quotes, e.g. top_n = 20."
+    )
+
+
+def test_quoted_flag_is_refused_not_coerced(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, "\nenabled = true", '\nenabled = "yes"'))
+    assert message == (
+        f"{demo_config}: key 'choices.enabled': got 'yes' (text), expected true or false. "
+        "Hint: write numbers and true/false without quotes, e.g. enabled = true."
+    )
+
+
+def test_number_where_text_belongs_is_refused(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, 'memory_limit = "4GB"', "memory_limit = 4"))
+    assert message == (
+        f"{demo_config}: key 'warehouse.memory_limit': got 4, expected text in quotes. "
+        "Hint: put text in double quotes."
+    )
+
+
+def test_list_item_error_names_its_position(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, 'keys = ["roaster"', 'keys = [3, "roaster"'))
+    assert message.startswith(
+        f"{demo_config}: key 'products.keys[0]': got 3, expected text in quotes."
+    )
+
+
+def test_wrong_choice_names_given_and_allowed_with_a_hint(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, 'period = "week"', 'period = "fortnight"'))
+    assert message == (
+        f"{demo_config}: key 'markets.period': got 'fortnight', expected 'day', 'week', "
+        "'month' or 'quarter'. Hint: use one of the allowed values."
+    )
+
+
+def test_value_out_of_range_names_the_bound(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, "threads = 2", "threads = 0"))
+    assert message == (
+        f"{demo_config}: key 'warehouse.threads': got 0, expected a value >= 1. "
+        "Hint: pick a value in the allowed range."
+    )
+
+
+def test_missing_key_points_at_the_readme_section(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, 'categories = ["coffee"]\n', ""))
+    assert message == (
+        f"{demo_config}: missing required key 'markets.categories'. "
+        'Hint: see "Config reference" in README.md.'
+    )
+
+
+def test_native_toml_values_and_quoted_dates_still_load(demo_config: Path) -> None:
+    # integers where floats belong, paths and dates as text, TOML's own dates
+    text = edited(demo_config, "units_per_visit = 1.0", "units_per_visit = 1").read_text()
+    assert 'valid_from = "' in text
+    config = load_config(demo_config)
+    assert config.market_size["visits"].units_per_visit == 1.0
+    assert isinstance(config.warehouse.path, Path)
+    native = edited(demo_config, 'valid_from = "2024-01-01"', "valid_from = 2024-01-01")
+    assert load_config(native).sources.receipts.valid_from.isoformat() == "2024-01-01"
+
+
+def test_fraction_where_an_integer_belongs_asks_for_a_whole_number(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, "threads = 2", "threads = 2.5"))
+    assert message == (
+        f"{demo_config}: key 'warehouse.threads': got 2.5, expected an integer. "
+        "Hint: write a whole number."
+    )
+
+
+def test_number_where_a_flag_belongs_asks_for_true_or_false(demo_config: Path) -> None:
+    message = error_of(edited(demo_config, "\nenabled = true", "\nenabled = 1"))
+    assert message == (
+        f"{demo_config}: key 'choices.enabled': got 1, expected true or false. "
+        "Hint: write true or false."
+    )
+
+
+def test_several_problems_print_as_the_first_and_say_how_many_more(demo_config: Path) -> None:
+    edited(demo_config, "threads = 2", 'threads = "2"')
+    message = error_of(edited(demo_config, "top_n = 20", 'top_n = "20"'))
+    assert message == (
+        f"{demo_config}: key 'warehouse.threads': got '2' (text), expected an integer. "
+        "Hint: write numbers and true/false without quotes, e.g. threads = 2. "
+        "(1 more problem: `demandprep check` lists them all.)"
+    )

@@ -11,9 +11,10 @@ from typing import Annotated
 import typer
 from rich.console import Console
 from rich.table import Table
+from rich.text import Text
 
 from demandprep import __version__
-from demandprep.config import ProjectConfig, load_config
+from demandprep.config import ConfigInvalid, ProjectConfig, load_config
 from demandprep.errors import UserError
 
 app = typer.Typer(
@@ -22,9 +23,19 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
-console = Console(stderr=True)
+# Messages quote file headers, paths and config text: never read them as console markup.
+console = Console(stderr=True, markup=False, highlight=False)
 
 ConfigArg = Annotated[Path, typer.Argument(help="The project's TOML config file.")]
+ForceOption = Annotated[
+    bool, typer.Option("--force", help="Build even when nothing changed since `latest`.")
+]
+
+
+def say(message: str, label: str = "", style: str = "") -> None:
+    """Print one message literally on stderr, after an optional styled label."""
+    text = Text.assemble((label, style), " " if label else "", message)
+    console.print(text, soft_wrap=True)
 
 
 @contextmanager
@@ -33,7 +44,7 @@ def user_errors() -> Iterator[None]:
     try:
         yield
     except UserError as error:
-        console.print(f"[bold red]error:[/] {error.one_line()}", highlight=False, soft_wrap=True)
+        say(error.one_line(), "error:", "bold red")
         raise typer.Exit(code=1) from None
 
 
@@ -60,21 +71,35 @@ def init_command(
             raise UserError(f"{path}: already exists.", "pass --force to overwrite it.")
         text = resources.files("demandprep.templates").joinpath("starter.toml").read_text()
         path.write_text(text, encoding="utf-8")
-        console.print(f"wrote {path}; edit the [sources] paths, then run `demandprep check {path}`")
+        say(f"wrote {path}; edit the [sources] paths, then run `demandprep check {path}`")
 
 
 @app.command("check")
 def check_command(config: ConfigArg) -> None:
-    """Validate a config and list what a build would read."""
+    """Check a config and the files it names; list every problem a build would meet."""
+    from demandprep.preflight import preflight_problems
+
     with user_errors():
-        project = load_config(config)
+        try:
+            project = load_config(config)
+        except ConfigInvalid as error:
+            stop_with(error.problems)
         Console().print(inputs_table(project))
-        console.print(f"[green]ok[/] {config} is valid (config hash {project.config_hash()[:12]})")
+        stop_with(preflight_problems(project))
+        say(f"{config} is valid (config hash {project.config_hash()[:12]})", "ok", "green")
+
+
+def stop_with(problems: list[UserError]) -> None:
+    """Print every problem on its own line and exit 1; nothing to print, nothing happens."""
+    for problem in problems[:-1]:
+        say(problem.one_line(), "error:", "bold red")
+    if problems:
+        raise problems[-1]
 
 
 def inputs_table(project: ProjectConfig) -> Table:
     """A table of every input source with its file count and total size."""
-    table = Table(title=f"inputs of {project.project.name}")
+    table = Table(title=Text(f"inputs of {project.project.name}"))
     for column in ("source", "format", "files", "MB", "first file"):
         table.add_column(column, justify="right" if column in ("files", "MB") else "left")
     for name, source in project.sources:
@@ -82,64 +107,101 @@ def inputs_table(project: ProjectConfig) -> Table:
             continue
         files = source.resolved_files()
         size = sum(path.stat().st_size for path in files) / 1e6
-        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", str(files[0]))
+        # a path is shown as it is, brackets included (Text is never read as markup)
+        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", Text(str(files[0])))
     return table
 
 
 @app.command("ingest")
 def ingest_command(config: ConfigArg) -> None:
     """Load new and changed input files into the warehouse, quarantining bad lines."""
+    from demandprep.pipeline import not_loaded
+
     with user_errors():
         summary = ingest_with_progress(load_config(config))
-        if not summary.ok:
+        failed = not_loaded(summary)
+        if failed:
             raise UserError(
-                f"{len(summary.failed)} input file(s) could not be read and the other files "
-                f"went in; the first: {summary.failed[0]}"
+                f"{len(failed)} input file(s) could not be read and the other files "
+                f"went in; the first: {failed[0]}"
             )
 
 
 def ingest_with_progress(project: ProjectConfig):
-    """Run the ingest with a progress bar and print its summary table."""
+    """Run the ingest with a progress bar (log lines outside a terminal), then its summary."""
     from demandprep.ingest.runner import summary_table
     from demandprep.pipeline import run_ingest
-    from demandprep.progress import IngestProgress
+    from demandprep.progress import IngestLog, IngestProgress
 
-    with IngestProgress(console) as progress:
-        summary = run_ingest(project, progress=progress.update)
+    if console.is_terminal:
+        with IngestProgress(console) as progress:
+            summary = run_ingest(project, progress=progress.update)
+    else:
+        summary = run_ingest(project, progress=IngestLog(say).update)
     Console().print(summary_table(summary))
     return summary
 
 
 @app.command("build")
-def build_command(config: ConfigArg) -> None:
+def build_command(config: ConfigArg, force: ForceOption = False) -> None:
     """Run the build stages on the warehouse and export a new build folder."""
     with user_errors():
-        build_with_progress(load_config(config))
+        build_with_progress(load_config(config), force)
 
 
-def build_with_progress(project: ProjectConfig) -> Path:
-    """Run every build stage with a status line, then report the published folder."""
-    from demandprep.pipeline import run_build
+def build_with_progress(project: ProjectConfig, force: bool = False) -> Path | None:
+    """Build with a status line (log lines outside a terminal) and print what it made.
 
-    with console.status("building") as status:
-        folder, ctx = run_build(project, on_stage=lambda s: status.update(f"stage {s.name}"))
-    for warning in ctx.warnings:
-        console.print(f"[yellow]warning:[/] {warning}", highlight=False, soft_wrap=True)
-    console.print(f"[green]built[/] {folder}")
-    return folder
+    Returns the published folder, or None when nothing changed since `latest` and not `force`.
+    """
+    from demandprep.build_summary import summary_lines
+    from demandprep.pipeline import build_unless_current
+    from demandprep.progress import BuildLog
+
+    if console.is_terminal:
+        with console.status("building") as status:
+            outcome = build_unless_current(
+                project, force, on_stage=lambda s: status.update(f"stage {s.name}")
+            )
+    else:
+        log = BuildLog(say)
+        outcome = build_unless_current(project, force, on_stage_done=log.stage_done)
+        if not outcome.skipped:
+            log.export_done()
+    if outcome.folder is None or outcome.ctx is None:
+        kept = outcome.kept.name if outcome.kept is not None else "latest"
+        say(
+            f"nothing new since the latest build {kept}: no input file and no setting changed; "
+            "skipped (pass --force to rebuild)"
+        )
+        return None
+    for warning in outcome.ctx.warnings:
+        say(warning, "warning:", "yellow")
+    say(str(outcome.folder), "built", "green")
+    for line in summary_lines(outcome.folder, outcome.ctx):
+        say(line)
+    return outcome.folder
 
 
 @app.command("run")
-def run_command(config: ConfigArg) -> None:
+def run_command(config: ConfigArg, force: ForceOption = False) -> None:
     """Ingest, then build: what a nightly job does, without an orchestrator."""
+    from demandprep.pipeline import every_receipts_file_failed, not_loaded
+
     with user_errors():
         project = load_config(config)
         summary = ingest_with_progress(project)
-        build_with_progress(project)
-        if not summary.ok:
+        failed = not_loaded(summary)
+        if every_receipts_file_failed(summary):
             raise UserError(
-                f"{len(summary.failed)} input file(s) could not be read and the build used "
-                f"every other file; the first: {summary.failed[0]}"
+                f"every receipts file failed, so nothing was built ({len(failed)} input "
+                f"file(s) could not be read); the first: {failed[0]}"
+            )
+        build_with_progress(project, force)
+        if failed:
+            raise UserError(
+                f"{len(failed)} input file(s) could not be read and the build used "
+                f"every other file; the first: {failed[0]}"
             )
 
 
@@ -168,5 +230,7 @@ def demo_command(
             config_path = prepare_demo(out, scale=scale, seed=seed)
         project = load_config(config_path)
         ingest_with_progress(project)
-        folder = build_with_progress(project)
-        console.print(f"demo config: {config_path}\nreport: {folder / 'report.html'}")
+        folder = build_with_progress(project, force=True)
+        assert folder is not None  # a forced build is never skipped
+        say(f"demo config: {config_path}")
+        say(f"report: {folder / 'report.html'}")

@@ -1,7 +1,10 @@
 """The project config: one TOML file parsed into typed models, with one-line errors.
 
-Every section is a pydantic model that forbids unknown keys. Relative paths are resolved
-against the folder of the config file. `load_config` is the only entry point.
+Every section is a pydantic model that forbids unknown keys and checks scalars strictly: a
+quoted number is an error, not a number (TOML has its own integers, floats, booleans and
+dates). Paths and dates also load from text. Relative paths are resolved against the folder of
+the config file. `load_config` is the only entry point; a `ConfigInvalid` error carries every
+problem found, one line each, and prints as the first.
 """
 
 from __future__ import annotations
@@ -17,6 +20,7 @@ from pydantic import (
     BaseModel,
     ConfigDict,
     Field,
+    Strict,
     ValidationError,
     ValidationInfo,
     field_validator,
@@ -27,6 +31,10 @@ from demandprep.errors import UserError
 
 IDENTIFIER_PATTERN = r"^[A-Za-z_][A-Za-z0-9_]*$"
 Identifier = Annotated[str, Field(pattern=IDENTIFIER_PATTERN)]
+# Text is accepted for these (TOML has no path type; a date may be written quoted).
+LaxPath = Annotated[Path, Strict(False)]
+LaxDate = Annotated[date, Strict(False)]
+README_HINT = 'see "Config reference" in README.md.'
 
 RECEIPT_REQUIRED = ("receipt", "store", "sold_at", "sku", "quantity", "amount")
 RECEIPT_OPTIONAL = ("line", "card", "discount", "line_kind")
@@ -35,7 +43,7 @@ RECEIPT_OPTIONAL = ("line", "card", "discount", "line_kind")
 class Section(BaseModel):
     """Base for every config section: unknown keys are errors, values are checked strictly."""
 
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
 
 
 def _resolve(path: Path | str, info: ValidationInfo) -> Path:
@@ -50,10 +58,10 @@ class ProjectSection(Section):
 
 
 class WarehouseSection(Section):
-    path: Path = Path("warehouse/demandprep.duckdb")
+    path: LaxPath = Path("warehouse/demandprep.duckdb")
     memory_limit: str = Field("4GB", pattern=r"^\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)$")
     threads: int = Field(2, ge=1, le=256)
-    temp_directory: Path = Path("warehouse/tmp")
+    temp_directory: LaxPath = Path("warehouse/tmp")
     lock_timeout_seconds: float = Field(30.0, ge=0)
 
     @field_validator("path", "temp_directory", mode="after")
@@ -91,8 +99,8 @@ class FileSource(Section):
 class ReceiptSource(FileSource):
     timestamp_format: str = "%Y-%m-%d %H:%M:%S"
     timezone: str | None = None
-    valid_from: date | None = None
-    valid_to: date | None = None
+    valid_from: LaxDate | None = None
+    valid_to: LaxDate | None = None
     returns_in_demand: bool = False
 
     @model_validator(mode="after")
@@ -235,7 +243,7 @@ class ChoicesSection(Section):
 
 
 class ExportSection(Section):
-    root: Path = Path("builds")
+    root: LaxPath = Path("builds")
     keep_last: int = Field(5, ge=1)
     extra_formats: list[Literal["csv", "dta"]] = Field(default_factory=list)
     row_group_rows: int = Field(131_072, ge=1_024)
@@ -304,24 +312,151 @@ def parse_config(raw: dict[str, Any], path: Path, check_files: bool = True) -> P
     try:
         config = ProjectConfig.model_validate(raw, context={"base_dir": path.parent})
     except ValidationError as error:
-        raise UserError(_first_problem(error, path)) from None
+        raise ConfigInvalid([_problem(item, path) for item in error.errors()]) from None
     config = config.model_copy(update={"config_path": path})
     if check_files:
         _check_files_exist(config, path)
     return config
 
 
-def _first_problem(error: ValidationError, path: Path) -> str:
-    problem = error.errors()[0]
-    key = ".".join(str(part) for part in problem["loc"]) or "(top level)"
-    if problem["type"] == "extra_forbidden":
-        return f"{path}: unknown key {key!r}. Hint: {_allowed_keys_hint(problem['loc'])}"
-    if problem["type"] == "missing":
-        return f"{path}: missing required key {key!r}. Hint: see the config reference in README."
-    message = problem["msg"].removeprefix("Value error, ")
+class ConfigInvalid(UserError):
+    """A config that fails validation: prints as its first problem, `problems` holds them all."""
+
+    def __init__(self, problems: list[UserError]) -> None:
+        first, more = problems[0], len(problems) - 1
+        counted = f"{more} more problem{'s' if more > 1 else ''}"
+        note = f"({counted}: `demandprep check` lists them all.)" if more else ""
+        super().__init__(first.message, " ".join(filter(None, (first.hint, note))) or None)
+        self.problems = problems
+
+
+# What each pydantic error type means in TOML words (types not listed keep pydantic's message).
+EXPECTED_TYPES = {
+    "int_type": "an integer",
+    "int_from_float": "an integer",
+    "float_type": "a number",
+    "bool_type": "true or false",
+    "string_type": "text in quotes",
+    "list_type": "a list in brackets",
+    "dict_type": "a table",
+    "model_type": "a table",
+    "date_type": "a date (YYYY-MM-DD)",
+    "date_parsing": "a date (YYYY-MM-DD)",
+    "date_from_datetime_parsing": "a date (YYYY-MM-DD)",
+    "date_from_datetime_inexact": "a date (YYYY-MM-DD)",
+    "path_type": "a path in quotes",
+}
+BOUNDS = {
+    "greater_than": ">",
+    "greater_than_equal": ">=",
+    "less_than": "<",
+    "less_than_equal": "<=",
+}
+UNQUOTED_TYPES = {"int_type": int, "int_from_float": int, "float_type": float, "bool_type": bool}
+UNQUOTED_HINTS = {
+    int: "write a whole number.",
+    float: "write a number.",
+    bool: "write true or false.",
+}
+
+
+def _problem(problem: Any, path: Path) -> UserError:
+    """One validation problem as a UserError naming the file, the key, the value and the rule."""
+    key = _key_path(problem["loc"])
+    kind = problem["type"]
+    if kind == "extra_forbidden":
+        return UserError(f"{path}: unknown key {key!r}.", _allowed_keys_hint(problem["loc"]))
+    if kind == "missing":
+        return UserError(f"{path}: missing required key {key!r}.", README_HINT)
+    expected = _expected(kind, problem.get("ctx") or {})
     given = problem.get("input")
-    shown = f" (got {given!r})" if isinstance(given, str | int | float | bool) else ""
-    return f"{path}: key {key!r}: {message}{shown}."
+    if expected is None:
+        message = problem["msg"].removeprefix("Value error, ")
+        shown = f" (got {_shown(given)})" if isinstance(given, str | int | float) else ""
+        return UserError(f"{path}: key {key!r}: {message}{shown}.", README_HINT)
+    text = " (text)" if isinstance(given, str) and kind in UNQUOTED_TYPES else ""
+    return UserError(
+        f"{path}: key {key!r}: got {_shown(given)}{text}, expected {expected}.",
+        _type_hint(kind, str(problem["loc"][-1]), given),
+    )
+
+
+def _key_path(location: tuple[Any, ...]) -> str:
+    key = ""
+    for part in location:
+        key += f"[{part}]" if isinstance(part, int) else f".{part}"
+    return key.lstrip(".") or "(top level)"
+
+
+def _expected(kind: str, context: dict[str, Any]) -> str | None:
+    if kind in EXPECTED_TYPES:
+        return EXPECTED_TYPES[kind]
+    if kind == "literal_error":
+        return str(context["expected"])
+    if kind in BOUNDS:
+        bound = next(iter(context.values()))
+        return f"a value {BOUNDS[kind]} {bound}"
+    if kind == "too_short":
+        return f"at least {context['min_length']} item(s)"
+    if kind == "string_too_short":
+        return f"at least {context['min_length']} character(s)"
+    if kind == "string_too_long":
+        return f"at most {context['max_length']} character(s)"
+    if kind == "string_pattern_mismatch":
+        if context.get("pattern") == IDENTIFIER_PATTERN:
+            return "a name of letters, digits and underscores, not starting with a digit"
+        if "GB" in str(context.get("pattern")):
+            return 'a size such as "4GB"'
+        return f"text matching {context.get('pattern')}"
+    return None
+
+
+def _shown(value: Any) -> str:
+    """A value as the user wrote it in TOML, more or less."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str | int | float):
+        return repr(value)
+    if isinstance(value, date):
+        return value.isoformat()
+    if isinstance(value, list):
+        return "a list"
+    if isinstance(value, dict):
+        return "a table"
+    return type(value).__name__
+
+
+def _type_hint(kind: str, name: str, given: Any) -> str:
+    if kind in UNQUOTED_TYPES and not isinstance(given, str):
+        return UNQUOTED_HINTS[UNQUOTED_TYPES[kind]]
+    if kind in UNQUOTED_TYPES:
+        example = _unquoted_example(UNQUOTED_TYPES[kind], given)
+        shown = f", e.g. {name} = {example}" if example else ""
+        return f"write numbers and true/false without quotes{shown}."
+    if kind == "string_type":
+        return "put text in double quotes."
+    if kind == "list_type":
+        return 'write a list in brackets, e.g. ["a", "b"].'
+    if kind in ("dict_type", "model_type"):
+        return f"write it as a table: [{name}] with its keys below."
+    if kind.startswith("date"):
+        return "write a date as 2024-01-31."
+    if kind == "literal_error":
+        return "use one of the allowed values."
+    if kind in BOUNDS or kind in ("too_short", "string_too_short", "string_too_long"):
+        return "pick a value in the allowed range."
+    if kind == "string_pattern_mismatch":
+        return "write it as the rule says; " + README_HINT
+    return README_HINT
+
+
+def _unquoted_example(kind: type, given: Any) -> str | None:
+    if kind is bool:
+        return "true"
+    try:
+        return str(kind(given)) if isinstance(given, str) else None
+    except ValueError:
+        return None
 
 
 def _allowed_keys_hint(location: tuple[Any, ...]) -> str:
@@ -330,12 +465,12 @@ def _allowed_keys_hint(location: tuple[Any, ...]) -> str:
     while parts:
         field = model.model_fields.get(str(parts.pop(0)))
         if field is None:
-            return "remove it; see the config reference in README."
+            return f"remove it; {README_HINT}"
         if getattr(field.annotation, "__origin__", None) is dict and parts:
             parts.pop(0)  # a user-chosen name such as a market-size assumption
         model = _section_model(field.annotation)
         if model is None:
-            return "remove it; see the config reference in README."
+            return f"remove it; {README_HINT}"
     names = [name for name in model.model_fields if name != "config_path"]
     return f"allowed here: {', '.join(names)}."
 
@@ -349,11 +484,13 @@ def _section_model(annotation: Any) -> Any:
 
 
 def _check_files_exist(config: ProjectConfig, path: Path) -> None:
-    for name, source in config.sources:
-        if source is None:
-            continue
-        if not source.resolved_files():
-            raise UserError(
-                f"{path}: key 'sources.{name}.files': no file matches {source.files[0]}.",
-                "paths are relative to the config file's folder.",
-            )
+    problems = [
+        UserError(
+            f"{path}: key 'sources.{name}.files': no file matches {source.files[0]}.",
+            "paths are relative to the config file's folder.",
+        )
+        for name, source in config.sources
+        if source is not None and not source.resolved_files()
+    ]
+    if problems:
+        raise ConfigInvalid(problems)

@@ -3,12 +3,32 @@
 from __future__ import annotations
 
 from collections.abc import Callable
+from dataclasses import dataclass
 from pathlib import Path
 
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
-from demandprep.stages import Stage, run_build_stages
+from demandprep.stages import Stage, build_stages, run_stage
 from demandprep.warehouse import open_warehouse
+
+# Ingest outcomes of a file whose rows did not go in.
+NOT_LOADED = ("failed", "refused")
+
+StageDone = Callable[[Stage, float], None]
+
+
+@dataclass(frozen=True)
+class BuildOutcome:
+    """A published build (folder and context), or the `latest` build a skipped night kept."""
+
+    folder: Path | None = None
+    ctx: BuildContext | None = None
+    kept: Path | None = None
+
+    @property
+    def skipped(self) -> bool:
+        """True when nothing changed since `latest`, so no build was made."""
+        return self.folder is None
 
 
 def run_ingest(config: ProjectConfig, progress=None):
@@ -19,13 +39,46 @@ def run_ingest(config: ProjectConfig, progress=None):
         return ingest_all(con, config, progress=progress)
 
 
+def not_loaded(summary) -> list:
+    """The files of an ingest summary that could not go in (failed or refused), in order."""
+    return [result for result in summary.files if result.status in NOT_LOADED]
+
+
+def every_receipts_file_failed(summary) -> bool:
+    """True when the ingest met receipts files and none of them is in the warehouse."""
+    receipts = [result for result in summary.files if result.source == "receipts"]
+    return bool(receipts) and all(result.status in NOT_LOADED for result in receipts)
+
+
 def run_build(
     config: ProjectConfig, on_stage: Callable[[Stage], None] | None = None
 ) -> tuple[Path, BuildContext]:
     """Run every build stage on the warehouse and export a build folder; returns its path."""
-    from demandprep.export.folder import export_build
+    outcome = build_unless_current(config, force=True, on_stage=on_stage)
+    assert outcome.folder is not None and outcome.ctx is not None  # forced builds never skip
+    return outcome.folder, outcome.ctx
+
+
+def build_unless_current(
+    config: ProjectConfig,
+    force: bool = False,
+    on_stage: Callable[[Stage], None] | None = None,
+    on_stage_done: StageDone | None = None,
+) -> BuildOutcome:
+    """Build and publish, unless `latest` was made from these very inputs and settings."""
+    from demandprep.export.folder import export_build, latest_build
+
+    # the nightly flow's own test of "nothing new" (no Prefect is imported with it)
+    from demandprep.flows.incremental import latest_build_is_current
 
     with open_warehouse(config.warehouse) as con:
+        if not force and latest_build_is_current(con, config):
+            return BuildOutcome(kept=latest_build(config.export.root))
         ctx = BuildContext(con=con, config=config)
-        run_build_stages(ctx, on_stage=on_stage)
-        return export_build(ctx), ctx
+        for stage in build_stages(config):
+            if on_stage is not None:
+                on_stage(stage)
+            run_stage(stage, ctx)
+            if on_stage_done is not None:
+                on_stage_done(stage, ctx.timings[stage.name])
+        return BuildOutcome(folder=export_build(ctx), ctx=ctx)

@@ -46,12 +46,12 @@ def quarantine_details(config: ProjectConfig, source: str) -> list[str]:
     return [row[0] for row in rows]
 
 
-def without_cards(config: ProjectConfig) -> ProjectConfig:
+def without_cards(config: ProjectConfig, folder: Path) -> ProjectConfig:
     raw = config.model_dump(mode="json", exclude_unset=True)
     del raw["sources"]["receipts"]["columns"]["card"]
     del raw["sources"]["households"]
     raw["choices"] = {"enabled": False}
-    return ProjectConfig.model_validate(raw, context={"base_dir": config.config_path.parent})
+    return ProjectConfig.model_validate(raw, context={"base_dir": folder})
 
 
 def test_receipt_details_quote_no_value_when_card_is_mapped(tmp_path: Path) -> None:
@@ -73,7 +73,7 @@ def test_household_details_quote_no_value(tmp_path: Path) -> None:
 
 def test_receipt_details_keep_values_when_no_card_is_mapped(tmp_path: Path) -> None:
     write_inputs(tmp_path)
-    config = without_cards(scan_config(tmp_path))
+    config = without_cards(scan_config(tmp_path), tmp_path)
     run_ingest(config)
     assert quarantine_details(config, "receipts") == [
         f"sold_at: not a timestamp ('{PLANTED['sold_at']}')",

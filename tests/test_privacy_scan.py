@@ -102,6 +102,7 @@ def test_scan_sees_values_inside_parquet_csv_and_dta(scanned_build) -> None:
 
 def test_household_file_without_header_is_refused_without_quoting_it(tmp_path: Path) -> None:
     write_inputs(tmp_path)
+    ids = input_ids(tmp_path)
     rows = (tmp_path / "households.csv").read_text().splitlines()[1:]
     (tmp_path / "households.csv").write_text("\n".join(rows) + "\n")
     config = scan_config(tmp_path)
@@ -123,4 +124,4 @@ def test_household_file_without_header_is_refused_without_quoting_it(tmp_path: P
     append_build_log(config, "test-run", "failed", failure_reason(raised.value))
     log = build_log_path(config).read_text()
     assert "has no such column" in log
-    assert [value for value in input_ids(tmp_path) if value in log] == []
+    assert [value for value in ids if value in log] == []

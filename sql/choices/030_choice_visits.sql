@@ -1,4 +1,7 @@
--- Store visits (receipts with at least one sale line) made with a loyalty card.
+-- Store visits (receipts with at least one sale line) made with a loyalty card. The visit id is
+-- HMAC-SHA256(key, 'occasion' NUL store NUL receipt), first 32 hex digits, computed from the
+-- key's RFC 2104 pads ($hmac_inner_pad, $hmac_outer_pad): stable across rebuilds, and no link
+-- to the till's receipt without the key. 032 swaps the card for the chooser pseudonym.
 create or replace table choice_visits as
 
 with
@@ -27,7 +30,15 @@ receipts as (
 
 final as (
     select
-        store || '/' || receipt as visit,
+        left(
+            sha256(
+                $hmac_outer_pad || unhex(sha256(
+                    $hmac_inner_pad || $occasion_label
+                    || encode(store) || unhex('00') || encode(receipt)
+                ))
+            ),
+            32
+        ) as visit,
         store,
         receipt,
         occasion_at,

@@ -5,8 +5,13 @@ write `choices` and `choosers` (pandera models in demandprep.schemas.choices). D
 
 - Chooser: a loyalty card, pseudonymised as HMAC-SHA256(key, card) (32 hex digits); the key
   comes from the environment variable choices.pseudonym_key_env and the build refuses to run
-  without it. The card -> chooser map is a working table dropped at the end of the build.
-- Occasion: a receipt with a card and a sale line (`store/receipt`). With occasions =
+  without it or with one shorter than 16 bytes. The card -> chooser map is a TEMP table (it
+  dies with the connection, even when the build does), and choice_visits swaps its card for the
+  chooser as soon as the map exists, so no persistent table links the two.
+- Occasion: a receipt with a card and a sale line, identified by a keyed hash of its store and
+  receipt number (HMAC-SHA256 with the same key over "occasion" NUL store NUL receipt, 32 hex
+  digits; the prefix keeps it apart from chooser hashes), so it cannot be matched to the till's
+  record without the key and stays the same on every rebuild. With occasions =
   'category_visits' only visits that bought an alternative; with 'all_visits' every visit,
   choosing `none` when it bought none (`none` is in every set). Void lines net against their
   sale; returns are not choices.
@@ -14,7 +19,7 @@ write `choices` and `choosers` (pandera models in demandprep.schemas.choices). D
   market build's product universe; the others become the composite `fringe` when
   products.universe.rest = 'fringe', or count as no purchase when it is 'outside'.
 - Several alternatives in one visit: 'largest_spend' (ties: quantity, then id), 'split' (one
-  occasion `store/receipt/n` per product, n by spend; each weighs 1/n in loyalty), 'drop' (the
+  occasion `<visit hash>/n` per product, n by spend; each weighs 1/n in loyalty), 'drop' (the
   visit is no occasion and leaves no history).
 - Choice set: the store's latest shelf-price snapshot on or before the day (if younger than
   choice_set_window_days), else the alternatives the store sold on the choice_set_window_days

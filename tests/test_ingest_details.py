@@ -116,3 +116,23 @@ def test_missing_column_of_a_card_source_quotes_no_header() -> None:
         "config (names are case-sensitive); a file without a header line needs header = false "
         "and column positions in the mapping."
     )
+
+
+def test_database_error_on_a_card_source_is_reported_without_its_text(tmp_path, monkeypatch):
+    # DuckDB quotes the value it could not convert; in a card-bearing source that can be a card
+    def convert_fails(self, con, first_path, mapped) -> None:
+        raise duckdb.ConversionException("Conversion Error: Could not convert 'LC-7Q93K1-000'")
+
+    monkeypatch.setattr("demandprep.ingest.loaders.ReferenceLoader.check", convert_fails)
+    write_inputs(tmp_path)
+    config = scan_config(tmp_path)
+    summary = run_ingest(config)
+    errors = {result.source: result.error for result in summary.files}
+    assert errors["households"] == (
+        f"{tmp_path / 'households.csv'}: the database refused the file (ConversionException); "
+        "its message is withheld because the source holds card ids."
+    )
+    # a card-free source keeps DuckDB's message, which helps find the line
+    assert errors["stores"] == (
+        f"{tmp_path / 'stores.csv'}: Conversion Error: Could not convert 'LC-7Q93K1-000'"
+    )

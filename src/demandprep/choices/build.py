@@ -128,8 +128,10 @@ def _check_universe_matches(ctx: BuildContext, settings: ChoiceSettings) -> None
 
 
 def build_choice_occasions(ctx: BuildContext) -> None:
-    """Card visits (keyed-hash ids), chooser pseudonyms and the occasions after the
-    multiple-purchase policy; from here on no persistent table holds a card id."""
+    """Card visits (keyed-hash ids), chooser pseudonyms and the occasions after the policy.
+
+    After 032 no persistent choice_* table holds a card id (the card -> chooser map is TEMP).
+    """
     settings = _settings(ctx)
     key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
     run_sql(ctx.con, "choices/030_choice_visits.sql", occasion_hash_parameters(key))

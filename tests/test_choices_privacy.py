@@ -6,12 +6,16 @@ import hashlib
 import hmac
 from datetime import date, datetime, timedelta
 
+import duckdb
 import polars as pl
 import pytest
-from choices_fixtures import KEY_ENV, ChoiceWorld, choices_frame
+from choices_fixtures import KEY_ENV, ChoiceWorld, choices_frame, make_config
 
 from demandprep.choices.pseudonyms import chooser_pseudonym
+from demandprep.choices.stages import CHOICE_STAGES
+from demandprep.context import BuildContext
 from demandprep.errors import UserError
+from demandprep.stages import run_stage
 
 DAY = date(2024, 1, 15)
 
@@ -86,3 +90,61 @@ def test_holdout_is_fixed_per_chooser_and_near_the_fraction():
     assert choosers.sort("chooser").equals(same.sort("chooser"))
     per_row = choices_frame(ctx).group_by("chooser").agg(pl.col("holdout").n_unique())
     assert per_row["holdout"].max() == 1
+
+
+@pytest.mark.parametrize("key", ["k", "fifteen-bytes-k", " " * 24, "  padded-key-14  \n"])
+def test_short_key_stops_the_build_naming_the_variable(monkeypatch, key):
+    monkeypatch.setenv(KEY_ENV, key)
+    world = small_world()
+    con = duckdb.connect()
+    with pytest.raises(UserError) as raised:
+        world.build(con=con)
+    assert raised.value.one_line() == (
+        f"environment variable {KEY_ENV} holds a pseudonym key shorter than 16 bytes (spaces "
+        "aside); anyone holding the card ids could then guess the key and recompute the "
+        f"pseudonyms. Hint: set {KEY_ENV} to a long random secret, made for instance with "
+        'python -c "import secrets; print(secrets.token_hex(32))".'
+    )
+    # nothing of the choice build was made
+    assert con.sql("from duckdb_tables() where table_name like 'choice%'").fetchall() == []
+
+
+def test_sixteen_byte_key_is_enough(monkeypatch):
+    monkeypatch.setenv(KEY_ENV, "sixteen-bytes-ke")
+    assert choices_frame(small_world().build()).height == 6
+
+
+def test_occasion_is_a_keyed_hash_of_store_and_receipt(monkeypatch):
+    monkeypatch.setenv(KEY_ENV, "occasion-key-0123456789abcdef")
+    frame = choices_frame(small_world().build())
+    # reference: Python's hmac module over "occasion", NUL, store, NUL, receipt; the chooser
+    # hashes the bare card id, so the prefix keeps the two kinds of hash apart
+    expected = {
+        hmac.new(
+            b"occasion-key-0123456789abcdef",
+            b"occasion\x00S1\x00" + f"R{n:05d}".encode(),
+            hashlib.sha256,
+        ).hexdigest()[:32]
+        for n in (1, 2, 3)
+    }
+    assert set(frame["occasion"]) == expected
+    again = choices_frame(small_world().build())
+    assert again["occasion"].to_list() == frame["occasion"].to_list()
+
+
+def test_no_card_to_chooser_link_outlives_a_killed_build(tmp_path):
+    for stages in range(1, len(CHOICE_STAGES)):
+        path = tmp_path / f"killed_after_{stages}.duckdb"
+        con = duckdb.connect(str(path))
+        small_world().write(con)
+        ctx = BuildContext(con=con, config=make_config())
+        for stage in CHOICE_STAGES[:stages]:
+            run_stage(stage, ctx)
+        con.close()  # the build dies here: its connection goes with it
+        con = duckdb.connect(str(path))
+        linking = con.execute(
+            "select table_name from duckdb_columns() where table_name like 'choice%' "
+            "and column_name = 'card'"
+        ).fetchall()
+        con.close()
+        assert linking == [], CHOICE_STAGES[stages - 1].name

@@ -1,10 +1,13 @@
 -- Store visits (receipts with at least one sale line) made with a loyalty card.
 -- A visit has the market build's identity (sql/market/050_market_store_visits.sql): a receipt id
 -- within the scope $receipt_ids_unique_per, so with store_day (the default: tills that restart
--- their numbers every day) it is store, business day (sold_at::date) and receipt, and its id is
--- store/day/receipt. With 'chain' a visit still belongs to one store here (an occasion happens
--- in a store), so a chain-unique id that shows up in two stores stays two visits, and its id
--- is store/receipt as with 'store'.
+-- their numbers every day) it is store, business day (sold_at::date) and receipt. With 'chain' a
+-- visit still belongs to one store here (an occasion happens in a store), so a chain-unique id
+-- that shows up in two stores stays two visits.
+-- The visit id is HMAC-SHA256(key, 'occasion' NUL store NUL [day NUL] receipt), first 32 hex
+-- digits (the day only with store_day), computed from the key's RFC 2104 pads
+-- ($hmac_inner_pad, $hmac_outer_pad): stable across rebuilds, and no link to the till's receipt
+-- without the key. 032 swaps the card for the chooser pseudonym.
 create or replace table choice_visits as
 
 with
@@ -41,7 +44,17 @@ receipts as (
 
 final as (
     select
-        concat_ws('/', store, strftime(visit_day, '%Y-%m-%d'), receipt) as visit,
+        left(
+            sha256(
+                $hmac_outer_pad || unhex(sha256(
+                    $hmac_inner_pad || $occasion_label
+                    || encode(store) || unhex('00')
+                    || coalesce(encode(strftime(visit_day, '%Y-%m-%d')) || unhex('00'), ''::blob)
+                    || encode(receipt)
+                ))
+            ),
+            32
+        ) as visit,
         store,
         visit_day,
         receipt,

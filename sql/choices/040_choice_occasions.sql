@@ -13,9 +13,8 @@ visits as (
         choice_visits.store,
         choice_visits.occasion_at,
         choice_visits.day,
-        choice_pseudonyms.chooser,
+        choice_visits.chooser,
     from choice_visits
-    join choice_pseudonyms using (card)
 ),
 
 purchases as (

@@ -10,3 +10,9 @@ create or replace temp macro ingest_number(text, mark) as
             else try_cast(replace(text, mark, '.') as double)
         end
     );
+
+-- a quarantine detail: the field and what is wrong with it, plus the value as written only when
+-- values_shown (sources without card ids: a card id can sit in any field of a line that has one)
+create or replace temp macro ingest_problem(field, problem, value, values_shown) as
+    field || ': ' || problem
+    || case when values_shown and value is not null then ' (''' || value || ''')' else '' end;

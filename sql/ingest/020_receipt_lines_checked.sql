@@ -124,20 +124,37 @@ final as (
                 case when sku is null then 'sku' end,
                 case when quantity_text is null then 'quantity' end,
                 case when amount_text is null then 'amount' end)
+            -- values are quoted only when no card column is mapped ($values_shown): a card id
+            -- can sit in any field of a line that has one
             when 'unparseable_field' then concat_ws('; ',
-                case when line_text is not null and line is null then 'line=' || line_text end,
-                case when sold_at is null then 'sold_at=' || sold_at_text end,
-                case when quantity is null then 'quantity=' || quantity_text end,
-                case when amount is null then 'amount=' || amount_text end,
+                case when line_text is not null and line is null
+                    then ingest_problem('line', 'not a whole number', line_text, $values_shown) end,
+                case when sold_at is null
+                    then ingest_problem('sold_at', 'not a timestamp', sold_at_text, $values_shown) end,
+                case when quantity is null
+                    then ingest_problem('quantity', 'not a number', quantity_text, $values_shown) end,
+                case when amount is null
+                    then ingest_problem('amount', 'not a number', amount_text, $values_shown) end,
                 case when discount_text is not null and discount is null
-                    then 'discount=' || discount_text end)
-            when 'unknown_line_kind' then 'line_kind=' || line_kind
-            when 'timestamp_out_of_range' then 'sold_at=' || strftime(sold_at, '%Y-%m-%d %H:%M:%S')
-            when 'non_positive_quantity' then 'quantity=' || quantity_text
-            when 'negative_amount' then 'amount=' || amount_text
-            when 'return_not_negative' then 'quantity=' || quantity_text || ', amount=' || amount_text
-            when 'unknown_store' then 'store=' || store
-            when 'unknown_sku' then 'sku=' || sku
+                    then ingest_problem('discount', 'not a number', discount_text, $values_shown) end)
+            when 'unknown_line_kind' then ingest_problem(
+                'line_kind', 'not sale, return or void', line_kind, $values_shown)
+            when 'timestamp_out_of_range' then ingest_problem(
+                'sold_at', 'before valid_from or after valid_to',
+                strftime(sold_at, '%Y-%m-%d %H:%M:%S'), $values_shown)
+            when 'non_positive_quantity' then ingest_problem(
+                'quantity', 'zero or less on a sale', quantity_text, $values_shown)
+            when 'negative_amount' then ingest_problem(
+                'amount', 'negative on a sale', amount_text, $values_shown)
+            when 'return_not_negative' then concat_ws('; ',
+                case when quantity >= 0 then ingest_problem(
+                    'quantity', 'not negative on a return', quantity_text, $values_shown) end,
+                case when amount > 0 then ingest_problem(
+                    'amount', 'positive on a return', amount_text, $values_shown) end)
+            when 'unknown_store' then ingest_problem(
+                'store', 'not in the stores table', store, $values_shown)
+            when 'unknown_sku' then ingest_problem(
+                'sku', 'not in the catalogue', sku, $values_shown)
         end as detail,
     from classified
 )

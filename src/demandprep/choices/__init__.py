@@ -5,11 +5,16 @@ write `choices` and `choosers` (pandera models in demandprep.schemas.choices). D
 
 - Chooser: a loyalty card, pseudonymised as HMAC-SHA256(key, card) (32 hex digits); the key
   comes from the environment variable choices.pseudonym_key_env and the build refuses to run
-  without it. The card -> chooser map is a working table dropped at the end of the build.
+  without it or with one shorter than 16 bytes. The card -> chooser map is a TEMP table (it
+  dies with the connection, even when the build does), and choice_visits swaps its card for the
+  chooser as soon as the map exists, so no persistent table links the two.
 - Occasion: a visit with a card and a sale line. A visit has the market build's identity
-  (markets.receipt_ids_unique_per): store, business day and receipt by default, id
-  `store/day/receipt`; `store/receipt` with 'store' or 'chain' (an occasion happens in one store,
-  so a chain-unique id seen in two stores stays two visits here). With occasions =
+  (markets.receipt_ids_unique_per): store, business day and receipt by default; store and
+  receipt with 'store' or 'chain' (an occasion happens in one store, so a chain-unique id seen
+  in two stores stays two visits here). Its id is a keyed hash of that identity
+  (HMAC-SHA256 with the same key over "occasion" NUL store NUL [day NUL] receipt, 32 hex
+  digits; the prefix keeps it apart from chooser hashes), so it cannot be matched to the till's
+  record without the key and stays the same on every rebuild. With occasions =
   'category_visits' only visits that bought an alternative; with 'all_visits' every visit,
   choosing `none` when it bought none (`none` is in every set). Void lines net against their
   sale; returns are not choices.
@@ -17,7 +22,7 @@ write `choices` and `choosers` (pandera models in demandprep.schemas.choices). D
   market build's product universe; the others become the composite `fringe` when
   products.universe.rest = 'fringe', or count as no purchase when it is 'outside'.
 - Several alternatives in one visit: 'largest_spend' (ties: quantity, then id), 'split' (one
-  occasion `<visit>/n` per product, n by spend; each weighs 1/n in loyalty), 'drop' (the
+  occasion `<visit hash>/n` per product, n by spend; each weighs 1/n in loyalty), 'drop' (the
   visit is no occasion and leaves no history).
 - Choice set: the store's latest shelf-price snapshot on or before the day (if younger than
   choice_set_window_days), else the alternatives the store sold on the choice_set_window_days

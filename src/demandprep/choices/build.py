@@ -11,7 +11,11 @@ Intermediate tables are named choice_*; the last stage drops them, the card -> c
 from __future__ import annotations
 
 from demandprep.choices.facts import choice_facts, warn_on_facts
-from demandprep.choices.pseudonyms import build_pseudonym_table, is_short_key, pseudonym_key
+from demandprep.choices.pseudonyms import (
+    build_pseudonym_table,
+    occasion_hash_parameters,
+    pseudonym_key,
+)
 from demandprep.choices.settings import FRINGE, OUTSIDE, ChoiceSettings, load_choice_settings
 from demandprep.choices.validation import insertion_order_kept, validate_by_occasion
 from demandprep.context import BuildContext
@@ -61,14 +65,10 @@ def _run(ctx: BuildContext, settings: ChoiceSettings, *names: str) -> None:
 
 
 def prepare_choice_inputs(ctx: BuildContext) -> None:
-    """Check settings and key; map SKUs to alternatives; stage shelf prices and category lines."""
+    """Check key and settings; map SKUs to alternatives; stage shelf prices and category lines."""
+    # the key first: a missing or short key stops the build before it writes anything
+    pseudonym_key(ctx.config.choices.pseudonym_key_env)
     settings = _settings(ctx)
-    key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
-    if is_short_key(key):
-        ctx.warn(
-            f"the pseudonym key in {ctx.config.choices.pseudonym_key_env} is shorter than 16 "
-            "bytes; a longer random key makes pseudonyms harder to reverse."
-        )
     if not settings.has_universe:
         ctx.warn(
             "no product_universe table (market build): every category product is an "
@@ -128,12 +128,21 @@ def _check_universe_matches(ctx: BuildContext, settings: ChoiceSettings) -> None
 
 
 def build_choice_occasions(ctx: BuildContext) -> None:
-    """Card visits, chooser pseudonyms and the occasions after the multiple-purchase policy."""
+    """Card visits (keyed-hash ids), chooser pseudonyms and the occasions after the policy.
+
+    After 032 no persistent choice_* table holds a card id (the card -> chooser map is TEMP).
+    """
     settings = _settings(ctx)
-    _run(ctx, settings, "030_choice_visits")
     key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
+    run_sql(ctx.con, "choices/030_choice_visits.sql", occasion_hash_parameters(key))
     build_pseudonym_table(ctx.con, key, ctx.config.choices.holdout_fraction)
-    _run(ctx, settings, "035_choice_visit_purchases", "040_choice_occasions")
+    _run(
+        ctx,
+        settings,
+        "032_choice_visit_choosers",
+        "035_choice_visit_purchases",
+        "040_choice_occasions",
+    )
 
 
 def build_choice_history(ctx: BuildContext) -> None:

@@ -1,9 +1,12 @@
-"""Chooser pseudonyms: a keyed hash of the loyalty-card id, and a holdout flag drawn from it.
+"""Keyed hashes of the choice build: chooser pseudonyms, occasion ids and the holdout flag.
 
-chooser = first 32 hex digits of HMAC-SHA256(key, card). The key comes from the environment
-variable named by choices.pseudonym_key_env, never from the config file, so a pseudonym cannot
-be recomputed from the repository. The card -> chooser table lives only in the warehouse for
-the length of the build and is never exported.
+chooser = first 32 hex digits of HMAC-SHA256(key, card); occasion (a card visit) = first 32 hex
+digits of HMAC-SHA256(key, "occasion" NUL store NUL [day NUL] receipt; the day when receipt ids
+restart daily), computed in SQL from the key's RFC 2104 pads. The prefix keeps the two kinds of hash apart, so an occasion id can never equal
+a chooser id; both are stable across rebuilds with the same key. The key comes from the
+environment variable named by choices.pseudonym_key_env, never from the config file, so neither
+can be recomputed from the repository; a key shorter than 16 bytes is refused. The card ->
+chooser table is a TEMP table: it dies with the build's connection, even when the build does.
 """
 
 from __future__ import annotations
@@ -18,7 +21,13 @@ import pyarrow as pa
 from demandprep.errors import UserError
 
 PSEUDONYM_HEX_DIGITS = 32
-SHORT_KEY_BYTES = 16
+MIN_KEY_BYTES = 16
+KEY_RECIPE = 'python -c "import secrets; print(secrets.token_hex(32))"'
+# HMAC-SHA256 (RFC 2104): the key is padded to the hash's block and xor-ed with these bytes
+HMAC_BLOCK_BYTES = 64
+HMAC_INNER_BYTE = 0x36
+HMAC_OUTER_BYTE = 0x5C
+OCCASION_LABEL = b"occasion\x00"
 BATCH_ROWS = 200_000
 # the holdout draw reads 13 hex digits (52 bits) of a second keyed hash as a uniform number
 HOLDOUT_HEX_DIGITS = 13
@@ -26,7 +35,7 @@ HOLDOUT_LABEL = b"holdout\x00"
 
 
 def pseudonym_key(env_name: str) -> bytes:
-    """The pseudonym key from the environment; a missing or empty key stops the build."""
+    """The pseudonym key from the environment; a missing or short key stops the build."""
     value = os.environ.get(env_name, "")
     if not value:
         raise UserError(
@@ -35,18 +44,46 @@ def pseudonym_key(env_name: str) -> bytes:
             f"export {env_name}=<a long random secret> (keep it out of the config and the "
             "repository), or set choices.enabled = false.",
         )
+    if len(value.strip().encode("utf-8")) < MIN_KEY_BYTES:
+        raise UserError(
+            f"environment variable {env_name} holds a pseudonym key shorter than "
+            f"{MIN_KEY_BYTES} bytes (spaces aside); anyone holding the card ids could then guess "
+            "the key and recompute the pseudonyms.",
+            f"set {env_name} to a long random secret, made for instance with {KEY_RECIPE}.",
+        )
     return value.encode("utf-8")
-
-
-def is_short_key(key: bytes) -> bool:
-    """True when the key is shorter than 16 bytes (easier to guess)."""
-    return len(key) < SHORT_KEY_BYTES
 
 
 def chooser_pseudonym(key: bytes, card: str) -> str:
     """The chooser id of a card: truncated hex HMAC-SHA256(key, card)."""
     digest = hmac.new(key, card.encode("utf-8"), hashlib.sha256).hexdigest()
     return digest[:PSEUDONYM_HEX_DIGITS]
+
+
+def occasion_id(key: bytes, store: str, receipt: str, day: str | None = None) -> str:
+    """The occasion id of a card visit, as the SQL of the choice build computes it.
+
+    `day` (YYYY-MM-DD) is part of the visit's identity when receipt ids restart every day.
+    """
+    day_part = b"" if day is None else day.encode("utf-8") + b"\x00"
+    message = OCCASION_LABEL + store.encode("utf-8") + b"\x00" + day_part + receipt.encode("utf-8")
+    return hmac.new(key, message, hashlib.sha256).hexdigest()[:PSEUDONYM_HEX_DIGITS]
+
+
+def occasion_hash_parameters(key: bytes) -> dict[str, bytes]:
+    """Bound parameters with which SQL computes `occasion_id`: the key's HMAC pads and the label.
+
+    HMAC(K, m) = H((K' xor opad) || H((K' xor ipad) || m)), K' = K zero-padded to the block
+    (hashed first when longer) (RFC 2104); DuckDB's sha256 does the two hashes.
+    """
+    if len(key) > HMAC_BLOCK_BYTES:
+        key = hashlib.sha256(key).digest()
+    padded = key.ljust(HMAC_BLOCK_BYTES, b"\x00")
+    return {
+        "hmac_inner_pad": bytes(byte ^ HMAC_INNER_BYTE for byte in padded),
+        "hmac_outer_pad": bytes(byte ^ HMAC_OUTER_BYTE for byte in padded),
+        "occasion_label": OCCASION_LABEL,
+    }
 
 
 def holdout_draw(key: bytes, chooser: str) -> float:
@@ -58,9 +95,14 @@ def holdout_draw(key: bytes, chooser: str) -> float:
 def build_pseudonym_table(
     con: duckdb.DuckDBPyConnection, key: bytes, holdout_fraction: float
 ) -> int:
-    """Write choice_pseudonyms(card, chooser, holdout) for every card of choice_visits."""
+    """Write the TEMP table choice_pseudonyms(card, chooser, holdout) for choice_visits' cards.
+
+    Temporary, so a build that dies leaves no card -> chooser map in the warehouse; every later
+    stage runs on the same connection (the direct runner and the nightly flow both hold one).
+    """
     con.execute(
-        "create or replace table choice_pseudonyms (card varchar, chooser varchar, holdout boolean)"
+        "create or replace temp table choice_pseudonyms "
+        "(card varchar, chooser varchar, holdout boolean)"
     )
     # a second cursor streams the cards while the first one inserts
     reader = (

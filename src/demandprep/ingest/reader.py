@@ -35,6 +35,7 @@ import pyarrow as pa
 from demandprep.config import FileSource
 from demandprep.errors import UserError
 from demandprep.ingest.lines import KEPT_BYTES, MAX_LINE_BYTES, LinesUnreadable, line_chunks
+from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier, run_sql
 
 FILE_PATH_COLUMN = "ingest_file_path"
@@ -128,13 +129,28 @@ def map_columns(
         elif theirs in by_name:
             mapped[ours] = by_name[theirs]
         else:
-            shown = ", ".join(column.name for column in columns)
-            raise UserError(
-                f"{path}: the mapping names column {theirs!r} (for {ours!r}) but the file has "
-                f"no such column; its columns are {shown}.",
-                "fix the source's columns mapping in the config (names are case-sensitive).",
-            )
+            raise _missing_column(path, columns, mapping, ours)
     return mapped
+
+
+def _missing_column(
+    path: Path, columns: tuple[SourceColumn, ...], mapping: dict[str, str], ours: str
+) -> UserError:
+    hint = "fix the source's columns mapping in the config (names are case-sensitive)"
+    if carries_cards(mapping):
+        # Why: a file delivered without its header has data as column names: card ids here
+        return UserError(
+            f"{path}: the mapping names column {mapping[ours]!r} (for {ours!r}) but the file's "
+            f"header ({len(columns)} columns) has no such column.",
+            f"{hint}; a file without a header line needs header = false and column positions "
+            "in the mapping.",
+        )
+    shown = ", ".join(column.name for column in columns)
+    return UserError(
+        f"{path}: the mapping names column {mapping[ours]!r} (for {ours!r}) but the file has "
+        f"no such column; its columns are {shown}.",
+        f"{hint}.",
+    )
 
 
 @dataclass(frozen=True)

@@ -1,7 +1,11 @@
 """Why a line was quarantined: one short code per rule, each with a one-line description.
 
 The codes are the values of `quarantine.reason` and `ledger_reasons.reason`; the descriptions
-feed the data dictionary and the build report.
+feed the data dictionary and the build report. `quarantine.detail` names the field and the
+problem ("quantity: not a number"); it quotes the value as written only for sources without card
+ids (demandprep.personal): receipts when no `card` column is mapped and the reference sources
+but households. A card id can sit in any field of a broken line, so no value of a card-bearing
+source is quoted.
 """
 
 from __future__ import annotations

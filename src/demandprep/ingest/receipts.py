@@ -18,6 +18,7 @@ from demandprep.errors import UserError
 from demandprep.ingest.reader import SourceColumn, is_typed_timestamp
 from demandprep.ingest.references import table_columns
 from demandprep.ingest.validation import validate_query
+from demandprep.personal import carries_cards
 from demandprep.schemas.ingest import RawLines
 from demandprep.sqlfiles import run_sql
 
@@ -57,7 +58,12 @@ def check_receipt_lines(
     con: duckdb.DuckDBPyConnection, source: ReceiptSource, mapped: dict[str, SourceColumn]
 ) -> None:
     """Type and check the staged lines into `ingest_checked`, then mark the duplicates."""
-    run_sql(con, "ingest/020_receipt_lines_checked.sql", _rule_parameters(source, mapped))
+    values_shown = not carries_cards(mapped)
+    run_sql(
+        con,
+        "ingest/020_receipt_lines_checked.sql",
+        {**_rule_parameters(source, mapped), "values_shown": values_shown},
+    )
     first, last = con.execute(
         "select min(sold_at), max(sold_at) from ingest_checked where reason is null"
     ).fetchone()
@@ -68,7 +74,7 @@ def check_receipt_lines(
         "after_last_day": datetime.combine(last.date() + timedelta(days=1), time()),
     }
     run_sql(con, "ingest/030_receipt_duplicates.sql", window)
-    run_sql(con, "ingest/031_mark_duplicates.sql")
+    run_sql(con, "ingest/031_mark_duplicates.sql", {"values_shown": values_shown})
 
 
 def _rule_parameters(source: ReceiptSource, mapped: dict[str, SourceColumn]) -> dict[str, object]:

@@ -18,12 +18,21 @@ import duckdb
 
 from demandprep.config import REFERENCE_REQUIRED, FileSource
 from demandprep.ingest.reader import SourceColumn
+from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier
 
 ALLOWED_TYPES = ("VARCHAR", "BIGINT", "DOUBLE", "BOOLEAN", "DATE", "TIMESTAMP")
 INTEGER_TYPES = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "UTINYINT", "USMALLINT", "UINTEGER")
 FLOAT_TYPES = ("FLOAT", "DOUBLE", "REAL", "HUGEINT", "UBIGINT")
 MOSTLY = 0.9  # share of values that must parse for a text column to keep a type; no source
+# what an unparseable value of each type is not, for the quarantine detail
+NOT_A = {
+    "BIGINT": "not a whole number",
+    "DOUBLE": "not a number",
+    "BOOLEAN": "not true or false",
+    "DATE": "not a date",
+    "TIMESTAMP": "not a timestamp",
+}
 
 
 @dataclass(frozen=True)
@@ -223,6 +232,11 @@ def _reference_rules(
     def text(name: str) -> str:
         return quote_identifier(f"{name} text")
 
+    def problem(name: str, what: str) -> str:
+        return f"ingest_problem('{name}', '{what}', {text(name)}, {shown})"
+
+    # Why: a card id can sit in any field of a line of a card-bearing source, so none is quoted.
+    shown = "false" if carries_cards(names) else "true"
     required = [name for name in spec.required if name in names]
     rules = []
     if required:
@@ -236,7 +250,7 @@ def _reference_rules(
         )
         listed = ", ".join(
             f"case when {text(n)} is not null and {quote_identifier(n)} is null "
-            f"then '{n}=' || {text(n)} end"
+            f"then {problem(n, NOT_A[types[n]])} end"
             for n in typed
         )
         rules.append((bad, "unparseable_field", f"concat_ws('; ', {listed})"))
@@ -246,7 +260,7 @@ def _reference_rules(
                 (
                     f"{quote_identifier(name)} <= 0",
                     "non_positive_value",
-                    f"'{name}=' || {text(name)}",
+                    problem(name, "zero or less"),
                 )
             )
     if spec.checks_timezone and "timezone" in names:
@@ -255,7 +269,7 @@ def _reference_rules(
                 f"{text('timezone')} is not null and {text('timezone')} not in "
                 "(select name from pg_timezone_names())",
                 "unknown_timezone",
-                f"'timezone=' || {text('timezone')}",
+                problem("timezone", "not a known timezone"),
             )
         )
     for name, (table, column) in spec.must_exist.items():
@@ -266,7 +280,7 @@ def _reference_rules(
                     f"{quote_identifier(name)} not in (select {quote_identifier(column)} "
                     f"from {quote_identifier(table)} where {quote_identifier(column)} is not null)",
                     reason,
-                    f"'{name}=' || {text(name)}",
+                    problem(name, f"not in the {table} table"),
                 )
             )
     return rules
@@ -294,14 +308,19 @@ def duplicates_sql(con: duckdb.DuckDBPyConnection, spec: ReferenceSpec, names: l
 
 
 def mark_duplicates_sql(spec: ReferenceSpec, names: list[str]) -> str:
-    """SQL that quarantines the rows of `ingest_duplicates` as duplicate keys."""
+    """SQL that quarantines the rows of `ingest_duplicates` as duplicate keys.
+
+    The key's values are quoted only for sources without card ids (e.g. "card: duplicate key").
+    """
     key = [name for name in spec.key if name in names]
-    detail = ", ".join(
-        f"'{name}=' || coalesce({quote_identifier(name)}::varchar, '')" for name in key
-    )
+    detail = f"'{', '.join(key)}: duplicate key'"
+    if not carries_cards(names):
+        values = ", ".join(
+            f"'{name}=' || coalesce({quote_identifier(name)}::varchar, '')" for name in key
+        )
+        detail += f" || ' (' || concat_ws(', ', {values}) || ')'"
     return (
-        "update ingest_checked set reason = 'duplicate_key', "
-        f"detail = concat_ws(', ', {detail}) "
+        f"update ingest_checked set reason = 'duplicate_key', detail = {detail} "
         "where ordinal in (select ordinal from ingest_duplicates)"
     )
 

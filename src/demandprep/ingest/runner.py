@@ -56,6 +56,7 @@ from demandprep.ingest.references import (
     table_columns,
 )
 from demandprep.ingest.results import FileResult, IngestSummary, summary_table
+from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
 
 BATCH_BYTES = 16 * 1024 * 1024  # ~1.3M lines of gzip CSV: staging stays well in memory
@@ -205,7 +206,7 @@ def ingest_batch(
         con.execute("rollback")
         if len(files) > 1:
             return [item for one in files for item in ingest_batch(con, config, [one], progress)]
-        return [_failed(con, files[0], error)]
+        return [_failed(con, files[0], _quotable(error, loader))]
     except BaseException:
         con.execute("rollback")
         raise
@@ -297,6 +298,18 @@ def _ensure_receipt_settings(con: duckdb.DuckDBPyConnection, config: ProjectConf
     ).fetchone()[0]
     if not exists:
         prepare_receipts(con, config)
+
+
+def _quotable(error: Exception, loader: Loader) -> Exception:
+    """The error, or for a card-bearing source a database error without DuckDB's text."""
+    if not isinstance(error, duckdb.Error) or not carries_cards(loader.source.columns):
+        return error
+    # Why: DuckDB quotes the value it choked on, and any field of this source may hold a card id
+    withheld = type(error)(
+        f"the database refused the file ({type(error).__name__}); its message is withheld "
+        "because the source holds card ids."
+    )
+    return withheld
 
 
 def _failed(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, error: Exception) -> FileResult:

@@ -1,0 +1,29 @@
+-- Card visits with the chooser pseudonym in place of the card id (choice_pseudonyms is a TEMP
+-- table): from here on no persistent table of the build links a card to a chooser, even when
+-- the build dies before its clean-up.
+create or replace table choice_visits as
+
+with
+
+visits as (
+    select visit, store, receipt, occasion_at, day, card, card_count from choice_visits
+),
+
+pseudonyms as (
+    select card, chooser from choice_pseudonyms
+),
+
+final as (
+    select
+        visits.visit,
+        visits.store,
+        visits.receipt,
+        visits.occasion_at,
+        visits.day,
+        pseudonyms.chooser,
+        visits.card_count,
+    from visits
+    join pseudonyms using (card)
+)
+
+select visit, store, receipt, occasion_at, day, chooser, card_count from final;

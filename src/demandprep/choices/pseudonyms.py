@@ -2,11 +2,12 @@
 
 chooser = first 32 hex digits of HMAC-SHA256(key, card); occasion (a card visit) = first 32 hex
 digits of HMAC-SHA256(key, "occasion" NUL store NUL [day NUL] receipt; the day when receipt ids
-restart daily), computed in SQL from the key's RFC 2104 pads. The prefix keeps the two kinds of hash apart, so an occasion id can never equal
-a chooser id; both are stable across rebuilds with the same key. The key comes from the
-environment variable named by choices.pseudonym_key_env, never from the config file, so neither
-can be recomputed from the repository; a key shorter than 16 bytes is refused. The card ->
-chooser table is a TEMP table: it dies with the build's connection, even when the build does.
+restart daily), computed in SQL from the key's RFC 2104 pads. The prefix keeps the two kinds of
+hash apart, so an occasion id can never equal a chooser id; both are stable across rebuilds with
+the same key. The key comes from the environment variable named by choices.pseudonym_key_env, never
+from the config file, so neither can be recomputed from the repository; a key shorter than 16 bytes
+is refused. The card -> chooser table is a TEMP table: it dies with the build's connection, even
+when the build does.
 """
 
 from __future__ import annotations

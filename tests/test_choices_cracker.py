@@ -167,9 +167,13 @@ def cracker_build(tmp_path_factory):
 
 
 def receipt_numbers(table: pd.DataFrame) -> dict[str, int]:
-    """Our occasion id (a keyed hash of store S1 and the receipt) -> the original row number."""
+    """Our occasion id (a keyed hash of store S1, the day and the receipt) -> the row number."""
     key = os.environ[KEY_ENV].encode("utf-8")
-    return {occasion_id(key, "S1", str(n)): int(n) for n in table["rownames"]}
+    days = [FIRST_DAY + timedelta(days=n) for n in range(len(table))]
+    return {
+        occasion_id(key, "S1", str(n), day.isoformat()): int(n)
+        for n, day in zip(table["rownames"], days, strict=True)
+    }
 
 
 def ours_long(table: pd.DataFrame, frame: pl.DataFrame) -> pd.DataFrame:

@@ -614,8 +614,8 @@ def test_unknown_receipt_id_scope_is_refused_naming_the_key_and_the_choices(tmp_
     with pytest.raises(UserError) as error:
         parse_config(raw, config_path, check_files=False)
     assert str(error.value) == (
-        f"{config_path}: key 'markets.receipt_ids_unique_per': Input should be 'store_day', "
-        "'store' or 'chain' (got 'till')."
+        f"{config_path}: key 'markets.receipt_ids_unique_per': got 'till', expected "
+        "'store_day', 'store' or 'chain'. Hint: use one of the allowed values."
     )
 
 

@@ -6,7 +6,7 @@ create or replace table choice_visits as
 with
 
 visits as (
-    select visit, store, receipt, occasion_at, day, card, card_count from choice_visits
+    select visit, store, visit_day, receipt, occasion_at, day, card, card_count from choice_visits
 ),
 
 pseudonyms as (
@@ -17,6 +17,7 @@ final as (
     select
         visits.visit,
         visits.store,
+        visits.visit_day,
         visits.receipt,
         visits.occasion_at,
         visits.day,
@@ -26,4 +27,4 @@ final as (
     join pseudonyms using (card)
 )
 
-select visit, store, receipt, occasion_at, day, chooser, card_count from final;
+select visit, store, visit_day, receipt, occasion_at, day, chooser, card_count from final;

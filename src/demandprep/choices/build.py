@@ -134,7 +134,8 @@ def build_choice_occasions(ctx: BuildContext) -> None:
     """
     settings = _settings(ctx)
     key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
-    run_sql(ctx.con, "choices/030_choice_visits.sql", occasion_hash_parameters(key))
+    visit_parameters = {**settings.params(), **occasion_hash_parameters(key)}
+    run_sql(ctx.con, "choices/030_choice_visits.sql", visit_parameters)
     build_pseudonym_table(ctx.con, key, ctx.config.choices.holdout_fraction)
     _run(
         ctx,

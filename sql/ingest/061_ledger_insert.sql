@@ -1,5 +1,5 @@
 -- one ledger row per file version of the batch
-insert into ledger
+insert into ledger by name
 select
     files.file_id,
     files.source,
@@ -14,5 +14,7 @@ select
     counts.rows_quarantined,
     'current' as status,
     $ingested_at as ingested_at,
+    null::varchar as reason,
+    $settings_fingerprint as settings_fingerprint,
 from ingest_batch_files as files
 join ingest_file_counts as counts using (file_id)

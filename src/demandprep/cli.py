@@ -10,6 +10,7 @@ from typing import Annotated
 
 import typer
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from demandprep import __version__
@@ -86,28 +87,68 @@ def inputs_table(project: ProjectConfig) -> Table:
     return table
 
 
+ReloadOption = Annotated[
+    list[str] | None,
+    typer.Option(
+        "--reload",
+        help="Read these files again: a source name (e.g. receipts) or a glob of paths. "
+        "Repeatable.",
+    ),
+]
+
+
 @app.command("ingest")
-def ingest_command(config: ConfigArg) -> None:
+def ingest_command(config: ConfigArg, reload: ReloadOption = None) -> None:
     """Load new and changed input files into the warehouse, quarantining bad lines."""
     with user_errors():
-        summary = ingest_with_progress(load_config(config))
-        if not summary.ok:
-            raise UserError(
-                f"{len(summary.failed)} input file(s) could not be read and the other files "
-                f"went in; the first: {summary.failed[0]}"
-            )
+        summary = ingest_with_progress(load_config(config), reload=reload)
+    exit_on_problems(summary)
 
 
-def ingest_with_progress(project: ProjectConfig):
-    """Run the ingest with a progress bar and print its summary table."""
+def ingest_with_progress(project: ProjectConfig, reload: list[str] | None = None):
+    """Run the ingest with a progress bar and print its summary table and warnings."""
     from demandprep.ingest.runner import summary_table
     from demandprep.pipeline import run_ingest
     from demandprep.progress import IngestProgress
 
     with IngestProgress(console) as progress:
-        summary = run_ingest(project, progress=progress.update)
+        summary = run_ingest(project, progress=progress.update, reload=reload)
     Console().print(summary_table(summary))
+    for warning in summary.warnings:
+        console.print(f"[yellow]warning:[/] {warning}", highlight=False, soft_wrap=True)
     return summary
+
+
+def exit_on_problems(summary) -> None:
+    """One red line per failed or refused file (the first ten), then exit 1; else nothing."""
+    if summary.ok:
+        return
+    for line in summary.problem_lines():
+        prefix = "" if line.startswith("…") else "[bold red]error:[/] "
+        console.print(f"{prefix}{escape(line)}", highlight=False, soft_wrap=True)
+    raise typer.Exit(code=1)
+
+
+@app.command("withdraw")
+def withdraw_command(
+    config: ConfigArg,
+    path: Annotated[str, typer.Argument(help="An ingested file's path, or a glob of paths.")],
+    reason: Annotated[
+        str, typer.Option(help="Why the rows are withdrawn (kept in the ledger).")
+    ] = "withdrawn by hand",
+) -> None:
+    """Remove the rows of ingested files from the warehouse; the ledger keeps why."""
+    from demandprep.ingest.runner import ensure_tables
+    from demandprep.ingest.withdraw import withdraw_files
+    from demandprep.warehouse import open_warehouse
+
+    with user_errors():
+        project = load_config(config, check_files=False)
+        with open_warehouse(project.warehouse) as con:
+            ensure_tables(con)
+            withdrawn = withdraw_files(con, project, path, reason)
+        for result in withdrawn:
+            console.print(f"withdrawn {result.path} ({result.rows_read:,} rows)", highlight=False)
 
 
 @app.command("build")
@@ -136,11 +177,7 @@ def run_command(config: ConfigArg) -> None:
         project = load_config(config)
         summary = ingest_with_progress(project)
         build_with_progress(project)
-        if not summary.ok:
-            raise UserError(
-                f"{len(summary.failed)} input file(s) could not be read and the build used "
-                f"every other file; the first: {summary.failed[0]}"
-            )
+    exit_on_problems(summary)
 
 
 @app.command("serve")

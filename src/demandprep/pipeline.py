@@ -11,12 +11,12 @@ from demandprep.stages import Stage, run_build_stages
 from demandprep.warehouse import open_warehouse
 
 
-def run_ingest(config: ProjectConfig, progress=None):
+def run_ingest(config: ProjectConfig, progress=None, reload: list[str] | None = None):
     """Ingest every new or changed input file into the warehouse; returns the ingest summary."""
     from demandprep.ingest.runner import ingest_all
 
     with open_warehouse(config.warehouse) as con:
-        return ingest_all(con, config, progress=progress)
+        return ingest_all(con, config, progress=progress, reload=reload)
 
 
 def run_build(

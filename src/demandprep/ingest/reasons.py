@@ -20,6 +20,7 @@ DUPLICATE_LINE = "duplicate_line"
 DUPLICATE_KEY = "duplicate_key"
 NON_POSITIVE_VALUE = "non_positive_value"
 UNKNOWN_TIMEZONE = "unknown_timezone"
+VALUE_OUT_OF_RANGE = "value_out_of_range"
 
 REASONS: dict[str, str] = {
     WRONG_COLUMN_COUNT: "the line has more or fewer fields than the header",
@@ -39,6 +40,9 @@ REASONS: dict[str, str] = {
     "or from another file of the same source)",
     NON_POSITIVE_VALUE: "a shelf price or market size of zero or less",
     UNKNOWN_TIMEZONE: "a store timezone that is not a known IANA zone name",
+    VALUE_OUT_OF_RANGE: "a quantity, amount or discount larger (in absolute value) than "
+    "sources.receipts.max_quantity / max_amount, or than the build's exact decimal type holds "
+    "(12 whole digits)",
 }
 
 

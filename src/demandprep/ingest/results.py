@@ -9,8 +9,19 @@ from typing import Literal
 
 from rich.table import Table
 
-FileStatus = Literal["new", "unchanged", "replaced", "failed"]
-FILE_STATUSES: tuple[FileStatus, ...] = ("new", "unchanged", "replaced", "failed")
+FileStatus = Literal["new", "unchanged", "replaced", "failed", "refused", "empty", "withdrawn"]
+FILE_STATUSES: tuple[FileStatus, ...] = (
+    "new",
+    "unchanged",
+    "replaced",
+    "failed",
+    "refused",
+    "empty",
+    "withdrawn",
+)
+# statuses that make `ingest` and `run` exit non-zero
+PROBLEM_STATUSES: tuple[FileStatus, ...] = ("failed", "refused")
+SHOWN_PROBLEMS = 10
 
 
 @dataclass(frozen=True)
@@ -43,16 +54,30 @@ class IngestSummary:
     """Every file's result for one run, in the order the files were ingested."""
 
     files: list[FileResult] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
-        """False when any file could not be ingested (the CLI then exits non-zero)."""
-        return not self.failed
+        """False when any file failed or was refused (the CLI then exits non-zero)."""
+        return not self.problems
 
     @property
     def failed(self) -> list[FileResult]:
         """The files that could not be ingested; each prints as its one-line error message."""
         return [result for result in self.files if result.status == "failed"]
+
+    @property
+    def problems(self) -> list[FileResult]:
+        """The files that failed or were refused, in ingest order."""
+        return [result for result in self.files if result.status in PROBLEM_STATUSES]
+
+    def problem_lines(self) -> list[str]:
+        """One line per failed or refused file (the first SHOWN_PROBLEMS), then how many more."""
+        problems = self.problems
+        lines = [str(result) for result in problems[:SHOWN_PROBLEMS]]
+        if len(problems) > SHOWN_PROBLEMS:
+            lines.append(f"… and {len(problems) - SHOWN_PROBLEMS} more")
+        return lines
 
     def count(self, status: FileStatus) -> int:
         """How many files ended with `status`."""
@@ -91,6 +116,6 @@ def summary_table(summary: IngestSummary) -> Table:
     table.add_row("rows quarantined", f"{sum(quarantined.values()):,}")
     for reason, rows in quarantined.items():
         table.add_row(f"  {reason}", f"{rows:,}")
-    for result in summary.failed:
-        table.add_row(f"[red]failed: {result.path.name}", "", end_section=False)
+    for result in summary.problems:
+        table.add_row(f"[red]{result.status}: {result.path.name}", "", end_section=False)
     return table

@@ -216,10 +216,11 @@ def check_reference_sql(spec: ReferenceSpec, types: dict[str, str]) -> str:
         "with texts as (select ordinal, path, line_no, "
         f"{texts} from ingest_source_lines), "
         f"typed as (select *, {parsed} from texts), "
-        f"classified as (select *, case {cases} end as reason, "
-        f"{_reason_field_sql(spec, names, types)} as reason_field from typed) "
+        f"classified as (select *, case {cases} end as reason from typed), "
+        f"fielded as (select *, {_reason_field_sql(spec, names, types)} as reason_field "
+        "from classified) "
         f"select ordinal, path, line_no, {columns}, reason_field, reason, "
-        f"case reason {details} end as detail from classified"
+        f"case reason {details} end as detail from fielded"
     )
 
 

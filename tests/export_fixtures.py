@@ -389,10 +389,13 @@ def _ledger() -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
                 "rows_quarantined": bad,
                 "status": "current",
                 "ingested_at": datetime(2024, 3, 6, 2, 30),
+                "reason": None,
+                "settings_fingerprint": f"{100 + index:064x}",
             }
             for index, (file_id, source, path, rows, bad) in enumerate(files, start=1)
         ]
     )
+    ledger["reason"] = ledger["reason"].astype("string")
     reasons = pd.DataFrame(
         [
             {"file_id": "F0000001", "reason": "unparseable_field", "rows": 3},

@@ -5,6 +5,7 @@ numbers are read strictly, and every failed file keeps its reason."""
 from __future__ import annotations
 
 import shutil
+from datetime import datetime
 from pathlib import Path
 
 import pytest
@@ -13,6 +14,9 @@ from typer.testing import CliRunner
 from demandprep.cli import app
 from demandprep.config import load_config
 from demandprep.errors import UserError
+from demandprep.export.manifest import file_sha256
+from demandprep.export.parquet import write_query_parquet
+from demandprep.export.tables import output_query, output_table
 from demandprep.ingest.files import gone_files
 from demandprep.ingest.runner import ingest_all
 from demandprep.ingest.withdraw import withdraw_files
@@ -403,3 +407,33 @@ def test_a_failed_file_keeps_its_reason_in_the_ledger(tmp_path: Path) -> None:
     rows = query(config, "select status, reason from ledger where path like '%broken.csv'")
     assert rows[0][0] == "failed"
     assert rows[0][1] and rows[0][1] in result.error
+
+
+# ---- 6. determinism of the exported ledger ------------------------------------------------------
+
+
+def test_two_from_scratch_ingests_export_byte_identical_ledgers(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    config_path = write_project(tmp_path, {"a.csv": receipt_lines(5), "b.csv": ["broken;line"]})
+    config = load_config(config_path)
+    hashes = []
+    for day in (1, 2):
+        monkeypatch.setattr("demandprep.ingest.ledger.datetime", _clock(datetime(2024, 5, day)))
+        shutil.rmtree(config.warehouse.path.parent, ignore_errors=True)
+        with open_warehouse(config.warehouse) as con:
+            ingest_all(con, config)
+            query_ = output_query(con, output_table("ledger"), config)
+            target = tmp_path / f"ledger_{day}.parquet"
+            write_query_parquet(con, query_.sql, query_.params, target, 1024, {}, {}, ("path",))
+        hashes.append(file_sha256(target))
+    assert hashes[0] == hashes[1]
+
+
+def _clock(moment: datetime) -> type:
+    class Fixed(datetime):
+        @classmethod
+        def now(cls, tz=None) -> datetime:
+            return moment
+
+    return Fixed

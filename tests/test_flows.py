@@ -16,7 +16,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import duckdb
-import pyarrow.parquet as pq
 import pytest
 
 from demandprep.config import ProjectConfig, load_config

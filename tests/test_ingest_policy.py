@@ -279,6 +279,20 @@ def test_a_reference_setting_change_retypes_the_reference(tmp_path: Path) -> Non
     assert query(config, "select grams from catalogue") == [(250.5,)]
 
 
+def test_a_new_reference_mapping_replaces_its_rows_in_one_transaction(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "catalogue.csv").write_text("item,category,grams,maker\nK1,coffee,250,Roastery\n")
+    ingest(config)
+    config.write_text(
+        config.read_text().replace('grams = "grams"\n', 'grams = "grams"\nfirm = "maker"\n')
+    )
+    result = by_name(ingest(config))["catalogue.csv"]
+    assert result.status == "replaced"
+    assert query(config, "select sku, firm from catalogue") == [("K1", "Roastery")]
+    rows = query(config, "select status from ledger where source = 'catalogue' order by version")
+    assert rows == [("superseded",), ("current",)]
+
+
 def test_reload_rereads_a_source_or_a_glob(tmp_path: Path) -> None:
     config = write_project(tmp_path, {"a.csv": receipt_lines(5), "b.csv": receipt_lines(3, day=2)})
     ingest(config)

@@ -83,7 +83,9 @@ def inputs_table(project: ProjectConfig) -> Table:
             continue
         files = source.resolved_files()
         size = sum(path.stat().st_size for path in files) / 1e6
-        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", str(files[0]))
+        # with a warehouse, a source may match nothing (files archived after their ingest)
+        first = str(files[0]) if files else "(none)"
+        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", first)
     return table
 
 

@@ -13,8 +13,9 @@ it. A ledger mismatch stops the run.
 
 Files are read again when their checksum or their source's reading settings changed (files.py),
 or when `reload` names their source or matches their path; a reference source read again for
-its settings is emptied first, inside the first batch's transaction, so its column types are
-worked out afresh.
+its settings (a changed column mapping included) is emptied first, inside the first batch's
+transaction, so its columns and their types are worked out afresh. A source whose globs match
+nothing while the warehouse holds its files keeps them, with a warning in the summary.
 
 Progress: `progress(event, **info)` is called with
 - "start": files (count of files found), bytes (total size of the files to read);
@@ -133,7 +134,6 @@ def ingest_all(
     notify = progress or _ignore
     ensure_tables(con)
     warnings = check_sources_have_files(con, config)
-    reset_changed_layouts(con, config)
     discovered = discover_files(con, config, reload)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
@@ -190,7 +190,11 @@ def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
 
 
 def reset_changed_layouts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
-    """Empty each reference table whose column mapping changed, so its files load again whole."""
+    """Empty each reference table whose column mapping changed, so its files load again whole.
+
+    `ingest_all` no longer needs it (a changed mapping reads the source again as replaced, its
+    table dropped inside the first batch's transaction); kept for callers that reset first.
+    """
     for name, source in configured_sources(config):
         spec = REFERENCE_SPECS.get(name)
         if spec is not None and layout_changed(con, spec, source):

@@ -222,6 +222,33 @@ def test_a_refused_card_bearing_file_never_quotes_the_card(tmp_path: Path) -> No
     assert "(first: line 2, line 'x')" in result.error
 
 
+def test_a_refused_households_file_names_the_card_column_without_its_value(
+    tmp_path: Path,
+) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "households.csv").write_text("card,size\n" + "SECRET-1,2\n" * 150)
+    extra = '[sources.households]\nfiles = ["households.csv"]\n\n'
+    extra += '[sources.households.columns]\ncard = "card"\nsize = "size"\n\n[markets]'
+    config.write_text(config.read_text().replace("[markets]", extra))
+    result = by_name(ingest(config))["households.csv"]
+    assert result.status == "refused"
+    assert "SECRET" not in result.error
+    assert "mostly duplicate_key (first: line 3, card)." in result.error
+    assert "raise sources.households.reject_limit_fraction or reject_limit_lines" in result.error
+
+
+def test_a_refused_correction_keeps_the_previous_version(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(150)})
+    ingest(config)
+    bad = "\n".join([HEADER, *receipt_lines(150, "1.5")]) + "\n"
+    (tmp_path / "receipts" / "a.csv").write_text(bad)
+    assert by_name(ingest(config))["a.csv"].status == "refused"
+    assert warehouse_rows(config) == (150, 0, 1)
+    rows = query(config, "select version, status from ledger where source = 'receipts' order by 1")
+    assert rows == [(1, "current"), (2, "refused")]
+    assert by_name(ingest(config))["a.csv"].status == "unchanged"
+
+
 def test_ingest_prints_one_line_per_refused_or_failed_file_then_exits_1(tmp_path: Path) -> None:
     receipts = {f"bad_{n:02d}.csv": receipt_lines(120, "1.5", day=n + 1) for n in range(12)}
     config = write_project(tmp_path, receipts)

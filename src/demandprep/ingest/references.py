@@ -246,7 +246,6 @@ def _reason_field_sql(spec: ReferenceSpec, names: list[str], types: dict[str, st
         "unknown_timezone": "'timezone'",
         "unknown_store": "'store'",
         "unknown_sku": "'sku'",
-        "duplicate_key": f"'{spec.key[0]}'",
     }
     cases = " ".join(f"when '{reason}' then {field}" for reason, field in by_reason.items())
     return f"case reason {cases} end"

@@ -18,10 +18,12 @@ import duckdb
 from demandprep.config import FileSource
 from demandprep.errors import UserError
 from demandprep.ingest.ledger import BatchFile, FileCounts
+from demandprep.ingest.references import REFERENCE_SPECS
 from demandprep.sqlfiles import quote_identifier
 
 # Columns whose values a message may never quote (raw card ids stay in the warehouse).
 UNQUOTED_COLUMNS = ("card",)
+DUPLICATE_REASONS = ("duplicate_line", "duplicate_key")
 # Reasons that come from reading a file with the wrong settings rather than from its content.
 READING_REASONS = (
     "wrong_column_count",
@@ -78,7 +80,7 @@ def _refusal(
     con: duckdb.DuckDBPyConnection, source_name: str, path: Path, file_id: str, counts: FileCounts
 ) -> Refusal:
     reason = min(counts.quarantined, key=lambda name: (-counts.quarantined[name], name))
-    line_no, field, value = _first_example(con, file_id, reason)
+    line_no, field, value = _first_example(con, file_id, reason, _duplicate_field(source_name))
     share = f"{counts.rows_quarantined / counts.rows_read:.0%}"
     summary = (
         f"{counts.rows_quarantined} of {counts.rows_read} lines quarantined ({share}), "
@@ -93,10 +95,20 @@ def _refusal(
     return Refusal(message.one_line(), f"{summary} (first: {named})")
 
 
+def _duplicate_field(source_name: str) -> str:
+    """The column a duplicate is first known by: the receipt, or the reference's first key."""
+    spec = REFERENCE_SPECS.get(source_name)
+    return spec.key[0] if spec is not None else "receipt"
+
+
 def _first_example(
-    con: duckdb.DuckDBPyConnection, file_id: str, reason: str
+    con: duckdb.DuckDBPyConnection, file_id: str, reason: str, duplicate_field: str
 ) -> tuple[int | None, str | None, str | None]:
-    """Line number, our column and its text of the file's first line quarantined for `reason`."""
+    """Line number, our column and its text of the file's first line quarantined for `reason`.
+
+    Duplicates are marked after the rules ran (their `reason_field` is empty): they are named
+    by `duplicate_field`.
+    """
     row = con.execute(
         "select q.line_no, c.ordinal, c.reason_field from quarantine q "
         "left join ingest_checked c on c.path = q.path and c.line_no = q.line_no "
@@ -105,6 +117,8 @@ def _first_example(
         {"file_id": file_id, "reason": reason},
     ).fetchone()
     line_no, ordinal, field = row
+    if reason in DUPLICATE_REASONS:
+        field = duplicate_field
     if field is None or ordinal is None:
         return line_no, None, None
     (value,) = con.execute(

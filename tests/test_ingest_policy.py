@@ -331,6 +331,23 @@ def test_reload_rereads_a_source_or_a_glob(tmp_path: Path) -> None:
     assert warehouse_rows(config) == (8, 0, 1)
 
 
+def test_reloading_one_reference_file_of_an_old_warehouse_keeps_the_others(
+    tmp_path: Path,
+) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "catalogue_2.csv").write_text("item,category,grams\nK2,coffee,500\n")
+    config.write_text(config.read_text().replace('["catalogue.csv"]', '["catalogue*.csv"]'))
+    ingest(config)
+    # ledger rows from before fingerprints were recorded
+    query(config, "update ledger set settings_fingerprint = null")
+    result = by_name(ingest(config, reload=[str(tmp_path / "catalogue_2.csv")]))
+    assert (result["catalogue.csv"].status, result["catalogue_2.csv"].status) == (
+        "unchanged",
+        "replaced",
+    )
+    assert query(config, "select sku from catalogue order by sku") == [("K1",), ("K2",)]
+
+
 def test_reload_of_nothing_known_is_a_user_error(tmp_path: Path) -> None:
     config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
     with pytest.raises(UserError, match="--reload 'nope.csv' matches no configured source"):

@@ -49,6 +49,9 @@ class DiscoveredFile:
     settings_fingerprint: str | None = None
     # read again because the source's reading settings changed (or a reload asked for it)
     settings_changed: bool = False
+    # every current file of its (reference) source is read again with new settings: the
+    # source's table may be rebuilt from nothing (runner.mark_source_rebuilds)
+    rebuilds_source: bool = False
 
 
 @dataclass(frozen=True)

@@ -30,6 +30,7 @@ Progress: `progress(event, **info)` is called with
 from __future__ import annotations
 
 from collections.abc import Callable, Iterator
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -134,7 +135,7 @@ def ingest_all(
     notify = progress or _ignore
     ensure_tables(con)
     warnings = check_sources_have_files(con, config)
-    discovered = discover_files(con, config, reload)
+    discovered = mark_source_rebuilds(con, discover_files(con, config, reload))
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
     summary = IngestSummary(warnings=warnings)
@@ -274,6 +275,23 @@ def _without_refused(
     return results
 
 
+def mark_source_rebuilds(
+    con: duckdb.DuckDBPyConnection, discovered: list[DiscoveredFile]
+) -> list[DiscoveredFile]:
+    """Flag the files of each reference source whose every current file is read again for
+    new settings: only then may its table be rebuilt from nothing (no other file's rows lost)."""
+    current: dict[str, set[str]] = {}
+    for (source, _path), version in current_versions(con).items():
+        current.setdefault(source, set()).add(version.file_id)
+    marked = []
+    for name in dict.fromkeys(item.source for item in discovered):
+        files = [item for item in discovered if item.source == name]
+        reread = {item.previous_file_id for item in files if item.settings_changed}
+        rebuild = name in REFERENCE_SPECS and bool(reread) and current.get(name, set()) <= reread
+        marked += [replace(item, rebuilds_source=rebuild) for item in files]
+    return marked
+
+
 def _reset_for_new_settings(con: duckdb.DuckDBPyConnection, files: list[DiscoveredFile]) -> None:
     """Empty a reference source read again for new settings, so its types are sniffed afresh.
 
@@ -282,7 +300,7 @@ def _reset_for_new_settings(con: duckdb.DuckDBPyConnection, files: list[Discover
     """
     first = files[0]
     spec = REFERENCE_SPECS.get(first.source)
-    if spec is None or not any(item.settings_changed for item in files):
+    if spec is None or not any(item.rebuilds_source for item in files):
         return
     if not ledger.has_current_with(con, first.source, first.settings_fingerprint):
         drop_reference_storage(con, spec)

@@ -122,7 +122,7 @@ def discover_files(
             held_back=held_back,
             reload=targets.get(name, frozenset()),
         )
-    return found
+    return mark_source_rebuilds(con, found)
 
 
 def ingest_all(
@@ -135,7 +135,7 @@ def ingest_all(
     notify = progress or _ignore
     ensure_tables(con)
     warnings = check_sources_have_files(con, config)
-    discovered = mark_source_rebuilds(con, discover_files(con, config, reload))
+    discovered = discover_files(con, config, reload)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
     summary = IngestSummary(warnings=warnings)

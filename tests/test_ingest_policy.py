@@ -8,6 +8,7 @@ import shutil
 from datetime import datetime
 from pathlib import Path
 
+import duckdb
 import pytest
 from typer.testing import CliRunner
 
@@ -20,6 +21,7 @@ from demandprep.export.tables import output_query, output_table
 from demandprep.ingest.files import gone_files
 from demandprep.ingest.runner import ingest_all
 from demandprep.ingest.withdraw import withdraw_files
+from demandprep.sqlfiles import run_sql
 from demandprep.warehouse import open_warehouse
 
 RUNNER = CliRunner()
@@ -495,3 +497,39 @@ def _clock(moment: datetime) -> type:
             return moment
 
     return Fixed
+
+
+@pytest.mark.parametrize(
+    ("text", "mark", "expected"),
+    [
+        ("12.50", ".", 12.5),
+        ("12,50", ",", 12.5),
+        ("12.50", ",", None),
+        ("1_000", ".", None),
+        ("1 000", ".", None),
+        ("1,000", ".", None),
+        ("1e3", ".", 1000.0),
+        ("-4.5", ".", -4.5),
+        ("inf", ".", None),
+        ("nan", ".", None),
+        ("0x10", ".", None),
+    ],
+)
+def test_the_number_macro_reads_only_plain_decimal_notation(
+    text: str, mark: str, expected: float | None
+) -> None:
+    con = duckdb.connect()
+    run_sql(con, "ingest/005_ingest_macros.sql")
+    assert con.execute("select ingest_number($t, $m)", {"t": text, "m": mark}).fetchone() == (
+        expected,
+    )
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [("7", 7), ("+7", 7), ("007", 7), ("1_000", None), ("0x10", None), (".5", None), ("1e5", None)],
+)
+def test_the_integer_macro_reads_only_digits(text: str, expected: int | None) -> None:
+    con = duckdb.connect()
+    run_sql(con, "ingest/005_ingest_macros.sql")
+    assert con.execute("select ingest_integer($t)", {"t": text}).fetchone() == (expected,)

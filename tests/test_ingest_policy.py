@@ -287,6 +287,23 @@ def test_fixing_the_timestamp_format_rereads_the_files(tmp_path: Path) -> None:
     assert prints == [(2,)]
 
 
+def test_an_old_warehouse_gains_the_new_ledger_columns(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    loaded = load_config(config)
+    with open_warehouse(loaded.warehouse) as con:
+        con.execute(
+            "create table ledger (file_id varchar not null, source varchar not null, "
+            "path varchar not null, version bigint not null, bytes bigint not null, "
+            "sha256 varchar not null, first_sold_at timestamp, last_sold_at timestamp, "
+            "rows_read bigint not null, rows_accepted bigint not null, "
+            "rows_quarantined bigint not null, status varchar not null, "
+            "ingested_at timestamp not null)"
+        )
+    assert by_name(ingest(config))["a.csv"].status == "new"
+    columns = query(config, "select column_name from duckdb_columns() where table_name = 'ledger'")
+    assert [name for (name,) in columns][-2:] == ["reason", "settings_fingerprint"]
+
+
 def test_changing_only_the_file_globs_rereads_nothing(tmp_path: Path) -> None:
     config = write_project(tmp_path, {"a.csv": receipt_lines(20)})
     ingest(config)

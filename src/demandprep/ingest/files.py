@@ -128,24 +128,8 @@ def discover_source(
         sha = file_sha256(path)
         previous = known.get((source, str(path)))
         blocked = (held_back or {}).get((source, str(path)))
-        status: Status
-        settings_changed = False
-        if path in reload or reload_all:
-            status, settings_changed = ("new" if previous is None else "changed"), True
-        elif (
-            blocked is not None
-            and blocked.sha256 == sha
-            and (blocked.status == "withdrawn" or blocked.read_with(fingerprint or ""))
-        ):
-            status = "unchanged"
-        elif previous is None:
-            status = "new"
-        elif previous.sha256 != sha:
-            status = "changed"
-        elif fingerprint is not None and not previous.read_with(fingerprint):
-            status, settings_changed = "changed", True
-        else:
-            status = "unchanged"
+        forced = reload_all or path in reload
+        status, settings_changed = file_status(sha, fingerprint, previous, blocked, forced)
         previous_id = previous.file_id if previous else None
         found.append(
             DiscoveredFile(
@@ -160,6 +144,30 @@ def discover_source(
             )
         )
     return found
+
+
+def file_status(
+    sha: str,
+    fingerprint: str | None,
+    previous: KnownVersion | None,
+    held_back: KnownVersion | None,
+    forced: bool,
+) -> tuple[Status, bool]:
+    """A file's status against its ledger rows, and whether it is read for its settings."""
+    if forced:
+        return ("new" if previous is None else "changed"), True
+    if (
+        held_back is not None
+        and held_back.sha256 == sha
+        and (held_back.status == "withdrawn" or held_back.read_with(fingerprint or ""))
+    ):
+        return "unchanged", False
+    if previous is None:
+        return "new", False
+    new_settings = fingerprint is not None and not previous.read_with(fingerprint)
+    if previous.sha256 != sha or new_settings:
+        return "changed", new_settings
+    return "unchanged", False
 
 
 def reload_targets(config: ProjectConfig, patterns: list[str]) -> dict[str, frozenset[Path]]:

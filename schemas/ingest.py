@@ -17,7 +17,7 @@ from pandera.api.polars.model_config import BaseConfig
 from demandprep.ingest.reasons import REASONS
 
 LINE_KINDS = ["sale", "return", "void"]
-FILE_STATUSES = ["current", "superseded", "failed", "empty"]
+FILE_STATUSES = ["current", "superseded", "failed", "refused", "empty", "withdrawn"]
 
 
 def described(description: str, unit: str = "", formula: str = "", **checks: Any) -> Any:
@@ -106,13 +106,20 @@ class Ledger(pa.DataFrameModel):
     rows_accepted: int = described("Records accepted into the warehouse.", ge=0)
     rows_quarantined: int = described("Records sent to quarantine.", ge=0)
     status: str = described(
-        "current (in the warehouse), superseded (replaced by a newer version), failed or "
-        "empty (no records).",
+        "current (in the warehouse), superseded (replaced by a newer version), failed (could "
+        "not be read), refused (past the source's reject limit), empty (no records) or "
+        "withdrawn (its rows removed on purpose).",
         isin=FILE_STATUSES,
     )
     ingested_at: datetime.datetime = described("When this version was ingested (local time).")
     reason: str = described(
-        "Why the file failed, was refused or is empty; null for other files.", nullable=True
+        "Why the file failed, was refused, is empty or was withdrawn (null otherwise).",
+        nullable=True,
+    )
+    settings_fingerprint: str = described(
+        "sha256 of the source's reading settings the file was read with (null before they were "
+        "recorded).",
+        nullable=True,
     )
 
     class Config(BaseConfig):

@@ -390,6 +390,7 @@ def _ledger() -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
                 "status": "current",
                 "ingested_at": datetime(2024, 3, 6, 2, 30),
                 "reason": None,
+                "settings_fingerprint": f"{100 + index:064x}",
             }
             for index, (file_id, source, path, rows, bad) in enumerate(files, start=1)
         ]

@@ -8,6 +8,7 @@ the warehouse's quarantine and ledger with it.
 from __future__ import annotations
 
 import csv
+import re
 import shutil
 from collections import Counter
 from dataclasses import dataclass
@@ -24,6 +25,7 @@ HEADER = ["ticket", "row", "branch", "stamp", "article", "qty", "value", "member
 REQUIRED = ["ticket", "branch", "stamp", "article", "qty", "value"]
 VALID_FROM, VALID_TO = date(2024, 1, 1), date(2024, 12, 31)
 STAMP_FORMAT = "%Y-%m-%d %H:%M:%S"
+MAX_QUANTITY, MAX_AMOUNT = 10_000, 1_000_000  # the documented defaults of max_quantity/max_amount
 
 
 def copy_faults(tmp_path: Path) -> Path:
@@ -66,8 +68,9 @@ class Expected:
 
 
 def number(text: str) -> float:
-    """A decimal-comma number; a '.' is not allowed (no thousands marks)."""
-    if "." in text:
+    """A decimal-comma number: digits, an optional exponent, no thousands marks ('.', '_', ' ')."""
+    # Python's float() alone would take '1_000' and 'inf'
+    if not re.fullmatch(r"[+-]?([0-9]+(,[0-9]*)?|,[0-9]+)([eE][+-]?[0-9]+)?", text):
         raise ValueError(text)
     return float(text.replace(",", "."))
 
@@ -112,6 +115,9 @@ def classify_fields(
         line = int(row["row"]) if row["row"] else None
     except ValueError:
         return "unparseable_field"
+    discount = number(row["disc"]) if row["disc"] else 0.0
+    if abs(quantity) > MAX_QUANTITY or max(abs(amount), abs(discount)) > MAX_AMOUNT:
+        return "value_out_of_range"
     kind = row["kind"].lower() or "sale"
     if kind not in ("sale", "return", "void"):
         return "unknown_line_kind"

@@ -16,7 +16,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import duckdb
-import pyarrow.parquet as pq
 import pytest
 
 from demandprep.config import ProjectConfig, load_config
@@ -128,7 +127,6 @@ def test_flow_publishes_the_same_build_as_the_direct_runner(night_one: NightOne)
     config = night_one.restore()
     flowed = config.export.root / night_one.build_name
     flow_digests = parquet_digests(flowed)
-    flow_ledger = pq.read_table(flowed / "ledger.parquet").drop_columns(["ingested_at"])
     # the same inputs at the same paths, into a fresh warehouse and build root
     shutil.rmtree(config.warehouse.path.parent)
     shutil.rmtree(config.export.root)
@@ -138,11 +136,8 @@ def test_flow_publishes_the_same_build_as_the_direct_runner(night_one: NightOne)
 
     direct_digests = parquet_digests(direct)
     assert {"ledger.parquet", "quarantine.parquet", "choices.parquet"} <= set(direct_digests)
-    # the ledger records when each file was ingested: equal apart from that column
-    del flow_digests["ledger.parquet"], direct_digests["ledger.parquet"]
+    # the exported ledger leaves out load times, so even it is byte-identical
     assert flow_digests == direct_digests
-    direct_ledger = pq.read_table(direct / "ledger.parquet").drop_columns(["ingested_at"])
-    assert flow_ledger.equals(direct_ledger)
 
 
 def test_adding_one_day_ingests_exactly_that_file(night_one: NightOne) -> None:

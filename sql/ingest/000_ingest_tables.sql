@@ -38,13 +38,18 @@ create table if not exists ledger (
     rows_quarantined bigint not null,
     status varchar not null,
     ingested_at timestamp not null,
+    reason varchar,
+    settings_fingerprint varchar,
 );
+
+-- warehouses made before these columns existed gain them (null on their old rows: a null
+-- fingerprint counts as the current settings, so an upgrade does not re-read everything)
+alter table ledger add column if not exists reason varchar;
+
+alter table ledger add column if not exists settings_fingerprint varchar;
 
 create table if not exists ledger_reasons (
     file_id varchar not null,
     reason varchar not null,
     rows bigint not null,
 );
-
--- why a file failed, was refused or is empty (null for a current file); older warehouses gain it
-alter table ledger add column if not exists reason varchar;

@@ -1,5 +1,8 @@
--- number parsing shared by every source: the configured decimal mark, no thousands marks,
--- finite values only ('inf' and 'nan' are not quantities)
+-- number parsing shared by every source: the configured decimal mark, no thousands marks (not
+-- '1,000', '1 000' or '1_000'), finite values only ('inf' and 'nan' are not quantities).
+-- DuckDB's double cast takes '1_000' as 1000 (and nothing else outside plain decimal
+-- notation), so an underscore is refused before the cast; a contains() is far cheaper than a
+-- regular expression on every amount of every line.
 create or replace temp macro ingest_finite(value) as
     case when isfinite(value) then value end;
 
@@ -7,6 +10,7 @@ create or replace temp macro ingest_number(text, mark) as
     ingest_finite(
         case
             when mark = ',' and contains(text, '.') then null
+            when contains(text, '_') then null
             else try_cast(replace(text, mark, '.') as double)
         end
     );
@@ -16,3 +20,6 @@ create or replace temp macro ingest_number(text, mark) as
 create or replace temp macro ingest_problem(field, problem, value, values_shown) as
     field || ': ' || problem
     || case when values_shown and value is not null then ' (''' || value || ''')' else '' end;
+-- whole numbers as written: the bigint cast also takes '1_000', '0x10', '0b11', '.5' and '1e5'
+create or replace temp macro ingest_integer(text) as
+    case when regexp_full_match(text, '[+-]?[0-9]+') then try_cast(text as bigint) end;

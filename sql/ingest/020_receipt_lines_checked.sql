@@ -32,7 +32,7 @@ trimmed as (
 typed as (
     select
         *,
-        try_cast(line_text as bigint) as line,
+        ingest_integer(line_text) as line,
         case
             when $timestamp_format is null then try_cast(sold_at_text as timestamp)
             else try_strptime(sold_at_text, $timestamp_format)
@@ -76,6 +76,7 @@ flagged as (
     left join known_skus on known_skus.sku = localised.sku
 ),
 
+-- the first rule a line breaks, and which of our fields broke it (for the refusal message)
 classified as (
     select
         *,
@@ -89,6 +90,11 @@ classified as (
                 or amount is null
                 or (discount_text is not null and discount is null)
                 then 'unparseable_field'
+            -- bounds: the plausibility limits, never beyond what DECIMAL(18, 6) holds
+            when abs(quantity) > $max_quantity
+                or abs(amount) > $max_amount
+                or abs(coalesce(discount, 0)) > $max_amount
+                then 'value_out_of_range'
             when line_kind not in ('sale', 'return', 'void') then 'unknown_line_kind'
             when sold_at < $valid_from or sold_at >= $valid_until then 'timestamp_out_of_range'
             when line_kind = 'sale' and quantity <= 0 then 'non_positive_quantity'
@@ -97,6 +103,35 @@ classified as (
             when not store_known then 'unknown_store'
             when not sku_known then 'unknown_sku'
         end as reason,
+        case reason
+            when 'missing_required_field' then case
+                when receipt is null then 'receipt'
+                when store is null then 'store'
+                when sold_at_text is null then 'sold_at'
+                when sku is null then 'sku'
+                when quantity_text is null then 'quantity'
+                else 'amount'
+            end
+            when 'unparseable_field' then case
+                when line_text is not null and line is null then 'line'
+                when sold_at is null then 'sold_at'
+                when quantity is null then 'quantity'
+                when amount is null then 'amount'
+                else 'discount'
+            end
+            when 'value_out_of_range' then case
+                when abs(quantity) > $max_quantity then 'quantity'
+                when abs(amount) > $max_amount then 'amount'
+                else 'discount'
+            end
+            when 'unknown_line_kind' then 'line_kind'
+            when 'timestamp_out_of_range' then 'sold_at'
+            when 'non_positive_quantity' then 'quantity'
+            when 'negative_amount' then 'amount'
+            when 'return_not_negative' then 'quantity'
+            when 'unknown_store' then 'store'
+            when 'unknown_sku' then 'sku'
+        end as reason_field,
     from flagged
 ),
 
@@ -115,6 +150,7 @@ final as (
         coalesce(discount, 0) as discount,
         card,
         line_kind,
+        reason_field,
         reason,
         case reason
             when 'missing_required_field' then 'empty: ' || concat_ws(', ',
@@ -137,6 +173,7 @@ final as (
                     then ingest_problem('amount', 'not a number', amount_text, $values_shown) end,
                 case when discount_text is not null and discount is null
                     then ingest_problem('discount', 'not a number', discount_text, $values_shown) end)
+            when 'value_out_of_range' then reason_field || ': beyond the sources.receipts bounds'
             when 'unknown_line_kind' then ingest_problem(
                 'line_kind', 'not sale, return or void', line_kind, $values_shown)
             when 'timestamp_out_of_range' then ingest_problem(
@@ -173,6 +210,7 @@ select
     discount,
     card,
     line_kind,
+    reason_field,
     reason,
     detail,
 from final

@@ -1,5 +1,5 @@
--- a file that could not be ingested: ledgered with no rows
-insert into ledger
+-- a file that could not be ingested or was refused: ledgered with no rows and the reason why
+insert into ledger by name
 select
     $file_id as file_id,
     $source as source,
@@ -7,11 +7,12 @@ select
     $version as version,
     $bytes as bytes,
     $sha256 as sha256,
-    null as first_sold_at,
-    null as last_sold_at,
+    null::timestamp as first_sold_at,
+    null::timestamp as last_sold_at,
     0 as rows_read,
     0 as rows_accepted,
     0 as rows_quarantined,
-    'failed' as status,
+    $status as status,
     $ingested_at as ingested_at,
-    null::varchar as reason,
+    $reason as reason,
+    $settings_fingerprint as settings_fingerprint

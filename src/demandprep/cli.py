@@ -107,27 +107,32 @@ def inputs_table(project: ProjectConfig) -> Table:
             continue
         files = source.resolved_files()
         size = sum(path.stat().st_size for path in files) / 1e6
+        # with a warehouse, a source may match nothing (files archived after their ingest);
         # a path is shown as it is, brackets included (Text is never read as markup)
-        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", Text(str(files[0])))
+        first = Text(str(files[0])) if files else Text("(none)")
+        table.add_row(name, source.format, str(len(files)), f"{size:,.1f}", first)
     return table
 
 
+ReloadOption = Annotated[
+    list[str] | None,
+    typer.Option(
+        "--reload",
+        help="Read these files again: a source name (e.g. receipts) or a glob of paths. "
+        "Repeatable.",
+    ),
+]
+
+
 @app.command("ingest")
-def ingest_command(config: ConfigArg) -> None:
+def ingest_command(config: ConfigArg, reload: ReloadOption = None) -> None:
     """Load new and changed input files into the warehouse, quarantining bad lines."""
-    from demandprep.pipeline import not_loaded
-
     with user_errors():
-        summary = ingest_with_progress(load_config(config))
-        failed = not_loaded(summary)
-        if failed:
-            raise UserError(
-                f"{len(failed)} input file(s) could not be read and the other files "
-                f"went in; the first: {failed[0]}"
-            )
+        summary = ingest_with_progress(load_config(config), reload=reload)
+    exit_on_problems(summary)
 
 
-def ingest_with_progress(project: ProjectConfig):
+def ingest_with_progress(project: ProjectConfig, reload: list[str] | None = None):
     """Run the ingest with a progress bar (log lines outside a terminal), then its summary."""
     from demandprep.ingest.runner import summary_table
     from demandprep.pipeline import run_ingest
@@ -135,11 +140,44 @@ def ingest_with_progress(project: ProjectConfig):
 
     if console.is_terminal:
         with IngestProgress(console) as progress:
-            summary = run_ingest(project, progress=progress.update)
+            summary = run_ingest(project, progress=progress.update, reload=reload)
     else:
-        summary = run_ingest(project, progress=IngestLog(say).update)
+        summary = run_ingest(project, progress=IngestLog(say).update, reload=reload)
     Console().print(summary_table(summary))
+    for warning in summary.warnings:
+        say(warning, "warning:", "yellow")
     return summary
+
+
+def exit_on_problems(summary) -> None:
+    """One red line per failed or refused file (the first ten), then exit 1; else nothing."""
+    if summary.ok:
+        return
+    for line in summary.problem_lines():
+        say(line, "" if line.startswith("…") else "error:", "bold red")
+    raise typer.Exit(code=1)
+
+
+@app.command("withdraw")
+def withdraw_command(
+    config: ConfigArg,
+    path: Annotated[str, typer.Argument(help="An ingested file's path, or a glob of paths.")],
+    reason: Annotated[
+        str, typer.Option(help="Why the rows are withdrawn (kept in the ledger).")
+    ] = "withdrawn by hand",
+) -> None:
+    """Remove the rows of ingested files from the warehouse; the ledger keeps why."""
+    from demandprep.ingest.runner import ensure_tables
+    from demandprep.ingest.withdraw import withdraw_files
+    from demandprep.warehouse import open_warehouse
+
+    with user_errors():
+        project = load_config(config, check_files=False)
+        with open_warehouse(project.warehouse) as con:
+            ensure_tables(con)
+            withdrawn = withdraw_files(con, project, path, reason)
+        for result in withdrawn:
+            say(f"{result.path} ({result.rows_read:,} rows)", "withdrawn")
 
 
 @app.command("build")
@@ -186,23 +224,20 @@ def build_with_progress(project: ProjectConfig, force: bool = False) -> Path | N
 @app.command("run")
 def run_command(config: ConfigArg, force: ForceOption = False) -> None:
     """Ingest, then build: what a nightly job does, without an orchestrator."""
-    from demandprep.pipeline import every_receipts_file_failed, not_loaded
+    from demandprep.pipeline import every_receipts_file_failed
 
     with user_errors():
         project = load_config(config)
         summary = ingest_with_progress(project)
-        failed = not_loaded(summary)
         if every_receipts_file_failed(summary):
-            raise UserError(
-                f"every receipts file failed, so nothing was built ({len(failed)} input "
-                f"file(s) could not be read); the first: {failed[0]}"
+            say(
+                "every receipts file failed or was refused, so nothing was built.",
+                "error:",
+                "bold red",
             )
+            exit_on_problems(summary)
         build_with_progress(project, force)
-        if failed:
-            raise UserError(
-                f"{len(failed)} input file(s) could not be read and the build used "
-                f"every other file; the first: {failed[0]}"
-            )
+    exit_on_problems(summary)
 
 
 @app.command("serve")

@@ -38,6 +38,10 @@ README_HINT = 'see "Config reference" in README.md.'
 
 RECEIPT_REQUIRED = ("receipt", "store", "sold_at", "sku", "quantity", "amount")
 RECEIPT_OPTIONAL = ("line", "card", "discount", "line_kind")
+# The build sums quantities and amounts as DECIMAL(18, 6) (sql/market/060): 12 whole digits.
+DECIMAL_LIMIT = 999_999_999_999.0
+# Settings that do not change how a source's files are read (see FileSource.settings_fingerprint).
+NOT_READING_SETTINGS = frozenset({"files", "returns_in_demand"})
 
 
 class Section(BaseModel):
@@ -80,6 +84,9 @@ class FileSource(Section):
     encoding: Literal["utf-8", "utf-16", "latin-1"] = "utf-8"
     header: bool = True
     columns: dict[Identifier, str] = Field(default_factory=dict)
+    # refuse a file when more than this share of its lines AND more than this many are quarantined
+    reject_limit_fraction: float = Field(0.5, ge=0, le=1)
+    reject_limit_lines: int = Field(100, ge=0)
 
     @field_validator("files", mode="after")
     @classmethod
@@ -95,6 +102,12 @@ class FileSource(Section):
             found.update(anchor.glob(str(path.relative_to(anchor))))
         return sorted(p for p in found if p.is_file())
 
+    def settings_fingerprint(self) -> str:
+        """sha256 of the canonical JSON of the settings that decide how a file is read."""
+        settings = self.model_dump(mode="json", exclude=set(NOT_READING_SETTINGS))
+        canonical = json.dumps(settings, sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(canonical.encode()).hexdigest()
+
 
 class ReceiptSource(FileSource):
     timestamp_format: str = "%Y-%m-%d %H:%M:%S"
@@ -102,6 +115,10 @@ class ReceiptSource(FileSource):
     valid_from: LaxDate | None = None
     valid_to: LaxDate | None = None
     returns_in_demand: bool = False
+    # plausibility bounds of one line (absolute values); larger lines are value_out_of_range
+    # (the ingest also never lets a value past DECIMAL_LIMIT, whatever these say)
+    max_quantity: float = Field(10_000.0, gt=0)
+    max_amount: float = Field(1_000_000.0, gt=0)
 
     @model_validator(mode="after")
     def _required_columns(self) -> ReceiptSource:
@@ -484,13 +501,22 @@ def _section_model(annotation: Any) -> Any:
 
 
 def _check_files_exist(config: ProjectConfig, path: Path) -> None:
+    # once a warehouse exists the ingest decides: a source whose files were archived after
+    # their ingest keeps its rows with a warning (ingest.files.check_sources_have_files)
+    if config.warehouse.path.exists():
+        return
     problems = [
-        UserError(
-            f"{path}: key 'sources.{name}.files': no file matches {source.files[0]}.",
-            "paths are relative to the config file's folder.",
-        )
+        no_files_error(path, name, source)
         for name, source in config.sources
         if source is not None and not source.resolved_files()
     ]
     if problems:
         raise ConfigInvalid(problems)
+
+
+def no_files_error(path: Path | None, name: str, source: FileSource) -> UserError:
+    """The error of a source whose globs match no file."""
+    return UserError(
+        f"{path}: key 'sources.{name}.files': no file matches {source.files[0]}.",
+        "paths are relative to the config file's folder.",
+    )

@@ -8,11 +8,9 @@ from pathlib import Path
 
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
+from demandprep.ingest.results import PROBLEM_STATUSES
 from demandprep.stages import Stage, build_stages, run_stage
 from demandprep.warehouse import open_warehouse
-
-# Ingest outcomes of a file whose rows did not go in.
-NOT_LOADED = ("failed", "refused")
 
 StageDone = Callable[[Stage, float], None]
 
@@ -31,23 +29,18 @@ class BuildOutcome:
         return self.folder is None
 
 
-def run_ingest(config: ProjectConfig, progress=None):
+def run_ingest(config: ProjectConfig, progress=None, reload: list[str] | None = None):
     """Ingest every new or changed input file into the warehouse; returns the ingest summary."""
     from demandprep.ingest.runner import ingest_all
 
     with open_warehouse(config.warehouse) as con:
-        return ingest_all(con, config, progress=progress)
-
-
-def not_loaded(summary) -> list:
-    """The files of an ingest summary that could not go in (failed or refused), in order."""
-    return [result for result in summary.files if result.status in NOT_LOADED]
+        return ingest_all(con, config, progress=progress, reload=reload)
 
 
 def every_receipts_file_failed(summary) -> bool:
     """True when the ingest met receipts files and none of them is in the warehouse."""
     receipts = [result for result in summary.files if result.source == "receipts"]
-    return bool(receipts) and all(result.status in NOT_LOADED for result in receipts)
+    return bool(receipts) and all(result.status in PROBLEM_STATUSES for result in receipts)
 
 
 def run_build(

@@ -20,6 +20,9 @@ from demandprep.sqlfiles import quote_identifier
 
 # Column names that would carry raw card ids; no exported table may have one.
 FORBIDDEN_COLUMNS = ("card",)
+# Warehouse columns a data file leaves out: the ledger's load time would make two identical
+# builds differ (it stays in the warehouse's ledger).
+UNEXPORTED_COLUMNS: dict[str, tuple[str, ...]] = {"ledger": ("ingested_at",)}
 WITHHELD_FLAG = "original_text_withheld"
 
 
@@ -111,7 +114,8 @@ def output_query(
     con: duckdb.DuckDBPyConnection, output: OutputTable, config: ProjectConfig
 ) -> TableQuery:
     """The ordered select that reads one output's rows from the warehouse."""
-    columns = table_columns(con, output.table)
+    left_out = UNEXPORTED_COLUMNS.get(output.kind, ())
+    columns = [c for c in table_columns(con, output.table) if c not in left_out]
     _refuse_card_columns(output, columns)
     missing = [key for key in output.sort_keys if key not in columns]
     if missing:

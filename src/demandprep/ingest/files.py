@@ -1,19 +1,25 @@
 """Find the input files of every source and tell new, unchanged and changed ones apart.
 
-A file is known by its source and absolute path; its content by size and sha256. The ledger's
-`current` row for that path says what was last ingested from it.
+A file is known by its source and absolute path; its content by size and sha256, and the way
+it was read by its source's settings fingerprint. The ledger's `current` row for that path says
+what was last ingested from it: a file is changed when its checksum or its source's reading
+settings differ (a null fingerprint, from before they were recorded, counts as the same). A
+path whose latest ledger row is `refused` stays out until its checksum or settings change; one
+that is `withdrawn` stays out until its checksum changes (or an explicit reload).
 """
 
 from __future__ import annotations
 
 import hashlib
 from dataclasses import dataclass
+from fnmatch import fnmatch
 from pathlib import Path
 from typing import Literal
 
 import duckdb
 
-from demandprep.config import FileSource, ProjectConfig
+from demandprep.config import FileSource, ProjectConfig, no_files_error
+from demandprep.errors import UserError
 
 # references first: receipts are checked against the stores and the catalogue
 SOURCE_ORDER = (
@@ -40,6 +46,36 @@ class DiscoveredFile:
     sha256: str
     status: Status
     previous_file_id: str | None = None
+    settings_fingerprint: str | None = None
+    # read again because the source's reading settings changed (or a reload asked for it)
+    settings_changed: bool = False
+    # every current file of its (reference) source is read again with new settings: the
+    # source's table may be rebuilt from nothing (runner.mark_source_rebuilds)
+    rebuilds_source: bool = False
+
+
+@dataclass(frozen=True)
+class KnownVersion:
+    """What the ledger holds for one path: a file version, its checksum and settings."""
+
+    file_id: str
+    sha256: str
+    status: str
+    settings_fingerprint: str | None
+
+    def read_with(self, fingerprint: str) -> bool:
+        """True when this version was read with these settings (unknown counts as the same)."""
+        return self.settings_fingerprint in (None, fingerprint)
+
+
+@dataclass(frozen=True)
+class GoneFile:
+    """A file whose rows are in the warehouse but which is no longer where it was read."""
+
+    source: str
+    path: Path
+    file_id: str
+    rows_accepted: int
 
 
 def configured_sources(config: ProjectConfig) -> list[tuple[str, FileSource]]:
@@ -58,32 +94,132 @@ def file_sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
-def current_versions(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], tuple[str, str]]:
-    """(source, path) -> (file_id, sha256) of every file's current (or empty) ledger row."""
-    # an empty file is read once: not again until its checksum changes
+def current_versions(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], KnownVersion]:
+    """(source, path) -> the current (or empty) ledger row of every file."""
+    # an empty file is read once: not again until its checksum or its source's settings change
     rows = con.execute(
-        "select source, path, file_id, sha256 from ledger where status in ('current', 'empty')"
+        "select source, path, file_id, sha256, status, settings_fingerprint from ledger "
+        "where status in ('current', 'empty')"
     ).fetchall()
-    return {(source, path): (file_id, sha) for source, path, file_id, sha in rows}
+    return {(row[0], row[1]): KnownVersion(*row[2:]) for row in rows}
+
+
+def held_back_versions(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], KnownVersion]:
+    """(source, path) -> the latest ledger row of each path when it is refused or withdrawn."""
+    rows = con.execute(
+        "select source, path, file_id, sha256, status, settings_fingerprint from ledger "
+        "qualify row_number() over (partition by source, path order by version desc) = 1 "
+        "and status in ('refused', 'withdrawn')"
+    ).fetchall()
+    return {(row[0], row[1]): KnownVersion(*row[2:]) for row in rows}
 
 
 def discover_source(
     source: str,
     paths: list[Path],
-    known: dict[tuple[str, str], tuple[str, str]],
+    known: dict[tuple[str, str], KnownVersion],
     reload_all: bool = False,
+    fingerprint: str | None = None,
+    held_back: dict[tuple[str, str], KnownVersion] | None = None,
+    reload: frozenset[Path] = frozenset(),
 ) -> list[DiscoveredFile]:
-    """Checksum each file of one source and compare it with its current ledger row."""
+    """Checksum each file of one source and compare it with its ledger rows."""
     found = []
     for path in paths:
         sha = file_sha256(path)
         previous = known.get((source, str(path)))
-        if previous is None:
-            status: Status = "new"
-        elif previous[1] == sha and not reload_all:
-            status = "unchanged"
-        else:
-            status = "changed"
-        previous_id = previous[0] if previous else None
-        found.append(DiscoveredFile(source, path, path.stat().st_size, sha, status, previous_id))
+        blocked = (held_back or {}).get((source, str(path)))
+        forced = reload_all or path in reload
+        status, settings_changed = file_status(sha, fingerprint, previous, blocked, forced)
+        previous_id = previous.file_id if previous else None
+        found.append(
+            DiscoveredFile(
+                source,
+                path,
+                path.stat().st_size,
+                sha,
+                status,
+                previous_id,
+                fingerprint,
+                settings_changed,
+            )
+        )
     return found
+
+
+def file_status(
+    sha: str,
+    fingerprint: str | None,
+    previous: KnownVersion | None,
+    held_back: KnownVersion | None,
+    forced: bool,
+) -> tuple[Status, bool]:
+    """A file's status against its ledger rows, and whether it is read for its settings."""
+    if forced:
+        return ("new" if previous is None else "changed"), True
+    if (
+        held_back is not None
+        and held_back.sha256 == sha
+        and (held_back.status == "withdrawn" or held_back.read_with(fingerprint or ""))
+    ):
+        return "unchanged", False
+    if previous is None:
+        return "new", False
+    new_settings = fingerprint is not None and not previous.read_with(fingerprint)
+    if previous.sha256 != sha or new_settings:
+        return "changed", new_settings
+    return "unchanged", False
+
+
+def reload_targets(config: ProjectConfig, patterns: list[str]) -> dict[str, frozenset[Path]]:
+    """Source name -> its files that `--reload` names (a source name or a glob of paths)."""
+    base = config.config_path.parent if config.config_path else Path.cwd()
+    targets: dict[str, set[Path]] = {}
+    for pattern in patterns:
+        matched = False
+        for name, source in configured_sources(config):
+            files = source.resolved_files()
+            glob = str(Path(pattern) if Path(pattern).is_absolute() else base / pattern)
+            chosen = files if pattern == name else [p for p in files if fnmatch(str(p), glob)]
+            if chosen:
+                targets.setdefault(name, set()).update(chosen)
+                matched = True
+        if not matched:
+            raise UserError(
+                f"--reload {pattern!r} matches no configured source and no input file.",
+                "name a source (e.g. receipts) or a glob of input files.",
+            )
+    return {name: frozenset(paths) for name, paths in targets.items()}
+
+
+def gone_files(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[GoneFile]:
+    """Current ledger rows whose file no longer exists: their rows stay in the warehouse."""
+    names = [name for name, _ in configured_sources(config)]
+    rows = con.execute(
+        "select source, path, file_id, rows_accepted from ledger "
+        "where status = 'current' and list_contains($names, source) order by source, path",
+        {"names": names},
+    ).fetchall()
+    return [GoneFile(s, Path(p), f, int(n)) for s, p, f, n in rows if not Path(p).exists()]
+
+
+def check_sources_have_files(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[str]:
+    """Warnings for sources whose globs match nothing but whose files the warehouse holds.
+
+    A source with neither files nor ingested rows is the config error it is on a first run.
+    """
+    warnings = []
+    for name, source in configured_sources(config):
+        if source.resolved_files():
+            continue
+        held = con.execute(
+            "select count(*) from ledger where status = 'current' and source = $source",
+            {"source": name},
+        ).fetchone()[0]
+        if not held:
+            raise no_files_error(config.config_path, name, source)
+        warnings.append(
+            f"{config.config_path}: key 'sources.{name}.files': no file matches "
+            f"{source.files[0]}; the warehouse keeps the {held} file(s) ingested before."
+        )
+    return warnings

@@ -147,10 +147,13 @@ def check_balance(batch: list[BatchFile], counts: dict[str, FileCounts]) -> None
             )
 
 
-def record_batch(con: duckdb.DuckDBPyConnection, batch: list[BatchFile]) -> None:
+def record_batch(
+    con: duckdb.DuckDBPyConnection, batch: list[BatchFile], settings_fingerprint: str | None
+) -> None:
     """Write the ledger rows and the per-reason rows of the batch's files."""
     now = datetime.now().replace(microsecond=0)
-    run_sql(con, "ingest/061_ledger_insert.sql", {"ingested_at": now})
+    params = {"ingested_at": now, "settings_fingerprint": settings_fingerprint}
+    run_sql(con, "ingest/061_ledger_insert.sql", params)
     run_sql(con, "ingest/062_ledger_reasons_insert.sql", id_range(batch))
 
 
@@ -161,8 +164,22 @@ def validate_batch(con: duckdb.DuckDBPyConnection, id_range: dict[str, str]) -> 
         validate_query(con, f"select * from {table} {in_batch}", id_range, model, table)  # noqa: S608
 
 
-def record_failure(con: duckdb.DuckDBPyConnection, discovered: DiscoveredFile) -> str:
-    """Ledger a file that could not be ingested (no rows kept); returns its file id."""
+def has_current_with(
+    con: duckdb.DuckDBPyConnection, source: str, settings_fingerprint: str | None
+) -> bool:
+    """True when some current file of `source` was read with these settings."""
+    found = con.execute(
+        "select count(*) from ledger where source = $source and status = 'current' "
+        "and settings_fingerprint is not distinct from $fingerprint",
+        {"source": source, "fingerprint": settings_fingerprint},
+    ).fetchone()[0]
+    return bool(found)
+
+
+def record_failure(
+    con: duckdb.DuckDBPyConnection, discovered: DiscoveredFile, status: str, reason: str
+) -> str:
+    """Ledger a file that failed or was refused (no rows kept) with why; returns its file id."""
     con.execute("begin transaction")
     try:
         (item,) = assign_versions(con, discovered.source, [discovered])
@@ -177,6 +194,9 @@ def record_failure(con: duckdb.DuckDBPyConnection, discovered: DiscoveredFile) -
                 "bytes": discovered.bytes,
                 "sha256": discovered.sha256,
                 "ingested_at": datetime.now().replace(microsecond=0),
+                "status": status,
+                "reason": reason,
+                "settings_fingerprint": discovered.settings_fingerprint,
             },
         )
         con.execute("commit")

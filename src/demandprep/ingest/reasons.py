@@ -27,6 +27,7 @@ UNKNOWN_TIMEZONE = "unknown_timezone"
 UNCLOSED_QUOTE = "unclosed_quote"
 STRAY_CARRIAGE_RETURN = "stray_carriage_return"
 LINE_TOO_LONG = "line_too_long"
+VALUE_OUT_OF_RANGE = "value_out_of_range"
 
 REASONS: dict[str, str] = {
     WRONG_COLUMN_COUNT: "the line has more or fewer fields than the header (empty trailing "
@@ -54,6 +55,9 @@ REASONS: dict[str, str] = {
     "feed (a line ends at LF; CRLF is one terminator)",
     LINE_TOO_LONG: "the line is longer than the reader's limit of 1 MiB; its first 4 KiB are "
     "kept as its original text",
+    VALUE_OUT_OF_RANGE: "a quantity, amount or discount larger (in absolute value) than "
+    "sources.receipts.max_quantity / max_amount, or than the build's exact decimal type holds "
+    "(12 whole digits)",
 }
 
 

@@ -13,7 +13,13 @@ from datetime import datetime, time, timedelta
 
 import duckdb
 
-from demandprep.config import RECEIPT_OPTIONAL, RECEIPT_REQUIRED, ProjectConfig, ReceiptSource
+from demandprep.config import (
+    DECIMAL_LIMIT,
+    RECEIPT_OPTIONAL,
+    RECEIPT_REQUIRED,
+    ProjectConfig,
+    ReceiptSource,
+)
 from demandprep.errors import UserError
 from demandprep.ingest.reader import SourceColumn, is_typed_timestamp
 from demandprep.ingest.references import table_columns
@@ -86,6 +92,9 @@ def _rule_parameters(source: ReceiptSource, mapped: dict[str, SourceColumn]) -> 
         "source_timezone": source.timezone,
         "valid_from": _day_start(source.valid_from),
         "valid_until": _day_start(source.valid_to, plus_days=1),
+        # the build casts to DECIMAL(18, 6): no bound may let a larger value through
+        "max_quantity": min(source.max_quantity, DECIMAL_LIMIT),
+        "max_amount": min(source.max_amount, DECIMAL_LIMIT),
     }
 
 

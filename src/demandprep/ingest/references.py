@@ -119,12 +119,17 @@ def layout_changed(con: duckdb.DuckDBPyConnection, spec: ReferenceSpec, source: 
     return list(stored)[2:] != list(source.columns)
 
 
+def drop_reference_storage(con: duckdb.DuckDBPyConnection, spec: ReferenceSpec) -> None:
+    """Drop a reference's rows and view inside the caller's transaction (files read again)."""
+    con.execute(f"drop view if exists {quote_identifier(spec.table)}")
+    con.execute(f"drop table if exists {quote_identifier(spec.storage)}")
+
+
 def reset_reference(con: duckdb.DuckDBPyConnection, spec: ReferenceSpec) -> None:
     """Forget a reference source's rows (its ledger rows become superseded), in one transaction."""
     con.execute("begin transaction")
     try:
-        con.execute(f"drop view if exists {quote_identifier(spec.table)}")
-        con.execute(f"drop table if exists {quote_identifier(spec.storage)}")
+        drop_reference_storage(con, spec)
         con.execute(
             "delete from quarantine where file_id in (select file_id from ledger "
             "where source = $source and status = 'current')",
@@ -167,7 +172,7 @@ def mostly_typed(con: duckdb.DuckDBPyConnection, column: str, decimal: str) -> s
     """
     text = f"nullif(trim({quote_identifier(column)}), '')"
     values, integers, numbers, dates = con.execute(
-        f"select count({text}), count(try_cast({text} as bigint)), "  # noqa: S608
+        f"select count({text}), count(ingest_integer({text})), "  # noqa: S608
         f"count(ingest_number({text}, $decimal)), count(try_cast({text} as date)) "
         "from ingest_source_lines",
         {"decimal": decimal},
@@ -195,6 +200,8 @@ def _parsed(column: str, kind: str) -> str:
         return text
     if kind == "DOUBLE":
         return f"ingest_number({text}, $decimal)"
+    if kind == "BIGINT":
+        return f"ingest_integer({text})"
     return f"try_cast({text} as {kind})"
 
 
@@ -218,10 +225,39 @@ def check_reference_sql(spec: ReferenceSpec, types: dict[str, str]) -> str:
         "with texts as (select ordinal, path, line_no, "
         f"{texts} from ingest_source_lines), "
         f"typed as (select *, {parsed} from texts), "
-        f"classified as (select *, case {cases} end as reason from typed) "
-        f"select ordinal, path, line_no, {columns}, reason, case reason {details} end as detail "
-        "from classified"
+        f"classified as (select *, case {cases} end as reason from typed), "
+        f"fielded as (select *, {_reason_field_sql(spec, names, types)} as reason_field "
+        "from classified) "
+        f"select ordinal, path, line_no, {columns}, reason_field, reason, "
+        f"case reason {details} end as detail from fielded"
     )
+
+
+def _reason_field_sql(spec: ReferenceSpec, names: list[str], types: dict[str, str]) -> str:
+    """SQL naming which of our columns decided a row's reason (for the refusal message)."""
+
+    def text(name: str) -> str:
+        return quote_identifier(f"{name} text")
+
+    def first(pairs: list[tuple[str, str]]) -> str:
+        cases = " ".join(f"when {condition} then '{name}'" for condition, name in pairs)
+        return f"case {cases} end" if pairs else "null"
+
+    required = [name for name in spec.required if name in names]
+    typed = [name for name in names if types[name] != "VARCHAR"]
+    unparsed = [(f"{text(n)} is not null and {quote_identifier(n)} is null", n) for n in typed]
+    by_reason = {
+        "missing_required_field": first([(f"{text(n)} is null", n) for n in required]),
+        "unparseable_field": first(unparsed),
+        "non_positive_value": first(
+            [(f"{quote_identifier(n)} <= 0", n) for n in spec.positive if n in names]
+        ),
+        "unknown_timezone": "'timezone'",
+        "unknown_store": "'store'",
+        "unknown_sku": "'sku'",
+    }
+    cases = " ".join(f"when '{reason}' then {field}" for reason, field in by_reason.items())
+    return f"case reason {cases} end"
 
 
 def _reference_rules(

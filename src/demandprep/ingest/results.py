@@ -8,9 +8,21 @@ from pathlib import Path
 from typing import Literal
 
 from rich.table import Table
+from rich.text import Text
 
-FileStatus = Literal["new", "unchanged", "replaced", "failed", "empty"]
-FILE_STATUSES: tuple[FileStatus, ...] = ("new", "unchanged", "replaced", "failed", "empty")
+FileStatus = Literal["new", "unchanged", "replaced", "failed", "refused", "empty", "withdrawn"]
+FILE_STATUSES: tuple[FileStatus, ...] = (
+    "new",
+    "unchanged",
+    "replaced",
+    "failed",
+    "refused",
+    "empty",
+    "withdrawn",
+)
+# statuses that make `ingest` and `run` exit non-zero
+PROBLEM_STATUSES: tuple[FileStatus, ...] = ("failed", "refused")
+SHOWN_PROBLEMS = 10
 
 
 @dataclass(frozen=True)
@@ -43,16 +55,30 @@ class IngestSummary:
     """Every file's result for one run, in the order the files were ingested."""
 
     files: list[FileResult] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
-        """False when any file could not be ingested (the CLI then exits non-zero)."""
-        return not self.failed
+        """False when any file failed or was refused (the CLI then exits non-zero)."""
+        return not self.problems
 
     @property
     def failed(self) -> list[FileResult]:
         """The files that could not be ingested; each prints as its one-line error message."""
         return [result for result in self.files if result.status == "failed"]
+
+    @property
+    def problems(self) -> list[FileResult]:
+        """The files that failed or were refused, in ingest order."""
+        return [result for result in self.files if result.status in PROBLEM_STATUSES]
+
+    def problem_lines(self) -> list[str]:
+        """One line per failed or refused file (the first SHOWN_PROBLEMS), then how many more."""
+        problems = self.problems
+        lines = [str(result) for result in problems[:SHOWN_PROBLEMS]]
+        if len(problems) > SHOWN_PROBLEMS:
+            lines.append(f"… and {len(problems) - SHOWN_PROBLEMS} more")
+        return lines
 
     def count(self, status: FileStatus) -> int:
         """How many files ended with `status`."""
@@ -91,9 +117,9 @@ def summary_table(summary: IngestSummary) -> Table:
     table.add_row("rows quarantined", f"{sum(quarantined.values()):,}")
     for reason, rows in quarantined.items():
         table.add_row(f"  {reason}", f"{rows:,}")
-    for result in summary.failed:
-        table.add_row(f"[red]failed: {result.path.name}", "", end_section=False)
+    for result in summary.problems:
+        table.add_row(Text(f"{result.status}: {result.path.name}", style="red"), "")
     for result in summary.files:
         if result.status == "empty":  # a warning: ledgered once, not read again unless changed
-            table.add_row(f"[yellow]empty: {result.path.name}", "", end_section=False)
+            table.add_row(Text(f"empty: {result.path.name}", style="yellow"), "")
     return table

@@ -6,18 +6,27 @@ versions' rows go, the accepted rows and the quarantined lines come in, the ledg
 written, and `rows read = accepted + quarantined` is verified per file before COMMIT. A crash
 at any point leaves the warehouse as it was before the batch; the next run ingests its files
 whole. When a batch fails (a file cannot be read, or its header lacks a mapped column), it is
-rolled back and its files are retried one by one: the broken file is ledgered as failed and
-reported, the others go in. A ledger mismatch stops the run. `rows read` is each file's count
-of records from its physical lines (reader.py), not from the parser's output. A file without
-records (zero bytes, or a header alone) is ledgered `empty` with its reason and reported as a
-warning (status 'empty'), not a failure; it is read again only when its checksum changes.
+rolled back and its files are retried one by one: the broken file is ledgered as failed (with
+its reason) and reported, the others go in. A file past its source's reject limit (refusal.py)
+is rolled back too and ledgered as refused; the batch's other files are loaded again without
+it. A ledger mismatch stops the run. `rows read` is each file's count of records from its
+physical lines (reader.py), not from the parser's output. A file without records (zero bytes,
+or a header alone) is ledgered `empty` with its reason and reported as a warning (status
+'empty'), not a failure; it is read again only when its checksum or its settings change.
+
+Files are read again when their checksum or their source's reading settings changed (files.py),
+or when `reload` names their source or matches their path; a reference source read again for
+its settings (a changed column mapping included) is emptied first, inside the first batch's
+transaction, so its columns and their types are worked out afresh. A source whose globs match
+nothing while the warehouse holds its files keeps them, with a warning in the summary.
 
 Progress: `progress(event, **info)` is called with
 - "start": files (count of files found), bytes (total size of the files to read);
 - "file_start": source, path, status ('new'|'unchanged'|'changed'), bytes;
 - "file_step": source, path (first file of the batch), paths, step ('staged' with rows read,
   then 'inserting' just before accepted rows are written);
-- "file_done": source, path, status ('new'|'unchanged'|'replaced'|'failed'|'empty'), rows (read),
+- "file_done": source, path, status ('new'|'unchanged'|'replaced'|'failed'|'refused'|'empty'),
+  rows (read),
   accepted, quarantined, error;
 - "done": summary (the IngestSummary).
 """
@@ -25,6 +34,8 @@ Progress: `progress(event, **info)` is called with
 from __future__ import annotations
 
 from collections.abc import Callable, Iterator
+from dataclasses import replace
+from pathlib import Path
 from typing import Any
 
 import duckdb
@@ -34,9 +45,12 @@ from demandprep.errors import UserError
 from demandprep.ingest import ledger
 from demandprep.ingest.files import (
     DiscoveredFile,
+    check_sources_have_files,
     configured_sources,
     current_versions,
     discover_source,
+    held_back_versions,
+    reload_targets,
 )
 from demandprep.ingest.loaders import Loader, ReceiptLoader, ReferenceLoader
 from demandprep.ingest.reader import (
@@ -51,10 +65,12 @@ from demandprep.ingest.reader import (
 from demandprep.ingest.receipts import prepare_receipts
 from demandprep.ingest.references import (
     REFERENCE_SPECS,
+    drop_reference_storage,
     layout_changed,
     reset_reference,
     table_columns,
 )
+from demandprep.ingest.refusal import FilesRefused, Refusal, refusals
 from demandprep.ingest.results import FileResult, IngestSummary, summary_table
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
@@ -85,29 +101,47 @@ def ensure_tables(con: duckdb.DuckDBPyConnection) -> None:
     run_sql(con, "ingest/005_ingest_macros.sql")
 
 
-def discover_files(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[DiscoveredFile]:
-    """Every input file of every source, in load order, as new, unchanged or changed."""
+def discover_files(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig, reload: list[str] | None = None
+) -> list[DiscoveredFile]:
+    """Every input file of every source, in load order, as new, unchanged or changed.
+
+    `reload`: source names or globs of paths whose files are read again whatever the ledger says.
+    """
     ensure_tables(con)
     known = current_versions(con)
+    held_back = held_back_versions(con)
+    targets = reload_targets(config, reload) if reload else {}
     found = []
     for name, source in configured_sources(config):
         spec = REFERENCE_SPECS.get(name)
         reload_all = spec is not None and layout_changed(con, spec, source)
-        found += discover_source(name, source.resolved_files(), known, reload_all)
-    return found
+        found += discover_source(
+            name,
+            source.resolved_files(),
+            known,
+            reload_all,
+            fingerprint=source.settings_fingerprint(),
+            held_back=held_back,
+            reload=targets.get(name, frozenset()),
+        )
+    return mark_source_rebuilds(con, found)
 
 
 def ingest_all(
-    con: duckdb.DuckDBPyConnection, config: ProjectConfig, progress: Progress | None = None
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    progress: Progress | None = None,
+    reload: list[str] | None = None,
 ) -> IngestSummary:
     """Ingest every new or changed file of every source; returns what happened to each file."""
     notify = progress or _ignore
     ensure_tables(con)
-    reset_changed_layouts(con, config)
-    discovered = discover_files(con, config)
+    warnings = check_sources_have_files(con, config)
+    discovered = discover_files(con, config, reload)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
-    summary = IngestSummary()
+    summary = IngestSummary(warnings=warnings)
     for item in discovered:
         if item.status == "unchanged":
             _report(notify, summary, _unchanged(item))
@@ -160,7 +194,11 @@ def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
 
 
 def reset_changed_layouts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
-    """Empty each reference table whose column mapping changed, so its files load again whole."""
+    """Empty each reference table whose column mapping changed, so its files load again whole.
+
+    `ingest_all` no longer needs it (a changed mapping reads the source again as replaced, its
+    table dropped inside the first batch's transaction); kept for callers that reset first.
+    """
     for name, source in configured_sources(config):
         spec = REFERENCE_SPECS.get(name)
         if spec is not None and layout_changed(con, spec, source):
@@ -200,8 +238,13 @@ def ingest_batch(
     try:
         if files[0].source == "receipts":
             _ensure_receipt_settings(con, config)
+        _reset_for_new_settings(con, files)
         results = _load_batch(con, loader, files, progress or _ignore)
         con.execute("commit")
+    except FilesRefused as refused:
+        con.execute("rollback")
+        drop_staging(con)
+        return _without_refused(con, config, files, refused.refusals, progress)
     except (FileRefused, UserError, duckdb.Error) as error:
         con.execute("rollback")
         if len(files) > 1:
@@ -213,6 +256,57 @@ def ingest_batch(
     finally:
         drop_staging(con)
     return results
+
+
+def _without_refused(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    files: list[DiscoveredFile],
+    refused: dict[Path, Refusal],
+    progress: Progress | None,
+) -> list[FileResult]:
+    """Ledger the refused files of a rolled-back batch and load its other files again."""
+    rest = [item for item in files if item.path not in refused]
+    again = ingest_batch(con, config, rest, progress) if rest else []
+    loaded = {result.path: result for result in again}
+    results = []
+    for item in files:
+        if item.path in refused:
+            results.append(_refused(con, item, refused[item.path]))
+        else:
+            results.append(loaded[item.path])
+    return results
+
+
+def mark_source_rebuilds(
+    con: duckdb.DuckDBPyConnection, discovered: list[DiscoveredFile]
+) -> list[DiscoveredFile]:
+    """Flag the files of each reference source whose every current file is read again for
+    new settings: only then may its table be rebuilt from nothing (no other file's rows lost)."""
+    current: dict[str, set[str]] = {}
+    for (source, _path), version in current_versions(con).items():
+        current.setdefault(source, set()).add(version.file_id)
+    marked = []
+    for name in dict.fromkeys(item.source for item in discovered):
+        files = [item for item in discovered if item.source == name]
+        reread = {item.previous_file_id for item in files if item.settings_changed}
+        rebuild = name in REFERENCE_SPECS and bool(reread) and current.get(name, set()) <= reread
+        marked += [replace(item, rebuilds_source=rebuild) for item in files]
+    return marked
+
+
+def _reset_for_new_settings(con: duckdb.DuckDBPyConnection, files: list[DiscoveredFile]) -> None:
+    """Empty a reference source read again for new settings, so its types are sniffed afresh.
+
+    Only the first batch of the source does it: once one file is in with the new settings,
+    the later batches replace their own files' rows only.
+    """
+    first = files[0]
+    spec = REFERENCE_SPECS.get(first.source)
+    if spec is None or not any(item.rebuilds_source for item in files):
+        return
+    if not ledger.has_current_with(con, first.source, first.settings_fingerprint):
+        drop_reference_storage(con, spec)
 
 
 def _load_batch(
@@ -244,9 +338,12 @@ def _load_batch(
         run_sql(con, "ingest/059_no_accepted_counts.sql")
     counts = ledger.count_batch(con, batch)
     ledger.check_balance(batch, counts)
+    refused = refusals(con, files[0].source, source, batch, counts)
+    if refused:
+        raise FilesRefused(refused)
     if with_records:
         loader.validate(con, ids)
-    ledger.record_batch(con, batch)
+    ledger.record_batch(con, batch, files[0].settings_fingerprint)
     ledger.validate_batch(con, ids)
     return [_loaded(item, counts[item.file_id], staged.lines) for item in batch]
 
@@ -316,12 +413,22 @@ def _failed(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, error: Excepti
     message = error.one_line() if isinstance(error, UserError) else first_line(error)
     if not message.startswith(str(item.path)):
         message = f"{item.path}: {message}"
-    file_id = ledger.record_failure(con, item)
+    file_id = ledger.record_failure(con, item, "failed", _without_path(message, item))
     # opening or decoding failed (worth another attempt), not the file's content
     unreadable = isinstance(error, (FileUnreadable, duckdb.IOException))
     return FileResult(
         item.source, item.path, "failed", file_id, error=message, unreadable=unreadable
     )
+
+
+def _refused(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, refusal: Refusal) -> FileResult:
+    file_id = ledger.record_failure(con, item, "refused", refusal.reason)
+    return FileResult(item.source, item.path, "refused", file_id, error=refusal.message)
+
+
+def _without_path(message: str, item: DiscoveredFile) -> str:
+    """The ledger's reason: the message without the path the ledger row already holds."""
+    return message.removeprefix(f"{item.path}: ")
 
 
 def _ignore(event: str, **info: Any) -> None:

@@ -1,0 +1,552 @@
+"""What the ingest decides about whole files and values: mostly-bad files are refused, changed
+settings re-read a source, files can be reloaded and withdrawn, gone files keep their rows,
+numbers are read strictly, and every failed file keeps its reason."""
+
+from __future__ import annotations
+
+import shutil
+from datetime import datetime
+from pathlib import Path
+
+import duckdb
+import pytest
+from typer.testing import CliRunner
+
+from demandprep.cli import app
+from demandprep.config import load_config
+from demandprep.errors import UserError
+from demandprep.export.manifest import file_sha256
+from demandprep.export.parquet import write_query_parquet
+from demandprep.export.tables import output_query, output_table
+from demandprep.ingest.files import gone_files
+from demandprep.ingest.runner import ingest_all
+from demandprep.ingest.withdraw import withdraw_files
+from demandprep.sqlfiles import run_sql
+from demandprep.warehouse import open_warehouse
+
+RUNNER = CliRunner()
+
+CONFIG = """
+[warehouse]
+path = "warehouse/w.duckdb"
+memory_limit = "1GB"
+threads = 2
+temp_directory = "warehouse/tmp"
+
+[sources.receipts]
+files = ["receipts/*.csv"]
+delimiter = ";"
+decimal = "{decimal}"
+timestamp_format = "{timestamp_format}"
+{receipt_extra}
+
+[sources.receipts.columns]
+receipt = "ticket"
+line = "row"
+store = "shop"
+sold_at = "stamp"
+sku = "item"
+quantity = "qty"
+amount = "value"
+card = "card"
+
+[sources.catalogue]
+files = ["catalogue.csv"]
+
+[sources.catalogue.columns]
+sku = "item"
+category = "category"
+grams = "grams"
+
+[sources.stores]
+files = ["stores.csv"]
+
+[sources.stores.columns]
+store = "shop"
+
+[markets]
+categories = ["coffee"]
+
+[products]
+keys = ["grams"]
+
+[market_size.visits]
+method = "visits"
+units_per_visit = 1.0
+"""
+
+HEADER = "ticket;row;shop;stamp;item;qty;value;card"
+
+
+def receipt_lines(count: int, amount: str = "12,50", qty: str = "1", day: int = 1) -> list[str]:
+    """`count` valid-looking lines of one day (amount written as given)."""
+    return [
+        f"T{day:02d}{n:05d};1;S1;2024-03-{day:02d} 10:{n % 60:02d}:00;K1;{qty};{amount};C-{n}"
+        for n in range(count)
+    ]
+
+
+def write_project(
+    folder: Path,
+    receipts: dict[str, list[str]],
+    decimal: str = ",",
+    timestamp_format: str = "%Y-%m-%d %H:%M:%S",
+    receipt_extra: str = "",
+    catalogue_grams: str = "250",
+) -> Path:
+    """A tiny project: one store, one SKU, the given receipts files; returns the config path."""
+    (folder / "receipts").mkdir(parents=True, exist_ok=True)
+    (folder / "catalogue.csv").write_text(f"item,category,grams\nK1,coffee,{catalogue_grams}\n")
+    (folder / "stores.csv").write_text("shop\nS1\n")
+    for name, lines in receipts.items():
+        (folder / "receipts" / name).write_text("\n".join([HEADER, *lines]) + "\n")
+    config = folder / "demandprep.toml"
+    config.write_text(
+        CONFIG.format(
+            decimal=decimal, timestamp_format=timestamp_format, receipt_extra=receipt_extra
+        )
+    )
+    return config
+
+
+def ingest(config_path: Path, reload: list[str] | None = None):
+    config = load_config(config_path)
+    with open_warehouse(config.warehouse) as con:
+        return ingest_all(con, config, reload=reload)
+
+
+def query(config_path: Path, sql: str, params=None) -> list[tuple]:
+    config = load_config(config_path, check_files=False)
+    with open_warehouse(config.warehouse) as con:
+        return con.execute(sql, params).fetchall()
+
+
+def by_name(summary) -> dict[str, object]:
+    return {result.path.name: result for result in summary.files}
+
+
+def warehouse_rows(config_path: Path) -> tuple[int, int, int]:
+    return query(
+        config_path,
+        "select (select count(*) from raw_lines), (select count(*) from quarantine), "
+        "(select count(*) from ref_catalogue)",
+    )[0]
+
+
+# ---- 1. reject limit -------------------------------------------------------------------------
+
+
+def test_a_file_of_decimal_points_under_a_comma_config_is_refused_whole(tmp_path: Path) -> None:
+    config = write_project(
+        tmp_path,
+        {"a.csv": receipt_lines(10, "1,00"), "bad.csv": receipt_lines(240, "12.50", day=2)},
+    )
+    summary = ingest(config)
+    bad = by_name(summary)["bad.csv"]
+    path = tmp_path / "receipts" / "bad.csv"
+    assert bad.status == "refused"
+    assert bad.error == (
+        f"{path}: refused: 240 of 240 lines quarantined (100%), mostly unparseable_field "
+        "(first: line 2, amount '12.50'). Hint: check sources.receipts.decimal, delimiter, "
+        "timestamp_format and the columns mapping."
+    )
+    assert by_name(summary)["a.csv"].status == "new"
+    assert not summary.ok
+    # nothing of the refused file is kept; the good file went in whole
+    assert warehouse_rows(config) == (10, 0, 1)
+    rows = query(
+        config,
+        "select status, rows_read, rows_accepted, rows_quarantined, reason from ledger "
+        "where path = $path",
+        {"path": str(path)},
+    )
+    assert rows == [
+        (
+            "refused",
+            0,
+            0,
+            0,
+            "240 of 240 lines quarantined (100%), mostly unparseable_field (first: line 2, amount)",
+        )
+    ]
+
+
+def test_a_refused_file_is_not_read_again_until_its_settings_change(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"bad.csv": receipt_lines(240, "12.50")})
+    assert by_name(ingest(config))["bad.csv"].status == "refused"
+    again = ingest(config)
+    assert by_name(again)["bad.csv"].status == "unchanged"
+    assert again.ok
+    config.write_text(config.read_text().replace('decimal = ","', 'decimal = "."'))
+    fixed = by_name(ingest(config))["bad.csv"]
+    assert (fixed.status, fixed.rows_accepted, fixed.rows_quarantined) == ("new", 240, 0)
+
+
+def test_a_refused_file_is_read_again_when_its_checksum_changes(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"bad.csv": receipt_lines(240, "12.50")})
+    ingest(config)
+    (tmp_path / "receipts" / "bad.csv").write_text("\n".join([HEADER, *receipt_lines(5)]) + "\n")
+    fixed = by_name(ingest(config))["bad.csv"]
+    assert (fixed.status, fixed.rows_accepted) == ("new", 5)
+
+
+def test_a_few_bad_lines_do_not_refuse_a_file(tmp_path: Path) -> None:
+    # 110 of 260 quarantined: past 100 lines but not past half of the file
+    lines = receipt_lines(150) + receipt_lines(110, "1.5", day=2)
+    config = write_project(tmp_path, {"some_bad.csv": lines})
+    result = by_name(ingest(config))["some_bad.csv"]
+    assert (result.status, result.rows_accepted, result.rows_quarantined) == ("new", 150, 110)
+
+
+def test_a_small_file_below_the_line_limit_is_not_refused(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"small.csv": receipt_lines(40, "1.5")})
+    result = by_name(ingest(config))["small.csv"]
+    assert (result.status, result.rows_quarantined) == ("new", 40)
+
+
+def test_the_reject_limit_is_set_per_source(tmp_path: Path) -> None:
+    config = write_project(
+        tmp_path,
+        {"small.csv": receipt_lines(40, "1.5")},
+        receipt_extra="reject_limit_lines = 10\nreject_limit_fraction = 0.25",
+    )
+    result = by_name(ingest(config))["small.csv"]
+    assert result.status == "refused"
+    assert "40 of 40 lines quarantined (100%)" in result.error
+
+
+def test_a_refused_card_bearing_file_never_quotes_the_card(tmp_path: Path) -> None:
+    lines = [f"T{n:05d};x;S1;2024-03-01 10:00:00;K1;1;1,00;SECRET-{n}" for n in range(150)]
+    config = write_project(tmp_path, {"cards.csv": lines})
+    result = by_name(ingest(config))["cards.csv"]
+    assert result.status == "refused"
+    assert "SECRET" not in result.error
+    assert "(first: line 2, line 'x')" in result.error
+
+
+def test_a_refused_households_file_names_the_card_column_without_its_value(
+    tmp_path: Path,
+) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "households.csv").write_text("card,size\n" + "SECRET-1,2\n" * 150)
+    extra = '[sources.households]\nfiles = ["households.csv"]\n\n'
+    extra += '[sources.households.columns]\ncard = "card"\nsize = "size"\n\n[markets]'
+    config.write_text(config.read_text().replace("[markets]", extra))
+    result = by_name(ingest(config))["households.csv"]
+    assert result.status == "refused"
+    assert "SECRET" not in result.error
+    assert "mostly duplicate_key (first: line 3, card)." in result.error
+    assert "raise sources.households.reject_limit_fraction or reject_limit_lines" in result.error
+
+
+def test_a_refused_correction_keeps_the_previous_version(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(150)})
+    ingest(config)
+    bad = "\n".join([HEADER, *receipt_lines(150, "1.5")]) + "\n"
+    (tmp_path / "receipts" / "a.csv").write_text(bad)
+    assert by_name(ingest(config))["a.csv"].status == "refused"
+    assert warehouse_rows(config) == (150, 0, 1)
+    rows = query(config, "select version, status from ledger where source = 'receipts' order by 1")
+    assert rows == [(1, "current"), (2, "refused")]
+    assert by_name(ingest(config))["a.csv"].status == "unchanged"
+
+
+def test_ingest_prints_one_line_per_refused_or_failed_file_then_exits_1(tmp_path: Path) -> None:
+    receipts = {f"bad_{n:02d}.csv": receipt_lines(120, "1.5", day=n + 1) for n in range(12)}
+    config = write_project(tmp_path, receipts)
+    result = RUNNER.invoke(app, ["ingest", str(config)], terminal_width=400)
+    assert result.exit_code == 1, result.output
+    errors = [line for line in result.output.splitlines() if line.startswith("error:")]
+    assert len(errors) == 10
+    assert errors[0].startswith(f"error: {tmp_path / 'receipts' / 'bad_00.csv'}: refused: 120 of")
+    assert "… and 2 more" in result.output
+    assert all(": refused: 120 of 120 lines quarantined (100%)" in line for line in errors)
+    assert result.output.splitlines()[-1] == "… and 2 more"
+
+
+# ---- 2. settings fingerprint and --reload -------------------------------------------------------
+
+
+def test_fixing_the_timestamp_format_rereads_the_files(tmp_path: Path) -> None:
+    config = write_project(
+        tmp_path, {"a.csv": receipt_lines(20)}, timestamp_format="%d/%m/%Y %H:%M"
+    )
+    first = by_name(ingest(config))["a.csv"]
+    assert (first.status, first.rows_quarantined) == ("new", 20)
+    assert by_name(ingest(config))["a.csv"].status == "unchanged"
+    config.write_text(config.read_text().replace("%d/%m/%Y %H:%M", "%Y-%m-%d %H:%M:%S"))
+    fixed = by_name(ingest(config))["a.csv"]
+    assert (fixed.status, fixed.rows_accepted, fixed.rows_quarantined) == ("replaced", 20, 0)
+    assert warehouse_rows(config) == (20, 0, 1)
+    statuses = query(config, "select status from ledger where source = 'receipts' order by version")
+    assert statuses == [("superseded",), ("current",)]
+    prints = query(
+        config,
+        "select count(distinct settings_fingerprint) from ledger where source = 'receipts'",
+    )
+    assert prints == [(2,)]
+
+
+def test_an_old_warehouse_gains_the_new_ledger_columns(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    loaded = load_config(config)
+    with open_warehouse(loaded.warehouse) as con:
+        con.execute(
+            "create table ledger (file_id varchar not null, source varchar not null, "
+            "path varchar not null, version bigint not null, bytes bigint not null, "
+            "sha256 varchar not null, first_sold_at timestamp, last_sold_at timestamp, "
+            "rows_read bigint not null, rows_accepted bigint not null, "
+            "rows_quarantined bigint not null, status varchar not null, "
+            "ingested_at timestamp not null)"
+        )
+    assert by_name(ingest(config))["a.csv"].status == "new"
+    columns = query(config, "select column_name from duckdb_columns() where table_name = 'ledger'")
+    assert [name for (name,) in columns][-2:] == ["reason", "settings_fingerprint"]
+
+
+def test_changing_only_the_file_globs_rereads_nothing(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(20)})
+    ingest(config)
+    config.write_text(config.read_text().replace('"receipts/*.csv"', '"receipts/a*.csv"'))
+    assert by_name(ingest(config))["a.csv"].status == "unchanged"
+
+
+def test_a_reference_setting_change_retypes_the_reference(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "catalogue.csv").write_text("item;category;grams\nK1;coffee;250,5\n")
+    catalogue = '[sources.catalogue]\nfiles = ["catalogue.csv"]\ndelimiter = ";"\n'
+    text = config.read_text().replace('[sources.catalogue]\nfiles = ["catalogue.csv"]\n', catalogue)
+    config.write_text(text)
+    ingest(config)
+    assert query(config, "select typeof(grams) from catalogue") == [("VARCHAR",)]
+    config.write_text(text.replace(catalogue, catalogue + 'decimal = ","\n'))
+    result = by_name(ingest(config))["catalogue.csv"]
+    assert result.status == "replaced"
+    assert query(config, "select grams from catalogue") == [(250.5,)]
+
+
+def test_a_new_reference_mapping_replaces_its_rows_in_one_transaction(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "catalogue.csv").write_text("item,category,grams,maker\nK1,coffee,250,Roastery\n")
+    ingest(config)
+    config.write_text(
+        config.read_text().replace('grams = "grams"\n', 'grams = "grams"\nfirm = "maker"\n')
+    )
+    result = by_name(ingest(config))["catalogue.csv"]
+    assert result.status == "replaced"
+    assert query(config, "select sku, firm from catalogue") == [("K1", "Roastery")]
+    rows = query(config, "select status from ledger where source = 'catalogue' order by version")
+    assert rows == [("superseded",), ("current",)]
+
+
+def test_reload_rereads_a_source_or_a_glob(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5), "b.csv": receipt_lines(3, day=2)})
+    ingest(config)
+    by_source = by_name(ingest(config, reload=["receipts"]))
+    assert (by_source["a.csv"].status, by_source["b.csv"].status) == ("replaced", "replaced")
+    assert by_source["catalogue.csv"].status == "unchanged"
+    by_glob = by_name(ingest(config, reload=[str(tmp_path / "receipts" / "b*")]))
+    assert (by_glob["a.csv"].status, by_glob["b.csv"].status) == ("unchanged", "replaced")
+    assert warehouse_rows(config) == (8, 0, 1)
+
+
+def test_reloading_one_reference_file_of_an_old_warehouse_keeps_the_others(
+    tmp_path: Path,
+) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "catalogue_2.csv").write_text("item,category,grams\nK2,coffee,500\n")
+    config.write_text(config.read_text().replace('["catalogue.csv"]', '["catalogue*.csv"]'))
+    ingest(config)
+    # ledger rows from before fingerprints were recorded
+    query(config, "update ledger set settings_fingerprint = null")
+    result = by_name(ingest(config, reload=[str(tmp_path / "catalogue_2.csv")]))
+    assert (result["catalogue.csv"].status, result["catalogue_2.csv"].status) == (
+        "unchanged",
+        "replaced",
+    )
+    assert query(config, "select sku from catalogue order by sku") == [("K1",), ("K2",)]
+
+
+def test_reload_of_nothing_known_is_a_user_error(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    with pytest.raises(UserError, match="--reload 'nope.csv' matches no configured source"):
+        ingest(config, reload=["nope.csv"])
+
+
+def test_cli_ingest_reload(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    ingest(config)
+    result = RUNNER.invoke(app, ["ingest", str(config), "--reload", "receipts"])
+    assert result.exit_code == 0, result.output
+    assert query(config, "select count(*) from ledger where status = 'superseded'") == [(1,)]
+
+
+# ---- 3. gone files and withdraw ----------------------------------------------------------------
+
+
+def test_an_archived_drop_folder_keeps_its_rows_with_a_warning(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    ingest(config)
+    shutil.move(tmp_path / "receipts" / "a.csv", tmp_path / "a.csv.archived")
+    result = RUNNER.invoke(app, ["ingest", str(config)], terminal_width=400)
+    assert result.exit_code == 0, result.output
+    warnings = [line for line in result.output.splitlines() if line.startswith("warning:")]
+    assert warnings == [
+        f"warning: {config}: key 'sources.receipts.files': no file matches "
+        f"{tmp_path / 'receipts' / '*.csv'}; the warehouse keeps the 1 file(s) ingested before."
+    ]
+    assert warehouse_rows(config) == (5, 0, 1)
+    loaded = load_config(config)
+    with open_warehouse(loaded.warehouse) as con:
+        gone = gone_files(con, loaded)
+    assert [(item.source, item.path.name) for item in gone] == [("receipts", "a.csv")]
+
+
+def test_a_glob_matching_nothing_on_the_first_run_is_still_an_error(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {})
+    result = RUNNER.invoke(app, ["ingest", str(config)], terminal_width=400)
+    assert result.exit_code == 1
+    assert "'sources.receipts.files': no file matches" in result.output
+
+
+def test_withdraw_removes_a_files_rows_and_keeps_it_out(tmp_path: Path) -> None:
+    config = write_project(
+        tmp_path, {"a.csv": receipt_lines(5), "b.csv": receipt_lines(3, "x", day=2)}
+    )
+    ingest(config)
+    assert warehouse_rows(config) == (5, 3, 1)
+    result = RUNNER.invoke(
+        app, ["withdraw", str(config), str(tmp_path / "receipts" / "b*"), "--reason", "test day"]
+    )
+    assert result.exit_code == 0, result.output
+    assert warehouse_rows(config) == (5, 0, 1)
+    rows = query(config, "select status, reason from ledger where path like '%b.csv'")
+    assert rows == [("withdrawn", "test day")]
+    assert by_name(ingest(config))["b.csv"].status == "unchanged"
+    assert warehouse_rows(config) == (5, 0, 1)
+    (tmp_path / "receipts" / "b.csv").write_text("\n".join([HEADER, *receipt_lines(2)]) + "\n")
+    assert by_name(ingest(config))["b.csv"].status == "new"
+
+
+def test_withdraw_of_nothing_is_a_user_error(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    ingest(config)
+    loaded = load_config(config)
+    with open_warehouse(loaded.warehouse) as con, pytest.raises(UserError, match="no current"):
+        withdraw_files(con, loaded, "nothing*.csv", "why")
+
+
+# ---- 4. strict values --------------------------------------------------------------------------
+
+
+def test_thousands_underscores_are_unparseable(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3, qty="1_000")})
+    result = by_name(ingest(config))["a.csv"]
+    assert result.quarantined == {"unparseable_field": 3}
+
+
+def test_values_beyond_the_exact_decimal_range_are_quarantined(tmp_path: Path) -> None:
+    lines = receipt_lines(2, amount="1000000000000") + receipt_lines(1, day=2)
+    config = write_project(tmp_path, {"a.csv": lines}, receipt_extra="max_amount = 1e15")
+    result = by_name(ingest(config))["a.csv"]
+    assert result.quarantined == {"value_out_of_range": 2}
+    assert result.rows_accepted == 1
+
+
+def test_values_past_the_plausibility_bounds_are_quarantined(tmp_path: Path) -> None:
+    lines = receipt_lines(1, qty="10001") + receipt_lines(1, amount="1000001", day=2)
+    lines += receipt_lines(1, day=3)
+    config = write_project(tmp_path / "a", {"a.csv": lines})
+    result = by_name(ingest(config))["a.csv"]
+    assert (result.quarantined, result.rows_accepted) == ({"value_out_of_range": 2}, 1)
+    bounded = write_project(
+        tmp_path / "b", {"a.csv": lines}, receipt_extra="max_quantity = 5\nmax_amount = 10"
+    )
+    assert by_name(ingest(bounded))["a.csv"].quarantined == {"value_out_of_range": 3}
+
+
+def test_reference_numbers_are_read_strictly(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(1)})
+    skus = "".join(f"K{n},coffee,{250 + n}.5\n" for n in range(1, 10))
+    (tmp_path / "catalogue.csv").write_text(f"item,category,grams\n{skus}K10,coffee,1_000\n")
+    result = by_name(ingest(config))["catalogue.csv"]
+    assert result.quarantined == {"unparseable_field": 1}
+
+
+# ---- 5. failure reasons ------------------------------------------------------------------------
+
+
+def test_a_failed_file_keeps_its_reason_in_the_ledger(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    (tmp_path / "receipts" / "broken.csv").write_text("ticket;nope\nT1;x\n")
+    result = by_name(ingest(config))["broken.csv"]
+    assert result.status == "failed"
+    rows = query(config, "select status, reason from ledger where path like '%broken.csv'")
+    assert rows[0][0] == "failed"
+    assert rows[0][1] and rows[0][1] in result.error
+
+
+# ---- 6. determinism of the exported ledger ------------------------------------------------------
+
+
+def test_two_from_scratch_ingests_export_byte_identical_ledgers(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    config_path = write_project(tmp_path, {"a.csv": receipt_lines(5), "b.csv": ["broken;line"]})
+    config = load_config(config_path)
+    hashes = []
+    for day in (1, 2):
+        monkeypatch.setattr("demandprep.ingest.ledger.datetime", _clock(datetime(2024, 5, day)))
+        shutil.rmtree(config.warehouse.path.parent, ignore_errors=True)
+        with open_warehouse(config.warehouse) as con:
+            ingest_all(con, config)
+            query_ = output_query(con, output_table("ledger"), config)
+            target = tmp_path / f"ledger_{day}.parquet"
+            write_query_parquet(con, query_.sql, query_.params, target, 1024, {}, {}, ("path",))
+        hashes.append(file_sha256(target))
+    assert hashes[0] == hashes[1]
+
+
+def _clock(moment: datetime) -> type:
+    class Fixed(datetime):
+        @classmethod
+        def now(cls, tz=None) -> datetime:
+            return moment
+
+    return Fixed
+
+
+@pytest.mark.parametrize(
+    ("text", "mark", "expected"),
+    [
+        ("12.50", ".", 12.5),
+        ("12,50", ",", 12.5),
+        ("12.50", ",", None),
+        ("1_000", ".", None),
+        ("1 000", ".", None),
+        ("1,000", ".", None),
+        ("1e3", ".", 1000.0),
+        ("-4.5", ".", -4.5),
+        ("inf", ".", None),
+        ("nan", ".", None),
+        ("0x10", ".", None),
+    ],
+)
+def test_the_number_macro_reads_only_plain_decimal_notation(
+    text: str, mark: str, expected: float | None
+) -> None:
+    con = duckdb.connect()
+    run_sql(con, "ingest/005_ingest_macros.sql")
+    assert con.execute("select ingest_number($t, $m)", {"t": text, "m": mark}).fetchone() == (
+        expected,
+    )
+
+
+@pytest.mark.parametrize(
+    ("text", "expected"),
+    [("7", 7), ("+7", 7), ("007", 7), ("1_000", None), ("0x10", None), (".5", None), ("1e5", None)],
+)
+def test_the_integer_macro_reads_only_digits(text: str, expected: int | None) -> None:
+    con = duckdb.connect()
+    run_sql(con, "ingest/005_ingest_macros.sql")
+    assert con.execute("select ingest_integer($t)", {"t": text}).fetchone() == (expected,)

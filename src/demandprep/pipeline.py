@@ -23,8 +23,10 @@ def run_build(
     config: ProjectConfig, on_stage: Callable[[Stage], None] | None = None
 ) -> tuple[Path, BuildContext]:
     """Run every build stage on the warehouse and export a build folder; returns its path."""
-    from demandprep.export.folder import export_build
+    from demandprep.export.folder import check_export_root, export_build
 
+    # a restored `latest` folder or a linked `.staging` would only stop the export: say so now
+    check_export_root(config.export.root)
     with open_warehouse(config.warehouse) as con:
         ctx = BuildContext(con=con, config=config)
         run_build_stages(ctx, on_stage=on_stage)

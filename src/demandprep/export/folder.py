@@ -127,7 +127,7 @@ def new_build_id(ctx: BuildContext, built_at: datetime) -> str:
 
 
 def open_staging(root: Path, build_id: str) -> Path:
-    """Create the staging folder for `build_id` (made unique if taken), marked as ours, with our pid."""
+    """Create the staging folder for `build_id` (made unique if taken): our marker, our pid."""
     check_export_root(root)
     staging_root = root / STAGING
     staging_root.mkdir(parents=True, exist_ok=True)
@@ -154,7 +154,7 @@ def publish(staging_dir: Path, root: Path) -> Path:
 
 
 def prune(root: Path, keep_last: int) -> list[Path]:
-    """Delete all but the newest `keep_last` of our published builds (never the one `latest` names)."""
+    """Delete all but the newest `keep_last` of our builds (never the one `latest` names)."""
     check_export_root(root)
     latest = latest_build(root)
     builds = published_builds(root)

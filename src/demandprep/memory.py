@@ -71,15 +71,15 @@ def memory_shared_with_batches(
         yield
         return
     reduced = shared_limit_bytes(parse_bytes(configured), share)
-    _set(con, "set memory_limit = $limit", f"{reduced}B")
+    _set_limit(con, f"{reduced}B")
     try:
         yield
     except BaseException:
         # Why: if setting the limit back fails too, the reason the block failed must still show
         with suppress(duckdb.Error):
-            _set(con, "set memory_limit = $limit", configured)
+            _set_limit(con, configured)
         raise
-    _set(con, "set memory_limit = $limit", configured)
+    _set_limit(con, configured)
 
 
 def shared_limit_bytes(configured_bytes: int, share: float = BATCH_READ_SHARE) -> int:
@@ -96,6 +96,16 @@ def out_of_memory_error(stage: str, settings: WarehouseSection) -> UserError:
         f"raise warehouse.memory_limit, or give warehouse.temp_directory "
         f"({settings.temp_directory}) room to spill, and build again.",
     )
+
+
+def _set_limit(con: duckdb.DuckDBPyConnection, limit: str) -> None:
+    # Why a cursor: the limit is the database's, and a reader still open on `con` (a block
+    # that failed mid-stream) would refuse the statement with "connection has an open result"
+    cursor = con.cursor()
+    try:
+        _set(cursor, "set memory_limit = $limit", limit)
+    finally:
+        cursor.close()
 
 
 def _set(con: duckdb.DuckDBPyConnection, statement: str, limit: str) -> None:

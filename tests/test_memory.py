@@ -8,10 +8,13 @@ from pathlib import Path
 import duckdb
 import pyarrow.parquet as pq
 import pytest
+from market_fixtures import build_context, market_config, tiny_world
 
 from demandprep.config import WarehouseSection
+from demandprep.errors import UserError
 from demandprep.export import parquet
 from demandprep.memory import memory_shared_with_batches, parse_bytes
+from demandprep.stages import run_build_stages
 from demandprep.warehouse import connect
 
 
@@ -118,3 +121,19 @@ def test_a_failure_while_a_reader_is_open_is_not_hidden(tmp_path: Path) -> None:
         raise OSError(errno.ENOSPC, "No space left on device")
     assert _limit(con.cursor()) == before  # set back although the reader is still open
     reader.close()
+
+
+def test_a_stage_out_of_memory_is_one_line_naming_stage_limit_and_way_out(tmp_path: Path) -> None:
+    # a real limit DuckDB cannot work in: 4MB runs out in the first market stage's own SQL
+    config = market_config(tmp_path, warehouse={"memory_limit": "4MB"})
+    ctx = build_context(tiny_world(), config)
+    ctx.con.execute("set memory_limit = $limit", {"limit": config.warehouse.memory_limit})
+    with pytest.raises(UserError) as caught:
+        run_build_stages(ctx)
+    assert caught.value.one_line() == (
+        "stage market_settings: DuckDB ran out of memory within warehouse.memory_limit = 4MB. "
+        "Hint: raise warehouse.memory_limit, or give warehouse.temp_directory "
+        f"({config.warehouse.temp_directory}) room to spill, and build again."
+    )
+    assert isinstance(caught.value.__cause__, duckdb.OutOfMemoryException)
+    assert "market_settings" not in ctx.timings

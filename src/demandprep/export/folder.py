@@ -90,8 +90,15 @@ def write_staged_build(
     root = ctx.config.export.root
     check_export_root(root)
     clean_stale_staging(root)
-    staging = open_staging(root, new_build_id(ctx, built_at))
+    build_id = new_build_id(ctx, built_at)
     try:
+        staging = _reserve_staging(root, build_id)
+    except OSError as error:
+        if error.errno in DISK_FULL:
+            raise _disk_full_error(root, build_id, 0) from error
+        raise
+    try:
+        _mark_as_ours(staging)
         write_build(ctx, staging, built_at, models)
     except BaseException as error:
         fault = _export_fault(ctx, error, staging)
@@ -128,6 +135,17 @@ def new_build_id(ctx: BuildContext, built_at: datetime) -> str:
 
 def open_staging(root: Path, build_id: str) -> Path:
     """Create the staging folder for `build_id` (made unique if taken): our marker, our pid."""
+    folder = _reserve_staging(root, build_id)
+    try:
+        _mark_as_ours(folder)
+    except BaseException:
+        # Why here: an unmarked folder would never count as ours, so no later cleanup takes it
+        discard_staging(folder)
+        raise
+    return folder
+
+
+def _reserve_staging(root: Path, build_id: str) -> Path:
     check_export_root(root)
     staging_root = root / STAGING
     staging_root.mkdir(parents=True, exist_ok=True)
@@ -137,9 +155,12 @@ def open_staging(root: Path, build_id: str) -> Path:
         candidate = f"{build_id}-{counter}"
     folder = staging_root / candidate
     folder.mkdir()
-    (folder / MARKER).write_text(candidate + "\n", encoding="utf-8")
-    _pid_file(folder).write_text(str(os.getpid()), encoding="ascii")
     return folder
+
+
+def _mark_as_ours(folder: Path) -> None:
+    (folder / MARKER).write_text(folder.name + "\n", encoding="utf-8")
+    _pid_file(folder).write_text(str(os.getpid()), encoding="ascii")
 
 
 def publish(staging_dir: Path, root: Path) -> Path:
@@ -282,16 +303,19 @@ def _export_fault(ctx: BuildContext, error: BaseException, staging: Path) -> Use
     if isinstance(error, duckdb.OutOfMemoryException):
         return out_of_memory_error("export", ctx.config.warehouse)
     if isinstance(error, OSError) and error.errno in DISK_FULL:
-        root = ctx.config.export.root
-        latest = latest_build(root)
-        kept = f"latest still names {latest.name}" if latest else "no build was published"
-        return UserError(
-            f"{root}: the disk filled while writing build {staging.name} "
-            f"({_size_text(_bytes_under(staging))} written); the build was removed and {kept}.",
-            f"free space on the disk that holds {root}, or point export.root at a larger "
-            "one, and build again.",
-        )
+        return _disk_full_error(ctx.config.export.root, staging.name, _bytes_under(staging))
     return None
+
+
+def _disk_full_error(root: Path, build_id: str, written: int) -> UserError:
+    latest = latest_build(root)
+    kept = f"latest still names {latest.name}" if latest else "no build was published"
+    return UserError(
+        f"{root}: the disk filled while writing build {build_id} ({_size_text(written)} "
+        f"written); the build was removed and {kept}.",
+        f"free space on the disk that holds {root}, or point export.root at a larger one, "
+        "and build again.",
+    )
 
 
 def _bytes_under(folder: Path) -> int:

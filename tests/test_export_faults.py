@@ -148,3 +148,31 @@ def test_after_a_full_disk_the_same_connection_exports_again(
             folder.export_build(warehouse, now=START)
     published = folder.export_build(warehouse, now=LATER)
     assert folder.latest_build(root) == published
+
+
+@pytest.mark.parametrize("memory_limit", ["1MB", "2MB"])
+def test_export_out_of_memory_is_one_line_and_latest_stays(
+    warehouse: BuildContext, memory_limit: str
+) -> None:
+    # real limits DuckDB cannot work in: 1MB runs out before the first file (reading the
+    # ledger for the build id), 2MB while the first Parquet file streams
+    root = warehouse.config.export.root
+    first = folder.export_build(warehouse, now=START)
+    before = entries(root)
+    settings = warehouse.config.warehouse.model_copy(update={"memory_limit": memory_limit})
+    config = warehouse.config.model_copy(update={"warehouse": settings})
+    warehouse.con.close()
+    con = connect(settings)
+    try:
+        with pytest.raises(UserError) as caught:
+            folder.export_build(fixture_context(con, config), now=LATER)
+    finally:
+        con.close()
+    assert caught.value.one_line() == (
+        f"stage export: DuckDB ran out of memory within warehouse.memory_limit = {memory_limit}. "
+        "Hint: raise warehouse.memory_limit, or give warehouse.temp_directory "
+        f"({settings.temp_directory}) room to spill, and build again."
+    )
+    assert entries(root) == before
+    assert folder.latest_build(root) == first
+    assert entries(root / ".staging") == set()

@@ -10,7 +10,7 @@ reports its limit rounded, so it could not be set back exactly).
 The share never goes above the configured limit: below twice DuckDB's per-thread floor
 (a configured limit under 256 MiB) DuckDB keeps the configured limit while batches are read,
 rather than being raised past what the user allowed. When DuckDB runs out of memory, the
-stage reports one line naming itself, the limit and the way out (`out_of_memory_error`).
+stage reports one line naming itself, the limit and the way out (`out_of_memory_reported`).
 """
 
 from __future__ import annotations
@@ -86,6 +86,15 @@ def shared_limit_bytes(configured_bytes: int, share: float = BATCH_READ_SHARE) -
     """DuckDB's limit while batches are read: `share` of the limit, at least the scan floor,
     never more than the configured limit itself."""
     return min(configured_bytes, max(SCAN_FLOOR_BYTES, int(configured_bytes * share)))
+
+
+@contextmanager
+def out_of_memory_reported(stage: str, settings: WarehouseSection) -> Iterator[None]:
+    """Within the block, DuckDB running out of memory becomes `out_of_memory_error`'s line."""
+    try:
+        yield
+    except duckdb.OutOfMemoryException as error:
+        raise out_of_memory_error(stage, settings) from error
 
 
 def out_of_memory_error(stage: str, settings: WarehouseSection) -> UserError:

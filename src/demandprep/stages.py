@@ -6,11 +6,9 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 
-import duckdb
-
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
-from demandprep.memory import out_of_memory_error
+from demandprep.memory import out_of_memory_reported
 
 
 @dataclass(frozen=True)
@@ -36,10 +34,8 @@ def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
 def run_stage(stage: Stage, ctx: BuildContext) -> None:
     """Run one stage and record how long it took; DuckDB out of memory becomes one line."""
     started = time.perf_counter()
-    try:
+    with out_of_memory_reported(stage.name, ctx.config.warehouse):
         stage.run(ctx)
-    except duckdb.OutOfMemoryException as error:
-        raise out_of_memory_error(stage.name, ctx.config.warehouse) from error
     ctx.timings[stage.name] = round(time.perf_counter() - started, 3)
 
 

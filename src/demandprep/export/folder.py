@@ -28,15 +28,13 @@ import shutil
 from datetime import UTC, datetime
 from pathlib import Path
 
-import duckdb
-
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.export.build import BuildOutputs, write_build
 from demandprep.export.dictionary import ModelMap
 from demandprep.export.manifest import input_records
 from demandprep.export.root_lock import LOCK_FILE, export_root_lock
-from demandprep.memory import out_of_memory_error
+from demandprep.memory import out_of_memory_reported
 
 __all__ = [
     "LOCK_FILE",
@@ -90,22 +88,23 @@ def write_staged_build(
     root = ctx.config.export.root
     check_export_root(root)
     clean_stale_staging(root)
-    build_id = new_build_id(ctx, built_at)
-    try:
-        staging = _reserve_staging(root, build_id)
-    except OSError as error:
-        if error.errno in DISK_FULL:
-            raise _disk_full_error(root, build_id, 0) from error
-        raise
-    try:
-        _mark_as_ours(staging)
-        write_build(ctx, staging, built_at, models)
-    except BaseException as error:
-        fault = _export_fault(ctx, error, staging)
-        discard_staging(staging)
-        if fault is not None:
-            raise fault from error
-        raise
+    with out_of_memory_reported("export", ctx.config.warehouse):
+        build_id = new_build_id(ctx, built_at)
+        try:
+            staging = _reserve_staging(root, build_id)
+        except OSError as error:
+            if error.errno in DISK_FULL:
+                raise _disk_full_error(root, build_id, 0) from error
+            raise
+        try:
+            _mark_as_ours(staging)
+            write_build(ctx, staging, built_at, models)
+        except BaseException as error:
+            written = _bytes_under(staging)
+            discard_staging(staging)
+            if isinstance(error, OSError) and error.errno in DISK_FULL:
+                raise _disk_full_error(root, staging.name, written) from error
+            raise
     return staging
 
 
@@ -165,6 +164,7 @@ def _mark_as_ours(folder: Path) -> None:
 
 def publish(staging_dir: Path, root: Path) -> Path:
     """Move a complete staging folder into place, then point `latest` at it; returns its path."""
+    check_export_root(root)  # `latest` may have been restored while the build was written
     target = root / staging_dir.name
     _fsync_dir(staging_dir)
     os.rename(staging_dir, target)
@@ -296,15 +296,6 @@ def _recorded_pid(pid_file: Path) -> int | None:
         return int(pid_file.read_text(encoding="ascii"))
     except (OSError, ValueError):
         return None
-
-
-def _export_fault(ctx: BuildContext, error: BaseException, staging: Path) -> UserError | None:
-    """The one-line report for a full disk or DuckDB out of memory; None for anything else."""
-    if isinstance(error, duckdb.OutOfMemoryException):
-        return out_of_memory_error("export", ctx.config.warehouse)
-    if isinstance(error, OSError) and error.errno in DISK_FULL:
-        return _disk_full_error(ctx.config.export.root, staging.name, _bytes_under(staging))
-    return None
 
 
 def _disk_full_error(root: Path, build_id: str, written: int) -> UserError:

@@ -1,8 +1,9 @@
 """The nightly rebuild as a Prefect flow: discover, ingest, build stages, validate, export, publish.
 
 The flow only calls the same functions the CLI's direct runner calls, as tasks, in order. It
-opens the warehouse once and holds its writer lock for the whole night; every task runs in the
-flow's own thread (tasks are called, not submitted), so they share the one DuckDB connection.
+opens the warehouse once and holds its writer lock for the whole night, and the export root's
+lock from writing the build to pruning; every task runs in the flow's own thread (tasks are
+called, not submitted), so they share the one DuckDB connection.
 Tasks never cache or persist results: their inputs (a live connection) cannot be hashed or stored.
 """
 
@@ -23,13 +24,11 @@ from demandprep.config import ProjectConfig, load_config
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.export.folder import (
-    clean_stale_staging,
-    discard_staging,
-    new_build_id,
-    open_staging,
+    check_export_root,
+    export_root_lock,
     prune,
     publish,
-    write_build,
+    write_staged_build,
 )
 from demandprep.export.tables import output_query, plan_outputs
 from demandprep.flows.build_log import append_build_log
@@ -95,16 +94,7 @@ def validate_task(ctx: BuildContext) -> int:
 @task(name="write build", **NO_RESULTS)
 def write_task(ctx: BuildContext) -> Path:
     """Write the whole build folder into staging; a failed write leaves nothing behind."""
-    root = ctx.config.export.root
-    clean_stale_staging(root)
-    built_at = datetime.now(UTC)
-    staging = open_staging(root, new_build_id(ctx, built_at))
-    try:
-        write_build(ctx, staging, built_at)
-    except BaseException:
-        discard_staging(staging)
-        raise
-    return staging
+    return write_staged_build(ctx, datetime.now(UTC))
 
 
 @task(name="publish build", **NO_RESULTS)
@@ -139,6 +129,8 @@ def nightly_flow(config_path: str, force_rebuild: bool = False) -> State:
 def run_night(config: ProjectConfig, force_rebuild: bool) -> dict[str, Any]:
     """The night's tasks in order, under one warehouse writer lock; returns what happened."""
     logger = get_run_logger()
+    # a restored `latest` folder or a linked `.staging` would only stop the export: say so now
+    check_export_root(config.export.root)
     with open_warehouse(config.warehouse) as con:
         discovered = call(discover_task, con, config)
         todo = files_to_ingest(discovered)
@@ -157,9 +149,11 @@ def run_night(config: ProjectConfig, force_rebuild: bool) -> dict[str, Any]:
         for stage in build_stages(config):
             call(stage_task.with_options(name=f"stage {stage.name}"), stage, ctx)
         call(validate_task, ctx)
-        staging = call(write_task, ctx)
-        build = call(publish_task, config, staging)
-        call(prune_task, config)
+        # one publisher at a time per export root, from the staging cleanup to the pruning
+        with export_root_lock(config.export.root, config.warehouse.lock_timeout_seconds):
+            staging = call(write_task, ctx)
+            build = call(publish_task, config, staging)
+            call(prune_task, config)
     message = f"published {build.name} ({len(todo)} new or changed files)"
     logger.info(message)
     for warning in ctx.warnings:

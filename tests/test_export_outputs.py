@@ -15,6 +15,7 @@ from export_fixtures import RAW_CARD, export_config, fill_warehouse, shared_buil
 
 from demandprep.errors import UserError
 from demandprep.export.csv_safe import escape_formula_cells
+from demandprep.export.folder import MARKER
 from demandprep.export.manifest import file_sha256
 from demandprep.export.tables import OutputTable, output_query
 from demandprep.schemas.market import Shares
@@ -170,7 +171,10 @@ def test_manifest_records_inputs_outputs_timings_and_warnings(build: Path, manif
     assert {i["rows"] for i in manifest["inputs"]} == {7, 1100, 1200}
     listed = {o["path"]: o for o in manifest["outputs"]}
     on_disk = {p.relative_to(build).as_posix() for p in build.rglob("*") if p.is_file()}
-    assert set(listed) == on_disk - {"manifest.json"}
+    assert set(listed) == on_disk - {
+        "manifest.json",
+        MARKER,
+    }  # the marker is the folder's, not data
     for path, record in listed.items():
         assert record["sha256"] == file_sha256(build / path)
     assert listed["choices.parquet"]["rows"] == 2100

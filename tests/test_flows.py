@@ -21,6 +21,7 @@ import pytest
 from demandprep.config import ProjectConfig, load_config
 from demandprep.errors import UserError
 from demandprep.export.folder import latest_build, published_builds
+from demandprep.export.root_lock import export_root_lock
 from demandprep.flows import nightly
 from demandprep.flows.build_log import build_log_path
 from demandprep.pipeline import run_build, run_ingest
@@ -306,3 +307,52 @@ def test_file_breaking_the_schema_is_not_retried(
     assert counted_ingest.attempts == 1
     assert "'qty'" in state.message
     assert latest_build(config.export.root).name == night_one.build_name
+
+
+def test_night_with_a_restored_latest_folder_fails_in_one_line_and_touches_nothing(
+    night_one: NightOne, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    config = night_one.restore()
+    add_next_day(night_one)
+    root = config.export.root
+    (root / "latest").unlink()
+    shutil.copytree(root / night_one.build_name, root / "latest")  # what a copy-restore makes
+    asked: list[str] = []
+    monkeypatch.setattr(nightly, "build_stages", lambda cfg: asked.append("stages") or ())
+
+    state = run_night(night_one.config_path)
+
+    assert state.is_failed()
+    assert state.message == (
+        f"{root}/latest is a folder, not the link demandprep keeps. "
+        "Hint: move it away (it looks like a restored copy) and build again."
+    )
+    assert asked == []
+    assert [b.name for b in published_builds(root)] == [night_one.build_name]
+    assert (root / "latest").is_dir() and not (root / "latest").is_symlink()
+
+
+def test_night_holds_the_export_root_lock_while_it_publishes(
+    night_one: NightOne, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    config = night_one.restore()
+    add_next_day(night_one)
+    seen: list[str] = []
+    real_publish = nightly.publish
+
+    def probing_publish(staging: Path, root: Path) -> Path:
+        try:
+            with export_root_lock(root, timeout_seconds=0):
+                seen.append("free")
+        except UserError:
+            seen.append("held")
+        return real_publish(staging, root)
+
+    monkeypatch.setattr(nightly, "publish", probing_publish)
+
+    state = run_night(night_one.config_path)
+
+    assert state.is_completed(), state.message
+    assert seen == ["held"]
+    with export_root_lock(config.export.root, timeout_seconds=0):
+        pass  # and released once the night is over

@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
+import errno
 from pathlib import Path
 
 import duckdb
 import pyarrow.parquet as pq
 import pytest
+from market_fixtures import build_context, market_config, tiny_world
 
 from demandprep.config import WarehouseSection
+from demandprep.errors import UserError
 from demandprep.export import parquet
 from demandprep.memory import memory_shared_with_batches, parse_bytes
+from demandprep.stages import run_build_stages
 from demandprep.warehouse import connect
 
 
@@ -31,12 +35,12 @@ def test_parse_bytes_names_a_bad_size() -> None:
         parse_bytes("2 lots")
 
 
-def _warehouse(tmp_path: Path) -> duckdb.DuckDBPyConnection:
+def _warehouse(tmp_path: Path, memory_limit: str = "2GB") -> duckdb.DuckDBPyConnection:
     return connect(
         WarehouseSection(
             path=tmp_path / "w.duckdb",
             temp_directory=tmp_path / "spill",
-            memory_limit="2GB",
+            memory_limit=memory_limit,
             threads=1,
         )
     )
@@ -86,3 +90,50 @@ def test_parquet_export_streams_under_half_the_limit(
     assert seen == ["953.6 MiB"]
     assert _limit(con) == "1.8 GiB"
     assert pq.read_table(written.path).column("k").to_pylist() == list(range(5000))
+
+
+@pytest.mark.parametrize(
+    ("configured", "during"),
+    [("2GB", "953.6 MiB"), ("250MB", "128.0 MiB"), ("200MB", "128.0 MiB"), ("100MB", "95.3 MiB")],
+)
+def test_the_shared_limit_never_exceeds_the_configured_one(
+    tmp_path: Path, configured: str, during: str
+) -> None:
+    # half the limit, at least DuckDB's 128 MiB scan floor, at most the limit itself
+    con = _warehouse(tmp_path, configured)
+    before = _limit(con)
+    with memory_shared_with_batches(con):
+        assert _limit(con) == during
+    assert parse_bytes(during.replace(" ", "")) <= parse_bytes(configured) * 1.001
+    assert _limit(con) == before
+
+
+def test_a_failure_while_a_reader_is_open_is_not_hidden(tmp_path: Path) -> None:
+    con = _warehouse(tmp_path)
+    con.execute("create table t as select range as k from range(100000)")
+    before = _limit(con)
+    with (
+        pytest.raises(OSError, match="No space left on device"),
+        memory_shared_with_batches(con),
+    ):
+        reader = con.sql("select k from t order by k").to_arrow_reader(1024)
+        reader.read_next_batch()
+        raise OSError(errno.ENOSPC, "No space left on device")
+    assert _limit(con.cursor()) == before  # set back although the reader is still open
+    reader.close()
+
+
+def test_a_stage_out_of_memory_is_one_line_naming_stage_limit_and_way_out(tmp_path: Path) -> None:
+    # a real limit DuckDB cannot work in: 4MB runs out in the first market stage's own SQL
+    config = market_config(tmp_path, warehouse={"memory_limit": "4MB"})
+    ctx = build_context(tiny_world(), config)
+    ctx.con.execute("set memory_limit = $limit", {"limit": config.warehouse.memory_limit})
+    with pytest.raises(UserError) as caught:
+        run_build_stages(ctx)
+    assert caught.value.one_line() == (
+        "stage market_settings: DuckDB ran out of memory within warehouse.memory_limit = 4MB. "
+        "Hint: raise warehouse.memory_limit, or give warehouse.temp_directory "
+        f"({config.warehouse.temp_directory}) room to spill, and build again."
+    )
+    assert isinstance(caught.value.__cause__, duckdb.OutOfMemoryException)
+    assert "market_settings" not in ctx.timings

@@ -6,15 +6,23 @@ the limit so that DuckDB and the batch together stay near the configured figure;
 the configured limit is set again, exactly, from the value `warehouse.connect` remembered.
 A connection opened elsewhere has no remembered value and keeps its limit untouched (DuckDB
 reports its limit rounded, so it could not be set back exactly).
+
+The share never goes above the configured limit: below twice DuckDB's per-thread floor
+(a configured limit under 256 MiB) DuckDB keeps the configured limit while batches are read,
+rather than being raised past what the user allowed. When DuckDB runs out of memory, the
+stage reports one line naming itself, the limit and the way out (`out_of_memory_reported`).
 """
 
 from __future__ import annotations
 
 import re
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 
 import duckdb
+
+from demandprep.config import WarehouseSection
+from demandprep.errors import UserError
 
 LIMIT_VARIABLE = "demandprep_memory_limit"
 BATCH_READ_SHARE = 0.5  # DuckDB's share while batches are read; a scan needs little of it
@@ -62,12 +70,51 @@ def memory_shared_with_batches(
     if configured is None:
         yield
         return
-    reduced = max(SCAN_FLOOR_BYTES, int(parse_bytes(configured) * share))
-    _set(con, "set memory_limit = $limit", f"{reduced}B")
+    reduced = shared_limit_bytes(parse_bytes(configured), share)
+    _set_limit(con, f"{reduced}B")
     try:
         yield
+    except BaseException:
+        # Why: if setting the limit back fails too, the reason the block failed must still show
+        with suppress(duckdb.Error):
+            _set_limit(con, configured)
+        raise
+    _set_limit(con, configured)
+
+
+def shared_limit_bytes(configured_bytes: int, share: float = BATCH_READ_SHARE) -> int:
+    """DuckDB's limit while batches are read: `share` of the limit, at least the scan floor,
+    never more than the configured limit itself."""
+    return min(configured_bytes, max(SCAN_FLOOR_BYTES, int(configured_bytes * share)))
+
+
+@contextmanager
+def out_of_memory_reported(stage: str, settings: WarehouseSection) -> Iterator[None]:
+    """Within the block, DuckDB running out of memory becomes `out_of_memory_error`'s line."""
+    try:
+        yield
+    except duckdb.OutOfMemoryException as error:
+        raise out_of_memory_error(stage, settings) from error
+
+
+def out_of_memory_error(stage: str, settings: WarehouseSection) -> UserError:
+    """The one line for DuckDB running out of memory in `stage`, with the way out."""
+    return UserError(
+        f"stage {stage}: DuckDB ran out of memory within warehouse.memory_limit = "
+        f"{settings.memory_limit}.",
+        f"raise warehouse.memory_limit, or give warehouse.temp_directory "
+        f"({settings.temp_directory}) room to spill, and build again.",
+    )
+
+
+def _set_limit(con: duckdb.DuckDBPyConnection, limit: str) -> None:
+    # Why a cursor: the limit is the database's, and a reader still open on `con` (a block
+    # that failed mid-stream) would refuse the statement with "connection has an open result"
+    cursor = con.cursor()
+    try:
+        _set(cursor, "set memory_limit = $limit", limit)
     finally:
-        _set(con, "set memory_limit = $limit", configured)
+        cursor.close()
 
 
 def _set(con: duckdb.DuckDBPyConnection, statement: str, limit: str) -> None:

@@ -59,11 +59,13 @@ def build_unless_current(
     on_stage_done: StageDone | None = None,
 ) -> BuildOutcome:
     """Build and publish, unless `latest` was made from these very inputs and settings."""
-    from demandprep.export.folder import export_build, latest_build
+    from demandprep.export.folder import check_export_root, export_build, latest_build
 
     # the nightly flow's own test of "nothing new" (no Prefect is imported with it)
     from demandprep.flows.incremental import latest_build_is_current
 
+    # a restored `latest` folder or a linked `.staging` would only stop the export: say so now
+    check_export_root(config.export.root)
     with open_warehouse(config.warehouse) as con:
         if not force and latest_build_is_current(con, config):
             return BuildOutcome(kept=latest_build(config.export.root))

@@ -8,6 +8,7 @@ from dataclasses import dataclass
 
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
+from demandprep.memory import out_of_memory_reported
 
 
 @dataclass(frozen=True)
@@ -31,9 +32,10 @@ def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
 
 
 def run_stage(stage: Stage, ctx: BuildContext) -> None:
-    """Run one stage and record how long it took."""
+    """Run one stage and record how long it took; DuckDB out of memory becomes one line."""
     started = time.perf_counter()
-    stage.run(ctx)
+    with out_of_memory_reported(stage.name, ctx.config.warehouse):
+        stage.run(ctx)
     ctx.timings[stage.name] = round(time.perf_counter() - started, 3)
 
 

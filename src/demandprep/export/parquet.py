@@ -51,7 +51,12 @@ def write_query_parquet(
     """
     with memory_shared_with_batches(con):
         reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
-        return _write_batches(reader, path, row_group_rows, column_docs, table_metadata, sort_keys)
+        try:
+            return _write_batches(
+                reader, path, row_group_rows, column_docs, table_metadata, sort_keys
+            )
+        finally:
+            reader.close()  # a write that failed mid-stream must not leave the connection busy
 
 
 def _write_batches(

@@ -114,15 +114,16 @@ def test_sixteen_byte_key_is_enough(monkeypatch):
     assert choices_frame(small_world().build()).height == 6
 
 
-def test_occasion_is_a_keyed_hash_of_store_and_receipt(monkeypatch):
+def test_occasion_is_a_keyed_hash_of_store_day_and_receipt(monkeypatch):
     monkeypatch.setenv(KEY_ENV, "occasion-key-0123456789abcdef")
     frame = choices_frame(small_world().build())
-    # reference: Python's hmac module over "occasion", NUL, store, NUL, receipt; the chooser
-    # hashes the bare card id, so the prefix keeps the two kinds of hash apart
+    # reference: Python's hmac module over "occasion", NUL, store, NUL, business day, NUL,
+    # receipt (receipt ids restart daily by default); the chooser hashes the bare card id, so
+    # the prefix keeps the two kinds of hash apart
     expected = {
         hmac.new(
             b"occasion-key-0123456789abcdef",
-            b"occasion\x00S1\x00" + f"R{n:05d}".encode(),
+            b"occasion\x00S1\x002024-01-15\x00" + f"R{n:05d}".encode(),
             hashlib.sha256,
         ).hexdigest()[:32]
         for n in (1, 2, 3)

@@ -117,7 +117,7 @@ def test_latest_as_a_real_folder_stops_the_build_before_its_stages(
     config = export_config(tmp_path)
     foreign_folder(config.export.root, "latest")
     ran: list[str] = []
-    monkeypatch.setattr(pipeline, "run_build_stages", lambda ctx, on_stage=None: ran.append("x"))
+    monkeypatch.setattr(pipeline, "run_stage", lambda stage, ctx: ran.append(stage.name))
     with pytest.raises(UserError, match="latest is a folder, not the link"):
         pipeline.run_build(config)
     assert ran == []

@@ -34,13 +34,12 @@ from demandprep.export.tables import output_query, plan_outputs
 from demandprep.flows.build_log import append_build_log
 from demandprep.flows.incremental import files_to_ingest, latest_build_is_current
 from demandprep.flows.retry import raise_if_failed, retry_read_errors
-from demandprep.ingest.files import DiscoveredFile
+from demandprep.ingest.files import DiscoveredFile, check_sources_have_files
 from demandprep.ingest.results import FileResult
 from demandprep.ingest.runner import (
     discover_files,
     ensure_tables,
     ingest_file,
-    reset_changed_layouts,
 )
 from demandprep.stages import Stage, build_stages, run_stage
 from demandprep.warehouse import open_warehouse
@@ -57,8 +56,10 @@ NO_RESULTS: dict[str, Any] = {"cache_policy": NO_CACHE, "persist_result": False}
 def discover_task(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[DiscoveredFile]:
     """Every input file with its status against the ledger: new, changed or unchanged."""
     ensure_tables(con)
-    # as the direct ingest does first: a reference whose column mapping changed is reloaded whole
-    reset_changed_layouts(con, config)
+    # as the direct ingest does: a source whose files were archived after their ingest keeps
+    # its rows, with a warning (a changed reading setting reads its files again as replaced)
+    for warning in check_sources_have_files(con, config):
+        get_run_logger().warning(warning)
     return discover_files(con, config)
 
 

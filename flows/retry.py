@@ -7,7 +7,7 @@ from typing import Any
 import duckdb
 
 from demandprep.errors import UserError
-from demandprep.ingest.results import FileResult
+from demandprep.ingest.results import PROBLEM_STATUSES, FileResult
 
 # Failures of the world around a file (a share dropped, a file still being copied), not of its
 # content. EOFError covers a gzip file cut short while it is still being written.
@@ -34,8 +34,9 @@ def retry_read_errors(task: Any, task_run: Any, state: Any) -> bool:
 
 
 def raise_if_failed(result: FileResult) -> FileResult:
-    """Pass a file's ingest result through; a failed file raises, as a read error or not."""
-    if result.status != "failed":
+    """Pass a file's ingest result through; a failed or refused file raises (a read error, or
+    a rejection that no retry can mend), so the night fails and `latest` stays."""
+    if result.status not in PROBLEM_STATUSES:
         return result
     error = result.error or "no reason given"
     if result.unreadable:

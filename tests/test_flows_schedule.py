@@ -18,9 +18,10 @@ from prefect.context import refresh_global_settings_context
 
 from demandprep.config import ProjectConfig, parse_config
 from demandprep.errors import UserError
-from demandprep.flows.retry import is_read_error
+from demandprep.flows.retry import InputRejected, is_read_error, raise_if_failed
 from demandprep.flows.schedule import build_deployment, nightly_schedule
 from demandprep.flows.settings import PREFECT_DEFAULTS, apply_prefect_defaults
+from demandprep.ingest.results import FileResult
 
 TEMPLATE = Path(__file__).resolve().parents[1] / "src" / "demandprep" / "templates" / "demo.toml"
 
@@ -135,3 +136,17 @@ def test_prefect_sees_telemetry_off_in_this_process() -> None:
 )
 def test_only_read_errors_are_retried(error: BaseException, retried: bool) -> None:
     assert is_read_error(error) is retried
+
+
+@pytest.mark.parametrize("status", ["failed", "refused"])
+def test_a_file_that_did_not_go_in_fails_its_ingest_task(status: str) -> None:
+    # a refused file, like a failed one, must fail the night so `latest` stays as it was
+    result = FileResult("receipts", Path("r.csv"), status, error="r.csv: refused: 240 of 240")
+    with pytest.raises(InputRejected, match="r.csv: rejected by the ingest: r.csv: refused"):
+        raise_if_failed(result)
+
+
+@pytest.mark.parametrize("status", ["new", "replaced", "unchanged", "empty"])
+def test_a_file_that_went_in_or_is_empty_passes_its_ingest_task(status: str) -> None:
+    result = FileResult("receipts", Path("r.csv"), status)
+    assert raise_if_failed(result) is result

@@ -68,16 +68,6 @@ class KnownVersion:
         return self.settings_fingerprint in (None, fingerprint)
 
 
-@dataclass(frozen=True)
-class GoneFile:
-    """A file whose rows are in the warehouse but which is no longer where it was read."""
-
-    source: str
-    path: Path
-    file_id: str
-    rows_accepted: int
-
-
 def configured_sources(config: ProjectConfig) -> list[tuple[str, FileSource]]:
     """The configured sources in load order (references before receipts)."""
     sources = config.sources
@@ -190,17 +180,6 @@ def reload_targets(config: ProjectConfig, patterns: list[str]) -> dict[str, froz
                 "name a source (e.g. receipts) or a glob of input files.",
             )
     return {name: frozenset(paths) for name, paths in targets.items()}
-
-
-def gone_files(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[GoneFile]:
-    """Current ledger rows whose file no longer exists: their rows stay in the warehouse."""
-    names = [name for name, _ in configured_sources(config)]
-    rows = con.execute(
-        "select source, path, file_id, rows_accepted from ledger "
-        "where status = 'current' and list_contains($names, source) order by source, path",
-        {"names": names},
-    ).fetchall()
-    return [GoneFile(s, Path(p), f, int(n)) for s, p, f, n in rows if not Path(p).exists()]
 
 
 def check_sources_have_files(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[str]:

@@ -125,26 +125,6 @@ def drop_reference_storage(con: duckdb.DuckDBPyConnection, spec: ReferenceSpec) 
     con.execute(f"drop table if exists {quote_identifier(spec.storage)}")
 
 
-def reset_reference(con: duckdb.DuckDBPyConnection, spec: ReferenceSpec) -> None:
-    """Forget a reference source's rows (its ledger rows become superseded), in one transaction."""
-    con.execute("begin transaction")
-    try:
-        drop_reference_storage(con, spec)
-        con.execute(
-            "delete from quarantine where file_id in (select file_id from ledger "
-            "where source = $source and status = 'current')",
-            {"source": spec.source},
-        )
-        con.execute(
-            "update ledger set status = 'superseded' where source = $source and status = 'current'",
-            {"source": spec.source},
-        )
-        con.execute("commit")
-    except BaseException:
-        con.execute("rollback")
-        raise
-
-
 def column_types(
     con: duckdb.DuckDBPyConnection,
     spec: ReferenceSpec,

@@ -67,7 +67,6 @@ from demandprep.ingest.references import (
     REFERENCE_SPECS,
     drop_reference_storage,
     layout_changed,
-    reset_reference,
     table_columns,
 )
 from demandprep.ingest.refusal import FilesRefused, Refusal, refusals
@@ -191,18 +190,6 @@ def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
         size += item.bytes
     if batch:
         yield batch
-
-
-def reset_changed_layouts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
-    """Empty each reference table whose column mapping changed, so its files load again whole.
-
-    `ingest_all` no longer needs it (a changed mapping reads the source again as replaced, its
-    table dropped inside the first batch's transaction); kept for callers that reset first.
-    """
-    for name, source in configured_sources(config):
-        spec = REFERENCE_SPECS.get(name)
-        if spec is not None and layout_changed(con, spec, source):
-            reset_reference(con, spec)
 
 
 def loader_for(config: ProjectConfig, source_name: str) -> Loader:

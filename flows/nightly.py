@@ -40,6 +40,7 @@ from demandprep.ingest.runner import (
     discover_files,
     ensure_tables,
     ingest_file,
+    still_refused,
 )
 from demandprep.stages import Stage, build_stages, run_stage
 from demandprep.warehouse import open_warehouse
@@ -58,9 +59,11 @@ def discover_task(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list
     ensure_tables(con)
     # as the direct ingest does: a source whose files were archived after their ingest keeps
     # its rows, with a warning (a changed reading setting reads its files again as replaced)
-    for warning in check_sources_have_files(con, config):
+    warnings = check_sources_have_files(con, config)
+    found = discover_files(con, config)
+    for warning in warnings + still_refused(found):
         get_run_logger().warning(warning)
-    return discover_files(con, config)
+    return found
 
 
 @task(

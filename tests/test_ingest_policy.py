@@ -177,6 +177,11 @@ def test_a_refused_file_is_not_read_again_until_its_settings_change(tmp_path: Pa
     again = ingest(config)
     assert by_name(again)["bad.csv"].status == "unchanged"
     assert again.ok
+    # a later night says the file is still held back, rather than nothing at all
+    assert again.warnings == [
+        f"{tmp_path / 'receipts' / 'bad.csv'}: refused before and unchanged since, so its rows "
+        "are still out; fix the file or the source's settings, or read it again with --reload."
+    ]
     config.write_text(config.read_text().replace('decimal = ","', 'decimal = "."'))
     fixed = by_name(ingest(config))["bad.csv"]
     assert (fixed.status, fixed.rows_accepted, fixed.rows_quarantined) == ("new", 240, 0)

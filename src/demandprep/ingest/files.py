@@ -52,6 +52,8 @@ class DiscoveredFile:
     # every current file of its (reference) source is read again with new settings: the
     # source's table may be rebuilt from nothing (runner.mark_source_rebuilds)
     rebuilds_source: bool = False
+    # 'refused' or 'withdrawn' when that ledger row is why an unchanged file stays out
+    held_back: str | None = None
 
 
 @dataclass(frozen=True)
@@ -122,6 +124,7 @@ def discover_source(
         forced = reload_all or path in reload
         status, settings_changed = file_status(sha, fingerprint, previous, blocked, forced)
         previous_id = previous.file_id if previous else None
+        kept_out = status == "unchanged" and blocked is not None and blocked.sha256 == sha
         found.append(
             DiscoveredFile(
                 source,
@@ -132,6 +135,7 @@ def discover_source(
                 previous_id,
                 fingerprint,
                 settings_changed,
+                held_back=blocked.status if kept_out and blocked else None,
             )
         )
     return found

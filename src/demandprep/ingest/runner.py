@@ -140,7 +140,7 @@ def ingest_all(
     discovered = discover_files(con, config, reload)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
-    summary = IngestSummary(warnings=warnings)
+    summary = IngestSummary(warnings=warnings + still_refused(discovered))
     for item in discovered:
         if item.status == "unchanged":
             _report(notify, summary, _unchanged(item))
@@ -161,6 +161,16 @@ def ingest_all(
             _report(notify, summary, result)
     notify("done", summary=summary)
     return summary
+
+
+def still_refused(discovered: list[DiscoveredFile]) -> list[str]:
+    """A warning for each file refused on an earlier night and left as it was since."""
+    return [
+        f"{item.path}: refused before and unchanged since, so its rows are still out; fix the "
+        "file or the source's settings, or read it again with --reload."
+        for item in discovered
+        if item.held_back == "refused"
+    ]
 
 
 def _report(notify: Progress, summary: IngestSummary, result: FileResult) -> None:

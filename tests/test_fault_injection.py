@@ -27,6 +27,7 @@ import random
 import shutil
 import subprocess
 import sys
+from collections import Counter
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -225,7 +226,7 @@ def check_after_kill(
     if not published:
         assert (latest and latest.name) == (before and before.name)
     else:
-        assert latest is not None and before is not None and latest.name != before.name
+        assert latest is not None and (before is None or latest.name != before.name)
         assert (latest / "manifest.json").is_file()
     if latest is not None and before is not None and latest.name == before.name:
         assert parquet_fingerprint(latest) == before_files
@@ -351,10 +352,15 @@ def test_ingest_killed_at_every_batch_boundary_recovers_exactly(
     check_rebuilt(runner, config_path, reference)
 
 
-def random_kill(runner: FaultRunner, rng: random.Random, action: str, config_path: Path) -> str:
-    """Kill `action` at a random boundary and call, or after a random delay."""
+def random_kill(
+    runner: FaultRunner, rng: random.Random, action: str, config_path: Path, kills: Counter
+) -> str:
+    """Kill `action` at a random boundary and call, or after a random delay; counts the kills."""
     if rng.random() < 0.5:
-        return runner.run(action, config_path, kill_after_seconds=rng.uniform(0.0, 4.0))
+        delay = rng.uniform(0.0, 4.0)
+        outcome = runner.run(action, config_path, kill_after_seconds=delay, full_report=True)
+        kills[f"{action} after a random delay"] += outcome == "killed"
+        return outcome
     if action == "ingest":
         target = rng.choice(("ingest.staged", "ingest.ledgered", "ingest.committed"))
         call = rng.randint(1, REFERENCE_BATCHES + 1)
@@ -362,7 +368,9 @@ def random_kill(runner: FaultRunner, rng: random.Random, action: str, config_pat
         target = rng.choice(("build.stage",) * 4 + tuple(t for t, _ in EXPORT_BEFORE_LATEST))
         stages = len(build_stages(load_config(config_path)))
         call = rng.randint(1, stages if target == "build.stage" else 3)
-    return runner.run(action, config_path, (target, call), full_report=True)
+    outcome = runner.run(action, config_path, (target, call), full_report=True)
+    kills[target] += outcome == "killed"
+    return outcome
 
 
 @pytest.mark.slow
@@ -372,19 +380,17 @@ def test_random_kills_recover_exactly(runner: FaultRunner, tmp_path: Path) -> No
     config_path = make_world(tmp_path / "world")
     config = load_config(config_path)
     reference = reference_run(runner, config_path)
-    kills = 0
+    kills: Counter[str] = Counter()
     for _ in range(rounds):
         shutil.rmtree(config.warehouse.path.parent, ignore_errors=True)
-        while (outcome := random_kill(runner, rng, "ingest", config_path)) == "killed":
-            kills += 1
+        while (outcome := random_kill(runner, rng, "ingest", config_path, kills)) == "killed":
             assert ledger_problems(config) == []
         assert outcome == "completed"
         assert runner.run("ingest", config_path) == "completed"
         before = latest_build(config.export.root)
         before_files = parquet_fingerprint(before) if before else None
         for _ in range(rng.randint(1, 6)):
-            if random_kill(runner, rng, "build", config_path) == "killed":
-                kills += 1
+            if random_kill(runner, rng, "build", config_path, kills) == "killed":
                 latest = latest_build(config.export.root)
                 published = latest is not None and (before is None or latest.name != before.name)
                 check_after_kill(config, before, before_files, published=published)
@@ -394,5 +400,6 @@ def test_random_kills_recover_exactly(runner: FaultRunner, tmp_path: Path) -> No
             else:
                 before = latest_build(config.export.root)
                 before_files = parquet_fingerprint(before)
+                assert before_files == reference
         check_rebuilt(runner, config_path, reference)
-    print(f"random kills: {kills} in {rounds} rounds")
+    print(f"random kills in {rounds} rounds: {sum(kills.values())} {dict(sorted(kills.items()))}")

@@ -106,6 +106,8 @@ def physical_lines(data: bytes) -> int:
     is not one) and a last line without a terminator still counts."""
     if not data:
         return 0
+    # POSIX (and `wc -l`): a line is terminated by <newline>; the README adds the last line
+    # without one
     return data.count(b"\n") + (0 if data.endswith(b"\n") else 1)
 
 

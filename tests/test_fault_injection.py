@@ -320,7 +320,8 @@ def test_build_and_export_killed_at_each_boundary_keep_latest_and_rebuild_identi
     check_rebuilt(runner, config_path, reference)
     # last, so that everything above is known to hold when only this fails
     root = load_config(config_path).export.root
-    assert export_debris(root) == [], "a killed publication left files the next build kept"
+    debris = export_debris(root)
+    assert debris == [], f"killed publications left files the next build kept: {debris}"
 
 
 @pytest.mark.slow

@@ -104,16 +104,26 @@ units_per_visit = 1.0
 def physical_lines(data: bytes) -> int:
     """Lines as the README defines them: a line ends at LF (CRLF is one terminator, a lone CR
     is not one) and a last line without a terminator still counts."""
-    if not data:
-        return 0
     # POSIX (and `wc -l`): a line is terminated by <newline>; the README adds the last line
     # without one
+    if not data:
+        return 0
     return data.count(b"\n") + (0 if data.endswith(b"\n") else 1)
 
 
-def data_lines(data: bytes) -> int:
-    """Physical lines after the header line."""
-    return max(physical_lines(data) - 1, 0)
+def record_line_numbers(data: bytes) -> list[int]:
+    """Numbers of the lines after the header that are records: not blank once their terminator
+    (LF or CRLF) is taken off (README: a blank line is no record but keeps its number)."""
+    lines = data.split(b"\n")
+    terminated = len(lines) - 1  # every piece but the last ended at an LF
+    if data.endswith(b"\n"):
+        lines.pop()  # the empty rest after a final LF is no line
+    numbers = []
+    for number, line in enumerate(lines, start=1):
+        text = line[:-1] if number <= terminated and line.endswith(b"\r") else line
+        if number > 1 and text:
+            numbers.append(number)
+    return numbers
 
 
 @dataclass(frozen=True)

@@ -134,10 +134,11 @@ def make_world(folder: Path) -> Path:
 
 
 def parquet_fingerprint(build: Path) -> dict[str, object]:
-    """file -> sha256 of every Parquet file; ledger.parquet as rows without `ingested_at`."""
+    """file -> sha256 of every Parquet file; a ledger.parquet that carries `ingested_at` (the
+    time each file went in, which a re-run changes) as its rows without that column."""
     found: dict[str, object] = {}
     for path in sorted(build.glob("*.parquet")):
-        if path.name == "ledger.parquet":
+        if "ingested_at" in pq.read_schema(path).names:
             found[path.name] = pq.read_table(path).drop_columns(["ingested_at"]).to_pylist()
         else:
             found[path.name] = file_sha256(path)

@@ -77,8 +77,10 @@ def install_trap(target: str, call: int) -> None:
         copy = types.ModuleType(inner.__name__)
         copy.__dict__.update(vars(inner))
         setattr(owner, inner_name, copy)
-        owner = copy
-    original = getattr(owner, attribute)
+        owners = [copy]
+    else:
+        owners = modules_holding(getattr(owner, attribute))
+    original = getattr(owners[0], attribute)
 
     def trapped(*args, **kwargs):
         CALLS[target] = CALLS.get(target, 0) + 1
@@ -89,7 +91,22 @@ def install_trap(target: str, call: int) -> None:
             kill_self()
         return result
 
-    setattr(owner, attribute, trapped)
+    for holder in owners:
+        setattr(holder, attribute, trapped)
+
+
+def modules_holding(function) -> list[types.ModuleType]:
+    """Every loaded demandprep module with a global bound to `function` (its own module first):
+    a caller that did `from module import function` holds its own reference."""
+    home = sys.modules[function.__module__]
+    others = [
+        module
+        for name, module in sorted(sys.modules.items())
+        if name.startswith("demandprep")
+        and module is not home
+        and getattr(module, function.__name__, None) is function
+    ]
+    return [home, *others]
 
 
 def one_line_report(ctx, staging_dir: Path, inputs) -> Path:

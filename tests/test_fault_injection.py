@@ -234,17 +234,22 @@ def check_after_kill(
 
 
 def check_rebuilt(runner: FaultRunner, config_path: Path, reference: dict) -> Path:
-    """A clean build after the faults: identical Parquet, no debris; returns the new build."""
+    """A clean build after the faults: identical Parquet, no staging folder left; returns it."""
     assert runner.run("build", config_path) == "completed"
     config = load_config(config_path)
     latest = latest_build(config.export.root)
     assert latest is not None
     assert parquet_fingerprint(latest) == reference
-    staging = config.export.root / STAGING
-    assert (
-        not [entry for entry in staging.iterdir() if entry.is_dir()] if staging.exists() else True
-    )
+    assert staging_folders(config.export.root) == []
     return latest
+
+
+def staging_folders(root: Path) -> list[str]:
+    """Folders left in the export's staging area (a build being written, or parked to delete)."""
+    staging = root / STAGING
+    if not staging.exists():
+        return []
+    return sorted(entry.name for entry in staging.iterdir() if entry.is_dir())
 
 
 def kill_ingest(runner: FaultRunner, config_path: Path, trap: tuple[str, int]) -> None:

@@ -94,7 +94,10 @@ def warehouse_problems(
         item = written[path]
         # every header is written intact: only receipts without their references may fail
         if row["status"] == "failed" and (item.source != "receipts" or references_in):
-            problems.append(f"{item.name}: failed ({row.get('reason')}) over damaged lines")
+            problems.append(
+                f"{item.name}: failed ({row.get('reason')}); only receipts without their "
+                "references may fail"
+            )
         if row["source"] != item.source or row["status"] not in FILE_STATUSES:
             problems.append(f"{item.name}: ledger source {row['source']}, status {row['status']}")
         elif row["status"] == "current":

@@ -37,7 +37,7 @@ BAD_NUMBERS = (
     "",
     " ",
 )
-# name -> bytes that spoil one rendered line (applied by `spoil_line`)
+# byte-level faults of one rendered line (see `spoil_line`)
 LINE_FAULTS = (
     "unclosed_quote",
     "doubled_quote",

@@ -38,6 +38,7 @@ from demandprep.config import ProjectConfig, load_config
 from demandprep.demo.world import WorldSpec, generate_world
 from demandprep.export.folder import BUILD_ID, LATEST, STAGING, latest_build
 from demandprep.export.manifest import file_sha256
+from demandprep.export.root_lock import LOCK_FILE
 from demandprep.stages import build_stages
 from demandprep.warehouse import open_warehouse
 
@@ -202,13 +203,14 @@ def ledger_problems(config: ProjectConfig) -> list[str]:
 
 
 def export_debris(root: Path) -> list[str]:
-    """Anything under the export root besides published builds, `latest` and an empty staging."""
+    """Anything under the export root besides published builds, `latest`, the publishers' lock
+    file and an empty staging."""
     if not root.exists():
         return []
     found = [
         entry.name
         for entry in root.iterdir()
-        if entry.name not in (LATEST, STAGING)
+        if entry.name not in (LATEST, STAGING, LOCK_FILE)
         and not (entry.is_dir() and BUILD_ID.match(entry.name))
     ]
     staging = root / STAGING

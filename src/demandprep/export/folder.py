@@ -222,22 +222,36 @@ def latest_build(root: Path) -> Path | None:
 
 
 def clean_stale_staging(root: Path) -> list[Path]:
-    """Remove what dead writers left in staging: their marked folders and their pid files.
+    """Remove what dead writers left: their marked staging folders, their pid files and their
+    temporary `latest` pointers.
 
     Folders without our marker, links and other files are left alone; a linked `.staging`
     is refused (`check_export_root`), so nothing is ever deleted through a link.
     """
     check_export_root(root)
+    removed = _remove_stale_latest_pointers(root)
     staging_root = root / STAGING
     if not staging_root.is_dir():
-        return []
-    removed = []
+        return removed
     for entry in sorted(staging_root.iterdir()):
         if _is_stale_staging(entry):
             shutil.rmtree(entry)
             _pid_file(entry).unlink(missing_ok=True)
             removed.append(entry)
         elif _is_stale_pid_file(entry):
+            entry.unlink()
+            removed.append(entry)
+    return removed
+
+
+def _remove_stale_latest_pointers(root: Path) -> list[Path]:
+    # Why: a kill between writing `.latest-<id>.tmp` and moving it over `latest` leaves it; the
+    # caller holds the root's lock, so no live publisher owns one. Only our own name pattern,
+    # as a link or a small pointer file, is removed.
+    removed = []
+    for entry in sorted(root.glob(f".{LATEST}-*.tmp")):
+        build_id = entry.name.removeprefix(f".{LATEST}-").removesuffix(".tmp")
+        if BUILD_ID.match(build_id) and (entry.is_symlink() or entry.is_file()):
             entry.unlink()
             removed.append(entry)
     return removed

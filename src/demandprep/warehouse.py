@@ -6,9 +6,6 @@ on an advisory lock file beside the database, then stops with a clear message.
 
 from __future__ import annotations
 
-import fcntl
-import os
-import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -17,9 +14,8 @@ import duckdb
 
 from demandprep.config import WarehouseSection
 from demandprep.errors import UserError
+from demandprep.file_lock import pid_file_lock
 from demandprep.memory import remember_memory_limit
-
-POLL_SECONDS = 0.2
 
 
 def lock_path(database: Path) -> Path:
@@ -30,35 +26,16 @@ def lock_path(database: Path) -> Path:
 @contextmanager
 def writer_lock(database: Path, timeout_seconds: float) -> Iterator[None]:
     """Hold the warehouse's writer lock, waiting at most `timeout_seconds` for it."""
-    path = lock_path(database)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with path.open("a+") as handle:
-        _acquire(handle, path, timeout_seconds)
-        handle.seek(0)
-        handle.truncate()
-        handle.write(str(os.getpid()))
-        handle.flush()
-        try:
-            yield
-        finally:
-            fcntl.flock(handle, fcntl.LOCK_UN)
 
+    def busy(holder: str) -> UserError:
+        return UserError(
+            f"{database}: another demandprep process (pid {holder}) is writing this "
+            f"warehouse; waited {timeout_seconds:g} s.",
+            "wait for it to finish or raise warehouse.lock_timeout_seconds.",
+        )
 
-def _acquire(handle, path: Path, timeout_seconds: float) -> None:
-    deadline = time.monotonic() + timeout_seconds
-    while True:
-        try:
-            fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
-            return
-        except BlockingIOError:
-            if time.monotonic() >= deadline:
-                holder = path.read_text().strip() or "unknown"
-                raise UserError(
-                    f"{path.with_suffix('')}: another demandprep process (pid {holder}) is "
-                    f"writing this warehouse; waited {timeout_seconds:g} s.",
-                    "wait for it to finish or raise warehouse.lock_timeout_seconds.",
-                ) from None
-            time.sleep(POLL_SECONDS)
+    with pid_file_lock(lock_path(database), timeout_seconds, busy):
+        yield
 
 
 def connect(settings: WarehouseSection, read_only: bool = False) -> duckdb.DuckDBPyConnection:

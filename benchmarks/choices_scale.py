@@ -181,7 +181,7 @@ def run_build(database: Path, memory_limit: str) -> dict:
     """Every choice stage on the benchmark warehouse; returns rows, seconds and peak memory."""
     from demandprep.choices.stages import CHOICE_STAGES
     from demandprep.context import BuildContext
-    from demandprep.stages import run_stage
+    from demandprep.stage import run_stage
     from demandprep.warehouse import connect
 
     config = bench_config(database, memory_limit)

@@ -42,7 +42,8 @@ from demandprep.ingest.runner import (
     ingest_file,
     still_refused,
 )
-from demandprep.stages import Stage, build_stages, run_stage
+from demandprep.stage import Stage, run_stage
+from demandprep.stages import build_stages
 from demandprep.warehouse import open_warehouse
 
 # Reading a file can fail for a moment (a network share, a file still being copied in).

@@ -22,7 +22,7 @@ from demandprep.choices.pseudonyms import occasion_id
 from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
-from demandprep.stages import run_stage
+from demandprep.stage import run_stage
 
 KEY_ENV = "DEMANDPREP_PSEUDONYM_KEY"
 TEST_KEY = "test-key-for-choice-fixtures-0123456789"

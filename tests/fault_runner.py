@@ -44,7 +44,7 @@ TRAPS: dict[str, tuple[str, str, str]] = {
     "ingest.ledgered": ("demandprep.ingest.ledger", "record_batch", "after"),
     "ingest.committed": ("demandprep.ingest.runner", "ingest_batch", "after"),
     # build: before the Nth stage runs (stage N - 1 done)
-    "build.stage": ("demandprep.stages", "run_stage", "before"),
+    "build.stage": ("demandprep.stage", "run_stage", "before"),
     # export: staging folder made / Nth data file written / before the manifest / before the
     # rename into place / before `latest` moves / after `latest` moved / while pruning
     "export.staging_opened": ("demandprep.export.folder", "_mark_as_ours", "after"),

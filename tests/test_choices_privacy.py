@@ -15,7 +15,7 @@ from demandprep.choices.pseudonyms import chooser_pseudonym
 from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
-from demandprep.stages import run_stage
+from demandprep.stage import run_stage
 
 DAY = date(2024, 1, 15)
 

@@ -25,7 +25,7 @@ from demandprep.export.root_lock import export_root_lock
 from demandprep.flows import nightly
 from demandprep.flows.build_log import build_log_path
 from demandprep.pipeline import run_build, run_ingest
-from demandprep.stages import Stage
+from demandprep.stage import Stage
 from demandprep.warehouse import writer_lock
 
 REPO = Path(__file__).resolve().parents[1]

@@ -33,7 +33,7 @@ from demandprep.config import parse_config
 from demandprep.errors import UserError
 from demandprep.export import report_data
 from demandprep.market.stages import MARKET_STAGES, run_market_stages
-from demandprep.stages import run_stage
+from demandprep.stage import run_stage
 
 ALDER, BIRCH, CEDAR = "Alder|beans|250", "Birch|ground|500", "Cedar|capsules|100"
 STAGE_NAMES = [stage.name for stage in MARKET_STAGES]

@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from demandprep.progress import BuildLog, IngestLog
-from demandprep.stages import Stage
+from demandprep.stage import Stage
 
 
 def test_a_batch_retried_file_by_file_is_still_one_line() -> None:

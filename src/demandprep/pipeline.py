@@ -9,7 +9,8 @@ from pathlib import Path
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.ingest.results import PROBLEM_STATUSES
-from demandprep.stages import Stage, build_stages, run_stage
+from demandprep.stage import Stage, run_stage
+from demandprep.stages import build_stages
 from demandprep.warehouse import open_warehouse
 
 StageDone = Callable[[Stage, float], None]

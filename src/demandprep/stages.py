@@ -1,42 +1,26 @@
-"""The build's stage list, defined once; the CLI's direct runner and the Prefect flow walk it."""
+"""The build's stage list, defined once; the CLI's direct runner and the Prefect flow walk it.
+
+This registry imports the step packages; they import only the kernel (`stage.py`).
+"""
 
 from __future__ import annotations
 
-import time
 from collections.abc import Callable
-from dataclasses import dataclass
 
+from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
-from demandprep.memory import out_of_memory_reported
-
-
-@dataclass(frozen=True)
-class Stage:
-    """One build step: a name for logs and timings, and the function that runs it."""
-
-    name: str
-    run: Callable[[BuildContext], None]
+from demandprep.instruments.stages import INSTRUMENT_STAGES
+from demandprep.market.stages import MARKET_STAGES
+from demandprep.stage import Stage, run_stage
 
 
 def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
     """Every stage of a build, in the order they run, for this config."""
-    from demandprep.choices.stages import CHOICE_STAGES
-    from demandprep.instruments.stages import INSTRUMENT_STAGES
-    from demandprep.market.stages import MARKET_STAGES
-
     stages = MARKET_STAGES + INSTRUMENT_STAGES
     if config.choices.enabled:
         stages += CHOICE_STAGES
     return stages
-
-
-def run_stage(stage: Stage, ctx: BuildContext) -> None:
-    """Run one stage and record how long it took; DuckDB out of memory becomes one line."""
-    started = time.perf_counter()
-    with out_of_memory_reported(stage.name, ctx.config.warehouse):
-        stage.run(ctx)
-    ctx.timings[stage.name] = round(time.perf_counter() - started, 3)
 
 
 def run_build_stages(ctx: BuildContext, on_stage: Callable[[Stage], None] | None = None) -> None:

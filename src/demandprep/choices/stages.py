@@ -8,7 +8,7 @@ from demandprep.choices.build import (
     build_choosers,
     prepare_choice_inputs,
 )
-from demandprep.stages import Stage
+from demandprep.stage import Stage
 
 CHOICE_STAGES: tuple[Stage, ...] = (
     Stage("choice_inputs", prepare_choice_inputs),

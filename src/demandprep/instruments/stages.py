@@ -6,7 +6,7 @@ from demandprep.instruments.cost_shifters import build_cost_shifters
 from demandprep.instruments.first_stage import measure_first_stage
 from demandprep.instruments.hausman import build_hausman_prices
 from demandprep.instruments.inputs import prepare_instrument_inputs
-from demandprep.stages import Stage
+from demandprep.stage import Stage
 
 INSTRUMENT_STAGES: tuple[Stage, ...] = (
     Stage("instrument_inputs", prepare_instrument_inputs),

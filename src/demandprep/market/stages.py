@@ -46,7 +46,7 @@ from demandprep.market.inputs import create_input_views
 from demandprep.market.settings import check_inputs, market_params, write_settings
 from demandprep.schemas.market import MARKET_MODELS
 from demandprep.sqlfiles import run_sql
-from demandprep.stages import Stage, run_stage
+from demandprep.stage import Stage, run_stage
 from demandprep.validate import validate_table
 
 SQL_FILES: dict[str, str] = {

@@ -37,7 +37,7 @@ class _World(ChoiceWorld):
 
     def write(self, con) -> None:
         super().write(con)
-        if not self.promo:
+        if not self.promo and self.shelf is not None:
             con.execute("alter table shelf_prices drop column promo")
         if not self.region:
             con.execute("alter table stores drop column region")

@@ -1,4 +1,6 @@
 -- Products of the market build's universe and whether each is kept as an alternative of its own.
+-- Without a market build choice_input_product_universe is empty, which 010 reads as "every
+-- category product is kept".
 create or replace table choice_universe as
 
 with
@@ -7,7 +9,7 @@ universe as (
     select
         cast(product as varchar) as product,
         kept,
-    from product_universe
+    from choice_input_product_universe
 ),
 
 final as (

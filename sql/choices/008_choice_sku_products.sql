@@ -1,15 +1,24 @@
--- SKU -> product for in-scope categories: the catalogue key values joined with '|', in config
--- order (the same ids as the market build's market_skus, used instead when it exists).
+-- SKU -> product for in-scope categories: as the market build mapped them ($from_market, when
+-- market_skus exists), else the catalogue key values joined with '|', in config order (the same
+-- ids as the market build's).
 create or replace table choice_sku_products as
 
 with
+
+market_sku_products as (
+    select
+        cast(sku as varchar) as sku,
+        product,
+    from choice_input_market_skus
+    where $from_market
+),
 
 category_skus as (
     select
         cast(sku as varchar) as catalogue_sku,
         columns(lambda c: list_contains($product_keys, c))::varchar,
     from catalogue
-    where list_contains($categories, cast(category as varchar))
+    where not $from_market and list_contains($categories, cast(category as varchar))
 ),
 
 sku_key_values as (
@@ -17,7 +26,7 @@ sku_key_values as (
     unpivot include nulls (key_value for key_name in (columns(* exclude (catalogue_sku))))
 ),
 
-sku_products as (
+catalogue_sku_products as (
     select
         catalogue_sku as sku,
         string_agg(
@@ -25,6 +34,12 @@ sku_products as (
         ) as product,
     from sku_key_values
     group by catalogue_sku
+),
+
+final as (
+    select sku, product from market_sku_products
+    union all
+    select sku, product from catalogue_sku_products
 )
 
-select sku, product from sku_products;
+select sku, product from final;

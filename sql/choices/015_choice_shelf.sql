@@ -1,7 +1,15 @@
 -- Shelf-price rows of category SKUs that map to an alternative, with promo and extra attributes.
+-- No shelf-price file: choice_input_shelf_prices is empty and every choice set comes from the
+-- products sold in the store. A file without a promo column gets one, all null.
 create or replace table choice_shelf as
 
 with
+
+shelf_rows as (
+    from choice_input_shelf_prices
+    union all by name
+    select null::boolean as promo where false
+),
 
 shelf as (
     select
@@ -9,7 +17,7 @@ shelf as (
         cast(date as date) as date,
         cast(sku as varchar) as sku,
         columns(lambda c: list_contains($shelf_carried, c)),
-    from shelf_prices
+    from shelf_rows
 ),
 
 mapped as (

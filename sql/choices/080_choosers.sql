@@ -1,5 +1,6 @@
 -- One row per chooser with at least one occasion: pseudonym, holdout flag, demographics from the
 -- households file (household_known says whether the card was found there) and occasion counts.
+-- Without a households file choice_input_households is empty: household_known is false.
 create or replace table choosers as
 
 with
@@ -13,7 +14,7 @@ households as (
         cast(card as varchar) as household_card,
         -- $demographics starts with card, so the selection is never empty
         min(columns(lambda c: list_contains($demographics, c))),
-    from households
+    from choice_input_households
     group by cast(card as varchar)
 ),
 

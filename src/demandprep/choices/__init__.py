@@ -1,7 +1,11 @@
 """The chooser-alternative build: card visits -> one row per choice occasion and alternative.
 
 Stages (demandprep.choices.stages) run static SQL from sql/choices/ in DuckDB, out of core, and
-write `choices` and `choosers` (pandera models in demandprep.schemas.choices). Decisions:
+write `choices` and `choosers` (pandera models in demandprep.schemas.choices). Each step has
+one SQL file, run for every config: an optional table that is absent (households, shelf prices,
+the market build's product_universe and market_skus) reads as an empty TEMP view
+`choice_input_<table>` (demandprep.choices.inputs), an absent shelf promo or store region column
+as all null, and the market build's SKU ids are used when they exist ($from_market). Decisions:
 
 - Chooser: a loyalty card, pseudonymised as HMAC-SHA256(key, card) (32 hex digits); the key
   comes from the environment variable choices.pseudonym_key_env and the build refuses to run

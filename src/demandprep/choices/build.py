@@ -11,6 +11,7 @@ Intermediate tables are named choice_*; the last stage drops them, the card -> c
 from __future__ import annotations
 
 from demandprep.choices.facts import choice_facts, warn_on_facts
+from demandprep.choices.inputs import create_input_views, drop_input_views
 from demandprep.choices.pseudonyms import (
     build_pseudonym_table,
     occasion_hash_parameters,
@@ -74,30 +75,22 @@ def prepare_choice_inputs(ctx: BuildContext) -> None:
             "no product_universe table (market build): every category product is an "
             "alternative of its own in the choice build."
         )
-    _run(ctx, settings, *_input_files(settings))
+    # absent optional inputs (households, shelf prices, market build) read as empty views
+    create_input_views(ctx.con)
+    _run(ctx, settings, *INPUT_FILES)
     _check_reserved_alternatives(ctx)
     _check_universe_matches(ctx, settings)
 
 
-def _input_files(settings: ChoiceSettings) -> list[str]:
-    # each optional input (market build, shelf file and its promo column, store regions) has a
-    # variant of its SQL file, so no file has to test for a table or column that may be absent
-    shelf = "015_choice_shelf_empty"
-    if settings.has_shelf_prices:
-        shelf = "015_choice_shelf" if settings.shelf_has_promo else "015_choice_shelf_without_promo"
-    return [
-        "005_choice_universe" if settings.has_universe else "005_choice_universe_without_market",
-        "008_choice_sku_products_from_market"
-        if settings.has_market_skus
-        else "008_choice_sku_products",
-        "010_choice_alternative_map",
-        shelf,
-        "020_choice_sales",
-        "025_choice_calendar",
-        "027_choice_store_regions"
-        if settings.has_region
-        else "027_choice_store_regions_without_region",
-    ]
+INPUT_FILES = (
+    "005_choice_universe",
+    "008_choice_sku_products",
+    "010_choice_alternative_map",
+    "015_choice_shelf",
+    "020_choice_sales",
+    "025_choice_calendar",
+    "027_choice_store_regions",
+)
 
 
 def _check_reserved_alternatives(ctx: BuildContext) -> None:
@@ -182,8 +175,7 @@ def build_choice_sets(ctx: BuildContext) -> None:
 def build_choosers(ctx: BuildContext) -> None:
     """The choosers table (pseudonym, holdout, demographics, counts), validated."""
     settings = _settings(ctx)
-    name = "080_choosers" if settings.has_households else "080_choosers_without_households"
-    _run(ctx, settings, name)
+    _run(ctx, settings, "080_choosers")
     validate_table(ctx.con, "choosers", Choosers)
 
 
@@ -201,6 +193,7 @@ def build_choices(ctx: BuildContext) -> None:
 
 
 def drop_intermediate_tables(ctx: BuildContext) -> None:
-    """Drop the choice_* working tables (the card -> chooser map first)."""
+    """Drop the choice_* working tables (the card -> chooser map first) and the input views."""
     for table in INTERMEDIATE_TABLES:
         ctx.con.execute(f"drop table if exists {table}")
+    drop_input_views(ctx.con)

@@ -71,10 +71,6 @@ class ChoiceSettings:
     characteristics: tuple[str, ...]
     demographics: tuple[str, ...]
     shelf_attributes: tuple[str, ...]
-    has_shelf_prices: bool
-    shelf_has_promo: bool
-    has_households: bool
-    has_region: bool
     has_universe: bool
     has_market_skus: bool
 
@@ -93,11 +89,11 @@ class ChoiceSettings:
             "firm_column": config.products.firm,
             "nest_column": config.products.nest or config.products.firm,
             "has_nest": config.products.nest is not None,
+            "from_market": self.has_market_skus,
             "characteristics": list(self.characteristics),
             "alternative_columns": ["firm", "nest", *self.characteristics],
             "demographics": ["card", *self.demographics],
-            "shelf_carried": ["price", *(["promo"] if self.shelf_has_promo else [])]
-            + list(self.shelf_attributes),
+            "shelf_carried": ["price", "promo", *self.shelf_attributes],
             "shelf_attributes": ["promo", *self.shelf_attributes],
             "price_columns": [
                 "store",
@@ -162,10 +158,6 @@ def load_choice_settings(con: duckdb.DuckDBPyConnection, config: ProjectConfig) 
         characteristics=tuple(c for c in products.characteristics if c != products.firm),
         demographics=demographics,
         shelf_attributes=extras,
-        has_shelf_prices=shelf is not None,
-        shelf_has_promo=shelf is not None and "promo" in shelf,
-        has_households=households is not None,
-        has_region="region" in (table_columns(con, "stores") or []),
         has_universe=table_columns(con, "product_universe") is not None,
         has_market_skus=table_columns(con, "market_skus") is not None,
     )

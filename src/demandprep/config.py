@@ -177,7 +177,7 @@ class FileSource(Section):
 
 
 class ReceiptSource(FileSource):
-    """The receipt lines: one row per scanned line; takes every key of any source, and these."""
+    """The receipt lines, one row per scanned line."""
 
     timestamp_format: str = described(
         "strftime format of sold_at. For example %Y-%m-%d %H:%M:%S.",

@@ -3,7 +3,11 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
+import pytest
+
+from demandprep import config_reference
 from demandprep.config import (
     ReceiptSource,
     config_models,
@@ -14,6 +18,8 @@ from demandprep.config import (
 )
 from demandprep.config_reference import (
     REFERENCE_SECTIONS,
+    STARTER_VALUES,
+    Commented,
     reference_heading,
     reference_markdown,
     section_fields,
@@ -130,3 +136,23 @@ def _comment_above(lines: list[str], number: int) -> str:
         number -= 1
         comment.insert(0, lines[number].lstrip("# "))
     return " ".join(comment)
+
+
+def test_starter_examples_written_commented_out_are_valid_once_uncommented(
+    monkeypatch: pytest.MonkeyPatch, tmp_path: Path
+) -> None:
+    monkeypatch.setattr(config_reference, "STARTER_VALUES", _uncommented(STARTER_VALUES))
+    target = tmp_path / "demandprep.toml"
+    target.write_text(starter_toml(), encoding="utf-8")
+    config = load_config(target, check_files=False)
+    assert config.sources.households is not None
+    assert config.instruments.cost_shifters is not None
+    assert config.market_size["agreed"].method == "table"
+
+
+def _uncommented(value: Any) -> Any:
+    if isinstance(value, Commented):
+        return _uncommented(value.value)
+    if isinstance(value, dict):
+        return {key: _uncommented(item) for key, item in value.items()}
+    return value

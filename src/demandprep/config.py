@@ -51,7 +51,7 @@ RECEIPT_COLUMNS = {
     "line_kind": "sale, return or void",
 }
 RECEIPT_REQUIRED = ("receipt", "store", "sold_at", "sku", "quantity", "amount")
-RECEIPT_OPTIONAL = ("line", "card", "discount", "line_kind")
+RECEIPT_OPTIONAL = tuple(name for name in RECEIPT_COLUMNS if name not in RECEIPT_REQUIRED)
 # The build sums quantities and amounts as DECIMAL(18, 6) (sql/market/060): 12 whole digits.
 DECIMAL_LIMIT = 999_999_999_999.0
 # Settings that do not change how a source's files are read (see FileSource.settings_fingerprint).

@@ -381,7 +381,7 @@ def _keys_lines(path: str, model: Any, values: dict[str, Any]) -> list[str]:
     for name, field in documented_fields(model).items():
         if model in SPARSE_SECTIONS and name not in values:
             continue
-        value = values[name] if name in values else _starter_default(field)
+        value = values[name] if name in values else _starter_default(f"{path}.{name}", field)
         if _model_of(field.annotation) is not None:
             tables += _table_lines(f"{path}.{name}", field, value)
         elif isinstance(value, dict) and value:
@@ -433,9 +433,9 @@ def _comment(text: str) -> list[str]:
     )
 
 
-def _starter_default(field: FieldInfo) -> Any:
+def _starter_default(key: str, field: FieldInfo) -> Any:
     if field.is_required():
-        raise ValueError(f"STARTER_VALUES lacks a value for the required key {field}")
+        raise ValueError(f"STARTER_VALUES lacks a value for the required key {key}")
     return field.get_default(call_default_factory=True)
 
 

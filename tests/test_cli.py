@@ -14,6 +14,7 @@ from typer.testing import CliRunner
 from demandprep import __version__
 from demandprep.cli import app
 from demandprep.config import load_config
+from demandprep.config_reference import starter_toml
 from demandprep.export.folder import published_builds
 
 RUNNER = CliRunner()
@@ -32,7 +33,7 @@ def test_init_writes_a_starter_that_validates(tmp_path: Path) -> None:
     target = tmp_path / "project.toml"
     result = RUNNER.invoke(app, ["init", str(target)])
     assert result.exit_code == 0, result.output
-    assert target.read_text() == (TEMPLATES / "starter.toml").read_text()
+    assert target.read_text() == starter_toml()
     assert load_config(target, check_files=False).markets.period == "week"
 
 
@@ -47,7 +48,7 @@ def test_init_refuses_to_overwrite(tmp_path: Path) -> None:
 
 def test_check_of_a_broken_config_lists_every_problem_one_line_each(tmp_path: Path) -> None:
     config = tmp_path / "demandprep.toml"
-    shutil.copy(TEMPLATES / "starter.toml", config)
+    config.write_text(starter_toml(), encoding="utf-8")
     result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
     assert result.exit_code == 1
     lines = [line for line in result.output.splitlines() if line.strip()]

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from contextlib import contextmanager
-from importlib import resources
 from pathlib import Path
 from typing import Annotated
 
@@ -15,6 +14,7 @@ from rich.text import Text
 
 from demandprep import __version__
 from demandprep.config import ConfigInvalid, ProjectConfig, load_config
+from demandprep.config_reference import starter_toml
 from demandprep.errors import UserError
 
 app = typer.Typer(
@@ -69,8 +69,7 @@ def init_command(
     with user_errors():
         if path.exists() and not force:
             raise UserError(f"{path}: already exists.", "pass --force to overwrite it.")
-        text = resources.files("demandprep.templates").joinpath("starter.toml").read_text()
-        path.write_text(text, encoding="utf-8")
+        path.write_text(starter_toml(), encoding="utf-8")
         say(f"wrote {path}; edit the [sources] paths, then run `demandprep check {path}`")
 
 

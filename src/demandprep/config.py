@@ -26,6 +26,7 @@ from pydantic import (
     field_validator,
     model_validator,
 )
+from pydantic.fields import FieldInfo
 
 from demandprep.errors import UserError
 
@@ -34,10 +35,23 @@ Identifier = Annotated[str, Field(pattern=IDENTIFIER_PATTERN)]
 # Text is accepted for these (TOML has no path type; a date may be written quoted).
 LaxPath = Annotated[Path, Strict(False)]
 LaxDate = Annotated[date, Strict(False)]
-README_HINT = 'see "Config reference" in README.md.'
+DOCS_HINT = "see docs/config.md."
 
+# Our receipt columns (the keys of sources.receipts.columns) and what each holds.
+RECEIPT_COLUMNS = {
+    "receipt": "receipt (ticket) id",
+    "line": "line number within the receipt",
+    "store": "store id, as in the stores file",
+    "sold_at": "time of the scan",
+    "sku": "SKU id, as in the catalogue",
+    "quantity": "packs, or kg / lb for weight-sold items",
+    "amount": "gross line amount, before discounts",
+    "card": "loyalty card id; pseudonymised in every export",
+    "discount": "line discount (>= 0)",
+    "line_kind": "sale, return or void",
+}
 RECEIPT_REQUIRED = ("receipt", "store", "sold_at", "sku", "quantity", "amount")
-RECEIPT_OPTIONAL = ("line", "card", "discount", "line_kind")
+RECEIPT_OPTIONAL = tuple(name for name in RECEIPT_COLUMNS if name not in RECEIPT_REQUIRED)
 # The build sums quantities and amounts as DECIMAL(18, 6) (sql/market/060): 12 whole digits.
 DECIMAL_LIMIT = 999_999_999_999.0
 # Settings that do not change how a source's files are read (see FileSource.settings_fingerprint).
@@ -50,6 +64,11 @@ class Section(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True, strict=True)
 
 
+def described(description: str, unit: str = "", **field: Any) -> Any:
+    """A config Field with its description (short first sentence) and unit, for docs and hints."""
+    return Field(description=description, json_schema_extra={"unit": unit}, **field)
+
+
 def _resolve(path: Path | str, info: ValidationInfo) -> Path:
     base = (info.context or {}).get("base_dir", Path.cwd())
     path = Path(path).expanduser()
@@ -57,16 +76,40 @@ def _resolve(path: Path | str, info: ValidationInfo) -> Path:
 
 
 class ProjectSection(Section):
-    name: str = "demandprep-project"
-    description: str = ""
+    """What the project is called; shown in reports."""
+
+    name: str = described(
+        "Project name. Free text, shown in reports.", default="demandprep-project"
+    )
+    description: str = described("Project description. Free text, shown in reports.", default="")
 
 
 class WarehouseSection(Section):
-    path: LaxPath = Path("warehouse/demandprep.duckdb")
-    memory_limit: str = Field("4GB", pattern=r"^\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)$")
-    threads: int = Field(2, ge=1, le=256)
-    temp_directory: LaxPath = Path("warehouse/tmp")
-    lock_timeout_seconds: float = Field(30.0, ge=0)
+    """The embedded DuckDB warehouse: where it lives and what it may use."""
+
+    path: LaxPath = described(
+        "DuckDB warehouse file. Relative paths resolve against the config file's folder.",
+        default=Path("warehouse/demandprep.duckdb"),
+    )
+    memory_limit: str = described(
+        "Memory DuckDB may use. DuckDB spills to temp_directory beyond it; "
+        "the process peaks a little above it.",
+        unit="bytes, with KB, MB, GB, TB, KiB, MiB, GiB or TiB",
+        default="4GB",
+        pattern=r"^\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)$",
+    )
+    threads: int = described("DuckDB worker threads.", unit="threads", default=2, ge=1, le=256)
+    temp_directory: LaxPath = described(
+        "Where DuckDB spills beyond memory_limit. Relative to the config file's folder.",
+        default=Path("warehouse/tmp"),
+    )
+    lock_timeout_seconds: float = described(
+        "How long a second writer waits. A second writer of the warehouse (or of the export "
+        "root) waits this long for the first, then stops with a message.",
+        unit="seconds",
+        default=30.0,
+        ge=0,
+    )
 
     @field_validator("path", "temp_directory", mode="after")
     @classmethod
@@ -77,16 +120,40 @@ class WarehouseSection(Section):
 class FileSource(Section):
     """One input: a file or glob, its format and the mapping from our column names to its own."""
 
-    files: list[str] = Field(min_length=1)
-    format: Literal["csv", "parquet"] = "csv"
-    delimiter: str = Field(",", min_length=1, max_length=1)
-    decimal: Literal[".", ","] = "."
-    encoding: Literal["utf-8", "utf-16", "latin-1"] = "utf-8"
-    header: bool = True
-    columns: dict[Identifier, str] = Field(default_factory=dict)
-    # refuse a file when more than this share of its lines AND more than this many are quarantined
-    reject_limit_fraction: float = Field(0.5, ge=0, le=1)
-    reject_limit_lines: int = Field(100, ge=0)
+    files: list[str] = described(
+        "Files to read, as globs. Relative to the config file's folder; CSV may be plain, .gz "
+        "or .zst.",
+        min_length=1,
+    )
+    format: Literal["csv", "parquet"] = described("File format.", default="csv")
+    delimiter: str = described(
+        "CSV field delimiter. One character.", default=",", min_length=1, max_length=1
+    )
+    decimal: Literal[".", ","] = described("Decimal mark of numbers in CSV files.", default=".")
+    encoding: Literal["utf-8", "utf-16", "latin-1"] = described(
+        "Text encoding of CSV files.", default="utf-8"
+    )
+    header: bool = described("Whether CSV files start with a header line.", default=True)
+    columns: dict[Identifier, str] = described(
+        "Our column names = the file's column names. A table: each key is our name, each value "
+        "the name in your file; the required names depend on the source.",
+        default_factory=dict,
+    )
+    reject_limit_fraction: float = described(
+        "Refuse a file past this share of bad lines. A file is refused whole when more than "
+        "this share of its lines AND more than reject_limit_lines of them are quarantined.",
+        unit="share 0..1 of a file's lines",
+        default=0.5,
+        ge=0,
+        le=1,
+    )
+    reject_limit_lines: int = described(
+        "Refuse a file past this many bad lines. Both limits must be passed; the count keeps a "
+        "small file with a few bad lines from being refused.",
+        unit="lines",
+        default=100,
+        ge=0,
+    )
 
     @field_validator("files", mode="after")
     @classmethod
@@ -110,15 +177,44 @@ class FileSource(Section):
 
 
 class ReceiptSource(FileSource):
-    timestamp_format: str = "%Y-%m-%d %H:%M:%S"
-    timezone: str | None = None
-    valid_from: LaxDate | None = None
-    valid_to: LaxDate | None = None
-    returns_in_demand: bool = False
-    # plausibility bounds of one line (absolute values); larger lines are value_out_of_range
-    # (the ingest also never lets a value past DECIMAL_LIMIT, whatever these say)
-    max_quantity: float = Field(10_000.0, gt=0)
-    max_amount: float = Field(1_000_000.0, gt=0)
+    """The receipt lines, one row per scanned line."""
+
+    timestamp_format: str = described(
+        "strftime format of sold_at. For example %Y-%m-%d %H:%M:%S.",
+        default="%Y-%m-%d %H:%M:%S",
+    )
+    timezone: str | None = described(
+        "Timezone sold_at is written in. Set it when timestamps are not local store time "
+        "(e.g. UTC); unset means they are.",
+        default=None,
+    )
+    valid_from: LaxDate | None = described(
+        "First sale day accepted. Earlier lines are quarantined (timestamp_out_of_range).",
+        default=None,
+    )
+    valid_to: LaxDate | None = described(
+        "Last sale day accepted. Later lines are quarantined (timestamp_out_of_range).",
+        default=None,
+    )
+    returns_in_demand: bool = described(
+        "Whether returns count in demand. Voids always net against the sale they cancel; "
+        "returns are kept with their kind and only net against sales when this is true.",
+        default=False,
+    )
+    max_quantity: float = described(
+        "Largest plausible quantity of one line. In absolute value; larger lines are "
+        "value_out_of_range (the ingest also stops any value past 12 whole digits).",
+        unit="units of the quantity column (packs, kg or lb) per line",
+        default=10_000.0,
+        gt=0,
+    )
+    max_amount: float = described(
+        "Largest plausible amount or discount of one line. In absolute value; larger lines "
+        "are value_out_of_range.",
+        unit="currency units per line",
+        default=1_000_000.0,
+        gt=0,
+    )
 
     @model_validator(mode="after")
     def _required_columns(self) -> ReceiptSource:
@@ -143,13 +239,35 @@ REFERENCE_REQUIRED: dict[str, tuple[str, ...]] = {
 
 
 class SourcesSection(Section):
-    receipts: ReceiptSource
-    catalogue: FileSource
-    stores: FileSource
-    households: FileSource | None = None
-    shelf_prices: FileSource | None = None
-    market_sizes: FileSource | None = None
-    cost_shifters: FileSource | None = None
+    """The input files, one table per source; each maps our column names to the file's."""
+
+    receipts: ReceiptSource = described(
+        "Receipt lines, one per scanned line. Its columns are listed under [sources.receipts]."
+    )
+    catalogue: FileSource = described(
+        "Catalogue, one row per SKU. Also maps the columns the products section names (keys, "
+        "firm, nest, characteristics, pack size and unit)."
+    )
+    stores: FileSource = described(
+        "Stores, one row per store. Also maps geography levels and population columns."
+    )
+    households: FileSource | None = described(
+        "Households, one row per loyalty card. Also maps choices.demographics.", default=None
+    )
+    shelf_prices: FileSource | None = described(
+        "Shelf prices per store, date and SKU. May also map promo.",
+        default=None,
+    )
+    market_sizes: FileSource | None = described(
+        "Agreed market sizes per geography and period. Sizes in equivalent units, one per "
+        "geography and period start; read by the table method.",
+        default=None,
+    )
+    cost_shifters: FileSource | None = described(
+        "Cost shifters per period (and firm or product). Also maps firm or product and the "
+        "value columns of instruments.cost_shifters.",
+        default=None,
+    )
 
     @model_validator(mode="after")
     def _reference_columns(self) -> SourcesSection:
@@ -165,49 +283,131 @@ Weekday = Literal["monday", "tuesday", "wednesday", "thursday", "friday", "satur
 
 
 class MarketsSection(Section):
-    geography: Identifier = "store"
-    period: Literal["day", "week", "month", "quarter"] = "week"
-    week_starts_on: Weekday = "monday"
-    categories: list[str] = Field(min_length=1)
-    # What makes a receipt id one visit: "store_day" when tills restart their numbers every day
-    # (a visit is store, business day and receipt, the ingest's duplicate key), "store" when an
-    # id is never reused in a store, "chain" when it is never reused anywhere in the chain.
-    receipt_ids_unique_per: Literal["store_day", "store", "chain"] = "store_day"
+    """What one market is: a geography and a period, over the categories in scope."""
+
+    geography: Identifier = described(
+        "Geography of a market. store, or any column of the stores file (e.g. region).",
+        default="store",
+    )
+    period: Literal["day", "week", "month", "quarter"] = described(
+        "Period of a market.", default="week"
+    )
+    week_starts_on: Weekday = described("First day of a week period.", default="monday")
+    categories: list[str] = described(
+        "Catalogue categories in scope. Values of the catalogue's category column.",
+        min_length=1,
+    )
+    receipt_ids_unique_per: Literal["store_day", "store", "chain"] = described(
+        "What makes a receipt id one visit. store_day when tills restart their numbers every "
+        "day (store, business day and receipt, the ingest's duplicate key), store when an id "
+        "is never reused in a store, chain when it is never reused anywhere in the chain.",
+        default="store_day",
+    )
 
 
 class EquivalentUnit(Section):
     """The unit every quantity is converted to: a weight (e.g. 100 g) or one item (a pack)."""
 
-    kind: Literal["weight", "item"] = "weight"
-    grams: float = Field(100.0, gt=0)
-    size_column: Identifier = "pack_size"
-    unit_column: Identifier = "pack_unit"
+    kind: Literal["weight", "item"] = described(
+        "Weight or item. weight: grams below per unit; item: one pack is one unit.",
+        default="weight",
+    )
+    grams: float = described(
+        "Grams in one equivalent unit. Used when kind is weight.", unit="grams", default=100.0, gt=0
+    )
+    size_column: Identifier = described(
+        "Catalogue column of the pack size. In pack_unit units.", default="pack_size"
+    )
+    unit_column: Identifier = described(
+        "Catalogue column of the pack unit. Values g or kg.", default="pack_unit"
+    )
 
 
 class UniverseSection(Section):
-    top_n: int | None = Field(None, ge=1)
-    min_volume_share: float = Field(0.0, ge=0, lt=1)
-    min_market_presence: float = Field(0.0, ge=0, le=1)
-    rest: Literal["fringe", "outside"] = "fringe"
+    """Which products are kept as inside goods; the rest become the fringe or the outside good."""
+
+    top_n: int | None = described(
+        "Keep at most the N largest products. By category volume; unset keeps all that pass "
+        "the other rules.",
+        unit="products",
+        default=None,
+        ge=1,
+    )
+    min_volume_share: float = described(
+        "Least share of category volume to keep.",
+        unit="share 0..1 of category volume",
+        default=0.0,
+        ge=0,
+        lt=1,
+    )
+    min_market_presence: float = described(
+        "Least share of markets a kept product sells in.",
+        unit="share 0..1 of markets",
+        default=0.0,
+        ge=0,
+        le=1,
+    )
+    rest: Literal["fringe", "outside"] = described(
+        "Where products not kept go. fringe: one composite product; outside: the outside good.",
+        default="fringe",
+    )
 
 
 class ProductsSection(Section):
-    keys: list[Identifier] = Field(min_length=1)
-    firm: Identifier = "firm"
-    nest: Identifier | None = None
-    characteristics: list[Identifier] = Field(default_factory=list)
-    equivalent_unit: EquivalentUnit = EquivalentUnit()
-    universe: UniverseSection = UniverseSection()
+    """What one product is, and which catalogue columns describe it."""
+
+    keys: list[Identifier] = described(
+        "Catalogue columns defining a product. Their values joined with '|' are the product id.",
+        min_length=1,
+    )
+    firm: Identifier = described("Catalogue column of the owning firm.", default="firm")
+    nest: Identifier | None = described(
+        "Catalogue column of the nest. For nested logit; unset for none.", default=None
+    )
+    characteristics: list[Identifier] = described(
+        "Numeric catalogue columns carried along. Into the share table, per product.",
+        default_factory=list,
+    )
+    equivalent_unit: EquivalentUnit = described(
+        "Unit quantities are converted to. A table.", default=EquivalentUnit()
+    )
+    universe: UniverseSection = described(
+        "Which products are kept. A table.", default=UniverseSection()
+    )
 
 
 class MarketSizeAssumption(Section):
     """One named market-size assumption; which fields apply depends on the method."""
 
-    method: Literal["visits", "population", "peak_multiple", "table"]
-    units_per_visit: float | None = Field(None, gt=0)
-    units_per_person_per_day: float | None = Field(None, gt=0)
-    population_column: Identifier = "population"
-    multiple: float | None = Field(None, gt=0)
+    method: Literal["visits", "population", "peak_multiple", "table"] = described(
+        "How the market size is found. visits: visits x units_per_visit; population: "
+        "population x units_per_person_per_day x days in the period; peak_multiple: multiple x "
+        "the geography's largest period volume; table: sizes from sources.market_sizes, per "
+        "geography and period start."
+    )
+    units_per_visit: float | None = described(
+        "Potential demand per visit. Needed by visits; a visit is a receipt with a sale line, "
+        "any category (see markets.receipt_ids_unique_per).",
+        unit="equivalent units per visit",
+        default=None,
+        gt=0,
+    )
+    units_per_person_per_day: float | None = described(
+        "Potential demand per person per day. Needed by population.",
+        unit="equivalent units per person per day",
+        default=None,
+        gt=0,
+    )
+    population_column: Identifier = described(
+        "Stores column of the population. Used by population; summed over the geography.",
+        default="population",
+    )
+    multiple: float | None = described(
+        "Factor on the largest period volume. Needed by peak_multiple.",
+        unit="times the geography's largest period volume",
+        default=None,
+        gt=0,
+    )
 
     @model_validator(mode="after")
     def _method_parameter(self) -> MarketSizeAssumption:
@@ -222,48 +422,163 @@ class MarketSizeAssumption(Section):
 
 
 class SharesSection(Section):
-    outside_share_floor: float = Field(0.05, ge=0, lt=1)
-    zero_shares: Literal["drop", "keep", "add_one"] = "drop"
+    """How shares are computed and checked."""
+
+    outside_share_floor: float = described(
+        "Warn below this outside share. Per market.",
+        unit="share 0..1",
+        default=0.05,
+        ge=0,
+        lt=1,
+    )
+    zero_shares: Literal["drop", "keep", "add_one"] = described(
+        "What to do with zero-sale product-markets. drop: leave them out (with a warning); "
+        "keep: keep them with null logs, flagged; add_one: add one unit to every product and "
+        "the outside good.",
+        default="drop",
+    )
 
 
 class HausmanInstrument(Section):
-    enabled: bool = True
-    exclude_same: Identifier | None = None
+    """Other-market prices of the same product (Hausman 1996)."""
+
+    enabled: bool = described("Whether to build Hausman prices.", default=True)
+    exclude_same: Identifier | None = described(
+        "Stores column whose group is left out. E.g. region: leave the own region out, not "
+        "only the own market; unset leaves the own market out.",
+        default=None,
+    )
 
 
 class CostShifterInstrument(Section):
-    join_on: list[Literal["period", "firm", "product"]] = Field(default_factory=lambda: ["period"])
-    columns: list[Identifier] = Field(min_length=1)
+    """Cost shifters from sources.cost_shifters joined to product-markets."""
+
+    join_on: list[Literal["period", "firm", "product"]] = described(
+        "Keys the shifters are joined on.", default_factory=lambda: ["period"]
+    )
+    columns: list[Identifier] = described(
+        "Value columns used as instruments. Numeric columns of sources.cost_shifters.",
+        min_length=1,
+    )
 
 
 class InstrumentsSection(Section):
-    hausman: HausmanInstrument = HausmanInstrument()
-    characteristic_sums: list[Identifier] = Field(default_factory=list)
-    differentiation: list[Identifier] = Field(default_factory=list)
-    cost_shifters: CostShifterInstrument | None = None
-    first_stage_fixed_effects: list[Literal["period", "product"]] = Field(default_factory=list)
-    weak_instrument_f: float = Field(10.0, gt=0)
+    """Price instruments added to the share table, and the first-stage check."""
+
+    hausman: HausmanInstrument = described(
+        "Hausman other-market prices. A table.", default=HausmanInstrument()
+    )
+    characteristic_sums: list[Identifier] = described(
+        "Characteristics for BLP sums. Sums over the firm's other and the rivals' products; "
+        "each must be in products.characteristics.",
+        default_factory=list,
+    )
+    differentiation: list[Identifier] = described(
+        "Characteristics for differentiation IVs. Gandhi & Houde (2019) measures; each must be "
+        "in products.characteristics.",
+        default_factory=list,
+    )
+    cost_shifters: CostShifterInstrument | None = described(
+        "Cost-shifter instruments. A table; unset for none.", default=None
+    )
+    first_stage_fixed_effects: list[Literal["period", "product"]] = described(
+        "Fixed effects of the first-stage check.", default_factory=list
+    )
+    weak_instrument_f: float = described(
+        "Warn below this first-stage F. A rule of thumb (Staiger & Stock 1997).",
+        unit="F statistic",
+        default=10.0,
+        gt=0,
+    )
 
 
 class ChoicesSection(Section):
-    enabled: bool = True
-    occasions: Literal["category_visits", "all_visits"] = "category_visits"
-    choice_set_window_days: int = Field(28, ge=1)
-    price_window_days: int = Field(28, ge=1)
-    multiple_purchases: Literal["largest_spend", "split", "drop"] = "largest_spend"
-    loyalty_smoothing: float = Field(0.8, gt=0, lt=1)
-    loyalty_burn_in_days: int = Field(56, ge=0)
-    sampled_alternatives: int | None = Field(None, ge=1)
-    holdout_fraction: float = Field(0.2, ge=0, lt=1)
-    pseudonym_key_env: Identifier = "DEMANDPREP_PSEUDONYM_KEY"
-    demographics: list[Identifier] = Field(default_factory=list)
+    """The chooser-alternative build from loyalty-card visits."""
+
+    enabled: bool = described("Whether to build the choice data.", default=True)
+    occasions: Literal["category_visits", "all_visits"] = described(
+        "Which visits are choice occasions. category_visits: visits that bought an "
+        "alternative; all_visits: every card visit, choosing none when it bought none.",
+        default="category_visits",
+    )
+    choice_set_window_days: int = described(
+        "Look-back for a store's choice set. A shelf-price snapshot younger than this, else "
+        "what the store sold in this many days before.",
+        unit="days",
+        default=28,
+        ge=1,
+    )
+    price_window_days: int = described(
+        "Look-back for a store's last price. Used when the period has no shelf or sale price.",
+        unit="days",
+        default=28,
+        ge=1,
+    )
+    multiple_purchases: Literal["largest_spend", "split", "drop"] = described(
+        "Visits buying several alternatives. largest_spend: keep the largest; split: one "
+        "occasion per product; drop: not an occasion.",
+        default="largest_spend",
+    )
+    loyalty_smoothing: float = described(
+        "Lambda of the smoothed loyalty recursion. Guadagni & Little (1983); weight of the past.",
+        unit="weight 0..1",
+        default=0.8,
+        gt=0,
+        lt=1,
+    )
+    loyalty_burn_in_days: int = described(
+        "Days that start a chooser's loyalty. After the first occasion; occasions inside are "
+        "flagged burn_in.",
+        unit="days",
+        default=56,
+        ge=0,
+    )
+    sampled_alternatives: int | None = described(
+        "Sampled alternatives besides the chosen one. Drawn uniformly per occasion; unset "
+        "keeps the whole choice set.",
+        unit="alternatives",
+        default=None,
+        ge=1,
+    )
+    holdout_fraction: float = described(
+        "Share of choosers flagged holdout. Drawn by a keyed hash of the chooser.",
+        unit="share 0..1 of choosers",
+        default=0.2,
+        ge=0,
+        lt=1,
+    )
+    pseudonym_key_env: Identifier = described(
+        "Environment variable holding the pseudonym key. The key itself is never in the "
+        "config; at least 16 bytes.",
+        default="DEMANDPREP_PSEUDONYM_KEY",
+    )
+    demographics: list[Identifier] = described(
+        "Households columns copied to choosers.", default_factory=list
+    )
 
 
 class ExportSection(Section):
-    root: LaxPath = Path("builds")
-    keep_last: int = Field(5, ge=1)
-    extra_formats: list[Literal["csv", "dta"]] = Field(default_factory=list)
-    row_group_rows: int = Field(131_072, ge=1_024)
+    """Where builds are published and in which formats."""
+
+    root: LaxPath = described(
+        "Folder of the build folders. With a latest pointer; relative to the config file's folder.",
+        default=Path("builds"),
+    )
+    keep_last: int = described(
+        "Builds kept when pruning. Older marked build folders are removed.",
+        unit="builds",
+        default=5,
+        ge=1,
+    )
+    extra_formats: list[Literal["csv", "dta"]] = described(
+        "Copies besides Parquet. Written to csv/ and dta/ in the build.", default_factory=list
+    )
+    row_group_rows: int = described(
+        "Rows per Parquet row group. Also the rows Python holds at once while writing.",
+        unit="rows",
+        default=131_072,
+        ge=1_024,
+    )
 
     @field_validator("root", mode="after")
     @classmethod
@@ -272,10 +587,18 @@ class ExportSection(Section):
 
 
 class ScheduleSection(Section):
-    cron: str = "30 2 * * *"
-    timezone: str = "UTC"
-    deployment_name: Identifier = "nightly"
-    parameters: dict[str, Any] = Field(default_factory=dict)
+    """The nightly run of `demandprep serve`."""
+
+    cron: str = described(
+        "Cron schedule of the nightly run. Five fields: minute hour day month weekday.",
+        default="30 2 * * *",
+    )
+    timezone: str = described("Timezone of the cron schedule.", default="UTC")
+    deployment_name: Identifier = described("Name of the Prefect deployment.", default="nightly")
+    parameters: dict[str, Any] = described(
+        "Extra parameters of the nightly flow. A table of the flow's parameters.",
+        default_factory=dict,
+    )
 
     @field_validator("cron")
     @classmethod
@@ -288,17 +611,21 @@ class ScheduleSection(Section):
 class ProjectConfig(Section):
     """The whole config file."""
 
-    project: ProjectSection = ProjectSection()
-    warehouse: WarehouseSection = WarehouseSection()
-    sources: SourcesSection
-    markets: MarketsSection
-    products: ProductsSection
-    market_size: dict[Identifier, MarketSizeAssumption] = Field(min_length=1)
-    shares: SharesSection = SharesSection()
-    instruments: InstrumentsSection = InstrumentsSection()
-    choices: ChoicesSection = ChoicesSection()
-    export: ExportSection = ExportSection()
-    schedule: ScheduleSection = ScheduleSection()
+    project: ProjectSection = described("Project name and description.", default=ProjectSection())
+    warehouse: WarehouseSection = described("The DuckDB warehouse.", default=WarehouseSection())
+    sources: SourcesSection = described("Input files and their column mappings.")
+    markets: MarketsSection = described("What one market is.")
+    products: ProductsSection = described("What one product is.")
+    market_size: dict[Identifier, MarketSizeAssumption] = described(
+        "Market-size assumptions, one table per name. Built side by side; the first one "
+        "feeds the summary and the first-stage check.",
+        min_length=1,
+    )
+    shares: SharesSection = described("Share computation.", default=SharesSection())
+    instruments: InstrumentsSection = described("Price instruments.", default=InstrumentsSection())
+    choices: ChoicesSection = described("The choice-data build.", default=ChoicesSection())
+    export: ExportSection = described("Build folders and formats.", default=ExportSection())
+    schedule: ScheduleSection = described("The nightly schedule.", default=ScheduleSection())
     config_path: Path | None = Field(None, exclude=True)
 
     def resolved_dict(self) -> dict[str, Any]:
@@ -384,13 +711,15 @@ def _problem(problem: Any, path: Path) -> UserError:
     if kind == "extra_forbidden":
         return UserError(f"{path}: unknown key {key!r}.", _allowed_keys_hint(problem["loc"]))
     if kind == "missing":
-        return UserError(f"{path}: missing required key {key!r}.", README_HINT)
+        return UserError(
+            f"{path}: missing required key {key!r}.", _missing_key_hint(problem["loc"])
+        )
     expected = _expected(kind, problem.get("ctx") or {})
     given = problem.get("input")
     if expected is None:
         message = problem["msg"].removeprefix("Value error, ")
         shown = f" (got {_shown(given)})" if isinstance(given, str | int | float) else ""
-        return UserError(f"{path}: key {key!r}: {message}{shown}.", README_HINT)
+        return UserError(f"{path}: key {key!r}: {message}{shown}.", DOCS_HINT)
     text = " (text)" if isinstance(given, str) and kind in UNQUOTED_TYPES else ""
     return UserError(
         f"{path}: key {key!r}: got {_shown(given)}{text}, expected {expected}.",
@@ -463,8 +792,8 @@ def _type_hint(kind: str, name: str, given: Any) -> str:
     if kind in BOUNDS or kind in ("too_short", "string_too_short", "string_too_long"):
         return "pick a value in the allowed range."
     if kind == "string_pattern_mismatch":
-        return "write it as the rule says; " + README_HINT
-    return README_HINT
+        return "write it as the rule says; " + DOCS_HINT
+    return DOCS_HINT
 
 
 def _unquoted_example(kind: type, given: Any) -> str | None:
@@ -477,19 +806,69 @@ def _unquoted_example(kind: type, given: Any) -> str | None:
 
 
 def _allowed_keys_hint(location: tuple[Any, ...]) -> str:
+    model = _model_at(location[:-1])
+    if model is None:
+        return f"remove it; {DOCS_HINT}"
+    allowed = [
+        f"{name} ({short_description(field)})" for name, field in documented_fields(model).items()
+    ]
+    return f"allowed here: {', '.join(allowed)}; {DOCS_HINT}"
+
+
+def _missing_key_hint(location: tuple[Any, ...]) -> str:
+    model = _model_at(location[:-1])
+    field = documented_fields(model).get(str(location[-1])) if model is not None else None
+    return f"{short_description(field)}; {DOCS_HINT}" if field is not None else DOCS_HINT
+
+
+def _model_at(location: tuple[Any, ...]) -> Any:
+    """The section model at a key path, skipping user-chosen names; None past a plain value."""
     model: Any = ProjectConfig
-    parts = list(location[:-1])
+    parts = list(location)
     while parts:
         field = model.model_fields.get(str(parts.pop(0)))
         if field is None:
-            return f"remove it; {README_HINT}"
+            return None
         if getattr(field.annotation, "__origin__", None) is dict and parts:
             parts.pop(0)  # a user-chosen name such as a market-size assumption
         model = _section_model(field.annotation)
         if model is None:
-            return f"remove it; {README_HINT}"
-    names = [name for name in model.model_fields if name != "config_path"]
-    return f"allowed here: {', '.join(names)}."
+            return None
+    return model
+
+
+def config_models(model: Any = ProjectConfig) -> list[Any]:
+    """Every section model reachable from `model`, itself first, each once, in key order."""
+    found = [model]
+    for field in model.model_fields.values():
+        section = _section_model(field.annotation)
+        if section is None:
+            section = _section_model(_dict_value(field.annotation))
+        for reached in config_models(section) if section is not None else []:
+            if reached not in found:
+                found.append(reached)
+    return found
+
+
+def documented_fields(model: Any) -> dict[str, FieldInfo]:
+    """The keys a user writes in a section (internal fields such as config_path left out)."""
+    return {name: field for name, field in model.model_fields.items() if not field.exclude}
+
+
+def short_description(field: FieldInfo) -> str:
+    """The first sentence of a field's description, without its full stop."""
+    return str(field.description or "").split(". ", 1)[0].removesuffix(".")
+
+
+def field_unit(field: FieldInfo) -> str:
+    """The unit a field's value is written in ("" when it has none)."""
+    extra = field.json_schema_extra
+    return str(extra.get("unit", "")) if isinstance(extra, dict) else ""
+
+
+def _dict_value(annotation: Any) -> Any:
+    arguments = getattr(annotation, "__args__", ())
+    return arguments[1] if getattr(annotation, "__origin__", None) is dict else None
 
 
 def _section_model(annotation: Any) -> Any:

@@ -472,15 +472,5 @@ def build_fixture_folder(
         con.close()
 
 
-_SHARED_BUILDS: dict[str, Path] = {}
+# the export time of the shared build (tests/conftest.py: shared_export_build)
 SHARED_NOW = datetime(2024, 4, 15, 2, 30, tzinfo=UTC)
-
-
-def shared_build(tmp_path_factory) -> Path:
-    """One full build (Parquet, CSV, Stata, report) made once per test session and reused."""
-    if "full" not in _SHARED_BUILDS:
-        base = tmp_path_factory.mktemp("export-shared")
-        _SHARED_BUILDS["full"] = build_fixture_folder(
-            base, {"extra_formats": ["csv", "dta"], "row_group_rows": 1024}, now=SHARED_NOW
-        )
-    return _SHARED_BUILDS["full"]

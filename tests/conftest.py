@@ -86,6 +86,18 @@ def nested_logit_world(demo_worlds: DemoWorlds) -> Path:
 # ---------- the committed sample and the export fixture build ----------
 
 
+@pytest.fixture()
+def one_line_report(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Exports write a one-line report.html: for tests about folders and bytes, not plots."""
+
+    def write_one_line_report(ctx, staging_dir: Path, inputs) -> Path:
+        path = staging_dir / "report.html"
+        path.write_text(f"<!DOCTYPE html><title>{inputs.build_id}</title>", encoding="utf-8")
+        return path
+
+    monkeypatch.setattr("demandprep.export.build.write_report", write_one_line_report)
+
+
 @pytest.fixture(scope="session")
 def coffee_sample() -> Path:
     """The committed sample folder (data_samples/coffee_sample); copy it before running on it."""

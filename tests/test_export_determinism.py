@@ -15,16 +15,8 @@ from demandprep.export.manifest import file_sha256
 TABLES = ("share_table", "markets", "choices", "choosers", "ledger", "ledger_reasons", "quarantine")
 
 
-@pytest.fixture(autouse=True)
-def quick_report(monkeypatch: pytest.MonkeyPatch) -> None:
-    """The report is not part of the byte-identity promise; a stub keeps these builds fast."""
-
-    def one_line_report(ctx, staging_dir: Path, inputs) -> Path:
-        path = staging_dir / "report.html"
-        path.write_text(f"<!DOCTYPE html><title>{inputs.build_id}</title>", encoding="utf-8")
-        return path
-
-    monkeypatch.setattr("demandprep.export.build.write_report", one_line_report)
+# these tests are about folders and bytes, not plots: a one-line report keeps them fast
+pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 def data_file_hashes(build: Path) -> dict[str, str]:

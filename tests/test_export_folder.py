@@ -22,16 +22,8 @@ TESTS_DIR = Path(__file__).resolve().parent
 START = datetime(2024, 3, 6, 2, 30, tzinfo=UTC)
 
 
-@pytest.fixture(autouse=True)
-def quick_report(monkeypatch: pytest.MonkeyPatch) -> None:
-    """These tests are about folders, not plots: a one-line report keeps them fast."""
-
-    def one_line_report(ctx, staging_dir: Path, inputs) -> Path:
-        path = staging_dir / "report.html"
-        path.write_text(f"<!DOCTYPE html><title>{inputs.build_id}</title>", encoding="utf-8")
-        return path
-
-    monkeypatch.setattr("demandprep.export.build.write_report", one_line_report)
+# these tests are about folders and bytes, not plots: a one-line report keeps them fast
+pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 @pytest.fixture()

@@ -8,10 +8,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
-
-from demandprep.config import load_config
-from demandprep.ingest.runner import ingest_all
-from demandprep.warehouse import open_warehouse
+from ingest_fixtures import ingest, query
 
 BASE_CONFIG = """
 [warehouse]
@@ -165,18 +162,6 @@ def write_receipts(path: Path, receipt_format: str, encoding: str) -> None:
         plain.unlink()
     else:
         path.write_text(text, encoding=encoding)
-
-
-def ingest(config_path: Path):
-    config = load_config(config_path)
-    with open_warehouse(config.warehouse) as con:
-        summary = ingest_all(con, config)
-    return config, summary
-
-
-def query(config, sql: str, params=None) -> list:
-    with open_warehouse(config.warehouse) as con:
-        return con.execute(sql, params).fetchall()
 
 
 def reasons_by_line(config, source: str) -> dict[int, str]:

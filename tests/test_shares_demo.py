@@ -9,7 +9,7 @@ from __future__ import annotations
 import polars as pl
 import pytest
 from demo_worlds import SHARES
-from market_fixtures import demo_config
+from market_fixtures import DEMO_PRODUCTS, demo_config
 
 from demandprep.context import BuildContext
 from demandprep.ingest.runner import ingest_all
@@ -28,14 +28,8 @@ def demo_build(tmp_path_factory, demo_worlds):
     folder = demo_worlds.copy(SHARES, tmp_path_factory.mktemp("demo_shares") / "world")
     config = demo_config(
         folder,
-        products={
-            "keys": ["roaster", "format", "pack_grams"],
-            "firm": "firm",
-            "nest": "format",
-            "characteristics": ["roast_level", "organic", "pack_grams"],
-            "equivalent_unit": {"kind": "item"},
-            "universe": {"rest": "fringe"},  # keep every product: no rule to replicate
-        },
+        # keep every product: no rule to replicate
+        products={**DEMO_PRODUCTS, "universe": {"rest": "fringe"}},
         market_size={
             "visits": {"method": "visits", "units_per_visit": 1.0},
             "catchment": {

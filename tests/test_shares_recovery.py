@@ -15,7 +15,7 @@ import json
 import duckdb
 import numpy as np
 import statsmodels.api as sm
-from market_fixtures import demo_config, load_demo_csvs
+from market_fixtures import DEMO_PRODUCTS, demo_config, load_demo_csvs
 
 from demandprep.context import BuildContext
 from demandprep.market.stages import run_market_stages
@@ -28,13 +28,7 @@ def demo_shares(world_dir):
     config = demo_config(
         world_dir,
         market_size={"visits": {"method": "visits", "units_per_visit": 1.0}},
-        products={
-            "keys": ["roaster", "format", "pack_grams"],
-            "firm": "firm",
-            "nest": "format",
-            "characteristics": ["roast_level", "organic", "pack_grams"],
-            "equivalent_unit": {"kind": "item"},
-        },
+        products=DEMO_PRODUCTS,
     )
     con = duckdb.connect()
     load_demo_csvs(con, world_dir)

@@ -31,6 +31,22 @@ ONE_STORE_WEEK = WorldSpec(
 )
 NESTED_STORE_WEEK = replace(ONE_STORE_WEEK, seed=22, nested=True, nest_sigma=0.6, xi_sd=0.0)
 
+# two stores over eight weeks, nearly every visit with a card, household switches off: the
+# baseline that the households' habits are compared with (tests/test_demo_world.py)
+PLAIN_HOUSEHOLDS = replace(
+    SMALL,
+    seed=31,
+    n_stores=2,
+    n_regions=1,
+    weeks=8,
+    visits_per_store_day=150.0,
+    households=300,
+    card_share=0.9,
+    heterogeneous=False,
+    state_dependence=False,
+    **QUIET,
+)
+
 # 3 stores x 2 weeks = 6 markets, built through the real ingest (tests/test_shares_demo.py)
 SHARES = WorldSpec(
     n_stores=3,

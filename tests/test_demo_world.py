@@ -17,7 +17,7 @@ import numpy as np
 import polars as pl
 import pyarrow.parquet as pq
 import pytest
-from demo_worlds import ONE_STORE_WEEK, QUIET, SMALL
+from demo_worlds import ONE_STORE_WEEK, PLAIN_HOUSEHOLDS, QUIET, SMALL
 from scipy import stats
 
 from demandprep.demo import SAMPLE_SPEC, make_sample
@@ -482,9 +482,8 @@ def test_market_sizes_cover_every_open_store_week(small_world):
 # ---------- the choice model against its formula ----------
 
 
-def test_observed_shares_match_the_logit_probabilities(tmp_path):
-    generate_world(tmp_path / "w", ONE_STORE_WEEK)
-    visits, bought, utility = observed_and_true_shares(tmp_path / "w")
+def test_observed_shares_match_the_logit_probabilities(demo_worlds):
+    visits, bought, utility = observed_and_true_shares(demo_worlds.folder(ONE_STORE_WEEK))
     # McFadden (1974): P_j = exp(v_j) / (1 + sum_k exp(v_k)), v_j from truth.json and the files
     denominator = 1 + sum(math.exp(v) for v in utility.values())
     probs = {product: math.exp(v) / denominator for product, v in utility.items()}
@@ -536,21 +535,6 @@ def test_prices_load_on_xi_only_when_endogenous(tmp_path, endogenous):
     assert abs(regular_price_slope_on_xi(tmp_path / "w") - expected) < 0.1
 
 
-def household_spec(**switches) -> WorldSpec:
-    return replace(
-        SMALL,
-        seed=31,
-        n_stores=2,
-        n_regions=1,
-        weeks=8,
-        visits_per_store_day=150.0,
-        households=300,
-        card_share=0.9,
-        **QUIET,
-        **switches,
-    )
-
-
 def repeat_rate(history: dict) -> float:
     pairs = [
         (a, b)
@@ -570,17 +554,15 @@ def format_concentration(history: dict) -> float:
     return float(np.mean(values))
 
 
-def test_state_dependence_makes_households_repeat_their_last_product(tmp_path):
-    generate_world(tmp_path / "on", household_spec(heterogeneous=False, state_dependence=True))
-    generate_world(tmp_path / "off", household_spec(heterogeneous=False, state_dependence=False))
-    on, off = coffee_histories(tmp_path / "on"), coffee_histories(tmp_path / "off")
+def test_state_dependence_makes_households_repeat_their_last_product(demo_worlds):
+    on = coffee_histories(demo_worlds.folder(replace(PLAIN_HOUSEHOLDS, state_dependence=True)))
+    off = coffee_histories(demo_worlds.folder(PLAIN_HOUSEHOLDS))
     assert repeat_rate(on) > repeat_rate(off) + 0.05
 
 
-def test_heterogeneous_households_concentrate_on_their_favourite_format(tmp_path):
-    generate_world(tmp_path / "on", household_spec(heterogeneous=True, state_dependence=False))
-    generate_world(tmp_path / "off", household_spec(heterogeneous=False, state_dependence=False))
-    on, off = coffee_histories(tmp_path / "on"), coffee_histories(tmp_path / "off")
+def test_heterogeneous_households_concentrate_on_their_favourite_format(demo_worlds):
+    on = coffee_histories(demo_worlds.folder(replace(PLAIN_HOUSEHOLDS, heterogeneous=True)))
+    off = coffee_histories(demo_worlds.folder(PLAIN_HOUSEHOLDS))
     assert format_concentration(on) > format_concentration(off) + 0.03
 
 

@@ -105,6 +105,14 @@ def coffee_sample() -> Path:
 
 
 @pytest.fixture(scope="session")
+def filled_warehouses(tmp_path_factory: pytest.TempPathFactory):
+    """The export fixture's hand-filled warehouses, each filled once; `.copy(target, occasions)`."""
+    from export_fixtures import FilledWarehouses
+
+    return FilledWarehouses(tmp_path_factory.mktemp("filled-warehouses"))
+
+
+@pytest.fixture(scope="session")
 def shared_export_build(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """One full export of the hand-filled warehouse (Parquet, CSV, Stata, report), read-only."""
     from export_fixtures import SHARED_NOW, build_fixture_folder

@@ -9,7 +9,7 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
-from export_fixtures import export_config, fill_warehouse, fixture_context
+from export_fixtures import export_config, fixture_context
 
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
@@ -25,10 +25,10 @@ pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 @pytest.fixture()
-def warehouse(tmp_path: Path):
+def warehouse(tmp_path: Path, filled_warehouses):
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
+    filled_warehouses.copy(config.warehouse.path, occasions=1500)
     con = connect(config.warehouse)  # as the build opens it: the limit is shared while streaming
-    fill_warehouse(con, occasions=1500)
     yield fixture_context(con, config)
     con.close()
 

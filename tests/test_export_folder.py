@@ -27,10 +27,9 @@ pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 @pytest.fixture()
-def warehouse(tmp_path: Path):
+def warehouse(tmp_path: Path, filled_warehouses):
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
-    con = duckdb.connect(str(config.warehouse.path))
-    fill_warehouse(con)
+    con = duckdb.connect(str(filled_warehouses.copy(config.warehouse.path)))
     yield fixture_context(con, config)
     con.close()
 
@@ -111,10 +110,11 @@ export_build(fixture_context(con, config), now=datetime(2024, 3, 7, tzinfo=UTC))
 """
 
 
-def test_killed_export_leaves_no_partial_build_and_latest_unchanged(tmp_path: Path) -> None:
+def test_killed_export_leaves_no_partial_build_and_latest_unchanged(
+    tmp_path: Path, filled_warehouses
+) -> None:
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
-    con = duckdb.connect(str(config.warehouse.path))
-    fill_warehouse(con)
+    con = duckdb.connect(str(filled_warehouses.copy(config.warehouse.path)))
     first = folder.export_build(fixture_context(con, config), now=START)
     con.close()
     root, marker = config.export.root, tmp_path / "child-is-mid-write"

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
-from export_fixtures import export_config, fill_warehouse, fixture_context
+from export_fixtures import export_config, fixture_context
 
 from demandprep import pipeline
 from demandprep.context import BuildContext
@@ -28,10 +28,9 @@ pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 @pytest.fixture()
-def warehouse(tmp_path: Path):
+def warehouse(tmp_path: Path, filled_warehouses):
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
-    con = duckdb.connect(str(config.warehouse.path))
-    fill_warehouse(con, occasions=20)
+    con = duckdb.connect(str(filled_warehouses.copy(config.warehouse.path, occasions=20)))
     yield fixture_context(con, config)
     con.close()
 

@@ -9,6 +9,7 @@ is provided, so the quick logit has something to find.
 from __future__ import annotations
 
 import hashlib
+import shutil
 from datetime import UTC, date, datetime, timedelta
 from pathlib import Path
 from typing import Any
@@ -95,6 +96,29 @@ def fill_warehouse(con: duckdb.DuckDBPyConnection, occasions: int = 300, seed: i
     _create(con, "ledger", ledger)
     _create(con, "ledger_reasons", reasons)
     _create(con, "quarantine", quarantine)
+
+
+class FilledWarehouses:
+    """`fill_warehouse` files by (occasions, seed), each filled once; tests get copies of them."""
+
+    def __init__(self, root: Path) -> None:
+        self.root = root
+        self._files: dict[tuple[int, int], Path] = {}
+
+    def copy(self, target: Path, occasions: int = 300, seed: int = 7) -> Path:
+        """Put a filled warehouse file at `target` (a copy: the test may change it)."""
+        key = (occasions, seed)
+        if key not in self._files:
+            path = self.root / f"filled-{occasions}-{seed}.duckdb"
+            con = duckdb.connect(str(path))
+            try:
+                fill_warehouse(con, occasions=occasions, seed=seed)
+            finally:
+                con.close()
+            self._files[key] = path
+        target.parent.mkdir(parents=True, exist_ok=True)
+        shutil.copyfile(self._files[key], target)
+        return target
 
 
 def fixture_context(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> BuildContext:
@@ -472,15 +496,5 @@ def build_fixture_folder(
         con.close()
 
 
-_SHARED_BUILDS: dict[str, Path] = {}
+# the export time of the shared build (tests/conftest.py: shared_export_build)
 SHARED_NOW = datetime(2024, 4, 15, 2, 30, tzinfo=UTC)
-
-
-def shared_build(tmp_path_factory) -> Path:
-    """One full build (Parquet, CSV, Stata, report) made once per test session and reused."""
-    if "full" not in _SHARED_BUILDS:
-        base = tmp_path_factory.mktemp("export-shared")
-        _SHARED_BUILDS["full"] = build_fixture_folder(
-            base, {"extra_formats": ["csv", "dta"], "row_group_rows": 1024}, now=SHARED_NOW
-        )
-    return _SHARED_BUILDS["full"]

@@ -16,6 +16,8 @@ from datetime import date, datetime
 from pathlib import Path
 
 from demandprep.config import ProjectConfig, load_config
+from demandprep.ingest.runner import ingest_all
+from demandprep.warehouse import open_warehouse
 
 REPO = Path(__file__).resolve().parents[1]
 FAULTS = REPO / "data_samples" / "faults"
@@ -33,6 +35,20 @@ def copy_faults(tmp_path: Path) -> Path:
     target = tmp_path / "faults"
     shutil.copytree(FAULTS, target, ignore=shutil.ignore_patterns("warehouse"))
     return target / "demandprep.toml"
+
+
+def ingest(config_path: Path):
+    """Ingest every source of the config at `config_path`; returns (config, summary)."""
+    config = load_config(config_path)
+    with open_warehouse(config.warehouse) as con:
+        summary = ingest_all(con, config)
+    return config, summary
+
+
+def query(config: ProjectConfig, sql: str, params=None) -> list:
+    """The rows of one query on the config's warehouse."""
+    with open_warehouse(config.warehouse) as con:
+        return con.execute(sql, params).fetchall()
 
 
 def faults_config(tmp_path: Path) -> ProjectConfig:

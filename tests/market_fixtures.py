@@ -226,6 +226,16 @@ DEMO_TEMPLATE = (
 )
 
 
+# products as the demo world's tests key them: one product per roaster, format and pack size
+DEMO_PRODUCTS = {
+    "keys": ["roaster", "format", "pack_grams"],
+    "firm": "firm",
+    "nest": "format",
+    "characteristics": ["roast_level", "organic", "pack_grams"],
+    "equivalent_unit": {"kind": "item"},
+}
+
+
 def demo_config(world_dir: Path, **sections: Any) -> ProjectConfig:
     """The demo template's config for a generated world folder, with sections replaced."""
     import tomllib

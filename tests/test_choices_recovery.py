@@ -16,30 +16,19 @@ import numpy as np
 import polars as pl
 import pytest
 from choices_fixtures import run_pipeline
+from demo_worlds import HOMOGENEOUS_PANEL
 from statsmodels.discrete.conditional_models import ConditionalLogit
 
 from demandprep.config import parse_config
-from demandprep.demo.world import WorldSpec, generate_world
 
 REGRESSORS = ("price", "roast_level", "organic", "pack_grams")
 
 
 @pytest.fixture(scope="module")
-def homogeneous_panel(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("homogeneous_world")
-    spec = WorldSpec(
-        seed=3,
-        n_stores=3,
-        n_regions=2,
-        weeks=6,
-        households=500,
-        heterogeneous=False,
-        state_dependence=False,
-        endogenous=False,
-        xi_sd=0.0,
-        fault_rate=0.0,
+def homogeneous_panel(tmp_path_factory, demo_worlds):
+    folder = demo_worlds.copy(
+        HOMOGENEOUS_PANEL, tmp_path_factory.mktemp("homogeneous_world") / "world"
     )
-    generate_world(folder, spec)
     raw = tomllib.loads(resources.files("demandprep.templates").joinpath("demo.toml").read_text())
     raw["choices"].update(occasions="category_visits", loyalty_burn_in_days=0)
     config = parse_config(raw, folder / "demandprep.toml")

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+from ingest_fixtures import copy_faults
 from typer.testing import CliRunner
 
 from demandprep import __version__
@@ -19,8 +20,6 @@ from demandprep.export.folder import published_builds
 
 RUNNER = CliRunner()
 TEMPLATES = Path(__file__).resolve().parents[1] / "src" / "demandprep" / "templates"
-FAULTS = Path(__file__).resolve().parents[1] / "data_samples" / "faults"
-SAMPLE = Path(__file__).resolve().parents[1] / "data_samples" / "coffee_sample"
 
 
 def test_version_prints_the_package_version() -> None:
@@ -61,8 +60,10 @@ def test_check_of_a_broken_config_lists_every_problem_one_line_each(tmp_path: Pa
     assert "Traceback" not in result.output
 
 
-def test_check_lists_every_source_it_would_read() -> None:
-    result = RUNNER.invoke(app, ["check", str(SAMPLE / "demandprep.toml")], terminal_width=200)
+def test_check_lists_every_source_it_would_read(coffee_sample: Path) -> None:
+    result = RUNNER.invoke(
+        app, ["check", str(coffee_sample / "demandprep.toml")], terminal_width=200
+    )
     assert result.exit_code == 0, result.output
     for source in ("receipts", "catalogue", "stores", "households", "shelf_prices"):
         assert source in result.output
@@ -70,8 +71,7 @@ def test_check_lists_every_source_it_would_read() -> None:
 
 
 def test_ingest_with_an_unreadable_file_loads_the_rest_and_exits_1(tmp_path: Path) -> None:
-    project = tmp_path / "faults"
-    shutil.copytree(Path(__file__).resolve().parents[1] / "data_samples" / "faults", project)
+    project = copy_faults(tmp_path).parent
     broken = project / "receipts" / "receipts_zz_broken.csv"
     broken.write_bytes(b"\xff\xfe\x00garbage\x00\n\x00\x01")
     result = RUNNER.invoke(app, ["ingest", str(project / "demandprep.toml")], terminal_width=300)
@@ -82,19 +82,12 @@ def test_ingest_with_an_unreadable_file_loads_the_rest_and_exits_1(tmp_path: Pat
     assert "files new" in result.output
 
 
-def faults_project(tmp_path: Path) -> Path:
-    """A copy of the fault fixture; returns its config path."""
-    project = tmp_path / "faults"
-    shutil.copytree(FAULTS, project)
-    return project / "demandprep.toml"
-
-
 def error_lines(output: str) -> list[str]:
     return [line for line in output.splitlines() if line.startswith("error:")]
 
 
 def test_bracketed_text_from_a_file_header_prints_literally(tmp_path: Path) -> None:
-    config = faults_project(tmp_path)
+    config = copy_faults(tmp_path)
     stores = config.parent / "stores.csv"
     stores.write_text(stores.read_text().replace("branch;town;area", "branch;[/]town;zone", 1))
     result = RUNNER.invoke(app, ["ingest", str(config)], terminal_width=2000)
@@ -111,7 +104,7 @@ def test_bracketed_text_from_a_file_header_prints_literally(tmp_path: Path) -> N
 
 def test_hint_naming_a_config_section_prints_it(tmp_path: Path) -> None:
     # the fault fixture maps no pack size, which the default weight unit needs
-    config = faults_project(tmp_path)
+    config = copy_faults(tmp_path)
     assert RUNNER.invoke(app, ["ingest", str(config)]).exit_code == 0
     result = RUNNER.invoke(app, ["build", str(config)], terminal_width=2000)
     assert result.exit_code == 1, result.output
@@ -123,7 +116,7 @@ def test_hint_naming_a_config_section_prints_it(tmp_path: Path) -> None:
 
 
 def test_run_stops_after_the_ingest_when_every_receipts_file_fails(tmp_path: Path) -> None:
-    config = faults_project(tmp_path)
+    config = copy_faults(tmp_path)
     receipts = sorted((config.parent / "receipts").glob("*.csv"))
     for path in receipts:
         path.write_bytes(path.read_bytes().replace(b"ticket;", b"tikket;", 1))
@@ -154,9 +147,10 @@ class SampleRun:
 
 
 @pytest.fixture(scope="module")
-def sample_run(tmp_path_factory: pytest.TempPathFactory) -> SampleRun:
+def sample_run(tmp_path_factory: pytest.TempPathFactory, coffee_sample: Path) -> SampleRun:
+    # module-scoped, not shared: its tests run the build again, and the ledger keeps the paths
     project = tmp_path_factory.mktemp("cli") / "coffee_sample"
-    shutil.copytree(SAMPLE, project)
+    shutil.copytree(coffee_sample, project)
     config = project / "demandprep.toml"
     result = RUNNER.invoke(app, ["run", str(config)], terminal_width=2000)
     assert result.exit_code == 0, result.output
@@ -218,7 +212,7 @@ def test_force_rebuilds_when_nothing_changed(sample_run: SampleRun) -> None:
 def test_check_reports_every_problem_it_can_find_before_a_run(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    config = faults_project(tmp_path)
+    config = copy_faults(tmp_path)
     text = config.read_text()
     text = text.replace('amount = "value"', 'amount = "line_value"', 1)
     text = text.replace('files = ["stores.csv"]\ndelimiter = ";"', 'files = ["stores.csv"]', 1)
@@ -248,8 +242,10 @@ def test_check_reports_every_problem_it_can_find_before_a_run(
     ]
 
 
-def test_check_refuses_a_short_pseudonym_key(monkeypatch: pytest.MonkeyPatch) -> None:
-    config = SAMPLE / "demandprep.toml"
+def test_check_refuses_a_short_pseudonym_key(
+    monkeypatch: pytest.MonkeyPatch, coffee_sample: Path
+) -> None:
+    config = coffee_sample / "demandprep.toml"
     monkeypatch.setenv("DEMANDPREP_PSEUDONYM_KEY", "short")
     result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
     assert result.exit_code == 1, result.output
@@ -261,8 +257,8 @@ def test_check_refuses_a_short_pseudonym_key(monkeypatch: pytest.MonkeyPatch) ->
     ]
 
 
-def test_check_of_a_sound_project_passes() -> None:
-    config = SAMPLE / "demandprep.toml"
+def test_check_of_a_sound_project_passes(coffee_sample: Path) -> None:
+    config = coffee_sample / "demandprep.toml"
     result = RUNNER.invoke(app, ["check", str(config)], terminal_width=2000)
     assert result.exit_code == 0, result.output
     assert error_lines(result.output) == []
@@ -270,7 +266,7 @@ def test_check_of_a_sound_project_passes() -> None:
 
 
 def test_check_names_each_role_column_its_source_does_not_provide(tmp_path: Path) -> None:
-    config = faults_project(tmp_path)
+    config = copy_faults(tmp_path)
     config.write_text(
         config.read_text()
         + '\n[products.equivalent_unit]\nkind = "item"\n'

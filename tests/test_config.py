@@ -130,9 +130,8 @@ def test_config_hash_changes_with_a_setting(demo_config: Path) -> None:
     assert load_config(demo_config).config_hash() == after
 
 
-def test_committed_sample_config_validates_and_finds_its_files() -> None:
-    sample = Path(__file__).resolve().parents[1] / "data_samples" / "coffee_sample"
-    config = load_config(sample / "demandprep.toml")
+def test_committed_sample_config_validates_and_finds_its_files(coffee_sample: Path) -> None:
+    config = load_config(coffee_sample / "demandprep.toml")
     receipts = config.sources.receipts.resolved_files()
     assert len(receipts) == 49  # 7 weeks of daily drops (SAMPLE.md)
     assert config.sources.receipts.valid_to.isoformat() == "2024-02-18"

@@ -17,6 +17,7 @@ import numpy as np
 import polars as pl
 import pyarrow.parquet as pq
 import pytest
+from demo_worlds import ONE_STORE_WEEK, PLAIN_HOUSEHOLDS, QUIET, SMALL
 from scipy import stats
 
 from demandprep.demo import SAMPLE_SPEC, make_sample
@@ -25,10 +26,7 @@ from demandprep.demo.faults import FAULT_KINDS, TEXT_ONLY_KINDS
 from demandprep.demo.world import WorldSpec, build_reference_tables, generate_world
 from demandprep.errors import UserError
 
-SAMPLE_DIR = Path(__file__).resolve().parents[1] / "data_samples" / "coffee_sample"
 NUMBER = re.compile(r"^-?\d+(\.\d+)?$")
-QUIET = {"fault_rate": 0.0, "return_rate": 0.0, "void_rate": 0.0}
-SMALL = WorldSpec(seed=3, n_stores=4, weeks=2, visits_per_store_day=40.0, households=300)
 RECEIPT_TYPES = {
     "ticket_no": "VARCHAR",
     "row_no": "BIGINT",
@@ -187,30 +185,6 @@ def coffee_histories(world: Path) -> dict[str, list[tuple[str, str, str]]]:
         if row[7] and row[4] in product_of and row[9] == "sale":
             history[row[7]].append(product_of[row[4]])
     return history
-
-
-# ---------- fixtures ----------
-
-
-@pytest.fixture(scope="module")
-def small_world(tmp_path_factory) -> Path:
-    world = tmp_path_factory.mktemp("small") / "world"
-    generate_world(world, SMALL)
-    return world
-
-
-@pytest.fixture(scope="module")
-def faulty_world(tmp_path_factory) -> Path:
-    world = tmp_path_factory.mktemp("faulty") / "world"
-    generate_world(world, replace(SMALL, seed=5, fault_rate=0.05))
-    return world
-
-
-@pytest.fixture(scope="module")
-def clean_world(tmp_path_factory) -> Path:
-    world = tmp_path_factory.mktemp("clean") / "world"
-    generate_world(world, replace(SMALL, seed=9, **QUIET))
-    return world
 
 
 # ---------- determinism and layout ----------
@@ -508,22 +482,8 @@ def test_market_sizes_cover_every_open_store_week(small_world):
 # ---------- the choice model against its formula ----------
 
 
-ONE_STORE_WEEK = WorldSpec(
-    seed=21,
-    n_stores=1,
-    n_regions=1,
-    weeks=1,
-    visits_per_store_day=6000.0,
-    households=20000,
-    heterogeneous=False,
-    state_dependence=False,
-    **QUIET,
-)
-
-
-def test_observed_shares_match_the_logit_probabilities(tmp_path):
-    generate_world(tmp_path / "w", ONE_STORE_WEEK)
-    visits, bought, utility = observed_and_true_shares(tmp_path / "w")
+def test_observed_shares_match_the_logit_probabilities(demo_worlds):
+    visits, bought, utility = observed_and_true_shares(demo_worlds.folder(ONE_STORE_WEEK))
     # McFadden (1974): P_j = exp(v_j) / (1 + sum_k exp(v_k)), v_j from truth.json and the files
     denominator = 1 + sum(math.exp(v) for v in utility.values())
     probs = {product: math.exp(v) / denominator for product, v in utility.items()}
@@ -532,21 +492,14 @@ def test_observed_shares_match_the_logit_probabilities(tmp_path):
     assert_counts_match(visits, bought, probs)
 
 
-@pytest.fixture(scope="module")
-def nested_world(tmp_path_factory) -> Path:
-    world = tmp_path_factory.mktemp("nested") / "world"
-    generate_world(world, replace(ONE_STORE_WEEK, seed=22, nested=True, nest_sigma=0.6, xi_sd=0.0))
-    return world
-
-
-def test_nested_shares_match_the_berry_formula(nested_world):
-    visits, bought, utility = observed_and_true_shares(nested_world)
+def test_nested_shares_match_the_berry_formula(nested_store_week_world):
+    visits, bought, utility = observed_and_true_shares(nested_store_week_world)
     assert_counts_match(visits, bought, nested_logit_probabilities(utility, 0.6))
 
 
-def test_plain_logit_probabilities_fail_a_nested_world(nested_world):
+def test_plain_logit_probabilities_fail_a_nested_world(nested_store_week_world):
     # the check above can fail: the same nested world is far from the plain-logit probabilities
-    visits, bought, utility = observed_and_true_shares(nested_world)
+    visits, bought, utility = observed_and_true_shares(nested_store_week_world)
     with pytest.raises(AssertionError):
         assert_counts_match(visits, bought, nested_logit_probabilities(utility, 0.0))
 
@@ -582,21 +535,6 @@ def test_prices_load_on_xi_only_when_endogenous(tmp_path, endogenous):
     assert abs(regular_price_slope_on_xi(tmp_path / "w") - expected) < 0.1
 
 
-def household_spec(**switches) -> WorldSpec:
-    return replace(
-        SMALL,
-        seed=31,
-        n_stores=2,
-        n_regions=1,
-        weeks=8,
-        visits_per_store_day=150.0,
-        households=300,
-        card_share=0.9,
-        **QUIET,
-        **switches,
-    )
-
-
 def repeat_rate(history: dict) -> float:
     pairs = [
         (a, b)
@@ -616,17 +554,15 @@ def format_concentration(history: dict) -> float:
     return float(np.mean(values))
 
 
-def test_state_dependence_makes_households_repeat_their_last_product(tmp_path):
-    generate_world(tmp_path / "on", household_spec(heterogeneous=False, state_dependence=True))
-    generate_world(tmp_path / "off", household_spec(heterogeneous=False, state_dependence=False))
-    on, off = coffee_histories(tmp_path / "on"), coffee_histories(tmp_path / "off")
+def test_state_dependence_makes_households_repeat_their_last_product(demo_worlds):
+    on = coffee_histories(demo_worlds.folder(replace(PLAIN_HOUSEHOLDS, state_dependence=True)))
+    off = coffee_histories(demo_worlds.folder(PLAIN_HOUSEHOLDS))
     assert repeat_rate(on) > repeat_rate(off) + 0.05
 
 
-def test_heterogeneous_households_concentrate_on_their_favourite_format(tmp_path):
-    generate_world(tmp_path / "on", household_spec(heterogeneous=True, state_dependence=False))
-    generate_world(tmp_path / "off", household_spec(heterogeneous=False, state_dependence=False))
-    on, off = coffee_histories(tmp_path / "on"), coffee_histories(tmp_path / "off")
+def test_heterogeneous_households_concentrate_on_their_favourite_format(demo_worlds):
+    on = coffee_histories(demo_worlds.folder(replace(PLAIN_HOUSEHOLDS, heterogeneous=True)))
+    off = coffee_histories(demo_worlds.folder(PLAIN_HOUSEHOLDS))
     assert format_concentration(on) > format_concentration(off) + 0.03
 
 
@@ -703,11 +639,11 @@ def store_week_shares(world: Path):
 # ---------- the committed sample ----------
 
 
-def test_committed_sample_is_what_make_sample_writes(tmp_path):
+def test_committed_sample_is_what_make_sample_writes(tmp_path, coffee_sample):
     make_sample(tmp_path / "sample")
     made = sorted(
         p.relative_to(tmp_path / "sample") for p in (tmp_path / "sample").rglob("*") if p.is_file()
     )
     assert len(made) == SAMPLE_SPEC.days + len(TABLE_FILES) + 2
     for rel in made:
-        assert (SAMPLE_DIR / rel).read_bytes() == (tmp_path / "sample" / rel).read_bytes(), rel
+        assert (coffee_sample / rel).read_bytes() == (tmp_path / "sample" / rel).read_bytes(), rel

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
-from export_fixtures import export_config, fill_warehouse, fixture_context
+from export_fixtures import export_config, fixture_context
 
 from demandprep.export.folder import export_build
 from demandprep.export.manifest import file_sha256
@@ -15,16 +15,8 @@ from demandprep.export.manifest import file_sha256
 TABLES = ("share_table", "markets", "choices", "choosers", "ledger", "ledger_reasons", "quarantine")
 
 
-@pytest.fixture(autouse=True)
-def quick_report(monkeypatch: pytest.MonkeyPatch) -> None:
-    """The report is not part of the byte-identity promise; a stub keeps these builds fast."""
-
-    def one_line_report(ctx, staging_dir: Path, inputs) -> Path:
-        path = staging_dir / "report.html"
-        path.write_text(f"<!DOCTYPE html><title>{inputs.build_id}</title>", encoding="utf-8")
-        return path
-
-    monkeypatch.setattr("demandprep.export.build.write_report", one_line_report)
+# these tests are about folders and bytes, not plots: a one-line report keeps them fast
+pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 def data_file_hashes(build: Path) -> dict[str, str]:
@@ -36,10 +28,9 @@ def data_file_hashes(build: Path) -> dict[str, str]:
     }
 
 
-def test_rebuild_gives_byte_identical_files(tmp_path: Path) -> None:
+def test_rebuild_gives_byte_identical_files(tmp_path: Path, filled_warehouses) -> None:
     config = export_config(tmp_path, {"extra_formats": ["csv", "dta"], "row_group_rows": 1024})
-    con = duckdb.connect(str(config.warehouse.path))
-    fill_warehouse(con)
+    con = duckdb.connect(str(filled_warehouses.copy(config.warehouse.path)))
     first = export_build(fixture_context(con, config), datetime(2024, 5, 1, tzinfo=UTC))
     second = export_build(fixture_context(con, config), datetime(2024, 5, 2, tzinfo=UTC))
     con.close()
@@ -49,10 +40,12 @@ def test_rebuild_gives_byte_identical_files(tmp_path: Path) -> None:
     assert hashes == data_file_hashes(second)
 
 
-def test_row_order_in_the_warehouse_does_not_change_the_bytes(tmp_path: Path) -> None:
+def test_row_order_in_the_warehouse_does_not_change_the_bytes(
+    tmp_path: Path, filled_warehouses
+) -> None:
     config = export_config(tmp_path, {"row_group_rows": 1024})
+    filled_warehouses.copy(config.warehouse.path)
     con = duckdb.connect(str(config.warehouse.path), config={"threads": 2})
-    fill_warehouse(con)
     first = export_build(fixture_context(con, config), datetime(2024, 5, 1, tzinfo=UTC))
     con.execute("select setseed(0.25)")
     for table in TABLES:

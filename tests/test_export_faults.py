@@ -9,7 +9,7 @@ from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
 import pytest
-from export_fixtures import export_config, fill_warehouse, fixture_context
+from export_fixtures import export_config, fixture_context
 
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
@@ -20,23 +20,15 @@ START = datetime(2024, 3, 6, 2, 30, tzinfo=UTC)
 LATER = START + timedelta(hours=1)
 
 
-@pytest.fixture(autouse=True)
-def quick_report(monkeypatch: pytest.MonkeyPatch) -> None:
-    """These tests are about folders, not plots: a one-line report keeps them fast."""
-
-    def one_line_report(ctx, staging_dir: Path, inputs) -> Path:
-        path = staging_dir / "report.html"
-        path.write_text(f"<!DOCTYPE html><title>{inputs.build_id}</title>", encoding="utf-8")
-        return path
-
-    monkeypatch.setattr("demandprep.export.build.write_report", one_line_report)
+# these tests are about folders and bytes, not plots: a one-line report keeps them fast
+pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 @pytest.fixture()
-def warehouse(tmp_path: Path):
+def warehouse(tmp_path: Path, filled_warehouses):
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
+    filled_warehouses.copy(config.warehouse.path, occasions=1500)
     con = connect(config.warehouse)  # as the build opens it: the limit is shared while streaming
-    fill_warehouse(con, occasions=1500)
     yield fixture_context(con, config)
     con.close()
 

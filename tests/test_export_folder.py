@@ -22,23 +22,14 @@ TESTS_DIR = Path(__file__).resolve().parent
 START = datetime(2024, 3, 6, 2, 30, tzinfo=UTC)
 
 
-@pytest.fixture(autouse=True)
-def quick_report(monkeypatch: pytest.MonkeyPatch) -> None:
-    """These tests are about folders, not plots: a one-line report keeps them fast."""
-
-    def one_line_report(ctx, staging_dir: Path, inputs) -> Path:
-        path = staging_dir / "report.html"
-        path.write_text(f"<!DOCTYPE html><title>{inputs.build_id}</title>", encoding="utf-8")
-        return path
-
-    monkeypatch.setattr("demandprep.export.build.write_report", one_line_report)
+# these tests are about folders and bytes, not plots: a one-line report keeps them fast
+pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 @pytest.fixture()
-def warehouse(tmp_path: Path):
+def warehouse(tmp_path: Path, filled_warehouses):
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
-    con = duckdb.connect(str(config.warehouse.path))
-    fill_warehouse(con)
+    con = duckdb.connect(str(filled_warehouses.copy(config.warehouse.path)))
     yield fixture_context(con, config)
     con.close()
 
@@ -119,10 +110,11 @@ export_build(fixture_context(con, config), now=datetime(2024, 3, 7, tzinfo=UTC))
 """
 
 
-def test_killed_export_leaves_no_partial_build_and_latest_unchanged(tmp_path: Path) -> None:
+def test_killed_export_leaves_no_partial_build_and_latest_unchanged(
+    tmp_path: Path, filled_warehouses
+) -> None:
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
-    con = duckdb.connect(str(config.warehouse.path))
-    fill_warehouse(con)
+    con = duckdb.connect(str(filled_warehouses.copy(config.warehouse.path)))
     first = folder.export_build(fixture_context(con, config), now=START)
     con.close()
     root, marker = config.export.root, tmp_path / "child-is-mid-write"

@@ -11,7 +11,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from export_fixtures import RAW_CARD, export_config, fill_warehouse, shared_build
+from export_fixtures import RAW_CARD, export_config, fill_warehouse
 
 from demandprep.errors import UserError
 from demandprep.export.csv_safe import escape_formula_cells
@@ -22,8 +22,8 @@ from demandprep.schemas.market import Shares
 
 
 @pytest.fixture(scope="module")
-def build(tmp_path_factory) -> Path:
-    return shared_build(tmp_path_factory)
+def build(shared_export_build: Path) -> Path:
+    return shared_export_build
 
 
 @pytest.fixture(scope="module")

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
-from export_fixtures import export_config, fill_warehouse, fixture_context
+from export_fixtures import export_config, fixture_context
 
 from demandprep import pipeline
 from demandprep.context import BuildContext
@@ -23,23 +23,14 @@ MARKER = ".demandprep-build"  # the file that makes a folder ours
 LOCK_FILE = ".demandprep-export.lock"
 
 
-@pytest.fixture(autouse=True)
-def quick_report(monkeypatch: pytest.MonkeyPatch) -> None:
-    """These tests are about folders, not plots: a one-line report keeps them fast."""
-
-    def one_line_report(ctx, staging_dir: Path, inputs) -> Path:
-        path = staging_dir / "report.html"
-        path.write_text(f"<!DOCTYPE html><title>{inputs.build_id}</title>", encoding="utf-8")
-        return path
-
-    monkeypatch.setattr("demandprep.export.build.write_report", one_line_report)
+# these tests are about folders and bytes, not plots: a one-line report keeps them fast
+pytestmark = pytest.mark.usefixtures("one_line_report")
 
 
 @pytest.fixture()
-def warehouse(tmp_path: Path):
+def warehouse(tmp_path: Path, filled_warehouses):
     config = export_config(tmp_path, {"keep_last": 2, "row_group_rows": 1024})
-    con = duckdb.connect(str(config.warehouse.path))
-    fill_warehouse(con, occasions=20)
+    con = duckdb.connect(str(filled_warehouses.copy(config.warehouse.path, occasions=20)))
     yield fixture_context(con, config)
     con.close()
 

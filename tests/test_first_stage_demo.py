@@ -16,6 +16,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from demo_worlds import ENDOGENOUS_PRICES
 from linearmodels.iv import IV2SLS
 
 from demandprep.config import parse_config
@@ -28,20 +29,6 @@ pytestmark = pytest.mark.skipif(
 )
 
 TEMPLATE = Path(__file__).resolve().parents[1] / "src" / "demandprep" / "templates" / "demo.toml"
-# Small but with enough visits per store-week (about 40 packs per product-market) that shares
-# are well measured; a larger demand shock than the default makes the OLS bias clear next to its
-# standard error. Seeds 5, 6 and 7 gave OLS 12-16 standard errors off and IV within 1.4.
-WORLD = {
-    "seed": 5,
-    "n_stores": 6,
-    "n_regions": 2,
-    "weeks": 5,
-    "visits_per_store_day": 1500.0,
-    "households": 200,
-    "max_noncoffee_lines": 1,
-    "late_opening_share": 0.0,
-    "xi_sd": 0.6,
-}
 CHARACTERISTICS = ["roast_level", "organic", "pack_grams"]
 
 
@@ -57,15 +44,12 @@ def demo_config(world: Path):
 
 
 @pytest.fixture(scope="module")
-def built_world(tmp_path_factory):
-    from demandprep.demo.world import WorldSpec, generate_world
+def built_world(tmp_path_factory, demo_worlds):
     from demandprep.ingest.runner import ingest_all
     from demandprep.stages import run_build_stages
     from demandprep.warehouse import connect
 
-    world = tmp_path_factory.mktemp("iv_world")
-    spec = WorldSpec(endogenous=True, heterogeneous=False, state_dependence=False, **WORLD)
-    generate_world(world, spec)
+    world = demo_worlds.copy(ENDOGENOUS_PRICES, tmp_path_factory.mktemp("iv_world") / "world")
     config = demo_config(world)
     con = connect(config.warehouse)
     ingest_all(con, config)

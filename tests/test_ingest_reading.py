@@ -12,12 +12,10 @@ import gzip
 from pathlib import Path
 
 import pytest
-from ingest_fixtures import copy_faults
+from ingest_fixtures import copy_faults, ingest, query
 from rich.console import Console
 
-from demandprep.config import load_config
-from demandprep.ingest.runner import ingest_all, summary_table
-from demandprep.warehouse import open_warehouse
+from demandprep.ingest.runner import summary_table
 
 HEADER = b"ticket;row;branch;stamp;article;qty;value;member;disc;kind"
 
@@ -44,18 +42,6 @@ def reference_records(path: Path) -> int:
     if lines and lines[-1] == b"":
         lines.pop()
     return sum(1 for line in lines[1:] if line not in (b"", b"\r"))
-
-
-def ingest(config_path: Path):
-    config = load_config(config_path)
-    with open_warehouse(config.warehouse) as con:
-        summary = ingest_all(con, config)
-    return config, summary
-
-
-def query(config, sql: str, params=None) -> list:
-    with open_warehouse(config.warehouse) as con:
-        return con.execute(sql, params).fetchall()
 
 
 def ledger_counts(config, path: Path) -> tuple:

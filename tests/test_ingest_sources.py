@@ -8,10 +8,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
-
-from demandprep.config import load_config
-from demandprep.ingest.runner import ingest_all
-from demandprep.warehouse import open_warehouse
+from ingest_fixtures import ingest, query
 
 BASE_CONFIG = """
 [warehouse]
@@ -165,18 +162,6 @@ def write_receipts(path: Path, receipt_format: str, encoding: str) -> None:
         plain.unlink()
     else:
         path.write_text(text, encoding=encoding)
-
-
-def ingest(config_path: Path):
-    config = load_config(config_path)
-    with open_warehouse(config.warehouse) as con:
-        summary = ingest_all(con, config)
-    return config, summary
-
-
-def query(config, sql: str, params=None) -> list:
-    with open_warehouse(config.warehouse) as con:
-        return con.execute(sql, params).fetchall()
 
 
 def reasons_by_line(config, source: str) -> dict[int, str]:
@@ -347,17 +332,6 @@ def test_unknown_source_timezone_is_a_user_error(tmp_path: Path) -> None:
         ingest(write_project(tmp_path, receipt_extra='timezone = "Atlantis/Central"'))
 
 
-@pytest.fixture(scope="module")
-def small_world(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """A two-week demo world with a high fault rate, so every fault kind occurs."""
-    from demandprep.demo.spec import WorldSpec
-    from demandprep.demo.world import generate_world
-
-    folder = tmp_path_factory.mktemp("world")
-    generate_world(folder, WorldSpec(weeks=2, n_stores=4, households=400, fault_rate=0.02))
-    return folder
-
-
 def demo_config(world: Path, run_dir: Path) -> Path:
     template = Path(__file__).resolve().parents[1] / "src/demandprep/templates/demo.toml"
     text = template.read_text()
@@ -377,10 +351,10 @@ def demo_config(world: Path, run_dir: Path) -> Path:
     return path
 
 
-def test_demo_world_faults_match_the_generators_truth(small_world: Path, tmp_path: Path) -> None:
-    config, summary = ingest(demo_config(small_world, tmp_path))
+def test_demo_world_faults_match_the_generators_truth(faulty_world: Path, tmp_path: Path) -> None:
+    config, summary = ingest(demo_config(faulty_world, tmp_path))
     assert summary.ok
-    truth = json.loads((small_world / "truth.json").read_text())
+    truth = json.loads((faulty_world / "truth.json").read_text())
     faults = truth["faults"]
     # the generator's fault kinds (demo/faults.py) and the quarantine reason each must get
     expected = {

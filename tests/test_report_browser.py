@@ -18,7 +18,6 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-from export_fixtures import shared_build
 from websockets.sync.client import connect
 
 pytestmark = pytest.mark.browser
@@ -128,8 +127,10 @@ def browser(tmp_path: Path) -> Iterator[Page]:
 
 
 @needs_chromium
-def test_report_renders_in_chromium_with_every_plot_drawn(browser: Page, tmp_path_factory) -> None:
-    report = shared_build(tmp_path_factory) / "report.html"
+def test_report_renders_in_chromium_with_every_plot_drawn(
+    browser: Page, shared_export_build: Path
+) -> None:
+    report = shared_export_build / "report.html"
     browser.open(report.as_uri())
     images = browser.evaluate(IMAGE_SIZES)
     ARTIFACTS.mkdir(exist_ok=True)

@@ -9,7 +9,6 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import pytest
-from export_fixtures import shared_build
 from PIL import Image
 
 PLOTS = (
@@ -40,8 +39,8 @@ class Collector(HTMLParser):
 
 
 @pytest.fixture(scope="module")
-def page(tmp_path_factory) -> tuple[Collector, Path]:
-    build = shared_build(tmp_path_factory)
+def page(shared_export_build: Path) -> tuple[Collector, Path]:
+    build = shared_export_build
     collector = Collector()
     collector.feed((build / "report.html").read_text(encoding="utf-8"))
     return collector, build

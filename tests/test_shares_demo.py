@@ -8,11 +8,10 @@ from __future__ import annotations
 
 import polars as pl
 import pytest
-from market_fixtures import demo_config
+from demo_worlds import SHARES
+from market_fixtures import DEMO_PRODUCTS, demo_config
 
 from demandprep.context import BuildContext
-from demandprep.demo.spec import WorldSpec
-from demandprep.demo.world import generate_world
 from demandprep.ingest.runner import ingest_all
 from demandprep.market.stages import run_market_stages
 from demandprep.warehouse import open_warehouse
@@ -24,29 +23,13 @@ SAMPLED_MARKETS = 4
 
 
 @pytest.fixture(scope="module")
-def demo_build(tmp_path_factory):
+def demo_build(tmp_path_factory, demo_worlds):
     """A 3-store, 2-week world built through the real ingest; returns (folder, shares frame)."""
-    folder = tmp_path_factory.mktemp("demo_shares")
-    spec = WorldSpec(
-        n_stores=3,
-        n_regions=2,
-        weeks=2,
-        visits_per_store_day=150.0,
-        households=300,
-        fault_rate=0.0,
-        late_opening_share=0.0,
-    )
-    generate_world(folder, spec)
+    folder = demo_worlds.copy(SHARES, tmp_path_factory.mktemp("demo_shares") / "world")
     config = demo_config(
         folder,
-        products={
-            "keys": ["roaster", "format", "pack_grams"],
-            "firm": "firm",
-            "nest": "format",
-            "characteristics": ["roast_level", "organic", "pack_grams"],
-            "equivalent_unit": {"kind": "item"},
-            "universe": {"rest": "fringe"},  # keep every product: no rule to replicate
-        },
+        # keep every product: no rule to replicate
+        products={**DEMO_PRODUCTS, "universe": {"rest": "fringe"}},
         market_size={
             "visits": {"method": "visits", "units_per_visit": 1.0},
             "catchment": {

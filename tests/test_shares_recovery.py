@@ -14,13 +14,10 @@ import json
 
 import duckdb
 import numpy as np
-import pytest
 import statsmodels.api as sm
-from market_fixtures import demo_config, load_demo_csvs
+from market_fixtures import DEMO_PRODUCTS, demo_config, load_demo_csvs
 
 from demandprep.context import BuildContext
-from demandprep.demo.spec import DemandParams, WorldSpec
-from demandprep.demo.world import generate_world
 from demandprep.market.stages import run_market_stages
 
 STANDARD_ERRORS = 3.0
@@ -31,13 +28,7 @@ def demo_shares(world_dir):
     config = demo_config(
         world_dir,
         market_size={"visits": {"method": "visits", "units_per_visit": 1.0}},
-        products={
-            "keys": ["roaster", "format", "pack_grams"],
-            "firm": "firm",
-            "nest": "format",
-            "characteristics": ["roast_level", "organic", "pack_grams"],
-            "equivalent_unit": {"kind": "item"},
-        },
+        products=DEMO_PRODUCTS,
     )
     con = duckdb.connect()
     load_demo_csvs(con, world_dir)
@@ -83,54 +74,6 @@ def assert_recovered(fit, truth_coefficients):
         )
 
 
-@pytest.fixture(scope="module")
-def logit_world(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("logit_world")
-    spec = WorldSpec(
-        n_stores=3,
-        n_regions=1,
-        weeks=6,
-        visits_per_store_day=1500.0,
-        households=200,
-        endogenous=False,
-        heterogeneous=False,
-        state_dependence=False,
-        fault_rate=0.0,
-        late_opening_share=0.0,
-        max_noncoffee_lines=1,
-    )
-    generate_world(folder, spec)
-    return folder
-
-
-@pytest.fixture(scope="module")
-def nested_world(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("nested_world")
-    # no demand shock (xi_sd = 0): ln s_j|g would otherwise be correlated with the error; more
-    # price variation (store noise, promotions) so sigma is identified in few markets
-    spec = WorldSpec(
-        n_stores=2,
-        n_regions=1,
-        weeks=4,
-        visits_per_store_day=8000.0,
-        households=200,
-        endogenous=False,
-        heterogeneous=False,
-        state_dependence=False,
-        nested=True,
-        nest_sigma=0.5,
-        xi_sd=0.0,
-        fault_rate=0.0,
-        late_opening_share=0.0,
-        max_noncoffee_lines=1,
-        return_rate=0.0,
-        void_rate=0.0,
-        params=DemandParams(nu_sd=0.3, promo_rate=0.3),
-    )
-    generate_world(folder, spec)
-    return folder
-
-
 def test_logit_ols_recovers_alpha_and_beta(logit_world):
     frame, truth = demo_shares(logit_world)
     assert truth["switches"]["endogenous"] is False
@@ -140,8 +83,8 @@ def test_logit_ols_recovers_alpha_and_beta(logit_world):
     assert_recovered(fit, true_coefficients(truth, nested=False))
 
 
-def test_nested_logit_ols_recovers_sigma(nested_world):
-    frame, truth = demo_shares(nested_world)
+def test_nested_logit_ols_recovers_sigma(nested_logit_world):
+    frame, truth = demo_shares(nested_logit_world)
     assert truth["parameters"]["nest_sigma"] == 0.5
     assert np.all(frame["within_nest_share"] > 0)
     # Berry (1994): ln s_j - ln s_0 = x_j beta - alpha p_j + sigma ln s_j|g + xi_j;

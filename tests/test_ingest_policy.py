@@ -147,7 +147,7 @@ def test_a_file_of_decimal_points_under_a_comma_config_is_refused_whole(tmp_path
     assert bad.status == "refused"
     assert bad.error == (
         f"{path}: refused: 240 of 240 lines quarantined (100%), mostly unparseable_field "
-        "(first: line 2, amount '12.50'). Hint: check sources.receipts.decimal, delimiter, "
+        "(first: line 2, amount shaped '99.99'). Hint: check sources.receipts.decimal, delimiter, "
         "timestamp_format and the columns mapping."
     )
     assert by_name(summary)["a.csv"].status == "new"
@@ -226,7 +226,18 @@ def test_a_refused_card_bearing_file_never_quotes_the_card(tmp_path: Path) -> No
     result = by_name(ingest(config))["cards.csv"]
     assert result.status == "refused"
     assert "SECRET" not in result.error
-    assert "(first: line 2, line 'x')" in result.error
+    assert "(first: line 2, line shaped 'a')" in result.error
+
+
+def test_a_card_id_shifted_into_another_field_is_not_quoted_by_a_refusal(tmp_path: Path) -> None:
+    # a line missing its amount moves the card id into the amount field: the message shows
+    # only the value's shape (digits 9, letters a), as every message about a card-bearing source
+    lines = [f"T{n:05d};1;S1;2024-03-01 10:00:00;K1;1;SECRET-{n};" for n in range(150)]
+    config = write_project(tmp_path, {"shifted.csv": lines})
+    result = by_name(ingest(config))["shifted.csv"]
+    assert result.status == "refused"
+    assert "SECRET" not in result.error
+    assert "(first: line 2, amount shaped 'aaaaaa-9')" in result.error
 
 
 def test_a_refused_households_file_names_the_card_column_without_its_value(

@@ -19,10 +19,9 @@ from demandprep.config import FileSource
 from demandprep.errors import UserError
 from demandprep.ingest.ledger import BatchFile, FileCounts
 from demandprep.ingest.references import REFERENCE_SPECS
+from demandprep.personal import CARD_COLUMNS, carries_cards, value_shape
 from demandprep.sqlfiles import quote_identifier
 
-# Columns whose values a message may never quote (raw card ids stay in the warehouse).
-UNQUOTED_COLUMNS = ("card",)
 DUPLICATE_REASONS = ("duplicate_line", "duplicate_key")
 # Reasons that come from reading a file with the wrong settings rather than from its content.
 READING_REASONS = (
@@ -68,17 +67,26 @@ def refusals(
 ) -> dict[Path, Refusal]:
     """The batch's files past the reject limit, each with its message (staging tables needed)."""
     found = {}
+    shapes_only = carries_cards(source.columns)
     for item in batch:
         found_counts = counts[item.file_id]
         if over_limit(found_counts, source):
             path = item.discovered.path
-            found[path] = _refusal(con, source_name, path, item.file_id, found_counts)
+            refusal = _refusal(con, source_name, path, item.file_id, found_counts, shapes_only)
+            found[path] = refusal
     return found
 
 
 def _refusal(
-    con: duckdb.DuckDBPyConnection, source_name: str, path: Path, file_id: str, counts: FileCounts
+    con: duckdb.DuckDBPyConnection,
+    source_name: str,
+    path: Path,
+    file_id: str,
+    counts: FileCounts,
+    shapes_only: bool,
 ) -> Refusal:
+    """The refusal of one file; `shapes_only` (a card-bearing source) shows the first bad
+    value's shape, never the value: a shifted line can put a card id in any field."""
     reason = min(counts.quarantined, key=lambda name: (-counts.quarantined[name], name))
     line_no, field, value = _first_example(con, file_id, reason, _duplicate_field(source_name))
     share = f"{counts.rows_quarantined / counts.rows_read:.0%}"
@@ -89,8 +97,13 @@ def _refusal(
     where = f"line {line_no}" if line_no is not None else "no line number"
     named = f"{where}, {field}" if field else where
     shown = named
-    if field and field not in UNQUOTED_COLUMNS:
-        shown = f"{named} {value!r}" if value else f"{named} empty"
+    if field and field not in CARD_COLUMNS:
+        if not value:
+            shown = f"{named} empty"
+        elif shapes_only:
+            shown = f"{named} shaped {value_shape(value)!r}"
+        else:
+            shown = f"{named} {value!r}"
     message = UserError(f"{path}: refused: {summary} (first: {shown}).", _hint(source_name, reason))
     return Refusal(message.one_line(), f"{summary} (first: {named})")
 

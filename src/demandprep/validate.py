@@ -9,6 +9,7 @@ import polars as pl
 
 from demandprep.errors import UserError
 from demandprep.memory import memory_shared_with_batches
+from demandprep.personal import carries_cards
 
 BATCH_ROWS = 1_000_000
 SHOWN_FAILURES = 5
@@ -41,18 +42,24 @@ def validate_frame(
     try:
         model.validate(frame, lazy=True)
     except (pandera.errors.SchemaErrors, pandera.errors.SchemaError) as error:
+        withheld = carries_cards(frame.columns)  # a card id can sit in any of its columns
         raise UserError(
-            f"stage output {table!r} breaks its schema {model.__name__}: {_summary(error)}",
+            f"stage output {table!r} breaks its schema {model.__name__}: "
+            f"{_summary(error, withheld)}",
             "this is a bad input or a bug; the failing rows are shown above.",
         ) from None
 
 
-def _summary(error: Exception) -> str:
+def _summary(error: Exception, withheld: bool) -> str:
     cases = getattr(error, "failure_cases", None)
     if cases is None:
-        return str(error).splitlines()[0]
+        return "the table's columns do not match" if withheld else str(error).splitlines()[0]
     frame = cases if isinstance(cases, pl.DataFrame) else pl.from_pandas(cases)
     return "; ".join(
-        f"{row.get('column')}: {row.get('check')} (value {row.get('failure_case')!r})"
+        f"{row.get('column')}: {row.get('check')} ({_shown(row.get('failure_case'), withheld)})"
         for row in frame.head(SHOWN_FAILURES).to_dicts()
     )
+
+
+def _shown(value: object, withheld: bool) -> str:
+    return "value withheld" if withheld else f"value {value!r}"

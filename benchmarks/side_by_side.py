@@ -1,6 +1,6 @@
 """Benchmark: demandprep against bare DuckDB, polars and pandas on the same receipt files.
 
-    .venv/bin/python benchmarks/side_by_side.py --lines 1000000
+    .venv/bin/python benchmarks/side_by_side.py --lines 1000000 --runs 3
     .venv/bin/python benchmarks/side_by_side.py --lines 200000 --no-doc   # quick look, no doc
 
 Generates a demo world (daily gzip CSV receipt files with the demo's seeded faults) of about
@@ -39,6 +39,7 @@ import math
 import os
 import platform
 import shutil
+import statistics
 import subprocess
 import sys
 import time
@@ -58,6 +59,8 @@ REPO = Path(__file__).resolve().parents[1]
 DOC = REPO / "docs" / "benchmarks.md"
 RECEIPTS_GLOB = "receipts/*/receipts_*.csv.gz"
 TIMESTAMP_FORMAT = "%Y-%m-%d %H:%M:%S"
+# measured: receipt lines of the demo's first three stores per visit a store-day (74,403 at 11.3)
+THREE_STORE_LINES_PER_VISIT = 6_600
 PRODUCT_KEYS = ("roaster", "format", "pack_grams")  # demo.toml [products] keys
 
 CONTENDERS = {
@@ -103,13 +106,12 @@ def ensure_world(workdir: Path, lines: int, seed: int) -> dict:
 
 
 def world_spec(lines: int, seed: int):
-    """ingest_throughput's busy stores, at least three of them (the demo's three regions);
-    below three stores' worth of lines the stores get fewer visits a day instead."""
+    """ingest_throughput's busy stores, at least three (the demo's three regions); below three
+    busy stores' worth of lines, three stores with fewer visits a day."""
     from demandprep.demo.spec import WorldSpec
 
-    wanted = lines * 1.05  # store sizes vary: margin, as in ingest_throughput
-    stores = max(3, math.ceil(wanted / LINES_PER_STORE))
-    visits = VISITS * min(1.0, wanted / (stores * LINES_PER_STORE))
+    stores = max(3, math.ceil(lines * 1.05 / LINES_PER_STORE))  # margin, as there
+    visits = VISITS if stores > 3 else min(VISITS, lines / THREE_STORE_LINES_PER_VISIT)
     return WorldSpec(n_stores=stores, visits_per_store_day=round(visits, 1), seed=seed)
 
 
@@ -143,7 +145,7 @@ demand as (
     where line_type in ('sale', 'void')
     group by all having sum(qty) > 0
 )
-select count(*), sum(units / visits), sum(units)
+select count(*), sum(units / visits), sum(units), (select count(*) from lines)
 from demand join visits using (store, week)
 """
 
@@ -152,7 +154,7 @@ def run_duckdb_query(world: Path, threads: int, memory: str) -> dict:
     import duckdb
 
     con = duckdb.connect(config={"threads": threads, "memory_limit": memory})
-    rows, share, units = con.execute(
+    rows, share, units, lines = con.execute(
         DUCKDB_QUERY,
         {
             "files": receipt_files(world),
@@ -161,7 +163,7 @@ def run_duckdb_query(world: Path, threads: int, memory: str) -> dict:
             "catalogue": str(world / "catalogue.csv"),
         },
     ).fetchone()
-    return {"rows": rows, "share_sum": share, "units_sum": units}
+    return {"lines": lines, "rows": rows, "share_sum": share, "units_sum": units}
 
 
 def run_duckdb_persist(world: Path, threads: int, memory: str, database: Path) -> dict:
@@ -171,8 +173,9 @@ def run_duckdb_persist(world: Path, threads: int, memory: str, database: Path) -
     con = duckdb.connect(str(database), config={"threads": threads, "memory_limit": memory})
     con.execute(
         "create table receipt_lines as select * from read_csv($files, header = true, "
-        "all_varchar = true, filename = true, null_padding = true, ignore_errors = true)",
-        {"files": receipt_files(world)},
+        "auto_detect = false, columns = $columns, filename = true, null_padding = true, "
+        "ignore_errors = true)",
+        {"files": receipt_files(world), "columns": dict.fromkeys(RECEIPT_TYPES, "VARCHAR")},
     )
     lines = con.execute("select count(*) from receipt_lines").fetchone()[0]
     con.close()
@@ -216,6 +219,7 @@ def run_polars(world: Path) -> dict:
         (pl.col("units") / pl.col("visits")).alias("share")
     )
     return {
+        "lines": lines.height,
         "rows": shares.height,
         "share_sum": shares["share"].sum(),
         "units_sum": shares["units"].sum(),
@@ -260,6 +264,7 @@ def run_pandas(world: Path) -> dict:
     shares = demand[demand["units"] > 0].merge(visits, on=["shop_id", "week"])
     shares["share"] = shares["units"] / shares["visits"]
     return {
+        "lines": len(lines),
         "rows": len(shares),
         "share_sum": float(shares["share"].sum()),
         "units_sum": float(shares["units"].sum()),
@@ -384,14 +389,14 @@ def table_lines(results: dict[str, dict]) -> list[str]:
     base = results["duckdb_query"]
     lines = [
         "| contender | wall s | CPU s | peak RSS MiB | x wall | x CPU | x RSS "
-        "| rows | sum of shares | sum of units |",
-        "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|",
+        "| lines used | rows | sum of shares | sum of units |",
+        "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|",
     ]
     for name, row in results.items():
-        checks = (
+        checks = f"{row['lines']:,} | " + (
             f"{row['rows']:,} | {row['share_sum']:.4f} | {row['units_sum']:,.0f}"
             if "rows" in row
-            else f"({row['lines']:,} lines) | n/a | n/a"
+            else "n/a | n/a | n/a"
         )
         lines.append(
             f"| {CONTENDERS[name]} | {row['wall']:.1f} | {row['cpu']:.1f} | "
@@ -402,8 +407,12 @@ def table_lines(results: dict[str, dict]) -> list[str]:
     return lines
 
 
-def top_costs(build: Path, count: int = 5) -> list[str]:
-    timings = json.loads((build / "manifest.json").read_text())["timings_seconds"]
+def build_timings(build: Path) -> dict[str, float]:
+    """Seconds per build stage and export step, from the build's manifest.json."""
+    return json.loads((build / "manifest.json").read_text())["timings_seconds"]
+
+
+def top_costs(timings: dict[str, float], count: int = 5) -> list[str]:
     slowest = sorted(timings.items(), key=lambda item: -item[1])[:count]
     return [f"{name}: {seconds:.2f} s" for name, seconds in slowest]
 
@@ -432,6 +441,9 @@ def parse_args() -> argparse.Namespace:
         default=Path("/tmp/demandprep_side_by_side"),
         help="cache of generated worlds (one per lines and seed) and the run folders",
     )
+    parser.add_argument(
+        "--runs", type=int, default=1, help="rounds of all contenders; medians are shown"
+    )
     parser.add_argument("--threads", type=int, default=2, help="DuckDB threads (all contenders)")
     parser.add_argument("--memory-limit", default="4GB", help="DuckDB memory limit")
     parser.add_argument("--no-doc", action="store_true", help="do not write docs/benchmarks.md")
@@ -451,12 +463,23 @@ def main() -> None:
     command = "benchmarks/side_by_side.py " + " ".join(sys.argv[1:])
     info = ensure_world(args.workdir, args.lines, args.seed)
     folder = Path(info["folder"])
-    world = folder / "world"
     print(
         f"world: {info['receipt_lines']:,} receipt lines, {info['stores']} stores x "
         f"{info['weeks']} weeks, generated in {info['generate_seconds']} s; held back "
         f"{info['held_back']}"
     )
+    rounds = [one_round(args, info, folder) for _ in range(args.runs)]
+    results = median_results([results for results, _, _ in rounds])
+    _, ledger, first_build = rounds[-1]
+    report = render(command, info, results, ledger, build_timings(first_build))
+    print(report)
+    if not args.no_doc:
+        write_doc(report)
+
+
+def one_round(args: argparse.Namespace, info: dict, folder: Path) -> tuple[dict, dict, Path]:
+    """Every contender once; returns their results, the first run's ledger and its build."""
+    world = folder / "world"
     results: dict[str, dict] = {}
     for name in list(CONTENDERS)[:4]:
         print(f"running {CONTENDERS[name]} ...", flush=True)
@@ -470,6 +493,7 @@ def main() -> None:
     first_build = latest_build(run_dir)
     results["demandprep_run"] |= build_checksum(first_build)
     ledger = ledger_numbers(run_dir)
+    results["demandprep_run"]["lines"] = ledger["accepted"]
     arrived = world / info["held_back"]
     shutil.copy2(folder / "held_back" / info["held_back"], arrived)
     try:
@@ -478,13 +502,21 @@ def main() -> None:
     finally:
         arrived.unlink()
     results["demandprep_one_day"] |= build_checksum(latest_build(run_dir))
-    report = render(command, info, results, ledger, top_costs(first_build))
-    print(report)
-    if not args.no_doc:
-        write_doc(report)
+    results["demandprep_one_day"]["lines"] = ledger_numbers(run_dir)["accepted"]
+    return results, ledger, first_build
 
 
-def render(command: str, info: dict, results: dict, ledger: dict, costs: list[str]) -> str:
+def median_results(rounds: list[dict[str, dict]]) -> dict[str, dict]:
+    """Per contender, the median wall, CPU and peak RSS over rounds (checksums of the last)."""
+    merged = {}
+    for name, last in rounds[-1].items():
+        merged[name] = dict(last)
+        for measure_name in ("wall", "cpu", "peak_mib"):
+            merged[name][measure_name] = statistics.median(r[name][measure_name] for r in rounds)
+    return merged
+
+
+def render(command: str, info: dict, results: dict, ledger: dict, timings: dict) -> str:
     files = len(receipt_files(Path(info["folder"]) / "world"))
     quarantined = ", ".join(f"{k} {v:,}" for k, v in sorted(ledger["quarantined"].items()))
     lines = [
@@ -504,23 +536,34 @@ def render(command: str, info: dict, results: dict, ledger: dict, costs: list[st
         "",
         "Each contender runs alone in its own process, one after the other. Wall time from the "
         "parent; CPU time is user + sys of the child and peak RSS its ru_maxrss (os.wait4). "
-        "Ratios are to the bare DuckDB query.",
+        "Ratios are to the bare DuckDB query. With --runs above one, every contender runs once "
+        "per round and the table shows the median per contender.",
         "",
         *table_lines(results),
         "",
-        "The checksum is over the visits share table (store x week x product): rows, sum of "
-        "shares, sum of units. `+1 day` is over the table including the added day, so it is "
-        "larger by construction; `duckdb persist` builds no share table (its lines are shown).",
+        "`lines used`: the receipt lines each contender kept (the bare ones after their read "
+        "and casts; demandprep: lines accepted into the warehouse). The checksum is over the "
+        "visits share table (store x week x product): rows, sum of shares, sum of units. "
+        "`+1 day` is over the table including the added day, so it is larger by construction; "
+        "`duckdb persist` builds no share table.",
         "",
         f"demandprep's ingest of the first run: {ledger['accepted']:,} lines accepted; "
-        f"quarantined: {quarantined or 'none'}. The bare contenders keep every line their "
-        "typed read accepts (a duplicated line re-sent the next day counts twice, a line with "
-        "an unknown SKU is dropped by the catalogue join, a non-positive quantity is summed), "
-        "which explains the small differences in the checksums.",
+        f"quarantined: {quarantined or 'none'}. These seeded faults explain the small "
+        "differences in the checksums: the bare contenders keep every line their read accepts, "
+        "so a clean line re-sent the next day counts twice and a zero or negative quantity "
+        "is summed; a line with an unknown SKU or no SKU falls out of the catalogue join. All "
+        "three drop a line whose quantity or time does not parse and keep one with a bad "
+        "amount or discount (no contender uses those columns; DuckDB does not even parse "
+        "them). They differ among themselves only on lines with an extra field: DuckDB "
+        "(ignore_errors) and pandas (on_bad_lines='skip') drop them, polars "
+        "(truncate_ragged_lines) keeps them cut to the header's columns.",
         "",
         "Five largest costs of the first `demandprep run`'s build (manifest.json, "
-        "timings_seconds): " + "; ".join(costs) + ". The ingest has no phase timings yet "
-        "(not part of this benchmark's work).",
+        "timings_seconds, last round): " + "; ".join(top_costs(timings)) + f". The build's "
+        f"timings add up to {sum(timings.values()):.1f} s of the run's "
+        f"{results['demandprep_run']['wall']:.1f} s (median wall); the rest is the ingest "
+        "and process start-up, which have no phase timings yet (not part of this "
+        "benchmark's work).",
         "",
         "What the bare contenders do and what differs from demandprep:",
         "",
@@ -529,7 +572,7 @@ def render(command: str, info: dict, results: dict, ledger: dict, costs: list[st
         "day, receipt) with a sale line per store-week, units = sale + void lines, returns "
         "out, one pack = one unit, rows with units <= 0 dropped. No checks, nothing kept.",
         "- duckdb persist: all text columns plus the file name into one table of a new DuckDB "
-        "file (ragged lines padded or skipped); no share table.",
+        "file (lines with an extra field skipped); no share table.",
         "- polars / pandas: read each file as text, concat, cast quantity and time (bad values "
         "dropped), then the same grouping.",
         "- demandprep run: the demo config with no product-universe cut, only the visits "

@@ -1,6 +1,6 @@
 """Benchmark: demandprep against bare DuckDB, polars and pandas on the same receipt files.
 
-    .venv/bin/python benchmarks/side_by_side.py --lines 1000000 --runs 3
+    .venv/bin/python benchmarks/side_by_side.py --lines 1000000 --runs 3 --choices-occasions 200000
     .venv/bin/python benchmarks/side_by_side.py --lines 200000 --no-doc   # quick look, no doc
 
 Generates a demo world (daily gzip CSV receipt files with the demo's seeded faults) of about
@@ -16,6 +16,8 @@ RSS (the child's ru_maxrss):
   pandas          the same with pandas
   demandprep run  `demandprep run` on an empty warehouse, choices off
   + one day       `demandprep run` again after the held-back day's file arrives
+  (optional)      benchmarks/choices_scale.py, the choice build against its bare query, on its
+                  own synthetic warehouse (--choices-occasions N)
 
 The share table (the demo config's visits assumption): a visit is (store, business day,
 receipt) with at least one sale line; units are sale plus void lines (voids are negative, so
@@ -446,6 +448,12 @@ def parse_args() -> argparse.Namespace:
     )
     parser.add_argument("--threads", type=int, default=2, help="DuckDB threads (all contenders)")
     parser.add_argument("--memory-limit", default="4GB", help="DuckDB memory limit")
+    parser.add_argument(
+        "--choices-occasions",
+        type=int,
+        default=0,
+        help="also run benchmarks/choices_scale.py with this many occasions (0: skip)",
+    )
     parser.add_argument("--no-doc", action="store_true", help="do not write docs/benchmarks.md")
     parser.add_argument("--child", choices=list(CONTENDERS)[:4], help=argparse.SUPPRESS)
     parser.add_argument("--world", type=Path, help=argparse.SUPPRESS)
@@ -472,9 +480,36 @@ def main() -> None:
     results = median_results([results for results, _, _ in rounds])
     _, ledger, first_build = rounds[-1]
     report = render(command, info, results, ledger, build_timings(first_build))
+    if args.choices_occasions:
+        print("running benchmarks/choices_scale.py ...", flush=True)
+        report += choices_section(args.choices_occasions, args.memory_limit)
     print(report)
     if not args.no_doc:
         write_doc(report)
+
+
+def choices_section(occasions: int, memory: str) -> str:
+    """Run choices_scale.py (its own synthetic warehouse) and quote its summary."""
+    script = Path(__file__).resolve().parent / "choices_scale.py"
+    command = ["--occasions", str(occasions), "--memory-limit", memory]
+    output = subprocess.run(
+        [sys.executable, str(script), *command], check=True, capture_output=True, text=True
+    ).stdout
+    return "\n".join(
+        [
+            "",
+            "## The choice build against its bare query",
+            "",
+            f"`.venv/bin/python benchmarks/choices_scale.py {' '.join(command)}` (run by the "
+            "command above). Its input is its own synthetic warehouse, not the world above; "
+            "each side runs in its own process; peak is VmHWM, no CPU time. Its output:",
+            "",
+            "```",
+            output.strip(),
+            "```",
+            "",
+        ]
+    )
 
 
 def one_round(args: argparse.Namespace, info: dict, folder: Path) -> tuple[dict, dict, Path]:
@@ -579,8 +614,9 @@ def render(command: str, info: dict, results: dict, ledger: dict, timings: dict)
         "assumption, no outside-share floor and choices off, so its table is the same one; it "
         "also ingests every reference table, keeps a ledger and quarantine, validates every "
         "table, builds instruments and writes Parquet outputs. Its visit counts the visit in "
-        "the period of its first sale line (the same week here). Not measured: the choice "
-        "build (benchmarks/choices_scale.py times it against its bare query).",
+        "the period of its first sale line (the same week here). The choice build is off in "
+        "these runs; --choices-occasions adds benchmarks/choices_scale.py, which times it "
+        "against its bare query on its own synthetic warehouse.",
         "",
     ]
     return "\n".join(lines)

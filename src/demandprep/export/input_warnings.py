@@ -14,6 +14,8 @@ from pathlib import Path
 
 import duckdb
 
+from demandprep.export.tables import table_columns
+
 # common practice, no source: a clean till or catalogue export quarantines next to nothing, so
 # one line in a hundred is past noise, and demand lost unevenly at that rate moves the shares of
 # small products by as much as their own size.
@@ -104,7 +106,7 @@ def files_needing_attention(con: duckdb.DuckDBPyConnection) -> list[InputFile]:
 
 def files_not_in(con: duckdb.DuckDBPyConnection) -> list[InputFile]:
     """Files whose latest ledger version is failed, refused, empty or withdrawn."""
-    has_reason = "reason" in _columns(con, "ledger")
+    has_reason = "reason" in table_columns(con, "ledger")
     con.execute(LEDGER_VIEW if has_reason else LEDGER_VIEW_WITHOUT_REASON)
     rows = con.execute(LATEST_NOT_IN).fetchall()
     return [InputFile(*row) for row in rows]
@@ -144,13 +146,4 @@ def _files_message(status: str, items: list[InputFile]) -> str:
 
 
 def _has_table(con: duckdb.DuckDBPyConnection, table: str) -> bool:
-    return bool(_columns(con, table))
-
-
-def _columns(con: duckdb.DuckDBPyConnection, table: str) -> list[str]:
-    rows = con.execute(
-        "select column_name from information_schema.columns "
-        "where table_name = $table and table_schema = current_schema()",
-        {"table": table},
-    ).fetchall()
-    return [row[0] for row in rows]
+    return bool(table_columns(con, table))

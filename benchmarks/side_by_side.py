@@ -1,19 +1,22 @@
 """Benchmark: demandprep against bare DuckDB, polars and pandas on the same receipt files.
 
-    .venv/bin/python benchmarks/side_by_side.py --lines 1000000 --runs 3 --choices-occasions 200000
+    .venv/bin/python benchmarks/side_by_side.py --lines 10000000 50000000 \
+        --choices-occasions 10000000
     .venv/bin/python benchmarks/side_by_side.py --lines 200000 --no-doc   # quick look, no doc
 
 Generates a demo world (daily gzip CSV receipt files with the demo's seeded faults) of about
---lines receipt lines, or reuses the one cached in --workdir for that size and seed. The last
-day's file is held back. Then runs every contender in its own child process, one after the
-other, and measures its wall time, CPU time (user + sys of the child, from os.wait4) and peak
-RSS (the child's ru_maxrss):
+--lines receipt lines (each size given, smallest first), or reuses the one cached in --workdir
+for that size and seed. The last day's file is held back. Then runs every contender in its own
+child process, one after the other, and measures its wall time, CPU time (user + sys of the
+child, from os.wait4) and peak RSS (the child's ru_maxrss):
 
   duckdb query    one typed read_csv over all files, join the catalogue, aggregate to the
                   visits-based store x week x product share table; nothing persisted (baseline)
   duckdb persist  the same files into one table of a fresh DuckDB file, all text, file name kept
   polars          a practitioner's script: read each file, concat, group
-  pandas          the same with pandas
+  pandas          the same with pandas (both scripts are skipped, saying so, where their peak
+                  memory scaled from a smaller size would not fit in this machine's memory)
+  demandprep ingest  `demandprep ingest` alone on an empty warehouse (against the persist)
   demandprep run  `demandprep run` on an empty warehouse, choices off
   + one day       `demandprep run` again after the held-back day's file arrives
   (optional)      benchmarks/choices_scale.py, the choice build against its bare query, on its
@@ -29,7 +32,8 @@ the bare contenders read every line the typed read accepts, demandprep quarantin
 faults (and drops the re-sent duplicate lines), so small differences are expected and the
 quarantine counts are printed beside them.
 
-Prints a table with ratios to the baseline and the five slowest stages of the build (from the
+Prints a table of targets (the speed ratios, and how time grows from one size to the next), a
+table per size with ratios to the baseline, and the five slowest stages of the build (from the
 build's manifest.json), and writes it all to docs/benchmarks.md unless --no-doc.
 """
 
@@ -70,9 +74,15 @@ CONTENDERS = {
     "duckdb_persist": "duckdb persist (all text)",
     "polars": "polars script",
     "pandas": "pandas script",
+    "demandprep_ingest": "demandprep ingest (empty)",
     "demandprep_run": "demandprep run (empty)",
     "demandprep_one_day": "demandprep run (+1 day)",
 }
+BARE_CONTENDERS = ("duckdb_query", "duckdb_persist", "polars", "pandas")
+# peak RSS per receipt line of the bare scripts, measured at 9,945,513 lines on 2026-12-02
+# (polars 4.53 GiB, pandas 5.64 GiB); used to skip them where they would not fit in memory
+PEAK_BYTES_PER_LINE = {"polars": 4.53 * 2**30 / 9_945_513, "pandas": 5.64 * 2**30 / 9_945_513}
+MEMORY_MARGIN = 0.8  # of the memory available when the run starts
 
 # ---------------------------------------------------------------- the world and its cache
 
@@ -340,6 +350,10 @@ def ledger_numbers(run_dir: Path) -> dict:
 # ---------------------------------------------------------------- measuring
 
 
+class ChildFailed(Exception):
+    """A contender's process exited non-zero (for a bare script: out of memory, typically)."""
+
+
 def measure(command: list[str], log: Path) -> tuple[dict, str]:
     """Run a child; return wall seconds, CPU seconds and peak RSS (MiB) with its stdout."""
     started = time.perf_counter()
@@ -350,7 +364,7 @@ def measure(command: list[str], log: Path) -> tuple[dict, str]:
         child.returncode = os.waitstatus_to_exitcode(status)
     seconds = time.perf_counter() - started
     if child.returncode != 0:
-        raise SystemExit(f"{' '.join(command)} failed ({child.returncode}); see {log}")
+        raise ChildFailed(f"{' '.join(command)} failed ({child.returncode}); see {log}")
     return {
         "wall": seconds,
         "cpu": usage.ru_utime + usage.ru_stime,
@@ -362,14 +376,52 @@ def run_bare(name: str, args: argparse.Namespace, world: Path, workdir: Path) ->
     command = [sys.executable, __file__, "--child", name, "--workdir", str(workdir)]
     command += ["--world", str(world), "--threads", str(args.threads)]
     command += ["--memory-limit", args.memory_limit]
-    timing, output = measure(command, workdir / f"{name}.log")
+    try:
+        timing, output = measure(command, workdir / f"{name}.log")
+    except ChildFailed as failed:
+        return {"skipped": f"failed: {failed}"}
     return timing | json.loads(output.strip().splitlines()[-1])
 
 
-def run_demandprep(config: Path, log: Path) -> dict:
+def run_demandprep(command: str, config: Path, log: Path) -> dict:
     binary = Path(sys.executable).parent / "demandprep"
-    timing, _ = measure([str(binary), "run", str(config)], log)
+    try:
+        timing, _ = measure([str(binary), command, str(config)], log)
+    except ChildFailed as failed:
+        raise SystemExit(str(failed)) from None
     return timing
+
+
+def memory_skip(name: str, lines: int, measured: dict[int, dict]) -> str | None:
+    """Why a bare script would not fit this machine's memory at `lines`, or None.
+
+    Its peak is taken as proportional to the lines, from its run at a smaller size in this
+    invocation, else from PEAK_BYTES_PER_LINE.
+    """
+    if name not in PEAK_BYTES_PER_LINE:
+        return None
+    smaller = [size for size in measured if size < lines and "peak_mib" in measured[size][name]]
+    if smaller:
+        size = max(smaller)
+        per_line = measured[size][name]["peak_mib"] * 2**20 / size
+        source = f"its peak at {size:,} lines in this run"
+    else:
+        per_line = PEAK_BYTES_PER_LINE[name]
+        source = "its peak measured at 10M lines on 2026-12-02"
+    needed = per_line * lines
+    available = available_bytes()
+    if needed <= MEMORY_MARGIN * available:
+        return None
+    return (
+        f"skipped: would need about {needed / 2**30:.1f} GiB (scaled from {source}), more "
+        f"than {MEMORY_MARGIN:.0%} of the {available / 2**30:.1f} GiB available"
+    )
+
+
+def available_bytes() -> int:
+    meminfo = Path("/proc/meminfo").read_text().splitlines()
+    kib = int(next(line for line in meminfo if line.startswith("MemAvailable")).split()[1])
+    return kib * 1024
 
 
 # ---------------------------------------------------------------- reporting
@@ -395,6 +447,9 @@ def table_lines(results: dict[str, dict]) -> list[str]:
         "|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|",
     ]
     for name, row in results.items():
+        if "skipped" in row:
+            lines.append(f"| {CONTENDERS[name]} | {row['skipped']} |||||||||| ")
+            continue
         checks = f"{row['lines']:,} | " + (
             f"{row['rows']:,} | {row['share_sum']:.4f} | {row['units_sum']:,.0f}"
             if "rows" in row
@@ -424,6 +479,60 @@ def write_doc(text: str) -> None:
     print(f"wrote {DOC.relative_to(REPO)}")
 
 
+# ---------------------------------------------------------------- targets
+
+
+def ratio(results: dict, name: str, base: str, measure_name: str) -> float | None:
+    row, base_row = results.get(name, {}), results.get(base, {})
+    if measure_name not in row or measure_name not in base_row:
+        return None
+    return row[measure_name] / base_row[measure_name]
+
+
+def target_rows(results: dict) -> list[tuple[str, float | None, str, bool | None]]:
+    """(target, measured, aim, met) for one size's results."""
+    checks = [
+        ("ingest / bare persist, wall", "demandprep_ingest", "duckdb_persist", "wall", 1.5),
+        ("ingest / bare persist, CPU", "demandprep_ingest", "duckdb_persist", "cpu", 1.5),
+        ("full run / bare query, wall", "demandprep_run", "duckdb_query", "wall", 2.5),
+        ("full run / bare query, CPU", "demandprep_run", "duckdb_query", "cpu", 2.5),
+        ("one more day / full run, wall", "demandprep_one_day", "demandprep_run", "wall", 0.05),
+    ]
+    rows = []
+    for label, name, base, measure_name, aim in checks:
+        value = ratio(results, name, base, measure_name)
+        rows.append((label, value, f"<= {aim:g}", None if value is None else value <= aim))
+    value = ratio(results, "pandas", "demandprep_run", "wall")
+    rows.append(
+        ("pandas script / full run, wall", value, ">= 4", None if value is None else value >= 4)
+    )
+    return rows
+
+
+def scaling_rows(by_size: dict[int, dict]) -> list[tuple[str, float | None, str, bool | None]]:
+    """Time per line growth between consecutive sizes: (time ratio) / (lines ratio) <= 1.1."""
+    sizes = sorted(by_size)
+    rows = []
+    for small, large in zip(sizes, sizes[1:], strict=False):
+        for name in ("demandprep_run", "demandprep_ingest"):
+            low, high = by_size[small].get(name, {}), by_size[large].get(name, {})
+            if "wall" not in low or "wall" not in high:
+                continue
+            growth = (high["wall"] / low["wall"]) / (large / small)
+            label = f"{CONTENDERS[name]}: time ratio / lines ratio, {small:,} -> {large:,}"
+            rows.append((label, growth, "<= 1.1", growth <= 1.1))
+    return rows
+
+
+def targets_lines(rows: list[tuple[str, float | None, str, bool | None]]) -> list[str]:
+    lines = ["| target | measured | aim | met |", "|---|---:|---|---|"]
+    for label, value, aim, met in rows:
+        shown = "n/a" if value is None else f"{value:.3f}"
+        verdict = "n/a" if met is None else ("yes" if met else "**no**")
+        lines.append(f"| {label} | {shown} | {aim} | {verdict} |")
+    return lines
+
+
 # ---------------------------------------------------------------- main
 
 
@@ -434,7 +543,11 @@ def parse_args() -> argparse.Namespace:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     parser.add_argument(
-        "--lines", type=int, default=1_000_000, help="receipt lines to generate (about)"
+        "--lines",
+        type=int,
+        nargs="+",
+        default=[1_000_000],
+        help="receipt lines to generate (about); several sizes run one after the other",
     )
     parser.add_argument("--seed", type=int, default=7, help="demo world seed (default 7)")
     parser.add_argument(
@@ -454,8 +567,16 @@ def parse_args() -> argparse.Namespace:
         default=0,
         help="also run benchmarks/choices_scale.py with this many occasions (0: skip)",
     )
+    parser.add_argument(
+        "--skip",
+        nargs="*",
+        default=[],
+        choices=list(BARE_CONTENDERS),
+        help="bare contenders to leave out (they are also left out when they would not fit "
+        "in memory)",
+    )
     parser.add_argument("--no-doc", action="store_true", help="do not write docs/benchmarks.md")
-    parser.add_argument("--child", choices=list(CONTENDERS)[:4], help=argparse.SUPPRESS)
+    parser.add_argument("--child", choices=list(BARE_CONTENDERS), help=argparse.SUPPRESS)
     parser.add_argument("--world", type=Path, help=argparse.SUPPRESS)
     return parser.parse_args()
 
@@ -469,17 +590,22 @@ def main() -> None:
         print(json.dumps(result))
         return
     command = "benchmarks/side_by_side.py " + " ".join(sys.argv[1:])
-    info = ensure_world(args.workdir, args.lines, args.seed)
-    folder = Path(info["folder"])
-    print(
-        f"world: {info['receipt_lines']:,} receipt lines, {info['stores']} stores x "
-        f"{info['weeks']} weeks, generated in {info['generate_seconds']} s; held back "
-        f"{info['held_back']}"
-    )
-    rounds = [one_round(args, info, folder) for _ in range(args.runs)]
-    results = median_results([results for results, _, _ in rounds])
-    _, ledger, first_build = rounds[-1]
-    report = render(command, info, results, ledger, build_timings(first_build))
+    by_size: dict[int, dict] = {}
+    sections = []
+    for lines in sorted(args.lines):
+        info = ensure_world(args.workdir, lines, args.seed)
+        folder = Path(info["folder"])
+        print(
+            f"world: {info['receipt_lines']:,} receipt lines, {info['stores']} stores x "
+            f"{info['weeks']} weeks, generated in {info['generate_seconds']} s; held back "
+            f"{info['held_back']}"
+        )
+        rounds = [one_round(args, info, folder, by_size, lines) for _ in range(args.runs)]
+        results = median_results([results for results, _, _ in rounds])
+        by_size[lines] = results
+        _, ledger, first_build = rounds[-1]
+        sections.append(render_size(info, results, ledger, build_timings(first_build)))
+    report = render(command, sections, by_size)
     if args.choices_occasions:
         print("running benchmarks/choices_scale.py ...", flush=True)
         report += choices_section(args.choices_occasions, args.memory_limit)
@@ -501,8 +627,9 @@ def choices_section(occasions: int, memory: str) -> str:
             "## The choice build against its bare query",
             "",
             f"`.venv/bin/python benchmarks/choices_scale.py {' '.join(command)}` (run by the "
-            "command above). Its input is its own synthetic warehouse, not the world above; "
-            "each side runs in its own process; peak is VmHWM, no CPU time. Its output:",
+            "command above; target: build / baseline time at most 2.5 at 10M occasions). Its "
+            "input is its own synthetic warehouse, not the world above; each side runs in its "
+            "own process. Its output:",
             "",
             "```",
             output.strip(),
@@ -512,19 +639,25 @@ def choices_section(occasions: int, memory: str) -> str:
     )
 
 
-def one_round(args: argparse.Namespace, info: dict, folder: Path) -> tuple[dict, dict, Path]:
+def one_round(
+    args: argparse.Namespace, info: dict, folder: Path, by_size: dict[int, dict], lines: int
+) -> tuple[dict, dict, Path]:
     """Every contender once; returns their results, the first run's ledger and its build."""
     world = folder / "world"
     results: dict[str, dict] = {}
-    for name in list(CONTENDERS)[:4]:
+    for name in BARE_CONTENDERS:
+        reason = "skipped: --skip" if name in args.skip else memory_skip(name, lines, by_size)
+        if reason:
+            print(f"{CONTENDERS[name]}: {reason}", flush=True)
+            results[name] = {"skipped": reason}
+            continue
         print(f"running {CONTENDERS[name]} ...", flush=True)
         results[name] = run_bare(name, args, world, folder)
-    run_dir = folder / "run"
-    shutil.rmtree(run_dir, ignore_errors=True)
-    run_dir.mkdir()
+    results["demandprep_ingest"] = ingest_only(args, world, folder)
+    run_dir = fresh_folder(folder / "run")
     config = demandprep_config(world, run_dir, args.memory_limit, args.threads)
     print("running demandprep run (empty warehouse) ...", flush=True)
-    results["demandprep_run"] = run_demandprep(config, folder / "demandprep_run.log")
+    results["demandprep_run"] = run_demandprep("run", config, folder / "demandprep_run.log")
     first_build = latest_build(run_dir)
     results["demandprep_run"] |= build_checksum(first_build)
     ledger = ledger_numbers(run_dir)
@@ -533,7 +666,7 @@ def one_round(args: argparse.Namespace, info: dict, folder: Path) -> tuple[dict,
     shutil.copy2(folder / "held_back" / info["held_back"], arrived)
     try:
         print("running demandprep run (one more day) ...", flush=True)
-        results["demandprep_one_day"] = run_demandprep(config, folder / "demandprep_day.log")
+        results["demandprep_one_day"] = run_demandprep("run", config, folder / "demandprep_day.log")
     finally:
         arrived.unlink()
     results["demandprep_one_day"] |= build_checksum(latest_build(run_dir))
@@ -541,19 +674,41 @@ def one_round(args: argparse.Namespace, info: dict, folder: Path) -> tuple[dict,
     return results, ledger, first_build
 
 
+def ingest_only(args: argparse.Namespace, world: Path, folder: Path) -> dict:
+    """`demandprep ingest` alone on an empty warehouse (its own process)."""
+    run_dir = fresh_folder(folder / "ingest_only")
+    config = demandprep_config(world, run_dir, args.memory_limit, args.threads)
+    print("running demandprep ingest (empty warehouse) ...", flush=True)
+    result = run_demandprep("ingest", config, folder / "demandprep_ingest.log")
+    result["lines"] = ledger_numbers(run_dir)["accepted"]
+    return result
+
+
+def fresh_folder(path: Path) -> Path:
+    shutil.rmtree(path, ignore_errors=True)
+    path.mkdir(parents=True)
+    return path
+
+
 def median_results(rounds: list[dict[str, dict]]) -> dict[str, dict]:
     """Per contender, the median wall, CPU and peak RSS over rounds (checksums of the last)."""
     merged = {}
     for name, last in rounds[-1].items():
         merged[name] = dict(last)
+        if "skipped" in last:
+            continue
         for measure_name in ("wall", "cpu", "peak_mib"):
             merged[name][measure_name] = statistics.median(r[name][measure_name] for r in rounds)
     return merged
 
 
-def render(command: str, info: dict, results: dict, ledger: dict, timings: dict) -> str:
-    files = len(receipt_files(Path(info["folder"]) / "world"))
-    quarantined = ", ".join(f"{k} {v:,}" for k, v in sorted(ledger["quarantined"].items()))
+def render(command: str, sections: list[str], by_size: dict[int, dict]) -> str:
+    """The whole page: command and machine, one section per size, then the targets."""
+    labelled = [
+        (f"{size:,} lines: {label}", value, aim, met)
+        for size in sorted(by_size)
+        for label, value, aim, met in target_rows(by_size[size])
+    ]
     lines = [
         "# Benchmarks",
         "",
@@ -563,63 +718,86 @@ def render(command: str, info: dict, results: dict, ledger: dict, timings: dict)
         "",
         f"Date: {datetime.now(UTC):%Y-%m-%d %H:%M} UTC. Machine: {machine()}.",
         "",
-        f"Input: a demo world (seed {info['seed']}, {info['stores']} stores x {info['weeks']} "
-        f"weeks, {info['visits_per_store_day']:g} visits per store-day), "
-        f"{info['receipt_lines']:,} receipt lines in daily gzip CSV files; the last day "
-        f"({info['held_back']}) is held back, so the first five contenders read {files} files. "
-        f"Generated in {info['generate_seconds']} s (not in the table).",
-        "",
         "Each contender runs alone in its own process, one after the other. Wall time from the "
         "parent; CPU time is user + sys of the child and peak RSS its ru_maxrss (os.wait4). "
         "Ratios are to the bare DuckDB query. With --runs above one, every contender runs once "
-        "per round and the table shows the median per contender.",
+        "per round and the table shows the median per contender. A bare script whose peak "
+        "memory, scaled from a smaller size, would not fit in this machine's memory is "
+        "skipped and says so.",
+        "",
+        "### Targets",
+        "",
+        *targets_lines(labelled + scaling_rows(by_size)),
+        "",
+        *sections,
+        WHAT_THEY_DO,
+    ]
+    return "\n".join(lines)
+
+
+def render_size(info: dict, results: dict, ledger: dict, timings: dict) -> str:
+    files = len(receipt_files(Path(info["folder"]) / "world"))
+    quarantined = ", ".join(f"{k} {v:,}" for k, v in sorted(ledger["quarantined"].items()))
+    lines = [
+        f"### {info['receipt_lines']:,} receipt lines",
+        "",
+        f"Input: a demo world (seed {info['seed']}, {info['stores']} stores x {info['weeks']} "
+        f"weeks, {info['visits_per_store_day']:g} visits per store-day), "
+        f"{info['receipt_lines']:,} receipt lines in daily gzip CSV files; the last day "
+        f"({info['held_back']}) is held back, so every contender but `+1 day` reads {files} "
+        f"files. Generated in {info['generate_seconds']} s (not in the table).",
         "",
         *table_lines(results),
         "",
-        "`lines used`: the receipt lines each contender kept (the bare ones after their read "
-        "and casts; demandprep: lines accepted into the warehouse). The checksum is over the "
-        "visits share table (store x week x product): rows, sum of shares, sum of units. "
-        "`+1 day` is over the table including the added day, so it is larger by construction; "
-        "`duckdb persist` builds no share table.",
-        "",
         f"demandprep's ingest of the first run: {ledger['accepted']:,} lines accepted; "
-        f"quarantined: {quarantined or 'none'}. These seeded faults explain the small "
-        "differences in the checksums: the bare contenders keep every line their read accepts, "
-        "so a clean line re-sent the next day counts twice and a zero or negative quantity "
-        "is summed; a line with an unknown SKU or no SKU falls out of the catalogue join. All "
-        "three drop a line whose quantity or time does not parse and keep one with a bad "
-        "amount or discount (no contender uses those columns; DuckDB does not even parse "
-        "them). They differ among themselves only on lines with an extra field: DuckDB "
-        "(ignore_errors) and pandas (on_bad_lines='skip') drop them, polars "
-        "(truncate_ragged_lines) keeps them cut to the header's columns.",
+        f"quarantined: {quarantined or 'none'}.",
         "",
         "Five largest costs of the first `demandprep run`'s build (manifest.json, "
         "timings_seconds, last round): " + "; ".join(top_costs(timings)) + f". The build's "
         f"timings add up to {sum(timings.values()):.1f} s of the run's "
-        f"{results['demandprep_run']['wall']:.1f} s (median wall); the rest is the ingest "
-        "and process start-up, which have no phase timings yet (not part of this "
-        "benchmark's work).",
-        "",
-        "What the bare contenders do and what differs from demandprep:",
-        "",
-        "- duckdb query: one `read_csv` over all files with the column names and types given, "
-        "broken lines skipped, the catalogue joined for coffee SKUs, visits = distinct (store, "
-        "day, receipt) with a sale line per store-week, units = sale + void lines, returns "
-        "out, one pack = one unit, rows with units <= 0 dropped. No checks, nothing kept.",
-        "- duckdb persist: all text columns plus the file name into one table of a new DuckDB "
-        "file (lines with an extra field skipped); no share table.",
-        "- polars / pandas: read each file as text, concat, cast quantity and time (bad values "
-        "dropped), then the same grouping.",
-        "- demandprep run: the demo config with no product-universe cut, only the visits "
-        "assumption, no outside-share floor and choices off, so its table is the same one; it "
-        "also ingests every reference table, keeps a ledger and quarantine, validates every "
-        "table, builds instruments and writes Parquet outputs. Its visit counts the visit in "
-        "the period of its first sale line (the same week here). The choice build is off in "
-        "these runs; --choices-occasions adds benchmarks/choices_scale.py, which times it "
-        "against its bare query on its own synthetic warehouse.",
+        f"{results['demandprep_run']['wall']:.1f} s (median wall).",
         "",
     ]
     return "\n".join(lines)
+
+
+WHAT_THEY_DO = """### How to read the checksums
+
+`lines used`: the receipt lines each contender kept (the bare ones after their read and casts;
+demandprep: lines accepted into the warehouse). The checksum is over the visits share table
+(store x week x product): rows, sum of shares, sum of units. `+1 day` is over the table
+including the added day, so it is larger by construction; `duckdb persist` and `demandprep
+ingest` build no share table.
+
+The seeded faults explain the small differences in the checksums: the bare contenders keep
+every line their read accepts, so a clean line re-sent the next day counts twice and a zero or
+negative quantity is summed; a line with an unknown SKU or no SKU falls out of the catalogue
+join. All three drop a line whose quantity or time does not parse and keep one with a bad amount
+or discount (no contender uses those columns; DuckDB does not even parse them). They differ
+among themselves only on lines with an extra field: DuckDB (ignore_errors) and pandas
+(on_bad_lines='skip') drop them, polars (truncate_ragged_lines) keeps them cut to the header's
+columns.
+
+What the bare contenders do and what differs from demandprep:
+
+- duckdb query: one `read_csv` over all files with the column names and types given, broken
+  lines skipped, the catalogue joined for coffee SKUs, visits = distinct (store, day, receipt)
+  with a sale line per store-week, units = sale + void lines, returns out, one pack = one unit,
+  rows with units <= 0 dropped. No checks, nothing kept.
+- duckdb persist: all text columns plus the file name into one table of a new DuckDB file
+  (lines with an extra field skipped); no share table. The baseline of the ingest.
+- polars / pandas: read each file as text, concat, cast quantity and time (bad values dropped),
+  then the same grouping.
+- demandprep ingest: `demandprep ingest` on an empty warehouse: every reference table, the
+  receipts with reject capture, rules, duplicates, quarantine, ledger and schema checks.
+- demandprep run: the demo config with no product-universe cut, only the visits assumption, no
+  outside-share floor and choices off, so its table is the same one; it also ingests every
+  reference table, keeps a ledger and quarantine, validates every table, builds instruments and
+  writes Parquet outputs. Its visit counts the visit in the period of its first sale line (the
+  same week here). The choice build is off in these runs; --choices-occasions adds
+  benchmarks/choices_scale.py, which times it against its bare query on its own synthetic
+  warehouse.
+"""
 
 
 if __name__ == "__main__":

@@ -1,0 +1,82 @@
+"""The side-by-side benchmark script: its bookkeeping, and (opt-in, slow) one run on a tiny world.
+
+No timing is asserted: the script measures, the tests only check that it reports what it ran.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+BENCHMARKS = Path(__file__).resolve().parents[1] / "benchmarks"
+sys.path.insert(0, str(BENCHMARKS))
+
+import side_by_side  # noqa: E402
+
+
+def test_a_bare_script_is_skipped_where_its_scaled_peak_would_not_fit(monkeypatch):
+    monkeypatch.setattr(side_by_side, "available_bytes", lambda: 10 * 2**30)
+    measured = {1_000_000: {"pandas": {"peak_mib": 600.0}}}  # 600 MiB per million lines
+
+    assert side_by_side.memory_skip("pandas", 10_000_000, measured) is None  # ~5.9 GiB fits
+    reason = side_by_side.memory_skip("pandas", 50_000_000, measured)
+    assert reason is not None and reason.startswith("skipped: would need about 29.3 GiB")
+    assert "its peak at 1,000,000 lines in this run" in reason
+    # demandprep and the DuckDB contenders are never skipped for memory
+    assert side_by_side.memory_skip("duckdb_query", 10**12, measured) is None
+
+
+def test_targets_say_which_ratio_misses_its_aim():
+    def row(wall, cpu):
+        return {"wall": wall, "cpu": cpu, "peak_mib": 1.0}
+
+    results = {
+        "duckdb_query": row(10, 10),
+        "duckdb_persist": row(10, 20),
+        "pandas": row(90, 90),
+        "demandprep_ingest": row(14, 40),
+        "demandprep_run": row(20, 30),
+        "demandprep_one_day": row(2, 2),
+    }
+    met = {label: ok for label, _, _, ok in side_by_side.target_rows(results)}
+
+    assert met["ingest / bare persist, wall"] is True  # 1.4
+    assert met["ingest / bare persist, CPU"] is False  # 2.0
+    assert met["full run / bare query, wall"] is True  # 2.0
+    assert met["one more day / full run, wall"] is False  # 0.1
+    assert met["pandas script / full run, wall"] is True  # 4.5
+
+
+def test_a_skipped_contender_leaves_its_targets_unmeasured():
+    results = {"duckdb_query": {"wall": 1.0, "cpu": 1.0}, "pandas": {"skipped": "skipped: x"}}
+    rows = {label: (value, ok) for label, value, _, ok in side_by_side.target_rows(results)}
+
+    assert rows["pandas script / full run, wall"] == (None, None)
+
+
+def test_scaling_compares_time_growth_with_line_growth():
+    by_size = {
+        1_000: {"demandprep_run": {"wall": 2.0}},
+        10_000: {"demandprep_run": {"wall": 24.0}},
+    }
+    ((label, growth, aim, met),) = side_by_side.scaling_rows(by_size)
+
+    assert growth == pytest.approx(1.2) and met is False and aim == "<= 1.1"
+    assert "1,000 -> 10,000" in label
+
+
+@pytest.mark.slow
+def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
+    done = subprocess.run(
+        [sys.executable, str(BENCHMARKS / "side_by_side.py"), "--lines", "20000", "--no-doc"]
+        + ["--workdir", str(tmp_path)],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    for label in side_by_side.CONTENDERS.values():
+        assert f"| {label} | " in done.stdout
+    assert "| 20,000 lines: full run / bare query, wall | " in done.stdout

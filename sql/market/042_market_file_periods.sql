@@ -12,7 +12,7 @@ files as (
         rows_accepted,
         first_sold_at::date as first_date,
         last_sold_at::date as last_date,
-    from ledger
+    from market_input_ledger
     where source = 'receipts' and status = 'current'
 ),
 

@@ -32,6 +32,7 @@ import pandera.polars as pa
 from demandprep import __version__
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
+from demandprep.market.inputs import has_ledger
 from demandprep.sqlfiles import run_sql, sql_text
 from demandprep.validate import validate_table
 
@@ -68,6 +69,7 @@ create or replace table market_summary_modes (
 """
 
 NO_SUMMARIES = "no period summaries are stored yet"
+NO_LEDGER = "the warehouse has no ledger to tell which receipts files changed"
 CODE_CHANGED = "demandprep or its SQL changed since the summaries were built"
 CONFIG_CHANGED = "the config changed since the summaries were built"
 REFERENCES_CHANGED = (
@@ -87,7 +89,7 @@ class Fingerprint:
 def current_fingerprint(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> Fingerprint:
     """The fingerprint of this config, the current reference files and this tool's SQL."""
     references = con.execute(
-        "select source, path, sha256 from ledger "
+        "select source, path, sha256 from market_input_ledger "
         "where status = 'current' and source <> 'receipts' order by all"
     ).fetchall()
     code = [__version__, *(sql_text(name) for name in SUMMARY_SQL)]
@@ -125,6 +127,8 @@ def full_build_reason(
     scope = config.markets.receipt_ids_unique_per
     if scope != "store_day":
         return f"markets.receipt_ids_unique_per = {scope!r} lets a visit span periods"
+    if not has_ledger(con):
+        return NO_LEDGER
     stored = con.execute(
         "select config_hash, references_hash, code_hash from market_summary_state "
         "where summary = $summary",

@@ -1,7 +1,7 @@
 -- One row per receipts file whose lines are in the warehouse (current in the ledger): the
 -- periods of its first and last accepted line, from the ledger's first and last sale time
 -- (null for a file that kept no line). The incremental build diffs these rows against the files
--- each period summary was built from (market_summary_files).
+-- each period summary was built from (market_summary_files), by file id and checksum.
 create or replace table market_file_periods as
 
 with
@@ -9,6 +9,7 @@ with
 files as (
     select
         file_id,
+        sha256,
         rows_accepted,
         first_sold_at::date as first_date,
         last_sold_at::date as last_date,
@@ -26,6 +27,7 @@ calendar as (
 final as (
     select
         files.file_id,
+        files.sha256,
         files.rows_accepted,
         first_days.period_start as first_period,
         last_days.period_start as last_period,
@@ -36,6 +38,7 @@ final as (
 
 select
     file_id,
+    sha256,
     rows_accepted,
     first_period,
     last_period,

@@ -21,6 +21,7 @@ modes as (
 files as (
     select
         file_id,
+        sha256,
         first_period,
         last_period,
     from market_file_periods
@@ -30,6 +31,7 @@ summarized_files as (
     select
         summary,
         file_id,
+        sha256,
         first_period,
         last_period,
     from market_summary_files
@@ -69,6 +71,7 @@ arrived_files as (
     anti join summarized_files
         on summarized_files.summary = incremental_summaries.summary
         and summarized_files.file_id = files.file_id
+        and summarized_files.sha256 = files.sha256
 ),
 
 departed_files as (
@@ -78,7 +81,7 @@ departed_files as (
         summarized_files.last_period,
     from summarized_files
     semi join incremental_summaries using (summary)
-    anti join files using (file_id)
+    anti join files using (file_id, sha256)
 ),
 
 touched_ranges as (

@@ -59,6 +59,7 @@ create table if not exists market_summary_state (
 create table if not exists market_summary_files (
     summary varchar not null,
     file_id varchar not null,
+    sha256 varchar not null,
     first_period date,
     last_period date,
 );
@@ -248,6 +249,6 @@ def store_summary_state(
     con.execute("delete from market_summary_files where summary = $summary", params)
     con.execute(
         "insert into market_summary_files "
-        "select $summary, file_id, first_period, last_period from market_file_periods",
+        "select $summary, file_id, sha256, first_period, last_period from market_file_periods",
         params,
     )

@@ -80,13 +80,13 @@ def assert_same_parquet(left: Path, right: Path, leave_out: tuple[str, ...] = ()
     assert differing == []
 
 
-def rewrite_receipts(path: Path, keep) -> None:
-    """Rewrite a gzip receipts file keeping the header and the data lines `keep` accepts."""
+def rewrite_receipts(path: Path, change) -> None:
+    """Rewrite a gzip receipts file: `change(number, line)` gives a data line's new text or None."""
     with gzip.open(path, "rt", encoding="utf-8") as handle:
         header, *lines = handle.read().splitlines()
-    kept = [line for number, line in enumerate(lines) if keep(number, line)]
+    changed = [change(number, line) for number, line in enumerate(lines)]
     with gzip.open(path, "wt", encoding="utf-8") as handle:
-        handle.write("\n".join([header, *kept]) + "\n")
+        handle.write("\n".join([header, *(line for line in changed if line is not None)]) + "\n")
 
 
 def summary_files(world: Path) -> set[tuple[str, str]]:
@@ -121,14 +121,18 @@ def test_a_night_without_new_files_rebuilds_no_period(world):
 
 def test_corrected_file_recomputes_the_periods_of_its_old_and_new_lines(world, tmp_path):
     build(world)
-    # the correction keeps only the first half of the day's lines: its old lines vanish
+    # the correction keeps half of the day's lines and dates them a week later: the old
+    # lines' week loses them, the next week gains them
     early = world / RECEIPTS / EARLY_DAY
     with gzip.open(early, "rt", encoding="utf-8") as handle:
         half = (len(handle.read().splitlines()) - 1) // 2
-    rewrite_receipts(early, lambda number, _line: number < half)
+    rewrite_receipts(
+        early,
+        lambda number, line: line.replace(",2024-01-16 ", ",2024-01-23 ") if number < half else None,
+    )
     corrected, manifest = build(world)
     assert manifest["build_mode"] == "incremental"
-    assert manifest["periods_rebuilt"] == ["2024-01-15"]
+    assert manifest["periods_rebuilt"] == ["2024-01-15", "2024-01-22"]
     assert_same_parquet(corrected, full_rebuild(world))
     # a new warehouse has no superseded version of the file: its ledger differs on purpose
     assert_same_parquet(corrected, fresh_build(world, tmp_path), leave_out=("ledger", "quarantine"))

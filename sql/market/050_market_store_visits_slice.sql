@@ -9,8 +9,9 @@
 -- A visit counts once, in the store and period of its first sale line.
 -- Only the periods in this build's ranges (market_build_ranges) are counted here, reading the
 -- lines sold from $scan_from to before $scan_until; the stage merges these rows into the stored
--- summary market_store_visits. Periods split visits apart only when a visit can span days, and
--- then every build is a full one (market/summaries.py).
+-- summary market_store_visits. A store_day visit lies within one day, so counting one period
+-- at a time is exact; the other scopes let a visit span periods, and with them every build
+-- counts every period (market/summaries.py).
 create or replace table market_store_visits_slice as
 
 with

@@ -126,10 +126,11 @@ def test_corrected_file_recomputes_the_periods_of_its_old_and_new_lines(world, t
     early = world / RECEIPTS / EARLY_DAY
     with gzip.open(early, "rt", encoding="utf-8") as handle:
         half = (len(handle.read().splitlines()) - 1) // 2
-    rewrite_receipts(
-        early,
-        lambda number, line: line.replace(",2024-01-16 ", ",2024-01-23 ") if number < half else None,
-    )
+
+    def moved_a_week(number: int, line: str) -> str | None:
+        return line.replace(",2024-01-16 ", ",2024-01-23 ") if number < half else None
+
+    rewrite_receipts(early, moved_a_week)
     corrected, manifest = build(world)
     assert manifest["build_mode"] == "incremental"
     assert manifest["periods_rebuilt"] == ["2024-01-15", "2024-01-22"]

@@ -21,6 +21,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+
 # scipy.special, not scipy.stats: the F survival function is special.fdtrc (what
 # stats.f.sf calls), and scipy.stats costs about a second of start-up on every build
 from scipy import special

@@ -211,6 +211,7 @@ def store_summary(ctx: BuildContext, summary: str, model: type[pa.DataFrameModel
             con.execute(f"create or replace table {summary} as from {summary}_slice")  # noqa: S608
         else:
             _replace_periods(con, summary)
+        con.execute(f"drop table {summary}_slice")  # merged: the warehouse keeps one copy
         rows = validate_table(con, summary, model)
         store_summary_state(con, summary, current_fingerprint(con, ctx.config))
         con.execute("commit")

@@ -175,6 +175,25 @@ def test_changed_reference_table_forces_a_full_build_and_says_why(world):
     )
 
 
+def test_receipt_ids_unique_per_store_rebuild_every_period_each_night(world, tmp_path):
+    # a visit may then span days, and periods: its first line decides its period
+    config = world / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    config.write_text(
+        text.replace(
+            'categories = ["coffee"]', 'categories = ["coffee"]\nreceipt_ids_unique_per = "store"'
+        )
+    )
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    assert manifest["full_build_reason"] == (
+        "markets.receipt_ids_unique_per = 'store' lets a visit span periods"
+    )
+    assert len(manifest["periods_rebuilt"]) == 7
+
+
 def test_crash_while_storing_summaries_keeps_the_old_ones_and_the_next_build_is_right(
     world, tmp_path, monkeypatch
 ):

@@ -15,6 +15,7 @@ import pandas as pd
 import pytest
 from instruments_fixtures import fixture_config
 from linearmodels.iv import IV2SLS
+from scipy import stats
 
 from demandprep.context import BuildContext
 from demandprep.instruments.first_stage import measure_first_stage
@@ -70,6 +71,8 @@ def test_partial_f_matches_linearmodels_without_fixed_effects():
     )
     assert ours.partial_f == pytest.approx(reference, abs=1e-6)
     assert (ours.df_num, ours.df_den) == (2, 300 - 5)
+    # reference: scipy.stats F distribution, survival function at the statistic
+    assert ours.p_value == stats.f.sf(ours.partial_f, 2, 300 - 5)
 
 
 def test_partial_f_with_period_and_product_effects_matches_linearmodels_dummies():

@@ -88,8 +88,19 @@ def build_manifest(
         "timings_seconds": dict(ctx.timings),
         "warnings": list(ctx.warnings),
         "facts": ctx.facts,
+        **build_scope(ctx),
         **(extra or {}),
     }
+
+
+def build_scope(ctx: BuildContext) -> dict[str, Any]:
+    """`build_mode` ("full" | "incremental"), `periods_rebuilt` and why a build was full."""
+    default = {
+        "build_mode": "full",
+        "periods_rebuilt": [],
+        "full_build_reason": "this build has no market stages",
+    }
+    return dict(ctx.facts.get("build_scope", default))
 
 
 def write_manifest(folder: Path, manifest: dict[str, Any]) -> Path:

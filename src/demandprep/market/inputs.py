@@ -1,8 +1,9 @@
-"""Views over the optional inputs (shelf prices, the user's market-size table).
+"""Views over the optional inputs (shelf prices, the user's market-size table, the ledger).
 
-The static SQL reads `market_input_shelf_prices` and `market_input_size_table`; each is a view of
-the ingested table when it exists and an empty view with the same columns when the source is not
-configured, so one SQL text serves both cases.
+The static SQL reads `market_input_shelf_prices`, `market_input_size_table` and
+`market_input_ledger`; each is a view of the ingested table when it exists and an empty view with
+the same columns when the source is not configured (or, for the ledger, when a warehouse was
+filled by hand), so one SQL text serves both cases.
 """
 
 from __future__ import annotations
@@ -36,9 +37,31 @@ where false
 """
 
 
+LEDGER_VIEW = """
+create or replace view market_input_ledger as
+select file_id, source, path, sha256, status, rows_accepted, first_sold_at, last_sold_at
+from ledger
+"""
+
+EMPTY_LEDGER_VIEW = """
+create or replace view market_input_ledger as
+select
+    null::varchar as file_id, null::varchar as source, null::varchar as path,
+    null::varchar as sha256, null::varchar as status, null::bigint as rows_accepted,
+    null::timestamp as first_sold_at, null::timestamp as last_sold_at
+where false
+"""
+
+
+def has_ledger(con: duckdb.DuckDBPyConnection) -> bool:
+    """True when the warehouse has the ingest's ledger (hand-filled test warehouses may not)."""
+    return bool(table_columns(con, "ledger"))
+
+
 def create_input_views(con: duckdb.DuckDBPyConnection) -> None:
-    """Create the two optional-input views, empty when their table is absent."""
+    """Create the optional-input views, empty when their table is absent."""
     has_shelf = bool(table_columns(con, "shelf_prices"))
     con.execute(SHELF_PRICES_VIEW if has_shelf else EMPTY_SHELF_PRICES_VIEW)
     has_sizes = bool(table_columns(con, "market_size_table"))
     con.execute(SIZE_TABLE_VIEW if has_sizes else EMPTY_SIZE_TABLE_VIEW)
+    con.execute(LEDGER_VIEW if has_ledger(con) else EMPTY_LEDGER_VIEW)

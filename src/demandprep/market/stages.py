@@ -8,8 +8,13 @@ for, then the table's pandera model (demandprep.schemas.market) guards it:
   market_skus                020  in-scope SKU -> product, firm, nest, equivalent units per unit
   market_product_attributes  030  product -> firm, nest, characteristics (from its first SKU)
   market_store_geographies   040  store -> geography
-  market_store_visits        050  visits per store and period (all categories)
-  market_sku_sales           060  exact (decimal) demand sums per geography, period and SKU
+  market_build_periods       042  each receipts file's first and last period
+                             045  the period ranges this build recomputes (market/summaries.py)
+  market_store_visits        050  visits per store and period (all categories): this build's
+                                  periods into market_store_visits_slice, merged into the
+                                  stored summary
+  market_sku_sales           060  exact (decimal) demand sums per geography, period and SKU,
+                                  likewise (market_sku_sales_slice)
   market_product_sales       070  demand per market and product
   product_universe           080  keep rules: top N, volume share, market presence
   market_availability        090  universe products on the shelf (for zero shares)
@@ -41,7 +46,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from demandprep.context import BuildContext
-from demandprep.market import checks
+from demandprep.market import checks, summaries
 from demandprep.market.inputs import create_input_views
 from demandprep.market.settings import check_inputs, market_params, write_settings
 from demandprep.schemas.market import MARKET_MODELS
@@ -54,8 +59,8 @@ SQL_FILES: dict[str, str] = {
     "market_skus": "market/020_market_skus.sql",
     "market_product_attributes": "market/030_market_product_attributes.sql",
     "market_store_geographies": "market/040_market_store_geographies.sql",
-    "market_store_visits": "market/050_market_store_visits.sql",
-    "market_sku_sales": "market/060_market_sku_sales.sql",
+    "market_store_visits": "market/050_market_store_visits_slice.sql",
+    "market_sku_sales": "market/060_market_sku_sales_slice.sql",
     "market_product_sales": "market/070_market_product_sales.sql",
     "product_universe": "market/080_product_universe.sql",
     "market_availability": "market/090_market_availability.sql",
@@ -97,6 +102,20 @@ def _table_stage(table: str, *after: Check, first: tuple[Check, ...] = ()) -> Ch
     return run
 
 
+def _summary_stage(table: str, *after: Check) -> Check:
+    def run(ctx: BuildContext) -> None:
+        params = market_params(ctx.config) | summaries.scan_params(ctx.con, table)
+        run_sql(ctx.con, SQL_FILES[table], params)
+        rows = summaries.store_summary(ctx, table, MARKET_MODELS[table])
+        ctx.facts.setdefault("market", {}).setdefault("rows", {})[table] = rows
+        for check in after:
+            check(ctx)
+
+    run.__name__ = f"build_{table}"
+    run.__doc__ = f"Recompute this build's periods of the {table} summary and store them."
+    return run
+
+
 def _check_attributes(ctx: BuildContext) -> None:
     checks.check_product_attributes(ctx, market_params(ctx.config))
 
@@ -117,8 +136,13 @@ MARKET_STAGES: tuple[Stage, ...] = (
         "market_product_attributes", _table_stage("market_product_attributes", _check_attributes)
     ),
     Stage("market_store_geographies", _table_stage("market_store_geographies")),
-    Stage("market_store_visits", _table_stage("market_store_visits", checks.check_store_coverage)),
-    Stage("market_sku_sales", _table_stage("market_sku_sales", checks.check_fractional_quantities)),
+    Stage("market_build_periods", summaries.plan_build_periods),
+    Stage(
+        "market_store_visits", _summary_stage("market_store_visits", checks.check_store_coverage)
+    ),
+    Stage(
+        "market_sku_sales", _summary_stage("market_sku_sales", checks.check_fractional_quantities)
+    ),
     Stage("market_product_sales", _table_stage("market_product_sales", checks.check_net_demand)),
     Stage("product_universe", _table_stage("product_universe", checks.check_universe)),
     Stage("market_availability", _table_stage("market_availability")),

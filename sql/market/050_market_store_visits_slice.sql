@@ -7,7 +7,12 @@
 --   store      (store, receipt)
 --   chain      (receipt)
 -- A visit counts once, in the store and period of its first sale line.
-create or replace table market_store_visits as
+-- Only the periods in this build's ranges (market_build_ranges) are counted here, reading the
+-- lines sold from $scan_from to before $scan_until; the stage merges these rows into the stored
+-- summary market_store_visits. A store_day visit lies within one day, so counting one period
+-- at a time is exact; the other scopes let a visit span periods, and with them every build
+-- counts every period (market/summaries.py).
+create or replace table market_store_visits_slice as
 
 with
 
@@ -18,13 +23,26 @@ sale_lines as (
         sold_at,
     from raw_lines
     where line_kind = 'sale'
+        and sold_at >= $scan_from
+        and sold_at < $scan_until
+),
+
+build_ranges as (
+    select
+        first_period,
+        last_period,
+    from market_build_ranges
+    where summary = 'market_store_visits'
 ),
 
 calendar as (
     select
-        date,
-        period_start,
+        market_calendar.date,
+        market_calendar.period_start,
     from market_calendar
+    semi join build_ranges
+        on market_calendar.period_start between build_ranges.first_period
+        and build_ranges.last_period
 ),
 
 -- the parts of a visit's identity; a part outside the configured scope is null for every line

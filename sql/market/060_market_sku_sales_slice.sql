@@ -2,7 +2,10 @@
 -- not depend on the order threads add them. Demand lines: sales, voids (a void cancels a scan
 -- of the same visit and carries negative quantities) and, when $returns_in_demand, returns
 -- (negative too, so they are netted). Values are signed as ingested.
-create or replace table market_sku_sales as
+-- Only the periods in this build's ranges (market_build_ranges) are summed here, reading the
+-- lines sold from $scan_from to before $scan_until; the stage merges these rows into the stored
+-- summary market_sku_sales.
+create or replace table market_sku_sales_slice as
 
 with
 
@@ -16,13 +19,25 @@ lines as (
         discount,
         line_kind,
     from raw_lines
+    where sold_at >= $scan_from and sold_at < $scan_until
+),
+
+build_ranges as (
+    select
+        first_period,
+        last_period,
+    from market_build_ranges
+    where summary = 'market_sku_sales'
 ),
 
 calendar as (
     select
-        date,
-        period_start,
+        market_calendar.date,
+        market_calendar.period_start,
     from market_calendar
+    semi join build_ranges
+        on market_calendar.period_start between build_ranges.first_period
+        and build_ranges.last_period
 ),
 
 skus as (

@@ -1,0 +1,220 @@
+"""Incremental builds: a night recomputes only the periods its files touch, and its Parquet
+files are byte for byte those of a full build of the same inputs."""
+
+from __future__ import annotations
+
+import gzip
+import json
+import shutil
+from pathlib import Path
+
+import duckdb
+import pytest
+
+from demandprep import pipeline
+from demandprep.config import load_config
+from demandprep.export.folder import latest_build
+from demandprep.ingest.withdraw import withdraw_files
+from demandprep.warehouse import open_warehouse
+
+# these tests are about bytes, not plots: a one-line report keeps them fast
+pytestmark = pytest.mark.usefixtures("one_line_report")
+
+RECEIPTS = Path("receipts") / "2024"
+LAST_DAY = "receipts_2024-02-18.csv.gz"  # a Sunday: the last day of the week of 2024-02-12
+EARLY_DAY = "receipts_2024-01-16.csv.gz"  # a Tuesday in the week of 2024-01-15
+
+
+@pytest.fixture()
+def world(tmp_path: Path, coffee_sample: Path) -> Path:
+    """A private copy of the sample with choices off and its last day's file held back."""
+    folder = tmp_path / "world"
+    shutil.copytree(coffee_sample, folder)
+    config = folder / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    config.write_text(text.replace("[choices]\nenabled = true", "[choices]\nenabled = false"))
+    (folder / RECEIPTS / LAST_DAY).rename(tmp_path / LAST_DAY)
+    return folder
+
+
+def build(world: Path) -> tuple[Path, dict]:
+    """Ingest what is new and build; returns the build folder and its manifest."""
+    config = load_config(world / "demandprep.toml")
+    pipeline.run_ingest(config)
+    folder, _ctx = pipeline.run_build(config)
+    return folder, json.loads((folder / "manifest.json").read_text(encoding="utf-8"))
+
+
+def full_rebuild(world: Path) -> Path:
+    """A full build of the same warehouse: the stored summaries are dropped first."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute("drop table market_summary_state")
+    folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    return folder
+
+
+def fresh_build(world: Path, tmp_path: Path) -> Path:
+    """A full build of the same files on a new warehouse (the old one moved aside)."""
+    warehouse = world / "warehouse"
+    warehouse.rename(tmp_path / "old_warehouse")
+    folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    return folder
+
+
+def parquet_bytes(folder: Path, leave_out: tuple[str, ...] = ()) -> dict[str, bytes]:
+    return {
+        path.relative_to(folder).as_posix(): path.read_bytes()
+        for path in sorted(folder.rglob("*.parquet"))
+        if not path.name.startswith(leave_out)
+    }
+
+
+def assert_same_parquet(left: Path, right: Path, leave_out: tuple[str, ...] = ()) -> None:
+    first, second = parquet_bytes(left, leave_out), parquet_bytes(right, leave_out)
+    assert sorted(first) == sorted(second)
+    assert len(first) > 5
+    differing = [name for name in first if first[name] != second[name]]
+    assert differing == []
+
+
+def rewrite_receipts(path: Path, change) -> None:
+    """Rewrite a gzip receipts file: `change(number, line)` gives a data line's new text or None."""
+    with gzip.open(path, "rt", encoding="utf-8") as handle:
+        header, *lines = handle.read().splitlines()
+    changed = [change(number, line) for number, line in enumerate(lines)]
+    with gzip.open(path, "wt", encoding="utf-8") as handle:
+        handle.write("\n".join([header, *(line for line in changed if line is not None)]) + "\n")
+
+
+def summary_files(world: Path) -> set[tuple[str, str]]:
+    config = load_config(world / "demandprep.toml")
+    con = duckdb.connect(str(config.warehouse.path), read_only=True)
+    try:
+        return set(con.execute("select summary, file_id from market_summary_files").fetchall())
+    finally:
+        con.close()
+
+
+def test_one_more_day_rebuilds_its_week_only_and_equals_a_full_build(world, tmp_path):
+    _first, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    assert manifest["full_build_reason"] == "no period summaries are stored yet"
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    incremental, manifest = build(world)
+    assert manifest["build_mode"] == "incremental"
+    assert manifest["full_build_reason"] is None
+    assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert_same_parquet(incremental, full_rebuild(world))
+    assert_same_parquet(incremental, fresh_build(world, tmp_path))
+
+
+def test_a_night_without_new_files_rebuilds_no_period(world):
+    build(world)
+    same, manifest = build(world)
+    assert manifest["build_mode"] == "incremental"
+    assert manifest["periods_rebuilt"] == []
+    assert_same_parquet(same, full_rebuild(world))
+
+
+def test_corrected_file_recomputes_the_periods_of_its_old_and_new_lines(world, tmp_path):
+    build(world)
+    # the correction keeps half of the day's lines and dates them a week later: the old
+    # lines' week loses them, the next week gains them
+    early = world / RECEIPTS / EARLY_DAY
+    with gzip.open(early, "rt", encoding="utf-8") as handle:
+        half = (len(handle.read().splitlines()) - 1) // 2
+
+    def moved_a_week(number: int, line: str) -> str | None:
+        return line.replace(",2024-01-16 ", ",2024-01-23 ") if number < half else None
+
+    rewrite_receipts(early, moved_a_week)
+    corrected, manifest = build(world)
+    assert manifest["build_mode"] == "incremental"
+    assert manifest["periods_rebuilt"] == ["2024-01-15", "2024-01-22"]
+    assert_same_parquet(corrected, full_rebuild(world))
+    # a new warehouse has no superseded version of the file: its ledger differs on purpose
+    assert_same_parquet(corrected, fresh_build(world, tmp_path), leave_out=("ledger", "quarantine"))
+
+
+def test_withdrawn_file_recomputes_the_periods_its_lines_were_in(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        withdraw_files(con, config, str(RECEIPTS / EARLY_DAY), "sent twice by the till vendor")
+    (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
+    withdrawn, manifest = build(world)
+    assert manifest["build_mode"] == "incremental"
+    assert manifest["periods_rebuilt"] == ["2024-01-15"]
+    assert_same_parquet(withdrawn, full_rebuild(world))
+    assert_same_parquet(withdrawn, fresh_build(world, tmp_path), leave_out=("ledger", "quarantine"))
+
+
+def test_changed_config_forces_a_full_build_and_says_why(world):
+    build(world)
+    config = world / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    config.write_text(text.replace("outside_share_floor = 0.05", "outside_share_floor = 0.04"))
+    _folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    assert manifest["full_build_reason"] == "the config changed since the summaries were built"
+
+
+def test_changed_reference_table_forces_a_full_build_and_says_why(world):
+    build(world)
+    stores = world / "stores.csv"
+    header, *rows = stores.read_text(encoding="utf-8").splitlines()
+    stores.write_text("\n".join([header, *reversed(rows)]) + "\n", encoding="utf-8")
+    _folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    assert manifest["full_build_reason"] == (
+        "a reference file (catalogue, stores, shelf prices, ...) changed since the summaries "
+        "were built"
+    )
+
+
+def test_receipt_ids_unique_per_store_rebuild_every_period_each_night(world, tmp_path):
+    # a visit may then span days, and periods: its first line decides its period
+    config = world / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    config.write_text(
+        text.replace(
+            'categories = ["coffee"]', 'categories = ["coffee"]\nreceipt_ids_unique_per = "store"'
+        )
+    )
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    assert manifest["full_build_reason"] == (
+        "markets.receipt_ids_unique_per = 'store' lets a visit span periods"
+    )
+    assert len(manifest["periods_rebuilt"]) == 7
+
+
+def test_crash_while_storing_summaries_keeps_the_old_ones_and_the_next_build_is_right(
+    world, tmp_path, monkeypatch
+):
+    from demandprep.market import summaries
+
+    build(world)
+    before = summary_files(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+
+    def crash(*_args, **_kwargs):
+        raise RuntimeError("power cut")
+
+    # the crash comes after the period rows were replaced, before the state is written
+    with monkeypatch.context() as patch:
+        patch.setattr(summaries, "store_summary_state", crash)
+        with pytest.raises(RuntimeError, match="power cut"):
+            build(world)
+    assert summary_files(world) == before
+    config = load_config(world / "demandprep.toml")
+    recovered, manifest = build(world)
+    assert manifest["build_mode"] == "incremental"
+    assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert latest_build(config.export.root) == recovered
+    assert_same_parquet(recovered, full_rebuild(world))

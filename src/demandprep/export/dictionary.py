@@ -36,6 +36,8 @@ SCHEMA_MODULES = (
 KIND_TABLES: dict[str, tuple[str, ...]] = {
     "shares": ("shares", "market_products", "share_table", "instruments"),
     "markets": ("markets",),
+    "products": ("products",),
+    "geographies": ("geographies",),
     "choices": ("choices",),
     "choosers": ("choosers",),
     "ledger": ("ledger",),
@@ -193,7 +195,26 @@ def _pattern_entry(column: str, models: Sequence[type[pa.DataFrameModel]]) -> Co
 
 def _config_entry(column: str, kind: str, config: ProjectConfig) -> ColumnEntry | None:
     """Entries for columns the user names in the config, which no model can list in advance."""
-    if kind in ("shares", "choices") and column in config.products.characteristics:
+    if kind == "products" and column in config.products.keys:
+        source = config.sources.catalogue.columns.get(column, column)
+        return ColumnEntry(
+            column,
+            f"Product-key part {column!r}, read from the catalogue column {source!r}, as text.",
+            "text",
+            "the product id is the key parts joined with '|' (fringe: null)",
+            "config products.keys",
+        )
+    if kind == "geographies":
+        source = config.sources.stores.columns.get(column, column)
+        return ColumnEntry(
+            column,
+            f"Stores column {column!r} (file column {source!r}), one value in each geography: "
+            "a level above it such as region or chain.",
+            "as in the stores file",
+            "the value shared by every store of the geography",
+            "stores columns constant within each geography",
+        )
+    if kind in ("shares", "choices", "products") and column in config.products.characteristics:
         source = config.sources.catalogue.columns.get(column, column)
         return ColumnEntry(
             column,

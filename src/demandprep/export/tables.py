@@ -56,6 +56,8 @@ class TableQuery:
 _KINDS: dict[str, tuple[str, tuple[str, ...], bool, bool]] = {
     "shares": ("share_table", ("market", "product"), True, True),
     "markets": ("markets", ("market",), True, True),
+    "products": ("products", ("product",), False, True),
+    "geographies": ("geographies", ("geography",), False, True),
     "choices": ("choices", ("occasion", "alternative"), False, True),
     "choosers": ("choosers", ("chooser",), False, True),
     "ledger": ("ledger", ("path", "version", "file_id"), True, True),

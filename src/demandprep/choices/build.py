@@ -52,6 +52,7 @@ INTERMEDIATE_TABLES = (
     "choice_alternative_prices",
     "choice_alternative_attributes",
     "choice_store_day_info",
+    "choice_store_day_markets",
 )
 
 
@@ -169,6 +170,7 @@ def build_choice_sets(ctx: BuildContext) -> None:
         "070_choice_alternative_prices",
         "075_choice_alternative_attributes",
         "078_choice_store_day_info",
+        "079_choice_store_day_markets",
     )
 
 

@@ -22,6 +22,13 @@ EMPTY_INPUTS = {
     ),
     "product_universe": "select null::varchar as product, null::boolean as kept where false",
     "market_skus": "select null::varchar as sku, null::varchar as product where false",
+    "market_store_geographies": (
+        "select null::varchar as store, null::varchar as geography where false"
+    ),
+    "markets": (
+        "select null::varchar as market, null::varchar as geography, null::date as period_start "
+        "where false"
+    ),
 }
 INPUT_VIEWS = tuple(f"choice_input_{table}" for table in EMPTY_INPUTS)
 

@@ -36,6 +36,7 @@ CHOICE_COLUMNS = (
     "occasion",
     "chooser",
     "store",
+    "market",
     "occasion_at",
     "alternative",
     "chosen",

@@ -618,8 +618,9 @@ class ProjectConfig(Section):
     products: ProductsSection = described("What one product is.")
     market_size: dict[Identifier, MarketSizeAssumption] = described(
         "Market-size assumptions, one table per name. Built side by side; the first one "
-        "feeds the summary and the first-stage check.",
-        min_length=1,
+        "feeds the summary and the first-stage check. Leave every [market_size.<name>] out "
+        "for a choice-only project: no market, share or instrument table is built.",
+        default_factory=dict,
     )
     shares: SharesSection = described("Share computation.", default=SharesSection())
     instruments: InstrumentsSection = described("Price instruments.", default=InstrumentsSection())
@@ -627,6 +628,11 @@ class ProjectConfig(Section):
     export: ExportSection = described("Build folders and formats.", default=ExportSection())
     schedule: ScheduleSection = described("The nightly schedule.", default=ScheduleSection())
     config_path: Path | None = Field(None, exclude=True)
+
+    @property
+    def market_build_enabled(self) -> bool:
+        """True when the market build runs: the config names a market-size assumption."""
+        return bool(self.market_size)
 
     def resolved_dict(self) -> dict[str, Any]:
         """The config with every default filled in and paths absolute, JSON-ready."""
@@ -658,6 +664,17 @@ def parse_config(raw: dict[str, Any], path: Path, check_files: bool = True) -> P
     except ValidationError as error:
         raise ConfigInvalid([_problem(item, path) for item in error.errors()]) from None
     config = config.model_copy(update={"config_path": path})
+    if not config.market_build_enabled and not config.choices.enabled:
+        raise ConfigInvalid(
+            [
+                UserError(
+                    f"{path}: nothing to build: no [market_size] assumption and "
+                    "choices.enabled = false.",
+                    "add a [market_size.<name>] table for the market build, or set "
+                    "choices.enabled = true for choice data.",
+                )
+            ]
+        )
     if check_files:
         _check_files_exist(config, path)
     return config

@@ -117,7 +117,8 @@ def role_problems(config: ProjectConfig) -> list[UserError]:
                     f"map it under [sources.{source_name}.columns] or remove it from {key}.",
                 )
             )
-    problems += _instrument_characteristic_problems(config)
+    if config.market_build_enabled:
+        problems += _instrument_characteristic_problems(config)
     return problems
 
 
@@ -129,7 +130,17 @@ def configured_roles(config: ProjectConfig) -> list[Role]:
     if products.nest is not None:
         roles.append(("products.nest", products.nest, "catalogue"))
     roles += [("products.characteristics", n, "catalogue") for n in products.characteristics]
-    unit = products.equivalent_unit
+    if config.market_build_enabled:
+        roles += _market_roles(config)
+    if config.choices.enabled:
+        roles += [("choices.demographics", n, "households") for n in config.choices.demographics]
+    return list(dict.fromkeys(roles))
+
+
+def _market_roles(config: ProjectConfig) -> list[Role]:
+    # columns only the market and instrument stages read
+    roles: list[Role] = []
+    unit = config.products.equivalent_unit
     if unit.kind == "weight":
         roles.append(("products.equivalent_unit.size_column", unit.size_column, "catalogue"))
         roles.append(("products.equivalent_unit.unit_column", unit.unit_column, "catalogue"))
@@ -142,9 +153,7 @@ def configured_roles(config: ProjectConfig) -> list[Role]:
         roles += [
             ("instruments.cost_shifters.join_on", n, "cost_shifters") for n in shifters.join_on
         ]
-    if config.choices.enabled:
-        roles += [("choices.demographics", n, "households") for n in config.choices.demographics]
-    return list(dict.fromkeys(roles))
+    return roles
 
 
 def _store_roles(config: ProjectConfig) -> list[Role]:

@@ -17,7 +17,8 @@ from demandprep.stage import Stage, run_stage
 
 def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
     """Every stage of a build, in the order they run, for this config."""
-    stages = MARKET_STAGES + INSTRUMENT_STAGES
+    # a choice-only project (no market-size assumption) runs no market or instrument stage
+    stages = MARKET_STAGES + INSTRUMENT_STAGES if config.market_build_enabled else ()
     if config.choices.enabled:
         stages += CHOICE_STAGES
     return stages

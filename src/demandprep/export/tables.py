@@ -66,11 +66,17 @@ _KINDS: dict[str, tuple[str, tuple[str, ...], bool, bool]] = {
 }
 
 
+# Files of the market build, left out of a choice-only project (ProjectConfig.market_build_enabled).
+MARKET_KINDS = ("shares", "markets", "products", "geographies")
+
+
 def plan_outputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[OutputTable]:
     """The data files this build writes, in a fixed order; a missing required table is an error."""
     present = set(_table_names(con))
     outputs: list[OutputTable] = []
     for kind, (table, keys, required, unique) in _KINDS.items():
+        if kind in MARKET_KINDS and not config.market_build_enabled:
+            continue  # a choice-only project: even a market table left from before stays out
         if table not in present:
             if required or (kind in ("choices", "choosers") and config.choices.enabled):
                 raise UserError(

@@ -27,6 +27,7 @@ from demandprep.config import (
     RECEIPT_REQUIRED,
     REFERENCE_REQUIRED,
     ChoicesSection,
+    DemographicDrawsSection,
     CostShifterInstrument,
     EquivalentUnit,
     ExportSection,
@@ -69,6 +70,7 @@ REFERENCE_SECTIONS: list[tuple[str, Any]] = [
     ("instruments.hausman", HausmanInstrument),
     ("instruments.cost_shifters", CostShifterInstrument),
     ("choices", ChoicesSection),
+    ("demographic_draws", DemographicDrawsSection),
     ("export", ExportSection),
     ("schedule", ScheduleSection),
 ]

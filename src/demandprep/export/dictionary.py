@@ -30,6 +30,7 @@ SCHEMA_MODULES = (
     "demandprep.schemas.market",
     "demandprep.schemas.instruments",
     "demandprep.schemas.choices",
+    "demandprep.schemas.demographics",
     "demandprep.schemas.export",
 )
 
@@ -39,6 +40,7 @@ KIND_TABLES: dict[str, tuple[str, ...]] = {
     "markets": ("markets",),
     "products": ("products",),
     "geographies": ("geographies",),
+    "demographics": ("demographic_draws",),
     "choices": ("choices",),
     "choosers": ("choosers",),
     "ledger": ("ledger",),
@@ -315,6 +317,17 @@ def _config_entry(column: str, kind: str, config: ProjectConfig) -> ColumnEntry 
             "as in the stores file",
             "the value shared by every store of the geography",
             "stores columns constant within each geography",
+        )
+    if kind == "demographics" and column in config.choices.demographics:
+        households = config.sources.households
+        source = households.columns.get(column, column) if households else column
+        return ColumnEntry(
+            column,
+            f"Household demographic {column!r} of the drawn household, read from the "
+            f"households column {source!r}.",
+            "as in the households file",
+            "households value of a household drawn with probability proportional to its visits",
+            "config choices.demographics",
         )
     if kind in ("shares", "choices", "products") and column in config.products.characteristics:
         source = config.sources.catalogue.columns.get(column, column)

@@ -128,3 +128,13 @@ def test_dictionary_states_grain_key_and_market_size_values(build: Path) -> None
     text = (build / "data_dictionary.md").read_text()
     assert "Grain: one row per market and product. Key: market, product." in text
     assert "- catchment: method population, units_per_person_per_day = 0.01" in text
+
+
+def test_csv_copy_writes_the_sku_list_as_one_cell(build: Path, tmp_path: Path) -> None:
+    from demandprep.export.csv_safe import write_safe_csv
+
+    rows = write_safe_csv(build / "products.parquet", tmp_path / "products.csv")
+    lists = pl.read_parquet(build / "products.parquet")["skus"].to_list()
+    cells = [row["skus"] for row in _csv_rows(tmp_path / "products.csv")]
+    assert rows == len(lists)
+    assert cells == [";".join(skus) for skus in lists]

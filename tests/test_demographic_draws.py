@@ -47,7 +47,9 @@ def _visit_weights(warehouse: Path) -> pl.DataFrame:
         households = con.sql("select card, household_size, income_band from households").pl()
     lines = lines.with_columns(day=pl.col("sold_at").dt.date())
     visits = lines.group_by("store", "day", "receipt").agg(pl.col("card").min())
-    visits = visits.with_columns(week=pl.col("day") - pl.duration(days=pl.col("day").dt.weekday() - 1))
+    visits = visits.with_columns(
+        week=pl.col("day") - pl.duration(days=pl.col("day").dt.weekday() - 1)
+    )
     visits = visits.with_columns(
         market=pl.col("store") + "/" + pl.col("week").dt.strftime("%Y-%m-%d")
     )
@@ -89,8 +91,10 @@ def test_draw_levels_follow_the_household_threshold(drawn) -> None:
     weights = _visit_weights(config.warehouse.path)
     in_market = dict(weights.group_by("market").agg(pl.col("card").n_unique()).iter_rows())
     in_store = dict(weights.group_by("store").agg(pl.col("card").n_unique()).iter_rows())
-    levels = pl.read_parquet(folder / "demographics_visits.parquet").group_by("market").agg(
-        pl.col("draw_level").first()
+    levels = (
+        pl.read_parquet(folder / "demographics_visits.parquet")
+        .group_by("market")
+        .agg(pl.col("draw_level").first())
     )
     for market, level in levels.iter_rows():
         if in_market.get(market, 0) >= MIN_HOUSEHOLDS:

@@ -84,7 +84,11 @@ def test_geographies_carry_the_store_levels_and_join_shares(
     for geography, region, chain, count in geographies.select(
         "geography", "region", "chain", "store_count"
     ).iter_rows():
-        assert (region, chain, count) == (stores[geography]["region"], stores[geography]["chain"], 1)
+        assert (region, chain, count) == (
+            stores[geography]["region"],
+            stores[geography]["chain"],
+            1,
+        )
     markets = pl.read_parquet(build / "markets_visits.parquet")
     joined = markets.join(geographies, on="geography", how="left")
     assert joined["region"].null_count() == 0
@@ -123,7 +127,9 @@ def test_dictionary_states_grain_key_and_market_size_values(build: Path) -> None
             "population_column": "population",
         },
     }
-    (size,) = [c for c in dictionary["files"]["markets_peak.parquet"] if c["column"] == "market_size"]
+    (size,) = [
+        c for c in dictionary["files"]["markets_peak.parquet"] if c["column"] == "market_size"
+    ]
     assert size["formula"] == "M = 3.0 x the geography's largest period volume (peak_multiple)"
     text = (build / "data_dictionary.md").read_text()
     assert "Grain: one row per market and product. Key: market, product." in text

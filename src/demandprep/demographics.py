@@ -58,9 +58,10 @@ def build_demographic_draws(ctx: BuildContext) -> None:
     fallback = {level: n for level, n in levels.items() if level != "market"}
     if fallback:
         shown = ", ".join(f"{n} from {level}" for level, n in fallback.items())
+        least = ctx.config.demographic_draws.min_households
         ctx.warn(
-            f"demographic draws: markets with fewer than {ctx.config.demographic_draws.min_households}"
-            f" households drew from a wider pool ({shown})"
+            f"demographic draws: markets with fewer than {least} households drew from a wider "
+            f"pool ({shown})"
         )
     missing = ctx.con.execute(
         "select count(*) from (select distinct market from markets) "

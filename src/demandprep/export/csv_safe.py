@@ -70,7 +70,9 @@ def _is_text(data_type: pa.DataType) -> bool:
 
 
 def _plain_schema(schema: pa.Schema) -> pa.Schema:
-    return pa.schema([pa.field(item.name, _plain_type(item.type), item.nullable) for item in schema])
+    return pa.schema(
+        [pa.field(item.name, _plain_type(item.type), item.nullable) for item in schema]
+    )
 
 
 def _plain_type(data_type: pa.DataType) -> pa.DataType:

@@ -212,8 +212,7 @@ def size_formula(assumption: MarketSizeAssumption) -> str:
             )
         case "peak_multiple":
             return (
-                f"M = {assumption.multiple} x the geography's largest period volume "
-                "(peak_multiple)"
+                f"M = {assumption.multiple} x the geography's largest period volume (peak_multiple)"
             )
     return "M = the size sources.market_sizes gives the geography and period start (table)"
 

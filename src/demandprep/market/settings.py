@@ -71,7 +71,9 @@ RESERVED_COLUMNS = frozenset(
 )
 
 # Columns of the products table besides the key parts (firm and nest may be key parts).
-PRODUCT_TABLE_COLUMNS = frozenset({"product", "display_name", "sku_count", "skus", "kept", "is_fringe"})
+PRODUCT_TABLE_COLUMNS = frozenset(
+    {"product", "display_name", "sku_count", "skus", "kept", "is_fringe"}
+)
 
 SETTINGS_DDL = """
 create or replace table market_settings_categories (category varchar not null);

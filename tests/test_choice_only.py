@@ -6,10 +6,12 @@ import json
 from pathlib import Path
 
 import pytest
-from sample_builds import build_sample, choice_only_text, copy_sample
+from sample_builds import choice_only_text, copy_sample
 
-from demandprep.config import ProjectConfig, parse_config
+from demandprep.build_summary import summary_lines
+from demandprep.config import ProjectConfig, load_config, parse_config
 from demandprep.errors import UserError
+from demandprep.pipeline import run_build, run_ingest
 from demandprep.preflight import role_problems
 from demandprep.stages import build_stages
 
@@ -18,7 +20,9 @@ from demandprep.stages import build_stages
 def choice_only(tmp_path_factory: pytest.TempPathFactory, coffee_sample: Path):
     config = copy_sample(coffee_sample, tmp_path_factory.mktemp("choice_only") / "sample")
     config.write_text(choice_only_text(config.read_text()))
-    return build_sample(config)
+    loaded = load_config(config)
+    run_ingest(loaded)
+    return run_build(loaded)
 
 
 def _config(text: str, tmp_path: Path) -> ProjectConfig:
@@ -58,7 +62,7 @@ def test_check_asks_for_no_market_only_column(coffee_sample: Path, tmp_path: Pat
 
 
 def test_choice_only_build_exports_choices_and_no_market_table(choice_only) -> None:
-    folder, _config = choice_only
+    folder, _ctx = choice_only
     files = sorted(path.name for path in folder.glob("*.parquet"))
     assert files == [
         "choices.parquet",
@@ -82,7 +86,16 @@ def test_choice_only_build_exports_choices_and_no_market_table(choice_only) -> N
 def test_choice_only_rows_have_no_market(choice_only) -> None:
     import polars as pl
 
-    folder, _config = choice_only
+    folder, _ctx = choice_only
     choices = pl.read_parquet(folder / "choices.parquet")
     assert choices.height > 0
     assert choices["market"].null_count() == choices.height
+
+
+def test_choice_only_summary_says_the_market_build_is_off(choice_only) -> None:
+    folder, ctx = choice_only
+    occasions = ctx.facts["choices"]["occasions"]
+    assert summary_lines(folder, ctx)[0] == (
+        f"summary: market build off (choice data only), {occasions:,} occasions, "
+        f"{len(ctx.warnings)} warnings"
+    )

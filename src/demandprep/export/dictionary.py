@@ -244,7 +244,9 @@ def dictionary_markdown(document: dict) -> str:
         lines += [f"## {name}", ""]
         table = document.get("tables", {}).get(name)
         if table is not None:
-            lines += [f"Grain: {table['grain']}. Key: {', '.join(table['key'])}.", ""]
+            key = ", ".join(table["key"])
+            shown = f"Key: {key}." if table["key_unique"] else f"Sorted by: {key} (not a key)."
+            lines += [f"Grain: {table['grain']}. {shown}", ""]
         lines += [
             "| column | type | meaning | unit | formula |",
             "|---|---|---|---|---|",

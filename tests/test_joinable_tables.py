@@ -144,3 +144,21 @@ def test_csv_copy_writes_the_sku_list_as_one_cell(build: Path, tmp_path: Path) -
     cells = [row["skus"] for row in _csv_rows(tmp_path / "products.csv")]
     assert rows == len(lists)
     assert cells == [";".join(skus) for skus in lists]
+
+
+def test_region_markets_carry_only_the_levels_constant_in_a_region(
+    tmp_path: Path, coffee_sample: Path
+) -> None:
+    config = copy_sample(coffee_sample, tmp_path / "sample")
+    config.write_text(config.read_text().replace('geography = "store"', 'geography = "region"'))
+    folder, _config = build_sample(config)
+    geographies = pl.read_parquet(folder / "geographies.parquet")
+    stores = _csv_rows(coffee_sample / "stores.csv")
+    counts: dict[str, int] = {}
+    for row in stores:
+        counts[row["region"]] = counts.get(row["region"], 0) + 1
+    # population differs between a region's stores, so it is no level of the region
+    assert geographies.columns == ["geography", "store_count", "chain"]
+    assert dict(geographies.select("geography", "store_count").iter_rows()) == counts
+    markets = pl.read_parquet(folder / "markets_visits.parquet")
+    assert markets.join(geographies, on="geography", how="anti").height == 0

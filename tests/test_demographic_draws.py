@@ -162,3 +162,19 @@ def test_a_config_asking_for_draws_without_demographics_is_refused(
         f"{config}: key 'demographic_draws.draws' needs demographic columns: "
         "choices.demographics is empty."
     )
+
+
+def test_check_asks_for_the_drawn_columns_even_without_the_choice_build(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    from demandprep.preflight import role_problems
+
+    config = copy_sample(coffee_sample, tmp_path / "sample")
+    text = config.read_text().replace("[choices]\nenabled = true", "[choices]\nenabled = false")
+    text = text.replace('"household_size", "income_band"]', '"household_size", "pets"]')
+    config.write_text(text + SECTION)
+    (problem,) = role_problems(load_config(config))
+    assert problem.message == (
+        "config key 'choices.demographics' names 'pets', which sources.households.columns does "
+        "not map (it maps card, household_size, income_band)."
+    )

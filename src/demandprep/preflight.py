@@ -6,7 +6,8 @@ column), on an in-memory DuckDB connection, so it never touches the warehouse:
 1. each source's header against its column mapping, and its delimiter (a header that splits
    into one column while another delimiter would split it);
 2. every column a build stage reads by its role (product keys, geography, population,
-   instruments, demographics, cost shifters) against the mapping of the source it comes from;
+   instruments, demographics, cost shifters) against the mapping of the source it comes from
+   (market-only roles only when the market build runs);
 3. `markets.categories` against the values of the catalogue's category column;
 4. the pseudonym key in the environment when choices are built.
 """
@@ -132,7 +133,8 @@ def configured_roles(config: ProjectConfig) -> list[Role]:
     roles += [("products.characteristics", n, "catalogue") for n in products.characteristics]
     if config.market_build_enabled:
         roles += _market_roles(config)
-    if config.choices.enabled:
+    drawn = config.market_build_enabled and config.demographic_draws.draws is not None
+    if config.choices.enabled or drawn:
         roles += [("choices.demographics", n, "households") for n in config.choices.demographics]
     return list(dict.fromkeys(roles))
 

@@ -162,3 +162,21 @@ def test_region_markets_carry_only_the_levels_constant_in_a_region(
     assert dict(geographies.select("geography", "store_count").iter_rows()) == counts
     markets = pl.read_parquet(folder / "markets_visits.parquet")
     assert markets.join(geographies, on="geography", how="anti").height == 0
+
+
+def test_a_product_key_named_like_a_products_column_is_refused(tmp_path: Path) -> None:
+    import duckdb
+    from export_fixtures import export_config
+
+    from demandprep.errors import UserError
+    from demandprep.market.settings import check_inputs
+
+    config = export_config(tmp_path)
+    products = config.products.model_copy(update={"keys": ["brand", "skus"]})
+    config = config.model_copy(update={"products": products})
+    with duckdb.connect() as con, pytest.raises(UserError) as caught:
+        check_inputs(con, config)
+    assert (caught.value.message, caught.value.hint) == (
+        "config key 'products.keys': 'skus' is a column name of the products table itself.",
+        "rename the column in [sources.catalogue.columns].",
+    )

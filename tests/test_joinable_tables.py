@@ -94,6 +94,8 @@ def test_geographies_carry_the_store_levels_and_join_shares(
     assert joined["region"].null_count() == 0
     # region x period effects: one group per region and week
     assert joined.select("region", "period_start").n_unique() < markets.height
+    shares = pl.read_parquet(build / "shares_visits.parquet")
+    assert shares.join(geographies, on="geography", how="anti").height == 0
 
 
 def test_choice_rows_carry_the_market_of_their_store_and_week(build: Path) -> None:

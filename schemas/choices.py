@@ -52,6 +52,13 @@ class Choices(pa.DataFrameModel):
         metadata={"unit": "id", "formula": "first 32 hex digits of HMAC-SHA256(key, card)"},
     )
     store: str = pa.Field(description="Store of the visit.", metadata={"unit": "id"})
+    market: str = pa.Field(
+        nullable=True,
+        description="Market id of the share table for the store's geography and the visit's "
+        "period; null when that store-period is no market (no in-scope sale there, or no "
+        "market build).",
+        metadata={"unit": "id", "formula": "geography || '/' || period_start"},
+    )
     occasion_at: pl.Datetime = pa.Field(
         description="Time of the visit's first sale line, local store time.",
         metadata={"unit": "timestamp", "formula": "min(sold_at) over the receipt"},

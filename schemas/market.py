@@ -8,7 +8,7 @@ that carry them are not strict; `characteristic_columns_present` checks those se
 from __future__ import annotations
 
 import datetime
-from typing import Annotated, Any
+from typing import Annotated, Any, Optional
 
 import pandera.polars as pa
 import polars as pl
@@ -467,6 +467,59 @@ class Shares(pa.DataFrameModel):
         return data.lazyframe.select(pl.col("market") == _market_id("geography", "period_start"))
 
 
+class Products(pa.DataFrameModel):
+    """One row per product id: key parts, firm, nest, characteristics and the SKUs gathered."""
+
+    product: str = described(PRODUCT, unique=True)
+    display_name: str = described(
+        "Readable product name: the key parts separated by spaces; 'other products (fringe)' "
+        "for the composite.",
+        "text",
+        "replace(product, '|', ' ')",
+    )
+    firm: Optional[str] = described(FIRM, nullable=True)  # noqa: UP045 - pandera: may be absent
+    nest: Optional[str] = described(NEST, nullable=True)  # noqa: UP045 - a key part may be 'nest'
+    sku_count: int = described(
+        "Catalogue SKUs the product gathers (the fringe: those of every product not kept).",
+        "SKUs",
+        "count of skus",
+        ge=1,
+    )
+    skus: Annotated[pl.List, pl.String] = described(
+        "The SKUs the product gathers, sorted by SKU id.", "list of SKU ids"
+    )
+    kept: bool = described(
+        "True when the product passes the keep rules of products.universe (a share-table row "
+        "of its own); false for the fringe.",
+        "flag",
+    )
+    is_fringe: bool = IS_FRINGE
+
+    class Config:
+        strict = False  # key parts and characteristics vary with the config
+
+
+class MarketGeographyLevels(pa.DataFrameModel):
+    """Stores columns that hold one value in every geography (null counts as a value)."""
+
+    column_name: str = described("A stores column name.", unique=True)
+
+    class Config:
+        strict = True
+
+
+class Geographies(pa.DataFrameModel):
+    """One row per geography with its store count and the stores columns constant in it."""
+
+    geography: str = described(GEOGRAPHY, unique=True)
+    store_count: int = described(
+        "Stores of the geography.", "stores", "count of stores mapped to the geography", ge=1
+    )
+
+    class Config:
+        strict = False  # the level columns (region, chain, ...) vary with the stores file
+
+
 MARKET_MODELS: dict[str, type[pa.DataFrameModel]] = {
     "market_calendar": MarketCalendar,
     "market_skus": MarketSkus,
@@ -482,6 +535,9 @@ MARKET_MODELS: dict[str, type[pa.DataFrameModel]] = {
     "market_sizes": MarketSizes,
     "markets": Markets,
     "shares": Shares,
+    "products": Products,
+    "market_geography_levels": MarketGeographyLevels,
+    "geographies": Geographies,
 }
 
 

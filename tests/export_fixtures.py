@@ -341,11 +341,15 @@ def _choice_row(rng, occasion, store, j, product, chosen, purchases) -> dict[str
     inside = product is not None
     bought = chosen and inside
     burn_in = occasion < 40
+    occasion_at = datetime(2024, 3, 4, 9) + timedelta(hours=7 * occasion)
+    week = occasion_at.date() - timedelta(days=occasion_at.weekday())
+    in_markets = week < FIRST_WEEK + timedelta(weeks=WEEKS)
     return {
         "occasion": f"{store}/T{occasion:06d}",
         "chooser": _pseudonym(occasion % 40),
         "store": store,
-        "occasion_at": datetime(2024, 3, 4, 9) + timedelta(hours=7 * occasion),
+        "market": f"{store}/{week.isoformat()}" if in_markets else None,
+        "occasion_at": occasion_at,
         "alternative": product_id(product) if inside else "none",
         "chosen": chosen,
         "added_to_set": False,

@@ -27,6 +27,7 @@ occasions as (
         choice_occasion_sets.loyalty_by_alternative,
         choice_occasion_sets.alternatives,
         choice_store_day_info.alternative_info,
+        choice_store_day_markets.market,
         choosers.holdout,
         choosers.household_known,
         -- the configured demographics
@@ -41,6 +42,7 @@ occasions as (
         ),
     from choice_occasion_sets
     left join choice_store_day_info using (store, day)
+    left join choice_store_day_markets using (store, day)
     left join choosers using (chooser)
 ),
 
@@ -58,6 +60,7 @@ final as (
         occasion,
         chooser,
         store,
+        market,
         occasion_at,
         alternative,
         alternative = chosen_alternative as chosen,
@@ -86,6 +89,7 @@ final as (
             occasion,
             chooser,
             store,
+            market,
             occasion_at,
             alternative,
             chosen_alternative,

@@ -557,6 +557,32 @@ class ChoicesSection(Section):
     )
 
 
+class DemographicDrawsSection(Section):
+    """Per-market draws of household demographics, for random-coefficient estimation."""
+
+    draws: int | None = described(
+        "Draws per market. Of the choices.demographics columns, from the households that "
+        "visited the market weighted by visits; unset builds no demographics file.",
+        unit="draws per market",
+        default=None,
+        ge=1,
+        le=100_000,
+    )
+    seed: int = described(
+        "Seed of the draws. Draw d of market m is picked by md5(seed, m, d), so a rebuild "
+        "draws the same.",
+        default=1,
+        ge=0,
+    )
+    min_households: int = described(
+        "Fewest households a market draws from. A market with fewer draws from its geography "
+        "over all periods, then from all households.",
+        unit="households",
+        default=20,
+        ge=1,
+    )
+
+
 class ExportSection(Section):
     """Where builds are published and in which formats."""
 
@@ -618,15 +644,24 @@ class ProjectConfig(Section):
     products: ProductsSection = described("What one product is.")
     market_size: dict[Identifier, MarketSizeAssumption] = described(
         "Market-size assumptions, one table per name. Built side by side; the first one "
-        "feeds the summary and the first-stage check.",
-        min_length=1,
+        "feeds the summary and the first-stage check. Leave every [market_size.<name>] out "
+        "for a choice-only project: no market, share or instrument table is built.",
+        default_factory=dict,
     )
     shares: SharesSection = described("Share computation.", default=SharesSection())
     instruments: InstrumentsSection = described("Price instruments.", default=InstrumentsSection())
     choices: ChoicesSection = described("The choice-data build.", default=ChoicesSection())
+    demographic_draws: DemographicDrawsSection = described(
+        "Demographic draws per market.", default=DemographicDrawsSection()
+    )
     export: ExportSection = described("Build folders and formats.", default=ExportSection())
     schedule: ScheduleSection = described("The nightly schedule.", default=ScheduleSection())
     config_path: Path | None = Field(None, exclude=True)
+
+    @property
+    def market_build_enabled(self) -> bool:
+        """True when the market build runs: the config names a market-size assumption."""
+        return bool(self.market_size)
 
     def resolved_dict(self) -> dict[str, Any]:
         """The config with every default filled in and paths absolute, JSON-ready."""
@@ -658,9 +693,53 @@ def parse_config(raw: dict[str, Any], path: Path, check_files: bool = True) -> P
     except ValidationError as error:
         raise ConfigInvalid([_problem(item, path) for item in error.errors()]) from None
     config = config.model_copy(update={"config_path": path})
+    if not config.market_build_enabled and not config.choices.enabled:
+        raise ConfigInvalid(
+            [
+                UserError(
+                    f"{path}: nothing to build: no [market_size] assumption and "
+                    "choices.enabled = false.",
+                    "add a [market_size.<name>] table for the market build, or set "
+                    "choices.enabled = true for choice data.",
+                )
+            ]
+        )
+    problems = draw_problems(config, path)
+    if problems:
+        raise ConfigInvalid(problems)
     if check_files:
         _check_files_exist(config, path)
     return config
+
+
+def draw_problems(config: ProjectConfig, path: Path) -> list[UserError]:
+    """What demographic_draws.draws needs and the config lacks: columns, households, markets."""
+    if config.demographic_draws.draws is None:
+        return []
+    key = f"{path}: key 'demographic_draws.draws'"
+    problems = []
+    if not config.choices.demographics:
+        problems.append(
+            UserError(
+                f"{key} needs demographic columns: choices.demographics is empty.",
+                "list the households columns to draw in choices.demographics.",
+            )
+        )
+    if config.sources.households is None:
+        problems.append(
+            UserError(
+                f"{key} needs the households file: there is no [sources.households].",
+                "configure [sources.households] or leave draws unset.",
+            )
+        )
+    if not config.market_build_enabled:
+        problems.append(
+            UserError(
+                f"{key} draws per market, but the config has no [market_size] assumption.",
+                "add a [market_size.<name>] table or leave draws unset.",
+            )
+        )
+    return problems
 
 
 class ConfigInvalid(UserError):

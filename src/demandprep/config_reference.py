@@ -28,6 +28,7 @@ from demandprep.config import (
     REFERENCE_REQUIRED,
     ChoicesSection,
     CostShifterInstrument,
+    DemographicDrawsSection,
     EquivalentUnit,
     ExportSection,
     FileSource,
@@ -69,6 +70,7 @@ REFERENCE_SECTIONS: list[tuple[str, Any]] = [
     ("instruments.hausman", HausmanInstrument),
     ("instruments.cost_shifters", CostShifterInstrument),
     ("choices", ChoicesSection),
+    ("demographic_draws", DemographicDrawsSection),
     ("export", ExportSection),
     ("schedule", ScheduleSection),
 ]
@@ -127,7 +129,12 @@ STARTER_VALUES: dict[str, Any] = {
             "files": ["raw/stores.csv"],
             "columns": {"store": "store_id", "region": "region", "population": "catchment"},
         },
-        "households": Commented({"files": ["raw/households.csv"], "columns": {"card": "card"}}),
+        "households": Commented(
+            {
+                "files": ["raw/households.csv"],
+                "columns": {"card": "card", "household_size": "household_size"},
+            }
+        ),
         "shelf_prices": Commented(
             {
                 "files": ["raw/shelf_prices.csv"],
@@ -176,7 +183,12 @@ STARTER_VALUES: dict[str, Any] = {
         "differentiation": ["roast_level"],
         "cost_shifters": Commented({"columns": ["green_coffee_index"]}),
     },
-    "choices": {"enabled": False, "sampled_alternatives": Commented(10)},
+    "choices": {
+        "enabled": False,
+        "sampled_alternatives": Commented(10),
+        "demographics": Commented(["household_size"]),
+    },
+    "demographic_draws": {"draws": Commented(200)},
 }
 STARTER_HEAD = """\
 # demandprep starter config. Edit the paths and column mappings for your data, then run

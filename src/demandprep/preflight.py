@@ -6,7 +6,8 @@ column), on an in-memory DuckDB connection, so it never touches the warehouse:
 1. each source's header against its column mapping, and its delimiter (a header that splits
    into one column while another delimiter would split it);
 2. every column a build stage reads by its role (product keys, geography, population,
-   instruments, demographics, cost shifters) against the mapping of the source it comes from;
+   instruments, demographics, cost shifters) against the mapping of the source it comes from
+   (market-only roles only when the market build runs);
 3. `markets.categories` against the values of the catalogue's category column;
 4. the pseudonym key in the environment when choices are built.
 """
@@ -117,7 +118,8 @@ def role_problems(config: ProjectConfig) -> list[UserError]:
                     f"map it under [sources.{source_name}.columns] or remove it from {key}.",
                 )
             )
-    problems += _instrument_characteristic_problems(config)
+    if config.market_build_enabled:
+        problems += _instrument_characteristic_problems(config)
     return problems
 
 
@@ -129,7 +131,18 @@ def configured_roles(config: ProjectConfig) -> list[Role]:
     if products.nest is not None:
         roles.append(("products.nest", products.nest, "catalogue"))
     roles += [("products.characteristics", n, "catalogue") for n in products.characteristics]
-    unit = products.equivalent_unit
+    if config.market_build_enabled:
+        roles += _market_roles(config)
+    drawn = config.market_build_enabled and config.demographic_draws.draws is not None
+    if config.choices.enabled or drawn:
+        roles += [("choices.demographics", n, "households") for n in config.choices.demographics]
+    return list(dict.fromkeys(roles))
+
+
+def _market_roles(config: ProjectConfig) -> list[Role]:
+    # columns only the market and instrument stages read
+    roles: list[Role] = []
+    unit = config.products.equivalent_unit
     if unit.kind == "weight":
         roles.append(("products.equivalent_unit.size_column", unit.size_column, "catalogue"))
         roles.append(("products.equivalent_unit.unit_column", unit.unit_column, "catalogue"))
@@ -142,9 +155,7 @@ def configured_roles(config: ProjectConfig) -> list[Role]:
         roles += [
             ("instruments.cost_shifters.join_on", n, "cost_shifters") for n in shifters.join_on
         ]
-    if config.choices.enabled:
-        roles += [("choices.demographics", n, "households") for n in config.choices.demographics]
-    return list(dict.fromkeys(roles))
+    return roles
 
 
 def _store_roles(config: ProjectConfig) -> list[Role]:

@@ -10,6 +10,7 @@ from collections.abc import Callable
 from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
+from demandprep.demographics import DEMOGRAPHIC_STAGES
 from demandprep.instruments.stages import INSTRUMENT_STAGES
 from demandprep.market.stages import MARKET_STAGES
 from demandprep.stage import Stage, run_stage
@@ -17,7 +18,10 @@ from demandprep.stage import Stage, run_stage
 
 def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
     """Every stage of a build, in the order they run, for this config."""
-    stages = MARKET_STAGES + INSTRUMENT_STAGES
+    # a choice-only project (no market-size assumption) runs no market or instrument stage
+    stages = MARKET_STAGES + INSTRUMENT_STAGES if config.market_build_enabled else ()
+    if config.market_build_enabled and config.demographic_draws.draws is not None:
+        stages += DEMOGRAPHIC_STAGES
     if config.choices.enabled:
         stages += CHOICE_STAGES
     return stages

@@ -52,6 +52,7 @@ INTERMEDIATE_TABLES = (
     "choice_alternative_prices",
     "choice_alternative_attributes",
     "choice_store_day_info",
+    "choice_store_day_markets",
 )
 
 
@@ -70,13 +71,13 @@ def prepare_choice_inputs(ctx: BuildContext) -> None:
     # the key first: a missing or short key stops the build before it writes anything
     pseudonym_key(ctx.config.choices.pseudonym_key_env)
     settings = _settings(ctx)
-    if not settings.has_universe:
+    if not settings.has_universe and ctx.config.market_build_enabled:
         ctx.warn(
             "no product_universe table (market build): every category product is an "
             "alternative of its own in the choice build."
         )
     # absent optional inputs (households, shelf prices, market build) read as empty views
-    create_input_views(ctx.con)
+    create_input_views(ctx.con, ctx.config.market_build_enabled)
     _run(ctx, settings, *INPUT_FILES)
     _check_reserved_alternatives(ctx)
     _check_universe_matches(ctx, settings)
@@ -169,6 +170,7 @@ def build_choice_sets(ctx: BuildContext) -> None:
         "070_choice_alternative_prices",
         "075_choice_alternative_attributes",
         "078_choice_store_day_info",
+        "079_choice_store_day_markets",
     )
 
 

@@ -22,15 +22,29 @@ EMPTY_INPUTS = {
     ),
     "product_universe": "select null::varchar as product, null::boolean as kept where false",
     "market_skus": "select null::varchar as sku, null::varchar as product where false",
+    "market_store_geographies": (
+        "select null::varchar as store, null::varchar as geography where false"
+    ),
+    "markets": (
+        "select null::varchar as market, null::varchar as geography, null::date as period_start "
+        "where false"
+    ),
 }
 INPUT_VIEWS = tuple(f"choice_input_{table}" for table in EMPTY_INPUTS)
 
 
-def create_input_views(con: duckdb.DuckDBPyConnection) -> None:
+# Tables of the market build: read as empty in a choice-only project, even when left from before.
+MARKET_INPUTS = ("product_universe", "market_skus", "market_store_geographies", "markets")
+
+
+def create_input_views(con: duckdb.DuckDBPyConnection, market_build: bool = True) -> None:
     """Create `choice_input_<table>` for each optional input, empty when the table is absent."""
     # the table names are our own constants above, never config text
     for table, empty in EMPTY_INPUTS.items():
-        source = f"select * from {table}" if table_columns(con, table) is not None else empty  # noqa: S608
+        present = table_columns(con, table) is not None
+        if table in MARKET_INPUTS and not market_build:
+            present = False
+        source = f"select * from {table}" if present else empty  # noqa: S608
         con.execute(f"create or replace temp view choice_input_{table} as {source}")
 
 

@@ -36,6 +36,7 @@ CHOICE_COLUMNS = (
     "occasion",
     "chooser",
     "store",
+    "market",
     "occasion_at",
     "alternative",
     "chosen",
@@ -151,6 +152,7 @@ def load_choice_settings(con: duckdb.DuckDBPyConnection, config: ProjectConfig) 
         )
     _check_present(list(demographics), households or [], "households", "choices.demographics")
     shelf = table_columns(con, "shelf_prices")
+    market = config.market_build_enabled
     extras = tuple(c for c in shelf or [] if c not in SHELF_FIXED)
     settings = ChoiceSettings(
         config=config,
@@ -158,8 +160,9 @@ def load_choice_settings(con: duckdb.DuckDBPyConnection, config: ProjectConfig) 
         characteristics=tuple(c for c in products.characteristics if c != products.firm),
         demographics=demographics,
         shelf_attributes=extras,
-        has_universe=table_columns(con, "product_universe") is not None,
-        has_market_skus=table_columns(con, "market_skus") is not None,
+        # a choice-only project ignores market tables an earlier market build left behind
+        has_universe=market and table_columns(con, "product_universe") is not None,
+        has_market_skus=market and table_columns(con, "market_skus") is not None,
     )
     _check_no_shadowing(settings)
     return settings

@@ -21,6 +21,8 @@ from demandprep.export.dictionary import (
     document_columns,
     schema_models,
     step_notes,
+    table_record,
+    with_size_formula,
     write_dictionary,
 )
 from demandprep.export.input_warnings import input_warnings
@@ -57,13 +59,20 @@ def write_build(
     models = schema_models() if models is None else models
     notes = step_notes(ctx.con, ctx.config)
     entries: dict[str, list[tuple[ColumnEntry, str]]] = {}
+    grains: dict[str, dict] = {}
     with _timed(ctx, "export.parquet"):
         for output in plan_outputs(ctx.con, ctx.config):
             table, documented = write_output_table(ctx, output, staging_dir, models, notes)
             built.tables.append(table)
             entries[output.file_name] = documented
+            grains[output.file_name] = table_record(
+                output.kind, output.sort_keys, output.keys_unique
+            )
     built.others += [
-        OutputFile(path) for path in write_dictionary(staging_dir, dictionary_document(entries))
+        OutputFile(path)
+        for path in write_dictionary(
+            staging_dir, dictionary_document(_sized(ctx, entries), grains, ctx.config)
+        )
     ]
     with _timed(ctx, "export.extra_formats"):
         built.others += write_extra_formats(ctx, built.tables, entries)
@@ -157,6 +166,20 @@ def quick_logit_all(ctx: BuildContext) -> list[LogitEstimate]:
                 f"the price coefficient is positive ({estimate.price_coefficient:.3g})"
             )
     return estimates
+
+
+def _sized(
+    ctx: BuildContext, entries: dict[str, list[tuple[ColumnEntry, str]]]
+) -> dict[str, list[tuple[ColumnEntry, str]]]:
+    # Why only in the dictionary: the Parquet field metadata keeps the generic formula, so
+    # the share and market files stay byte-identical to earlier builds of the same inputs
+    sized = dict(entries)
+    for name, assumption in ctx.config.market_size.items():
+        for kind in ("shares", "markets"):
+            file_name = f"{kind}_{name}.parquet"
+            if file_name in sized:
+                sized[file_name] = with_size_formula(sized[file_name], assumption)
+    return sized
 
 
 def _dta_copy(

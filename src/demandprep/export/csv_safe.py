@@ -2,7 +2,8 @@
 
 A text cell that starts with = + - @ (or a tab / carriage return) would be run as a formula by
 spreadsheet programs; such cells get a leading apostrophe, which spreadsheets show as plain text
-(OWASP, "CSV Injection"). Numeric columns are written as numbers and need no escaping.
+(OWASP, "CSV Injection"). Numeric columns are written as numbers and need no escaping. A list
+of text (the SKUs of products.parquet) becomes one text cell, its items joined with ';'.
 """
 
 from __future__ import annotations
@@ -18,6 +19,12 @@ import pyarrow.parquet as pq
 FORMULA_START = r"^[=+\-@\t\r]"
 ESCAPE_PREFIX = "'"
 BATCH_ROWS = 65_536
+LIST_SEPARATOR = ";"
+
+
+def list_as_text(values: pa.Array | pa.ChunkedArray) -> pa.Array | pa.ChunkedArray:
+    """A list-of-text column as text, items joined with ';' (for CSV and Stata copies)."""
+    return pc.binary_join(values, LIST_SEPARATOR)
 
 
 def escape_formula_cells(values: pa.Array | pa.ChunkedArray) -> pa.Array | pa.ChunkedArray:
@@ -30,8 +37,11 @@ def escape_formula_cells(values: pa.Array | pa.ChunkedArray) -> pa.Array | pa.Ch
 def escape_batch(batch: pa.RecordBatch) -> pa.RecordBatch:
     """The batch with every text column escaped; other columns unchanged."""
     columns = [
-        escape_formula_cells(column) if _is_text(column.type) else column
+        list_as_text(column) if pa.types.is_list(column.type) else column
         for column in batch.columns
+    ]
+    columns = [
+        escape_formula_cells(column) if _is_text(column.type) else column for column in columns
     ]
     return pa.RecordBatch.from_arrays(columns, schema=_plain_schema(batch.schema))
 
@@ -60,4 +70,10 @@ def _is_text(data_type: pa.DataType) -> bool:
 
 
 def _plain_schema(schema: pa.Schema) -> pa.Schema:
-    return pa.schema([pa.field(item.name, item.type, item.nullable) for item in schema])
+    return pa.schema(
+        [pa.field(item.name, _plain_type(item.type), item.nullable) for item in schema]
+    )
+
+
+def _plain_type(data_type: pa.DataType) -> pa.DataType:
+    return pa.string() if pa.types.is_list(data_type) else data_type

@@ -14,13 +14,14 @@ import importlib
 import json
 import re
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from pathlib import Path
+from typing import Any
 
 import duckdb
 import pandera.polars as pa
 
-from demandprep.config import REFERENCE_REQUIRED, ProjectConfig
+from demandprep.config import REFERENCE_REQUIRED, MarketSizeAssumption, ProjectConfig
 from demandprep.errors import UserError
 from demandprep.export.tables import table_columns
 
@@ -29,6 +30,7 @@ SCHEMA_MODULES = (
     "demandprep.schemas.market",
     "demandprep.schemas.instruments",
     "demandprep.schemas.choices",
+    "demandprep.schemas.demographics",
     "demandprep.schemas.export",
 )
 
@@ -36,6 +38,9 @@ SCHEMA_MODULES = (
 KIND_TABLES: dict[str, tuple[str, ...]] = {
     "shares": ("shares", "market_products", "share_table", "instruments"),
     "markets": ("markets",),
+    "products": ("products",),
+    "geographies": ("geographies",),
+    "demographics": ("demographic_draws",),
     "choices": ("choices",),
     "choosers": ("choosers",),
     "ledger": ("ledger",),
@@ -129,14 +134,98 @@ def document_columns(
     return entries
 
 
-def dictionary_document(files: Mapping[str, Sequence[tuple[ColumnEntry, str]]]) -> dict:
-    """The JSON dictionary: per file, each column's entry and its stored type."""
-    return {
+def dictionary_document(
+    files: Mapping[str, Sequence[tuple[ColumnEntry, str]]],
+    tables: Mapping[str, Mapping[str, Any]] | None = None,
+    config: ProjectConfig | None = None,
+) -> dict:
+    """The JSON dictionary: per file its columns (entry and stored type), grain and key; and,
+    with the config, whether the market build ran and every market-size assumption's values."""
+    document: dict[str, Any] = {
         "files": {
             name: [{**asdict(entry), "type": type_name} for entry, type_name in columns]
             for name, columns in files.items()
         }
     }
+    if tables is not None:
+        document["tables"] = {name: dict(table) for name, table in tables.items()}
+    if config is not None:
+        document["market_build"] = market_build_record(config)
+        document["market_size"] = {
+            name: assumption_values(assumption) for name, assumption in config.market_size.items()
+        }
+    return document
+
+
+# kind -> what one row of its file is
+GRAINS = {
+    "shares": "one row per market and product",
+    "markets": "one row per market",
+    "products": "one row per product id (fringe included)",
+    "geographies": "one row per geography",
+    "demographics": "one row per market and draw",
+    "choices": "one row per choice occasion and alternative",
+    "choosers": "one row per chooser (pseudonymised loyalty card)",
+    "ledger": "one row per input file version",
+    "ledger_reasons": "one row per input file and quarantine reason",
+    "quarantine": "one row per quarantined input line and reason",
+}
+# The parameters each market-size method reads.
+METHOD_PARAMETERS = {
+    "visits": ("units_per_visit",),
+    "population": ("units_per_person_per_day", "population_column"),
+    "peak_multiple": ("multiple",),
+    "table": (),
+}
+
+
+def table_record(kind: str, key: Sequence[str], key_unique: bool) -> dict[str, Any]:
+    """A file's grain and key for the dictionary (`key_unique`: no two rows share the key)."""
+    return {"grain": GRAINS[kind], "key": list(key), "key_unique": key_unique}
+
+
+def market_build_record(config: ProjectConfig) -> dict[str, Any]:
+    """Whether the market build ran, and why not (for the manifest and the dictionary)."""
+    if config.market_build_enabled:
+        return {"enabled": True}
+    return {
+        "enabled": False,
+        "reason": "no [market_size] assumption in the config: choice data only",
+    }
+
+
+def assumption_values(assumption: MarketSizeAssumption) -> dict[str, Any]:
+    """The method of a market-size assumption and the values of the parameters it reads."""
+    values = {name: getattr(assumption, name) for name in METHOD_PARAMETERS[assumption.method]}
+    return {"method": assumption.method, **values}
+
+
+def size_formula(assumption: MarketSizeAssumption) -> str:
+    """The market size formula of one assumption with its configured values written in."""
+    match assumption.method:
+        case "visits":
+            return f"M = visits x {assumption.units_per_visit} equivalent units per visit (visits)"
+        case "population":
+            return (
+                f"M = sum of stores column {assumption.population_column!r} over the geography "
+                f"x {assumption.units_per_person_per_day} x days in the period (population)"
+            )
+        case "peak_multiple":
+            return (
+                f"M = {assumption.multiple} x the geography's largest period volume (peak_multiple)"
+            )
+    return "M = the size sources.market_sizes gives the geography and period start (table)"
+
+
+def with_size_formula(
+    columns: Sequence[tuple[ColumnEntry, str]], assumption: MarketSizeAssumption
+) -> list[tuple[ColumnEntry, str]]:
+    """A file's dictionary columns with market_size's formula made concrete for its assumption."""
+    formula = size_formula(assumption)
+    return [
+        (replace(entry, formula=formula) if entry.column == "market_size" else entry, type_name)
+        for entry, type_name in columns
+    ]
 
 
 def write_dictionary(folder: Path, document: dict) -> list[Path]:
@@ -150,11 +239,15 @@ def write_dictionary(folder: Path, document: dict) -> list[Path]:
 
 def dictionary_markdown(document: dict) -> str:
     """The dictionary as Markdown: one table per file."""
-    lines = ["# Data dictionary", ""]
+    lines = ["# Data dictionary", "", *_build_lines(document)]
     for name, columns in document["files"].items():
+        lines += [f"## {name}", ""]
+        table = document.get("tables", {}).get(name)
+        if table is not None:
+            key = ", ".join(table["key"])
+            shown = f"Key: {key}." if table["key_unique"] else f"Sorted by: {key} (not a key)."
+            lines += [f"Grain: {table['grain']}. {shown}", ""]
         lines += [
-            f"## {name}",
-            "",
             "| column | type | meaning | unit | formula |",
             "|---|---|---|---|---|",
         ]
@@ -169,6 +262,20 @@ def dictionary_markdown(document: dict) -> str:
             lines.append("| " + " | ".join(_md_cell(cell) for cell in cells) + " |")
         lines.append("")
     return "\n".join(lines)
+
+
+def _build_lines(document: dict) -> list[str]:
+    market = document.get("market_build")
+    if market is None:
+        return []
+    if not market["enabled"]:
+        return [f"market build: off ({market['reason']})", ""]
+    lines = ["market build: on", "", "## Market-size assumptions", ""]
+    for name, values in document.get("market_size", {}).items():
+        shown = [f"method {values['method']}"]
+        shown += [f"{key} = {value}" for key, value in values.items() if key != "method"]
+        lines.append(f"- {name}: {', '.join(shown)}")
+    return [*lines, ""]
 
 
 def _field_entry(column: str, models: Sequence[type[pa.DataFrameModel]]) -> ColumnEntry | None:
@@ -193,7 +300,37 @@ def _pattern_entry(column: str, models: Sequence[type[pa.DataFrameModel]]) -> Co
 
 def _config_entry(column: str, kind: str, config: ProjectConfig) -> ColumnEntry | None:
     """Entries for columns the user names in the config, which no model can list in advance."""
-    if kind in ("shares", "choices") and column in config.products.characteristics:
+    if kind == "products" and column in config.products.keys:
+        source = config.sources.catalogue.columns.get(column, column)
+        return ColumnEntry(
+            column,
+            f"Product-key part {column!r}, read from the catalogue column {source!r}, as text.",
+            "text",
+            "the product id is the key parts joined with '|' (fringe: null)",
+            "config products.keys",
+        )
+    if kind == "geographies":
+        source = config.sources.stores.columns.get(column, column)
+        return ColumnEntry(
+            column,
+            f"Stores column {column!r} (file column {source!r}), one value in each geography: "
+            "a level above it such as region or chain.",
+            "as in the stores file",
+            "the value shared by every store of the geography",
+            "stores columns constant within each geography",
+        )
+    if kind == "demographics" and column in config.choices.demographics:
+        households = config.sources.households
+        source = households.columns.get(column, column) if households else column
+        return ColumnEntry(
+            column,
+            f"Household demographic {column!r} of the drawn household, read from the "
+            f"households column {source!r}.",
+            "as in the households file",
+            "households value of a household drawn with probability proportional to its visits",
+            "config choices.demographics",
+        )
+    if kind in ("shares", "choices", "products") and column in config.products.characteristics:
         source = config.sources.catalogue.columns.get(column, column)
         return ColumnEntry(
             column,

@@ -17,6 +17,7 @@ import pyarrow as pa
 
 from demandprep import __version__
 from demandprep.context import BuildContext
+from demandprep.export.dictionary import market_build_record
 
 MANIFEST_NAME = "manifest.json"
 HASH_BLOCK = 1 << 20
@@ -89,6 +90,7 @@ def build_manifest(
         "warnings": list(ctx.warnings),
         "facts": ctx.facts,
         **build_scope(ctx),
+        "market_build": market_build_record(ctx.config),
         **(extra or {}),
     }
 

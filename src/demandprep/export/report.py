@@ -19,6 +19,7 @@ from matplotlib.figure import Figure
 from demandprep import __version__
 from demandprep.context import BuildContext
 from demandprep.export import report_data, report_plots
+from demandprep.export.choice_only_report import choice_only_page
 from demandprep.export.input_warnings import files_needing_attention
 from demandprep.export.quick_logit import LogitEstimate
 
@@ -59,6 +60,8 @@ def write_report(ctx: BuildContext, folder: Path, inputs: ReportInputs) -> Path:
 
 def render_report(ctx: BuildContext, inputs: ReportInputs) -> str:
     """The report page as one HTML string."""
+    if not ctx.config.market_build_enabled:  # tables helper: choice-only projects
+        return choice_only_page(ctx, inputs, STYLE, CSP)
     sections = [
         _warnings_box(ctx),
         _section("Build", _build_table(ctx, inputs)),

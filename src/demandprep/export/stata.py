@@ -15,6 +15,8 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from demandprep.export.csv_safe import list_as_text
+
 MAX_ROWS = 5_000_000
 STATA_VERSION = 118
 LABEL_CHARS = 80
@@ -75,6 +77,8 @@ def _stata_frame(table: pa.Table) -> tuple[pd.DataFrame, dict[str, str]]:
             convert_dates[item.name] = "tc"
         elif pa.types.is_string(item.type) or pa.types.is_large_string(item.type):
             series = pd.Series(values.to_pylist(), dtype=object).fillna("")
+        elif pa.types.is_list(item.type):
+            series = pd.Series(list_as_text(values).to_pylist(), dtype=object).fillna("")
         else:
             series = values.to_pandas()
         columns[item.name] = series

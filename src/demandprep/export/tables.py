@@ -56,6 +56,9 @@ class TableQuery:
 _KINDS: dict[str, tuple[str, tuple[str, ...], bool, bool]] = {
     "shares": ("share_table", ("market", "product"), True, True),
     "markets": ("markets", ("market",), True, True),
+    "products": ("products", ("product",), False, True),
+    "geographies": ("geographies", ("geography",), False, True),
+    "demographics": ("demographic_draws", ("market", "draw"), False, True),
     "choices": ("choices", ("occasion", "alternative"), False, True),
     "choosers": ("choosers", ("chooser",), False, True),
     "ledger": ("ledger", ("path", "version", "file_id"), True, True),
@@ -64,11 +67,21 @@ _KINDS: dict[str, tuple[str, tuple[str, ...], bool, bool]] = {
 }
 
 
+# Files of the market build, left out of a choice-only project (ProjectConfig.market_build_enabled).
+MARKET_KINDS = ("shares", "markets", "products", "geographies", "demographics")
+# Files written once per market-size assumption, as <kind>_<assumption>.parquet.
+PER_ASSUMPTION_KINDS = ("shares", "markets", "demographics")
+
+
 def plan_outputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[OutputTable]:
     """The data files this build writes, in a fixed order; a missing required table is an error."""
     present = set(_table_names(con))
     outputs: list[OutputTable] = []
     for kind, (table, keys, required, unique) in _KINDS.items():
+        if kind in MARKET_KINDS and not config.market_build_enabled:
+            continue  # a choice-only project: even a market table left from before stays out
+        if kind == "demographics" and config.demographic_draws.draws is None:
+            continue  # draws not asked for: a table left from an earlier config stays out
         if table not in present:
             if required or (kind in ("choices", "choosers") and config.choices.enabled):
                 raise UserError(
@@ -76,7 +89,7 @@ def plan_outputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[
                     "run the ingest and every build stage before exporting.",
                 )
             continue
-        if kind in ("shares", "markets"):
+        if kind in PER_ASSUMPTION_KINDS:
             outputs += [
                 OutputTable(
                     f"{kind}_{name}",

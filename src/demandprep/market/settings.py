@@ -70,6 +70,11 @@ RESERVED_COLUMNS = frozenset(
     }
 )
 
+# Columns of the products table besides the key parts (firm and nest may be key parts).
+PRODUCT_TABLE_COLUMNS = frozenset(
+    {"product", "display_name", "sku_count", "skus", "kept", "is_fringe"}
+)
+
 SETTINGS_DDL = """
 create or replace table market_settings_categories (category varchar not null);
 create or replace table market_settings_catalogue_columns (
@@ -132,6 +137,7 @@ def catalogue_roles(config: ProjectConfig) -> list[ColumnRole]:
 
 def check_inputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
     """Stop with a clear message when a table or a configured column is missing."""
+    _check_key_names(config)
     for table in ("raw_lines", "catalogue", "stores"):
         if not table_columns(con, table):
             raise UserError(
@@ -157,6 +163,17 @@ def check_inputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
     _check_unique(con, "catalogue", "sku")
     _check_unique(con, "stores", "store")
     _check_optional_inputs(con, config)
+
+
+def _check_key_names(config: ProjectConfig) -> None:
+    # each key part is a column of products.parquet beside these of our own
+    clash = [name for name in config.products.keys if name in PRODUCT_TABLE_COLUMNS]
+    if clash:
+        raise UserError(
+            f"config key 'products.keys': {clash[0]!r} is a column name of the products table "
+            "itself.",
+            "rename the column in [sources.catalogue.columns].",
+        )
 
 
 def _require_column(name: str, columns: list[str], key: str, table: str) -> None:
@@ -247,4 +264,11 @@ def market_params(config: ProjectConfig) -> dict[str, Any]:
         "zero_shares": shares.zero_shares,
         # 'sku' first so the list is never empty (DuckDB refuses an empty COLUMNS list)
         "characteristic_columns": ["sku", *products.characteristics],
+        "product_keys": list(products.keys),
+        # characteristics and firm/nest a key part already carries are not repeated
+        "product_characteristics": [
+            "product",
+            *(c for c in products.characteristics if c not in products.keys),
+        ],
+        "product_owners": ["product", *(c for c in ("firm", "nest") if c not in products.keys)],
     }

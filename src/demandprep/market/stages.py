@@ -23,6 +23,9 @@ for, then the table's pandera model (demandprep.schemas.market) guards it:
   market_sizes               110  every assumption's size per market, side by side
   markets                    120  size, inside quantity, outside share (stops when s_0 <= 0)
   shares                     130  the share table, long over assumptions
+  products                   140  one row per product id: key parts, firm, nest, SKUs gathered
+  market_geography_levels    150  stores columns holding one value per geography
+  geographies                160  one row per geography with those levels and its store count
 
 Choices made here, so that they are written down once:
 - demand lines are sales and voids (a void cancels a re-scan of the same visit and carries
@@ -37,6 +40,9 @@ Choices made here, so that they are written down once:
 - zero_shares = 'add_one' uses s_j = (q_j + 1) / (M + J + 1) and s_0 = (M - Q + 1) / (M + J + 1)
   in every market (J inside products, Q their total), a Laplace-type rule after Gandhi, Lu &
   Shi, recalled from memory and not checked against the paper;
+- products and geographies are lookup tables for joins: a product's key parts hold the text its
+  id is made of (so joining them with '|' gives the id back), and a geography carries every
+  stores column that has one value in it (a null counts as a value);
 - sums that could depend on thread order are exact decimals or ordered sums, so a rebuild gives
   identical tables.
 """
@@ -48,7 +54,7 @@ from collections.abc import Callable
 from demandprep.context import BuildContext
 from demandprep.market import checks, summaries
 from demandprep.market.inputs import create_input_views
-from demandprep.market.settings import check_inputs, market_params, write_settings
+from demandprep.market.settings import check_inputs, market_params, table_columns, write_settings
 from demandprep.schemas.market import MARKET_MODELS
 from demandprep.sqlfiles import run_sql
 from demandprep.stage import Stage, run_stage
@@ -69,7 +75,12 @@ SQL_FILES: dict[str, str] = {
     "market_sizes": "market/110_market_sizes.sql",
     "markets": "market/120_markets.sql",
     "shares": "market/130_shares.sql",
+    "products": "market/140_products.sql",
+    "market_geography_levels": "market/150_market_geography_levels.sql",
+    "geographies": "market/160_geographies.sql",
 }
+# Columns of the geographies table that a stores column may not bring in a second time.
+GEOGRAPHY_TABLE_COLUMNS = ("store", "geography", "store_count")
 
 
 Check = Callable[[BuildContext], None]
@@ -128,6 +139,21 @@ def _check_characteristics(ctx: BuildContext) -> None:
         raise AssertionError(f"shares lost characteristic columns {missing}")
 
 
+def geography_levels(ctx: BuildContext) -> list[str]:
+    """The stores columns with one value per geography, in stores order (not the geography)."""
+    rows = ctx.con.execute("select column_name from market_geography_levels").fetchall()
+    found = {row[0] for row in rows}
+    skipped = {*GEOGRAPHY_TABLE_COLUMNS, ctx.config.markets.geography}
+    return [c for c in table_columns(ctx.con, "stores") if c in found and c not in skipped]
+
+
+def build_geographies(ctx: BuildContext) -> None:
+    """Build and validate the geographies table from the level columns found before."""
+    run_sql(ctx.con, SQL_FILES["geographies"], {"level_columns": ["store", *geography_levels(ctx)]})
+    rows = validate_table(ctx.con, "geographies", MARKET_MODELS["geographies"])
+    ctx.facts.setdefault("market", {}).setdefault("rows", {})["geographies"] = rows
+
+
 MARKET_STAGES: tuple[Stage, ...] = (
     Stage("market_settings", settings_stage),
     Stage("market_calendar", _table_stage("market_calendar")),
@@ -152,6 +178,9 @@ MARKET_STAGES: tuple[Stage, ...] = (
     # the outside-share check names the markets; it runs before the schema's generic check
     Stage("markets", _table_stage("markets", first=(checks.check_outside_shares,))),
     Stage("shares", _table_stage("shares", _check_characteristics)),
+    Stage("products", _table_stage("products")),
+    Stage("market_geography_levels", _table_stage("market_geography_levels")),
+    Stage("geographies", build_geographies),
 )
 
 

@@ -17,6 +17,7 @@ from demandprep.config import FileSource, ProjectConfig
 from demandprep.ingest import receipts as receipt_rules
 from demandprep.ingest import references as refs
 from demandprep.ingest.reader import FileRefused, SourceColumn, file_columns
+from demandprep.ingest.timings import PhaseTimer
 from demandprep.ingest.validation import validate_query
 from demandprep.schemas.ingest import REFERENCE_MODELS
 from demandprep.sqlfiles import quote_identifier
@@ -32,7 +33,11 @@ class Loader(Protocol):
         ...
 
     def check(
-        self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
+        self,
+        con: duckdb.DuckDBPyConnection,
+        first_path: Path,
+        mapped: dict[str, SourceColumn],
+        timer: PhaseTimer,
     ) -> None:
         """Type and check the staged rows into `ingest_checked` (reason null = accepted)."""
         ...
@@ -66,10 +71,14 @@ class ReceiptLoader:
         return receipt_rules.RECEIPT_NAMES
 
     def check(
-        self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
+        self,
+        con: duckdb.DuckDBPyConnection,
+        first_path: Path,
+        mapped: dict[str, SourceColumn],
+        timer: PhaseTimer,
     ) -> None:
         """Apply the receipt rules and the duplicate rule to the staged lines."""
-        receipt_rules.check_receipt_lines(con, self.config.sources.receipts, mapped)
+        receipt_rules.check_receipt_lines(con, self.config.sources.receipts, mapped, timer)
 
     def remove_previous(self, con: duckdb.DuckDBPyConnection) -> None:
         """Delete the raw lines of the older versions of the batch's changed files."""
@@ -103,17 +112,24 @@ class ReferenceLoader:
         return tuple(self.source.columns)
 
     def check(
-        self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
+        self,
+        con: duckdb.DuckDBPyConnection,
+        first_path: Path,
+        mapped: dict[str, SourceColumn],
+        timer: PhaseTimer,
     ) -> None:
         """Type the staged rows, apply the reference rules and the duplicate-key rule."""
-        sniffed = self._sniffed_types(con, first_path, mapped)
-        types = refs.column_types(con, self.spec, mapped, sniffed)
-        sql = refs.check_reference_sql(self.spec, types)
-        con.execute(sql, {"decimal": self._decimal()} if "$decimal" in sql else None)
-        names = list(types)
-        con.execute(refs.duplicates_sql(con, self.spec, names))
-        con.execute(refs.mark_duplicates_sql(self.spec, names))
-        con.execute(refs.ensure_storage_sql(self.spec, types))
+        with timer.phase("classify"):
+            sniffed = self._sniffed_types(con, first_path, mapped)
+            types = refs.column_types(con, self.spec, mapped, sniffed)
+            sql = refs.check_reference_sql(self.spec, types)
+            con.execute(sql, {"decimal": self._decimal()} if "$decimal" in sql else None)
+        with timer.phase("dedupe"):
+            names = list(types)
+            con.execute(refs.duplicates_sql(con, self.spec, names))
+            con.execute(refs.mark_duplicates_sql(self.spec, names))
+        with timer.phase("insert"):
+            con.execute(refs.ensure_storage_sql(self.spec, types))
 
     def _decimal(self) -> str:
         return "." if self.source.format == "parquet" else self.source.decimal

@@ -35,6 +35,7 @@ import pyarrow as pa
 from demandprep.config import FileSource
 from demandprep.errors import UserError
 from demandprep.ingest.lines import KEPT_BYTES, MAX_LINE_BYTES, LinesUnreadable, line_chunks
+from demandprep.ingest.timings import PhaseTimer
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier, run_sql
 
@@ -164,25 +165,35 @@ class Staged:
 
 
 def stage_files(
-    con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource, name: str
+    con: duckdb.DuckDBPyConnection,
+    paths: list[Path],
+    source: FileSource,
+    name: str,
+    timer: PhaseTimer | None = None,
 ) -> Staged:
     """Read the batch's files into `ingest_stage` and `ingest_rejected` (needs the batch table).
 
     CSV: every file's own header is checked against the mapping; files with their columns in
     another order go in the same batch. Parquet: the first file's columns are used for all.
+    `timer` gets the seconds of reading and of splitting the lines into fields (classify).
     """
+    timer = timer or PhaseTimer()
     drop_staging(con)
     if source.format == "parquet":
-        columns = file_columns(con, paths[0], source)
-        mapped = map_columns(paths[0], columns, source.columns, source.header)
-        try:
-            _stage_parquet(con, paths)
-        except duckdb.Error as error:
-            names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
-            raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
+        with timer.phase("read"):
+            columns = file_columns(con, paths[0], source)
+            mapped = map_columns(paths[0], columns, source.columns, source.header)
+            try:
+                _stage_parquet(con, paths)
+            except duckdb.Error as error:
+                names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
+                raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
     else:
-        _stage_lines(con, paths, source)
-        columns, mapped = _stage_csv(con, paths, source, name)
+        with timer.phase("read"):
+            _read_lines(con, paths, source)
+        with timer.phase("classify"):
+            _split_lines(con, source)
+            columns, mapped = _stage_csv(con, paths, source, name)
     rows = con.execute("select path, lines, records from ingest_file_records").fetchall()
     return Staged(
         columns,
@@ -192,9 +203,8 @@ def stage_files(
     )
 
 
-def _stage_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
-    # each file's physical lines, cut apart from any CSV parser (lines.py), then one record
-    # per line: text, fields, and why the reader refuses it (010); then the count per file
+def _read_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
+    # each file's physical lines, cut apart from any CSV parser (lines.py)
     con.execute(
         "create temp table ingest_lines "
         "(position integer, line_no bigint, text varchar, raw blob, length bigint)"
@@ -210,6 +220,11 @@ def _stage_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: File
                 con.unregister("ingest_line_chunk")
         except LinesUnreadable as error:
             raise FileUnreadable(f"{path}: cannot be read ({error}).") from None
+
+
+def _split_lines(con: duckdb.DuckDBPyConnection, source: FileSource) -> None:
+    # one record per line: text, fields, and why the reader refuses it (010); then the count
+    # per file
     run_sql(
         con,
         "ingest/010_line_fields.sql",

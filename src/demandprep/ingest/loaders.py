@@ -7,7 +7,7 @@ they are counted and guarded.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Protocol
 
@@ -33,11 +33,7 @@ class Loader(Protocol):
         ...
 
     def check(
-        self,
-        con: duckdb.DuckDBPyConnection,
-        first_path: Path,
-        mapped: dict[str, SourceColumn],
-        timer: PhaseTimer,
+        self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
     ) -> None:
         """Type and check the staged rows into `ingest_checked` (reason null = accepted)."""
         ...
@@ -65,20 +61,18 @@ class ReceiptLoader:
 
     source: FileSource
     config: ProjectConfig
+    # the seconds of the rules (classify) and of the duplicate rule (dedupe) go here
+    timer: PhaseTimer = field(default_factory=PhaseTimer)
 
     def names(self) -> tuple[str, ...]:
         """Our receipt columns, required and optional."""
         return receipt_rules.RECEIPT_NAMES
 
     def check(
-        self,
-        con: duckdb.DuckDBPyConnection,
-        first_path: Path,
-        mapped: dict[str, SourceColumn],
-        timer: PhaseTimer,
+        self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
     ) -> None:
         """Apply the receipt rules and the duplicate rule to the staged lines."""
-        receipt_rules.check_receipt_lines(con, self.config.sources.receipts, mapped, timer)
+        receipt_rules.check_receipt_lines(con, self.config.sources.receipts, mapped, self.timer)
 
     def remove_previous(self, con: duckdb.DuckDBPyConnection) -> None:
         """Delete the raw lines of the older versions of the batch's changed files."""
@@ -106,19 +100,18 @@ class ReferenceLoader:
 
     source: FileSource
     spec: refs.ReferenceSpec
+    # the seconds of the rules (classify) and of the duplicate rule (dedupe) go here
+    timer: PhaseTimer = field(default_factory=PhaseTimer)
 
     def names(self) -> tuple[str, ...]:
         """Our names of the mapped columns, in mapping order."""
         return tuple(self.source.columns)
 
     def check(
-        self,
-        con: duckdb.DuckDBPyConnection,
-        first_path: Path,
-        mapped: dict[str, SourceColumn],
-        timer: PhaseTimer,
+        self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
     ) -> None:
         """Type the staged rows, apply the reference rules and the duplicate-key rule."""
+        timer = self.timer
         with timer.phase("classify"):
             sniffed = self._sniffed_types(con, first_path, mapped)
             types = refs.column_types(con, self.spec, mapped, sniffed)

@@ -214,12 +214,15 @@ def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
         yield batch
 
 
-def loader_for(config: ProjectConfig, source_name: str) -> Loader:
-    """The loader of one configured source."""
+def loader_for(
+    config: ProjectConfig, source_name: str, timer: PhaseTimer | None = None
+) -> Loader:
+    """The loader of one configured source; it times its checks with `timer`."""
     source = getattr(config.sources, source_name)
+    timer = timer or PhaseTimer()
     if source_name == "receipts":
-        return ReceiptLoader(source, config)
-    return ReferenceLoader(source, REFERENCE_SPECS[source_name])
+        return ReceiptLoader(source, config, timer)
+    return ReferenceLoader(source, REFERENCE_SPECS[source_name], timer)
 
 
 def ingest_file(
@@ -247,7 +250,7 @@ def ingest_batch(
     """
     timer = timer or PhaseTimer()
     ensure_tables(con)
-    loader = loader_for(config, files[0].source)
+    loader = loader_for(config, files[0].source, timer)
     con.execute("begin transaction")
     try:
         if files[0].source == "receipts":
@@ -347,7 +350,7 @@ def _load_batch(
     if with_records:
         with timer.phase("classify"):
             create_source_view(con, staged.mapped, loader.names())
-        loader.check(con, with_records[0], staged.mapped, timer)
+        loader.check(con, with_records[0], staged.mapped)
         notify("file_step", step="inserting", **step)
         with timer.phase("insert"):
             render_quarantined(con, staged.columns, source)

@@ -34,7 +34,12 @@ import pyarrow as pa
 
 from demandprep.config import FileSource
 from demandprep.errors import UserError
-from demandprep.ingest.lines import KEPT_BYTES, MAX_LINE_BYTES, LinesUnreadable, line_chunks
+from demandprep.ingest.lines import (
+    KEPT_BYTES,
+    MAX_LINE_BYTES,
+    LinesUnreadable,
+    batch_line_chunks,
+)
 from demandprep.ingest.timings import PhaseTimer
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier, run_sql
@@ -59,6 +64,7 @@ TEXT_TYPES = ("VARCHAR",)
 TIMESTAMP_TYPES = ("TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "DATE")
 ZONED_TIMESTAMP_TYPES = ("TIMESTAMP WITH TIME ZONE",)
 COMMON_DELIMITERS = (";", ",", "\t", "|")
+HANDOFF_BYTES = 64 * 1024 * 1024  # lines gathered in Python before one insert into DuckDB
 
 CSV_OPTIONS = (
     "delim = $delimiter, header = $header, encoding = $encoding, "
@@ -204,22 +210,36 @@ def stage_files(
 
 
 def _read_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
-    # each file's physical lines, cut apart from any CSV parser (lines.py)
+    # each file's physical lines, cut apart from any CSV parser (lines.py), files read in as
+    # many threads as DuckDB has; DuckDB gets them in pieces of about HANDOFF_BYTES
     con.execute(
         "create temp table ingest_lines "
         "(position integer, line_no bigint, text varchar, raw blob, length bigint)"
     )
-    for position, path in enumerate(paths):
-        if path.stat().st_size == 0:
-            continue  # nothing to open (an empty .gz is not even valid gzip)
-        try:
-            for chunk in line_chunks(path, source.encoding):
-                positions = pa.array(np.full(chunk.num_rows, position, dtype=np.int32))
-                con.register("ingest_line_chunk", chunk.add_column(0, "position", positions))
-                con.execute("insert into ingest_lines select * from ingest_line_chunk")
-                con.unregister("ingest_line_chunk")
-        except LinesUnreadable as error:
-            raise FileUnreadable(f"{path}: cannot be read ({error}).") from None
+    workers = int(con.execute("select current_setting('threads')").fetchall()[0][0])
+    pieces: list[pa.Table] = []
+    size = 0
+    try:
+        for position, chunk in batch_line_chunks(paths, source.encoding, workers):
+            positions = pa.array(np.full(chunk.num_rows, position, dtype=np.int32))
+            pieces.append(chunk.add_column(0, "position", positions))
+            size += pieces[-1].nbytes
+            if size >= HANDOFF_BYTES:
+                _hand_over(con, pieces)
+                pieces, size = [], 0
+    except LinesUnreadable as error:
+        raise FileUnreadable(f"{error.path}: cannot be read ({error}).") from None
+    if pieces:
+        _hand_over(con, pieces)
+
+
+def _hand_over(con: duckdb.DuckDBPyConnection, pieces: list[pa.Table]) -> None:
+    """Append line tables to `ingest_lines` in one insert (one per chunk costs ms each)."""
+    con.register("ingest_line_chunk", pa.concat_tables(pieces))
+    try:
+        con.execute("insert into ingest_lines select * from ingest_line_chunk")
+    finally:
+        con.unregister("ingest_line_chunk")
 
 
 def _split_lines(con: duckdb.DuckDBPyConnection, source: FileSource) -> None:

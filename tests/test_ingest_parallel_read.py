@@ -4,6 +4,7 @@ bounded read-ahead, and the same warehouse as reading them one by one."""
 from __future__ import annotations
 
 import gzip
+import hashlib
 import threading
 import time
 from pathlib import Path
@@ -12,6 +13,7 @@ import pytest
 from ingest_fixtures import copy_faults
 
 from demandprep.config import load_config
+from demandprep.ingest.files import discover_source
 from demandprep.ingest import lines as lines_module
 from demandprep.ingest.lines import LinesUnreadable, batch_line_chunks, line_chunks
 from demandprep.ingest.runner import ingest_all
@@ -146,3 +148,14 @@ def test_threaded_read_fills_the_warehouse_as_the_serial_read(
     # the same rows, paths apart (each copy has its own folder)
     one, four = str(tmp_path / "one"), str(tmp_path / "four")
     assert repr(threaded).replace(four, one) == repr(serial)
+
+
+def test_checksums_taken_in_threads_match_hashlib_in_file_order(tmp_path: Path) -> None:
+    paths = write_files(tmp_path)
+    found = discover_source("receipts", paths, {}, workers=3)
+    assert [item.path for item in found] == paths
+    # reference: hashlib.sha256 of each file's bytes
+    assert [item.sha256 for item in found] == [
+        hashlib.sha256(path.read_bytes()).hexdigest() for path in paths
+    ]
+    assert [item.bytes for item in found] == [path.stat().st_size for path in paths]

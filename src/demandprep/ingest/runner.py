@@ -127,6 +127,7 @@ def discover_files(
             fingerprint=source.settings_fingerprint(),
             held_back=held_back,
             reload=targets.get(name, frozenset()),
+            workers=config.warehouse.threads,
         )
     return mark_source_rebuilds(con, found)
 

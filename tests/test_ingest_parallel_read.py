@@ -13,8 +13,9 @@ import pytest
 from ingest_fixtures import copy_faults
 
 from demandprep.config import load_config
-from demandprep.ingest.files import discover_source
 from demandprep.ingest import lines as lines_module
+from demandprep.ingest import reader as reader_module
+from demandprep.ingest.files import discover_source
 from demandprep.ingest.lines import LinesUnreadable, batch_line_chunks, line_chunks
 from demandprep.ingest.runner import ingest_all
 from demandprep.warehouse import open_warehouse
@@ -47,7 +48,7 @@ def serial_lines(paths: list[Path]) -> list[tuple[int, int, str]]:
             continue
         for chunk in line_chunks(path, "utf-8"):
             numbers, texts = chunk["line_no"].to_pylist(), chunk["text"].to_pylist()
-            found += [(position, number, text) for number, text in zip(numbers, texts)]
+            found += [(position, number, text) for number, text in zip(numbers, texts, strict=True)]
     return found
 
 
@@ -55,7 +56,7 @@ def batch_lines(paths: list[Path], workers: int) -> list[tuple[int, int, str]]:
     found = []
     for position, chunk in batch_line_chunks(paths, "utf-8", workers):
         numbers, texts = chunk["line_no"].to_pylist(), chunk["text"].to_pylist()
-        found += [(position, number, text) for number, text in zip(numbers, texts)]
+        found += [(position, number, text) for number, text in zip(numbers, texts, strict=True)]
     return found
 
 
@@ -141,6 +142,7 @@ def test_threaded_read_fills_the_warehouse_as_the_serial_read(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     monkeypatch.setattr(lines_module, "CHUNK_BYTES", 211)  # lines cut across chunks
+    monkeypatch.setattr(reader_module, "HANDOFF_BYTES", 500)  # many inserts per batch
     serial = warehouse_tables(copy_faults(tmp_path / "one"), threads=1)
     threaded = warehouse_tables(copy_faults(tmp_path / "four"), threads=4)
     assert serial["raw_lines"]

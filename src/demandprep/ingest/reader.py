@@ -64,7 +64,9 @@ TEXT_TYPES = ("VARCHAR",)
 TIMESTAMP_TYPES = ("TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "DATE")
 ZONED_TIMESTAMP_TYPES = ("TIMESTAMP WITH TIME ZONE",)
 COMMON_DELIMITERS = (";", ",", "\t", "|")
-HANDOFF_BYTES = 64 * 1024 * 1024  # lines gathered in Python before one insert into DuckDB
+# lines gathered in Python before one insert into DuckDB: one insert per chunk cost ms each,
+# and Python holds at most this much (plus the threads' read-ahead) beside DuckDB's limit
+HANDOFF_BYTES = 32 * 1024 * 1024
 
 CSV_OPTIONS = (
     "delim = $delimiter, header = $header, encoding = $encoding, "

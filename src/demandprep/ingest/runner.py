@@ -158,7 +158,8 @@ def ingest_all(
     receipts_prepared = False
     for batch in batches(to_read):
         if batch[0].source == "receipts" and not receipts_prepared:
-            prepare_receipts(con, config)  # after the stores are loaded: their timezones
+            with timer.phase("classify"):  # settings the receipt rules read
+                prepare_receipts(con, config)  # after the stores are loaded: their timezones
             receipts_prepared = True
         for item in batch:
             notify(

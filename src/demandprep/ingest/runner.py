@@ -77,7 +77,7 @@ from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
 
 BATCH_BYTES = 16 * 1024 * 1024  # ~1.3M lines of gzip CSV: staging stays well in memory
-BATCH_FILES = 1024  # many small files: each batch costs some fixed 0.1 s (plans, checks)
+BATCH_FILES = 256
 
 Progress = Callable[..., Any]
 

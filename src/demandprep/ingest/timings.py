@@ -7,7 +7,8 @@ time between them (progress callbacks, transactions, failed batches' rollbacks):
 - classify: splitting the lines into fields, refusing the lines the reader cannot take, typing
   the fields and applying the source's rules;
 - dedupe: the duplicate rule (receipts: against the batch and the lines stored before);
-- insert: removing replaced versions' rows, appending the accepted rows and the quarantine;
+- insert: the batch's file ids, removing replaced versions' rows, appending the accepted rows
+  and the quarantine;
 - ledger: counts per file, the balance, the refusal check and the ledger rows;
 - validate: the pandera guards on what the batch added.
 """

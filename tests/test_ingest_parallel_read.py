@@ -161,3 +161,22 @@ def test_checksums_taken_in_threads_match_hashlib_in_file_order(tmp_path: Path) 
         hashlib.sha256(path.read_bytes()).hexdigest() for path in paths
     ]
     assert [item.bytes for item in found] == [path.stat().st_size for path in paths]
+
+
+@pytest.mark.parametrize("chunk_bytes", [1, 2, 3, 7, 64, 1 << 20])
+def test_lines_cut_at_any_chunk_size_are_the_lines_bytes_split_finds(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, chunk_bytes: int
+) -> None:
+    monkeypatch.setattr(lines_module, "CHUNK_BYTES", chunk_bytes)
+    data = b"h,x\n\n1,a\r\n22,bb\n\n\n333,ccc\n4444,dddd"
+    path = tmp_path / "lines.csv"
+    path.write_bytes(data)
+    chunks = list(line_chunks(path, "utf-8"))
+    texts = [text for chunk in chunks for text in chunk["text"].to_pylist()]
+    lengths = [length for chunk in chunks for length in chunk["length"].to_pylist()]
+    numbers = [number for chunk in chunks for number in chunk["line_no"].to_pylist()]
+    # reference: bytes.split at LF (the cutter may leave each line's LF on, the reader drops it)
+    expected = data.split(b"\n")
+    assert [text.removesuffix("\n") for text in texts] == [line.decode() for line in expected]
+    assert lengths == [len(line) for line in expected]
+    assert numbers == list(range(1, len(expected) + 1))

@@ -181,17 +181,20 @@ def _cut_lines(chunks: Iterator[bytes]) -> Iterator[tuple[pa.Array, np.ndarray]]
         if not len(ends):
             head, head_length = _extend(head, head_length, chunk)
             continue
-        head, head_length = _extend(head, head_length, chunk[: ends[0]])
-        yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
-        if len(ends) > 1:
-            start = int(ends[0]) + 1
-            offsets = (ends + 1 - start).astype(np.int32)
-            body = pa.py_buffer(chunk).slice(start, int(ends[-1]) + 1 - start)
+        last_end = int(ends[-1])
+        start = 0  # nothing unfinished: the chunk's first line is whole in it
+        if head_length:
+            head, head_length = _extend(head, head_length, chunk[: ends[0]])
+            yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
+            start, ends = int(ends[0]) + 1, ends[1:]
+        if len(ends):
+            offsets = np.concatenate(([0], ends + 1 - start)).astype(np.int32)
+            body = pa.py_buffer(chunk).slice(start, last_end + 1 - start)
             lines = pa.BinaryArray.from_buffers(
                 pa.binary(), len(offsets) - 1, [None, pa.py_buffer(offsets), body]
             )
             yield lines, np.diff(offsets).astype(np.int64) - 1
-        head, head_length = _extend(b"", 0, chunk[int(ends[-1]) + 1 :])
+        head, head_length = _extend(b"", 0, chunk[last_end + 1 :])
     if head_length:
         yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
 

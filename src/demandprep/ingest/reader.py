@@ -14,7 +14,8 @@ checks `records = accepted + quarantined` against a count the parser did not mak
 goes through `read_parquet`. After `stage_files`, these temporary objects exist until
 `drop_staging`:
 
-- `ingest_fields`: ordinal, position, line_no, text, fields, reason, detail, record per line;
+- `ingest_fields`: ordinal, position, line_no, text, fields, field_count, reason, detail, record
+  per line;
 - `ingest_stage`: ordinal (file position << 40 + line number), `ingest_file_path`, line_no and
   every mapped source column (CSV: a view of the accepted-shape lines);
 - `ingest_rejected`: path, line_no, reason, detail, original_text of each refused line;
@@ -298,7 +299,7 @@ def _stage_csv(
         + (f", {fields}" if fields else "")
         + " from ingest_fields f join ingest_file_layouts l using (position) "
         "join ingest_batch_files b using (position) "
-        "where f.record and f.reason is null and len(f.fields) = l.width"
+        "where f.record and f.reason is null and f.field_count = l.width"
     )
     con.execute("create temp view ingest_numbered as select * from ingest_stage")
     mapped_text = {ours: SourceColumn(c.name, "VARCHAR") for ours, c in first_mapped.items()}

@@ -53,3 +53,11 @@ create table if not exists ledger_reasons (
     reason varchar not null,
     rows bigint not null,
 );
+
+-- seconds per phase of each ingest run (ingest/timings.py), for benchmarks and slow nights
+create table if not exists ingest_runs (
+    run_at timestamp not null,
+    phase varchar not null,
+    seconds double not null,
+    run_seconds double not null,
+);

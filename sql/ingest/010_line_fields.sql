@@ -105,6 +105,8 @@ final as (
             else text
         end as text,
         case when reason is null then split_fields end as fields,
+        -- stored beside the list: the width checks need not scan the lists
+        case when reason is null then len(split_fields) end as field_count,
         reason,
         case reason
             when 'line_too_long' then 'the line has ' || length || ' bytes, more than '
@@ -126,6 +128,7 @@ select
     line_no,
     text,
     fields,
+    field_count,
     reason,
     detail,
     record,

@@ -8,7 +8,7 @@ records as (
         position,
         line_no,
         text,
-        fields,
+        field_count,
         reason,
         detail,
     from ingest_fields
@@ -30,13 +30,13 @@ refused as (
         coalesce(reason, 'wrong_column_count') as reason,
         coalesce(
             detail,
-            len(fields) || ' fields, '
+            field_count || ' fields, '
             || case when $header then 'the header has ' else 'the first line has ' end
             || width
         ) as detail,
         text as original_text,
     from measured
-    where reason is not null or len(fields) <> width
+    where reason is not null or field_count <> width
 ),
 
 final as (

@@ -123,16 +123,26 @@ ReloadOption = Annotated[
 ]
 
 
+TimingsOption = Annotated[
+    bool, typer.Option("--timings", help="Also print the seconds of each ingest phase.")
+]
+
+
 @app.command("ingest")
-def ingest_command(config: ConfigArg, reload: ReloadOption = None) -> None:
+def ingest_command(
+    config: ConfigArg, reload: ReloadOption = None, timings: TimingsOption = False
+) -> None:
     """Load new and changed input files into the warehouse, quarantining bad lines."""
     with user_errors():
-        summary = ingest_with_progress(load_config(config), reload=reload)
+        summary = ingest_with_progress(load_config(config), reload=reload, timings=timings)
     exit_on_problems(summary)
 
 
-def ingest_with_progress(project: ProjectConfig, reload: list[str] | None = None):
+def ingest_with_progress(
+    project: ProjectConfig, reload: list[str] | None = None, timings: bool = False
+):
     """Run the ingest with a progress bar (log lines outside a terminal), then its summary."""
+    from demandprep.ingest.results import timings_line
     from demandprep.ingest.runner import summary_table
     from demandprep.pipeline import run_ingest
     from demandprep.progress import IngestLog, IngestProgress
@@ -143,6 +153,8 @@ def ingest_with_progress(project: ProjectConfig, reload: list[str] | None = None
     else:
         summary = run_ingest(project, progress=IngestLog(say).update, reload=reload)
     Console().print(summary_table(summary))
+    if timings:
+        say(timings_line(summary))
     for warning in summary.warnings:
         say(warning, "warning:", "yellow")
     return summary
@@ -221,13 +233,15 @@ def build_with_progress(project: ProjectConfig, force: bool = False) -> Path | N
 
 
 @app.command("run")
-def run_command(config: ConfigArg, force: ForceOption = False) -> None:
+def run_command(
+    config: ConfigArg, force: ForceOption = False, timings: TimingsOption = False
+) -> None:
     """Ingest, then build: what a nightly job does, without an orchestrator."""
     from demandprep.pipeline import every_receipts_file_failed
 
     with user_errors():
         project = load_config(config)
-        summary = ingest_with_progress(project)
+        summary = ingest_with_progress(project, timings=timings)
         if every_receipts_file_failed(summary):
             say(
                 "every receipts file failed or was refused, so nothing was built.",

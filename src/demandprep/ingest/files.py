@@ -11,6 +11,7 @@ that is `withdrawn` stays out until its checksum changes (or an explicit reload)
 from __future__ import annotations
 
 import hashlib
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from fnmatch import fnmatch
 from pathlib import Path
@@ -86,6 +87,14 @@ def file_sha256(path: Path) -> str:
     return digest.hexdigest()
 
 
+def checksums(paths: list[Path], workers: int) -> list[str]:
+    """The sha256 of each file, in the order of `paths`."""
+    if workers <= 1 or len(paths) <= 1:
+        return [file_sha256(path) for path in paths]
+    with ThreadPoolExecutor(workers, thread_name_prefix="demandprep-sha256") as pool:
+        return list(pool.map(file_sha256, paths))
+
+
 def current_versions(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], KnownVersion]:
     """(source, path) -> the current (or empty) ledger row of every file."""
     # an empty file is read once: not again until its checksum or its source's settings change
@@ -114,11 +123,14 @@ def discover_source(
     fingerprint: str | None = None,
     held_back: dict[tuple[str, str], KnownVersion] | None = None,
     reload: frozenset[Path] = frozenset(),
+    workers: int = 1,
 ) -> list[DiscoveredFile]:
-    """Checksum each file of one source and compare it with its ledger rows."""
+    """Checksum each file of one source and compare it with its ledger rows.
+
+    The checksums are taken in `workers` threads (hashlib releases the GIL on large reads).
+    """
     found = []
-    for path in paths:
-        sha = file_sha256(path)
+    for path, sha in zip(paths, checksums(paths, workers), strict=True):
         previous = known.get((source, str(path)))
         blocked = (held_back or {}).get((source, str(path)))
         forced = reload_all or path in reload

@@ -13,12 +13,21 @@ code runs per line. A line that spans chunks is joined in Python; past MAX_LINE_
 only its first KEPT_BYTES (its full length travels with it), so one huge line costs no more
 memory than a chunk. Invalid UTF-8 is not refused here: such a line reaches the reader as bytes
 and is quarantined there.
+
+A batch's files are read in threads (`batch_line_chunks`): decompressing, decoding and numpy
+release the GIL, so several files are cut at once, each numbering its own lines; the caller
+still gets every file's chunks in file order. Each thread runs at most QUEUED_CHUNKS chunks
+ahead of the caller, so memory stays bounded by the chunk size, not by the files' sizes.
 """
 
 from __future__ import annotations
 
 import codecs
+import queue
+import threading
+from collections import deque
 from collections.abc import Iterator
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -30,10 +39,91 @@ KEPT_BYTES = 4096  # of a too-long line, kept as its original text
 UTF8_BOM = codecs.BOM_UTF8
 LF = 10
 COMPRESSION = {".gz": "gzip", ".zst": "zstd"}
+QUEUED_CHUNKS = 2  # chunks a reader thread may hold ahead of the caller, per file
+PUT_WAIT_SECONDS = 0.05  # how often a reader waiting on a full queue looks for a stop
 
 
 class LinesUnreadable(Exception):
     """The file cannot be opened, decompressed or decoded as a whole."""
+
+    def __init__(self, message: str, path: Path | None = None) -> None:
+        super().__init__(message)
+        self.path = path
+
+
+_DONE = object()
+
+
+def batch_line_chunks(
+    paths: list[Path], encoding: str, workers: int
+) -> Iterator[tuple[int, pa.Table]]:
+    """(file position, lines table) of every file in file order, each numbered from line 1.
+
+    Up to `workers` files are read at once in threads. An empty (zero-byte) file gives nothing.
+    A file that cannot be read raises LinesUnreadable (with its path) after every chunk of
+    the files before it; the threads are stopped when the caller stops or fails.
+    """
+    if workers <= 1:
+        for position, path in enumerate(paths):
+            for chunk in _file_chunks(path, encoding):
+                yield position, chunk
+        return
+    stop = threading.Event()
+    pool = ThreadPoolExecutor(workers, thread_name_prefix="demandprep-lines")
+    pending: deque[tuple[int, queue.Queue]] = deque()
+    upcoming = iter(enumerate(paths))
+
+    def read_next() -> None:
+        for position, path in upcoming:
+            found: queue.Queue = queue.Queue(QUEUED_CHUNKS)
+            pool.submit(_read_into, path, encoding, found, stop)
+            pending.append((position, found))
+            return
+
+    try:
+        for _ in range(workers + 1):  # one more than the threads: the next file starts at once
+            read_next()
+        while pending:
+            position, found = pending.popleft()
+            while (item := found.get()) is not _DONE:
+                if isinstance(item, BaseException):
+                    raise item
+                yield position, item
+            read_next()
+    finally:
+        stop.set()
+        pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _file_chunks(path: Path, encoding: str) -> Iterator[pa.Table]:
+    if path.stat().st_size == 0:
+        return  # nothing to open (an empty .gz is not even valid gzip)
+    try:
+        yield from line_chunks(path, encoding)
+    except LinesUnreadable as error:
+        raise LinesUnreadable(str(error), path) from None
+
+
+def _read_into(path: Path, encoding: str, found: queue.Queue, stop: threading.Event) -> None:
+    """One file's chunks into `found`, then _DONE (or the error that ended the read)."""
+    try:
+        for chunk in _file_chunks(path, encoding):
+            if not _put(found, chunk, stop):
+                return
+        _put(found, _DONE, stop)
+    except BaseException as error:  # handed to the caller, who raises it in its own thread
+        _put(found, error, stop)
+
+
+def _put(found: queue.Queue, item: object, stop: threading.Event) -> bool:
+    """Put `item` once there is room; False when the caller stopped reading meanwhile."""
+    while not stop.is_set():
+        try:
+            found.put(item, timeout=PUT_WAIT_SECONDS)
+            return True
+        except queue.Full:
+            continue
+    return False
 
 
 def line_chunks(path: Path, encoding: str) -> Iterator[pa.Table]:
@@ -91,17 +181,20 @@ def _cut_lines(chunks: Iterator[bytes]) -> Iterator[tuple[pa.Array, np.ndarray]]
         if not len(ends):
             head, head_length = _extend(head, head_length, chunk)
             continue
-        head, head_length = _extend(head, head_length, chunk[: ends[0]])
-        yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
-        if len(ends) > 1:
-            start = int(ends[0]) + 1
-            offsets = (ends + 1 - start).astype(np.int32)
-            body = pa.py_buffer(chunk).slice(start, int(ends[-1]) + 1 - start)
+        last_end = int(ends[-1])
+        start = 0  # nothing unfinished: the chunk's first line is whole in it
+        if head_length:
+            head, head_length = _extend(head, head_length, chunk[: ends[0]])
+            yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
+            start, ends = int(ends[0]) + 1, ends[1:]
+        if len(ends):
+            offsets = np.concatenate(([0], ends + 1 - start)).astype(np.int32)
+            body = pa.py_buffer(chunk).slice(start, last_end + 1 - start)
             lines = pa.BinaryArray.from_buffers(
                 pa.binary(), len(offsets) - 1, [None, pa.py_buffer(offsets), body]
             )
             yield lines, np.diff(offsets).astype(np.int64) - 1
-        head, head_length = _extend(b"", 0, chunk[int(ends[-1]) + 1 :])
+        head, head_length = _extend(b"", 0, chunk[last_end + 1 :])
     if head_length:
         yield pa.array([head], pa.binary()), np.array([head_length], dtype=np.int64)
 

@@ -7,7 +7,7 @@ they are counted and guarded.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Protocol
 
@@ -17,6 +17,7 @@ from demandprep.config import FileSource, ProjectConfig
 from demandprep.ingest import receipts as receipt_rules
 from demandprep.ingest import references as refs
 from demandprep.ingest.reader import FileRefused, SourceColumn, file_columns
+from demandprep.ingest.timings import PhaseTimer
 from demandprep.ingest.validation import validate_query
 from demandprep.schemas.ingest import REFERENCE_MODELS
 from demandprep.sqlfiles import quote_identifier
@@ -60,6 +61,8 @@ class ReceiptLoader:
 
     source: FileSource
     config: ProjectConfig
+    # the seconds of the rules (classify) and of the duplicate rule (dedupe) go here
+    timer: PhaseTimer = field(default_factory=PhaseTimer)
 
     def names(self) -> tuple[str, ...]:
         """Our receipt columns, required and optional."""
@@ -69,7 +72,7 @@ class ReceiptLoader:
         self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
     ) -> None:
         """Apply the receipt rules and the duplicate rule to the staged lines."""
-        receipt_rules.check_receipt_lines(con, self.config.sources.receipts, mapped)
+        receipt_rules.check_receipt_lines(con, self.config.sources.receipts, mapped, self.timer)
 
     def remove_previous(self, con: duckdb.DuckDBPyConnection) -> None:
         """Delete the raw lines of the older versions of the batch's changed files."""
@@ -97,6 +100,8 @@ class ReferenceLoader:
 
     source: FileSource
     spec: refs.ReferenceSpec
+    # the seconds of the rules (classify) and of the duplicate rule (dedupe) go here
+    timer: PhaseTimer = field(default_factory=PhaseTimer)
 
     def names(self) -> tuple[str, ...]:
         """Our names of the mapped columns, in mapping order."""
@@ -106,14 +111,18 @@ class ReferenceLoader:
         self, con: duckdb.DuckDBPyConnection, first_path: Path, mapped: dict[str, SourceColumn]
     ) -> None:
         """Type the staged rows, apply the reference rules and the duplicate-key rule."""
-        sniffed = self._sniffed_types(con, first_path, mapped)
-        types = refs.column_types(con, self.spec, mapped, sniffed)
-        sql = refs.check_reference_sql(self.spec, types)
-        con.execute(sql, {"decimal": self._decimal()} if "$decimal" in sql else None)
-        names = list(types)
-        con.execute(refs.duplicates_sql(con, self.spec, names))
-        con.execute(refs.mark_duplicates_sql(self.spec, names))
-        con.execute(refs.ensure_storage_sql(self.spec, types))
+        timer = self.timer
+        with timer.phase("classify"):
+            sniffed = self._sniffed_types(con, first_path, mapped)
+            types = refs.column_types(con, self.spec, mapped, sniffed)
+            sql = refs.check_reference_sql(self.spec, types)
+            con.execute(sql, {"decimal": self._decimal()} if "$decimal" in sql else None)
+        with timer.phase("dedupe"):
+            names = list(types)
+            con.execute(refs.duplicates_sql(con, self.spec, names))
+            con.execute(refs.mark_duplicates_sql(self.spec, names))
+        with timer.phase("insert"):
+            con.execute(refs.ensure_storage_sql(self.spec, types))
 
     def _decimal(self) -> str:
         return "." if self.source.format == "parquet" else self.source.decimal

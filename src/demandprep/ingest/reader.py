@@ -14,7 +14,8 @@ checks `records = accepted + quarantined` against a count the parser did not mak
 goes through `read_parquet`. After `stage_files`, these temporary objects exist until
 `drop_staging`:
 
-- `ingest_fields`: ordinal, position, line_no, text, fields, reason, detail, record per line;
+- `ingest_fields`: ordinal, position, line_no, text, fields, field_count, reason, detail, record
+  per line;
 - `ingest_stage`: ordinal (file position << 40 + line number), `ingest_file_path`, line_no and
   every mapped source column (CSV: a view of the accepted-shape lines);
 - `ingest_rejected`: path, line_no, reason, detail, original_text of each refused line;
@@ -34,7 +35,13 @@ import pyarrow as pa
 
 from demandprep.config import FileSource
 from demandprep.errors import UserError
-from demandprep.ingest.lines import KEPT_BYTES, MAX_LINE_BYTES, LinesUnreadable, line_chunks
+from demandprep.ingest.lines import (
+    KEPT_BYTES,
+    MAX_LINE_BYTES,
+    LinesUnreadable,
+    batch_line_chunks,
+)
+from demandprep.ingest.timings import PhaseTimer
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier, run_sql
 
@@ -58,6 +65,9 @@ TEXT_TYPES = ("VARCHAR",)
 TIMESTAMP_TYPES = ("TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "DATE")
 ZONED_TIMESTAMP_TYPES = ("TIMESTAMP WITH TIME ZONE",)
 COMMON_DELIMITERS = (";", ",", "\t", "|")
+# lines gathered in Python before one insert into DuckDB: one insert per chunk cost ms each,
+# and Python holds at most this much (plus the threads' read-ahead) beside DuckDB's limit
+HANDOFF_BYTES = 32 * 1024 * 1024
 
 CSV_OPTIONS = (
     "delim = $delimiter, header = $header, encoding = $encoding, "
@@ -164,25 +174,35 @@ class Staged:
 
 
 def stage_files(
-    con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource, name: str
+    con: duckdb.DuckDBPyConnection,
+    paths: list[Path],
+    source: FileSource,
+    name: str,
+    timer: PhaseTimer | None = None,
 ) -> Staged:
     """Read the batch's files into `ingest_stage` and `ingest_rejected` (needs the batch table).
 
     CSV: every file's own header is checked against the mapping; files with their columns in
     another order go in the same batch. Parquet: the first file's columns are used for all.
+    `timer` gets the seconds of reading and of splitting the lines into fields (classify).
     """
+    timer = timer or PhaseTimer()
     drop_staging(con)
     if source.format == "parquet":
-        columns = file_columns(con, paths[0], source)
-        mapped = map_columns(paths[0], columns, source.columns, source.header)
-        try:
-            _stage_parquet(con, paths)
-        except duckdb.Error as error:
-            names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
-            raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
+        with timer.phase("read"):
+            columns = file_columns(con, paths[0], source)
+            mapped = map_columns(paths[0], columns, source.columns, source.header)
+            try:
+                _stage_parquet(con, paths)
+            except duckdb.Error as error:
+                names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
+                raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
     else:
-        _stage_lines(con, paths, source)
-        columns, mapped = _stage_csv(con, paths, source, name)
+        with timer.phase("read"):
+            _read_lines(con, paths, source)
+        with timer.phase("classify"):
+            _split_lines(con, source)
+            columns, mapped = _stage_csv(con, paths, source, name)
     rows = con.execute("select path, lines, records from ingest_file_records").fetchall()
     return Staged(
         columns,
@@ -192,24 +212,42 @@ def stage_files(
     )
 
 
-def _stage_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
-    # each file's physical lines, cut apart from any CSV parser (lines.py), then one record
-    # per line: text, fields, and why the reader refuses it (010); then the count per file
+def _read_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
+    # each file's physical lines, cut apart from any CSV parser (lines.py), files read in as
+    # many threads as DuckDB has; DuckDB gets them in pieces of about HANDOFF_BYTES
     con.execute(
         "create temp table ingest_lines "
         "(position integer, line_no bigint, text varchar, raw blob, length bigint)"
     )
-    for position, path in enumerate(paths):
-        if path.stat().st_size == 0:
-            continue  # nothing to open (an empty .gz is not even valid gzip)
-        try:
-            for chunk in line_chunks(path, source.encoding):
-                positions = pa.array(np.full(chunk.num_rows, position, dtype=np.int32))
-                con.register("ingest_line_chunk", chunk.add_column(0, "position", positions))
-                con.execute("insert into ingest_lines select * from ingest_line_chunk")
-                con.unregister("ingest_line_chunk")
-        except LinesUnreadable as error:
-            raise FileUnreadable(f"{path}: cannot be read ({error}).") from None
+    workers = int(con.execute("select current_setting('threads')").fetchall()[0][0])
+    pieces: list[pa.Table] = []
+    size = 0
+    try:
+        for position, chunk in batch_line_chunks(paths, source.encoding, workers):
+            positions = pa.array(np.full(chunk.num_rows, position, dtype=np.int32))
+            pieces.append(chunk.add_column(0, "position", positions))
+            size += pieces[-1].nbytes
+            if size >= HANDOFF_BYTES:
+                _hand_over(con, pieces)
+                pieces, size = [], 0
+    except LinesUnreadable as error:
+        raise FileUnreadable(f"{error.path}: cannot be read ({error}).") from None
+    if pieces:
+        _hand_over(con, pieces)
+
+
+def _hand_over(con: duckdb.DuckDBPyConnection, pieces: list[pa.Table]) -> None:
+    """Append line tables to `ingest_lines` in one insert (one per chunk costs ms each)."""
+    con.register("ingest_line_chunk", pa.concat_tables(pieces))
+    try:
+        con.execute("insert into ingest_lines select * from ingest_line_chunk")
+    finally:
+        con.unregister("ingest_line_chunk")
+
+
+def _split_lines(con: duckdb.DuckDBPyConnection, source: FileSource) -> None:
+    # one record per line: text, fields, and why the reader refuses it (010); then the count
+    # per file
     run_sql(
         con,
         "ingest/010_line_fields.sql",
@@ -261,7 +299,7 @@ def _stage_csv(
         + (f", {fields}" if fields else "")
         + " from ingest_fields f join ingest_file_layouts l using (position) "
         "join ingest_batch_files b using (position) "
-        "where f.record and f.reason is null and len(f.fields) = l.width"
+        "where f.record and f.reason is null and f.field_count = l.width"
     )
     con.execute("create temp view ingest_numbered as select * from ingest_stage")
     mapped_text = {ours: SourceColumn(c.name, "VARCHAR") for ours, c in first_mapped.items()}

@@ -23,6 +23,7 @@ from demandprep.config import (
 from demandprep.errors import UserError
 from demandprep.ingest.reader import SourceColumn, is_typed_timestamp
 from demandprep.ingest.references import table_columns
+from demandprep.ingest.timings import PhaseTimer
 from demandprep.ingest.validation import validate_query
 from demandprep.personal import carries_cards
 from demandprep.schemas.ingest import RawLines
@@ -61,15 +62,25 @@ def prepare_receipts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> N
 
 
 def check_receipt_lines(
-    con: duckdb.DuckDBPyConnection, source: ReceiptSource, mapped: dict[str, SourceColumn]
+    con: duckdb.DuckDBPyConnection,
+    source: ReceiptSource,
+    mapped: dict[str, SourceColumn],
+    timer: PhaseTimer | None = None,
 ) -> None:
     """Type and check the staged lines into `ingest_checked`, then mark the duplicates."""
+    timer = timer or PhaseTimer()
     values_shown = not carries_cards(mapped)
-    run_sql(
-        con,
-        "ingest/020_receipt_lines_checked.sql",
-        {**_rule_parameters(source, mapped), "values_shown": values_shown},
-    )
+    with timer.phase("classify"):
+        run_sql(
+            con,
+            "ingest/020_receipt_lines_checked.sql",
+            {**_rule_parameters(source, mapped), "values_shown": values_shown},
+        )
+    with timer.phase("dedupe"):
+        _mark_duplicates(con, values_shown)
+
+
+def _mark_duplicates(con: duckdb.DuckDBPyConnection, values_shown: bool) -> None:
     first, last = con.execute(
         "select min(sold_at), max(sold_at) from ingest_checked where reason is null"
     ).fetchone()

@@ -56,6 +56,8 @@ class IngestSummary:
 
     files: list[FileResult] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
+    # seconds per phase (ingest/timings.py), summed over the run's batches
+    timings_seconds: dict[str, float] = field(default_factory=dict)
 
     @property
     def ok(self) -> bool:
@@ -101,6 +103,12 @@ class IngestSummary:
         for result in self.files:
             total.update(result.quarantined)
         return dict(sorted(total.items()))
+
+
+def timings_line(summary: IngestSummary) -> str:
+    """`ingest phases (s): discover 0.01, read 1.20, ...` in phase order."""
+    parts = [f"{phase} {seconds:.2f}" for phase, seconds in summary.timings_seconds.items()]
+    return "ingest phases (s): " + ", ".join(parts)
 
 
 def summary_table(summary: IngestSummary) -> Table:

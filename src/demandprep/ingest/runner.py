@@ -33,6 +33,7 @@ Progress: `progress(event, **info)` is called with
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable, Iterator
 from dataclasses import replace
 from pathlib import Path
@@ -71,6 +72,7 @@ from demandprep.ingest.references import (
 )
 from demandprep.ingest.refusal import FilesRefused, Refusal, refusals
 from demandprep.ingest.results import FileResult, IngestSummary, summary_table
+from demandprep.ingest.timings import PhaseTimer, record_timings
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
 
@@ -125,6 +127,7 @@ def discover_files(
             fingerprint=source.settings_fingerprint(),
             held_back=held_back,
             reload=targets.get(name, frozenset()),
+            workers=config.warehouse.threads,
         )
     return mark_source_rebuilds(con, found)
 
@@ -135,11 +138,17 @@ def ingest_all(
     progress: Progress | None = None,
     reload: list[str] | None = None,
 ) -> IngestSummary:
-    """Ingest every new or changed file of every source; returns what happened to each file."""
+    """Ingest every new or changed file of every source; returns what happened to each file.
+
+    The seconds of each phase go to `summary.timings_seconds` and the `ingest_runs` table.
+    """
+    started = time.perf_counter()
     notify = progress or _ignore
+    timer = PhaseTimer()
     ensure_tables(con)
-    warnings = check_sources_have_files(con, config)
-    discovered = discover_files(con, config, reload)
+    with timer.phase("discover"):
+        warnings = check_sources_have_files(con, config)
+        discovered = discover_files(con, config, reload)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
     summary = IngestSummary(warnings=warnings + still_refused(discovered))
@@ -149,7 +158,8 @@ def ingest_all(
     receipts_prepared = False
     for batch in batches(to_read):
         if batch[0].source == "receipts" and not receipts_prepared:
-            prepare_receipts(con, config)  # after the stores are loaded: their timezones
+            with timer.phase("classify"):  # settings the receipt rules read
+                prepare_receipts(con, config)  # after the stores are loaded: their timezones
             receipts_prepared = True
         for item in batch:
             notify(
@@ -159,8 +169,10 @@ def ingest_all(
                 status=item.status,
                 bytes=item.bytes,
             )
-        for result in ingest_batch(con, config, batch, progress=notify):
+        for result in ingest_batch(con, config, batch, progress=notify, timer=timer):
             _report(notify, summary, result)
+    summary.timings_seconds = dict(timer.seconds)
+    record_timings(con, summary.timings_seconds, time.perf_counter() - started)
     notify("done", summary=summary)
     return summary
 
@@ -204,12 +216,13 @@ def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
         yield batch
 
 
-def loader_for(config: ProjectConfig, source_name: str) -> Loader:
-    """The loader of one configured source."""
+def loader_for(config: ProjectConfig, source_name: str, timer: PhaseTimer | None = None) -> Loader:
+    """The loader of one configured source; it times its checks with `timer`."""
     source = getattr(config.sources, source_name)
+    timer = timer or PhaseTimer()
     if source_name == "receipts":
-        return ReceiptLoader(source, config)
-    return ReferenceLoader(source, REFERENCE_SPECS[source_name])
+        return ReceiptLoader(source, config, timer)
+    return ReferenceLoader(source, REFERENCE_SPECS[source_name], timer)
 
 
 def ingest_file(
@@ -229,25 +242,32 @@ def ingest_batch(
     config: ProjectConfig,
     files: list[DiscoveredFile],
     progress: Progress | None = None,
+    timer: PhaseTimer | None = None,
 ) -> list[FileResult]:
-    """Load new or changed files of one source in one transaction (file by file if it fails)."""
+    """Load new or changed files of one source in one transaction (file by file if it fails).
+
+    `timer` adds the seconds of each phase (timings.py) to the run's totals.
+    """
+    timer = timer or PhaseTimer()
     ensure_tables(con)
-    loader = loader_for(config, files[0].source)
+    loader = loader_for(config, files[0].source, timer)
     con.execute("begin transaction")
     try:
         if files[0].source == "receipts":
             _ensure_receipt_settings(con, config)
         _reset_for_new_settings(con, files)
-        results = _load_batch(con, loader, files, progress or _ignore)
+        results = _load_batch(con, loader, files, progress or _ignore, timer)
         con.execute("commit")
     except FilesRefused as refused:
         con.execute("rollback")
         drop_staging(con)
-        return _without_refused(con, config, files, refused.refusals, progress)
+        return _without_refused(con, config, files, refused.refusals, progress, timer)
     except (FileRefused, UserError, duckdb.Error) as error:
         con.execute("rollback")
         if len(files) > 1:
-            return [item for one in files for item in ingest_batch(con, config, [one], progress)]
+            return [
+                item for one in files for item in ingest_batch(con, config, [one], progress, timer)
+            ]
         return [_failed(con, files[0], _quotable(error, loader))]
     except BaseException:
         con.execute("rollback")
@@ -263,10 +283,11 @@ def _without_refused(
     files: list[DiscoveredFile],
     refused: dict[Path, Refusal],
     progress: Progress | None,
+    timer: PhaseTimer,
 ) -> list[FileResult]:
     """Ledger the refused files of a rolled-back batch and load its other files again."""
     rest = [item for item in files if item.path not in refused]
-    again = ingest_batch(con, config, rest, progress) if rest else []
+    again = ingest_batch(con, config, rest, progress, timer) if rest else []
     loaded = {result.path: result for result in again}
     results = []
     for item in files:
@@ -313,37 +334,46 @@ def _load_batch(
     loader: Loader,
     files: list[DiscoveredFile],
     notify: Progress,
+    timer: PhaseTimer,
 ) -> list[FileResult]:
     source, first = loader.source, files[0].path
-    batch = ledger.assign_versions(con, files[0].source, files)
-    ledger.create_batch_table(con, batch)
-    if any(item.previous_file_id for item in files):
-        _remove_previous(con, loader)
+    with timer.phase("insert"):
+        batch = ledger.assign_versions(con, files[0].source, files)
+        ledger.create_batch_table(con, batch)
+        if any(item.previous_file_id for item in files):
+            _remove_previous(con, loader)
     step = {"source": files[0].source, "path": first, "paths": [item.path for item in files]}
-    staged = stage_files(con, [item.path for item in files], source, files[0].source)
+    staged = stage_files(con, [item.path for item in files], source, files[0].source, timer)
     notify("file_step", step="staged", rows=sum(staged.records.values()), **step)
     ids = ledger.id_range(batch)
     with_records = [item.path for item in files if staged.records[str(item.path)]]
     if with_records:
-        create_source_view(con, staged.mapped, loader.names())
+        with timer.phase("classify"):
+            create_source_view(con, staged.mapped, loader.names())
         loader.check(con, with_records[0], staged.mapped)
-        render_quarantined(con, staged.columns, source)
         notify("file_step", step="inserting", **step)
-        loader.insert(con)
-        run_sql(con, "ingest/050_quarantine_insert.sql")
-        loader.count_accepted(con, ids)
-    else:
-        # nothing but empty files: no table is created or typed from them
-        run_sql(con, "ingest/059_no_accepted_counts.sql")
-    counts = ledger.count_batch(con, batch)
-    ledger.check_balance(batch, counts)
-    refused = refusals(con, files[0].source, source, batch, counts)
+        with timer.phase("insert"):
+            render_quarantined(con, staged.columns, source)
+            loader.insert(con)
+            run_sql(con, "ingest/050_quarantine_insert.sql")
+    with timer.phase("ledger"):
+        if with_records:
+            loader.count_accepted(con, ids)
+        else:
+            # nothing but empty files: no table is created or typed from them
+            run_sql(con, "ingest/059_no_accepted_counts.sql")
+        counts = ledger.count_batch(con, batch)
+        ledger.check_balance(batch, counts)
+        refused = refusals(con, files[0].source, source, batch, counts)
     if refused:
         raise FilesRefused(refused)
-    if with_records:
-        loader.validate(con, ids)
-    ledger.record_batch(con, batch, files[0].settings_fingerprint)
-    ledger.validate_batch(con, ids)
+    with timer.phase("validate"):
+        if with_records:
+            loader.validate(con, ids)
+    with timer.phase("ledger"):
+        ledger.record_batch(con, batch, files[0].settings_fingerprint)
+    with timer.phase("validate"):
+        ledger.validate_batch(con, ids)
     return [_loaded(item, counts[item.file_id], staged.lines) for item in batch]
 
 

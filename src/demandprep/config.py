@@ -84,6 +84,11 @@ class ProjectSection(Section):
         "Project name. Free text, shown in reports.", default="demandprep-project"
     )
     description: str = described("Project description. Free text, shown in reports.", default="")
+    currency: str = described(
+        "Currency of prices and amounts. Shown in reports (e.g. EUR); empty says "
+        "'currency units'.",
+        default="",
+    )
 
 
 class WarehouseSection(Section):

@@ -24,7 +24,13 @@ from demandprep.export.dictionary import (
     write_dictionary,
 )
 from demandprep.export.input_warnings import input_warnings
-from demandprep.export.manifest import OutputFile, build_manifest, write_manifest
+from demandprep.export.drift import since_last_build
+from demandprep.export.manifest import (
+    OutputFile,
+    build_manifest,
+    input_records,
+    write_manifest,
+)
 from demandprep.export.parquet import write_query_parquet
 from demandprep.export.quick_logit import LogitEstimate, quick_logit
 from demandprep.export.report import ReportInputs, write_report
@@ -49,8 +55,11 @@ def write_build(
     staging_dir: Path,
     built_at: datetime | None = None,
     models: ModelMap | None = None,
+    previous: Path | None = None,
 ) -> BuildOutputs:
-    """Write the whole build into `staging_dir` (named by the build id); the manifest comes last."""
+    """Write the whole build into `staging_dir` (named by the build id); the manifest comes last.
+
+    `previous` is the published build this one is compared with (drift), None for a first."""
     built = BuildOutputs(staging_dir, staging_dir.name, built_at or datetime.now(UTC))
     for message in input_warnings(ctx.con):
         ctx.warn(message)
@@ -69,6 +78,22 @@ def write_build(
         built.others += write_extra_formats(ctx, built.tables, entries)
     with _timed(ctx, "export.quick_logit"):
         built.estimates = quick_logit_all(ctx)
+    with _timed(ctx, "export.drift"):
+        drift = since_last_build(
+            ctx.con,
+            ctx.config,
+            previous,
+            staging_dir,
+            {
+                "inputs": input_records(ctx.con),
+                "outputs": [
+                    {"path": table.path.relative_to(staging_dir).as_posix(), "rows": table.rows}
+                    for table in built.tables
+                ],
+                "facts": ctx.facts,
+                "quick_logit": [estimate.as_dict() for estimate in built.estimates],
+            },
+        )
     with _timed(ctx, "export.report"):
         report = write_report(
             ctx,
@@ -78,6 +103,7 @@ def write_build(
                 built.built_at.isoformat(timespec="seconds"),
                 _outputs_frame(staging_dir, built.tables),
                 built.estimates,
+                drift,
             ),
         )
     built.others.append(OutputFile(report))
@@ -89,7 +115,10 @@ def write_build(
             built.built_at,
             staging_dir,
             built.tables + built.others,
-            {"quick_logit": [estimate.as_dict() for estimate in built.estimates]},
+            {
+                "quick_logit": [estimate.as_dict() for estimate in built.estimates],
+                "since_last_build": drift,
+            },
         ),
     )
     return built

@@ -60,8 +60,12 @@ def test_rows_per_output_are_the_two_manifests_rows(two_builds) -> None:
     first, second = two_builds
     before = {o["path"]: o["rows"] for o in manifest(first)["outputs"] if "rows" in o}
     after = {o["path"]: o["rows"] for o in manifest(second)["outputs"] if "rows" in o}
-    changed = {p: (before.get(p), after.get(p)) for p in before | after if before.get(p) != after.get(p)}
-    rows = {r["path"]: (r["before"], r["after"]) for r in manifest(second)["since_last_build"]["rows"]}
+    changed = {
+        p: (before.get(p), after.get(p)) for p in before | after if before.get(p) != after.get(p)
+    }
+    rows = {
+        r["path"]: (r["before"], r["after"]) for r in manifest(second)["since_last_build"]["rows"]
+    }
     assert {p: v for p, v in rows.items() if v[0] != v[1]} == changed
     assert rows["ledger.parquet"][1] == rows["ledger.parquet"][0] + 1
     assert set(rows) == set(before) | set(after)
@@ -110,9 +114,11 @@ def test_quarantine_rates_first_stage_and_quick_logit_then_and_now(two_builds) -
     rates = []
     for build in two_builds:
         ledger = pd.read_parquet(build / "ledger.parquet")
-        current = ledger[ledger.status == "current"].groupby("source")[
-            ["rows_read", "rows_quarantined"]
-        ].sum()
+        current = (
+            ledger[ledger.status == "current"]
+            .groupby("source")[["rows_read", "rows_quarantined"]]
+            .sum()
+        )
         rates.append(current.rows_quarantined / current.rows_read)
     shown = {r["source"]: (r["rate_before"], r["rate_after"]) for r in drift["quarantine"]}
     assert shown["receipts"] == pytest.approx((rates[0]["receipts"], rates[1]["receipts"]))
@@ -122,7 +128,9 @@ def test_quarantine_rates_first_stage_and_quick_logit_then_and_now(two_builds) -
         "after": facts[1]["partial_f"],
     }
     logits = [manifest(b)["quick_logit"] for b in two_builds]
-    assert [(e["assumption"], e["method"], e["before"], e["after"]) for e in drift["quick_logit"]] == [
+    assert [
+        (e["assumption"], e["method"], e["before"], e["after"]) for e in drift["quick_logit"]
+    ] == [
         (a["assumption"], a["method"], a["price_coefficient"], b["price_coefficient"])
         for a, b in zip(logits[0], logits[1], strict=True)
     ]

@@ -171,8 +171,15 @@ def test_first_stage_chart_is_on_a_log_scale_with_the_threshold_line(page) -> No
 
 def test_ledger_chart_has_no_legend_inside_and_notes_a_selection(warehouse, monkeypatch) -> None:
     con, config = warehouse
-    full = parsed(rendered(con, config))
-    assert not any(w.startswith("accepted") for w in full.svg_text["ledger per file"])
+    page_text = rendered(con, config)
+    full = parsed(page_text)
+    reasons = [r for (r,) in con.execute("select distinct reason from ledger_reasons").fetchall()]
+    # the reasons are named in a legend above the chart, never inside it over the bars
+    assert reasons and not set(reasons) & set(full.svg_text["ledger per file"])
+    legend_at = page_text.index('<p class="legend">', page_text.index("<h2>Ledger</h2>"))
+    assert all(
+        reason in page_text[legend_at : page_text.index("<svg", legend_at)] for reason in reasons
+    )
     assert "showing the" not in " ".join(full.text)
     monkeypatch.setattr(report_data, "MAX_FILES", 1)
     files = report_data.current_file_count(con)

@@ -85,8 +85,7 @@ class ProjectSection(Section):
     )
     description: str = described("Project description. Free text, shown in reports.", default="")
     currency: str = described(
-        "Currency of prices and amounts. Shown in reports (e.g. EUR); empty says "
-        "'currency units'.",
+        "Currency of prices and amounts. Shown in reports (e.g. EUR); empty says 'currency units'.",
         default="",
     )
 

@@ -23,8 +23,8 @@ from demandprep.export.dictionary import (
     step_notes,
     write_dictionary,
 )
-from demandprep.export.input_warnings import input_warnings
 from demandprep.export.drift import since_last_build
+from demandprep.export.input_warnings import input_warnings
 from demandprep.export.manifest import (
     OutputFile,
     build_manifest,

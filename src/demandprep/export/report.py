@@ -100,8 +100,9 @@ def render_report(ctx: BuildContext, inputs: ReportInputs) -> str:
         ctx.con, "share_table"
     )
     choices_on = ctx.config.choices.enabled and report_data.table_exists(ctx.con, "choices")
+    choices = report_data.choice_summary(ctx.con) if choices_on else None
     sections = [
-        _masthead(ctx, inputs, markets_on, choices_on),
+        _masthead(ctx, inputs, markets_on, choices),
         _warnings_box(ctx),
         _section("Since the last build", _drift_body(inputs.drift), "drift"),
         _cautions(),
@@ -116,8 +117,8 @@ def render_report(ctx: BuildContext, inputs: ReportInputs) -> str:
             _section("Market-size sensitivity", _sensitivity_body(ctx, inputs)),
             _section("Quick logit", _quick_logit_body(inputs)),
         ]
-    if choices_on:
-        sections.append(_section("Choice table", _choices_body(ctx), "choices"))
+    if choices is not None:
+        sections.append(_section("Choice table", _choices_body(ctx, choices), "choices"))
     sections += [
         _section("Ledger", _ledger_body(ctx)),
         _section("Files", _table(inputs.outputs)),
@@ -155,13 +156,15 @@ def price_unit(config: ProjectConfig) -> str:
     return f"{currency_name(config)} per {unit_name(config)}"
 
 
-def _masthead(ctx: BuildContext, inputs: ReportInputs, markets_on: bool, choices_on: bool) -> str:
+def _masthead(
+    ctx: BuildContext, inputs: ReportInputs, markets_on: bool, choices: dict | None
+) -> str:
     project = ctx.config.project
     description = (
         f'<p class="sub">{html.escape(project.description)}</p>' if project.description else ""
     )
     built = _note(f"build {inputs.build_id}, built {inputs.built_at} UTC, demandprep {__version__}")
-    figures = _headline(ctx, inputs, markets_on, choices_on)
+    figures = _headline(ctx, inputs, markets_on, choices)
     return (
         f'<header class="masthead">\n<h1>{html.escape(project.name)}</h1>\n'
         f"{description}{built}</header>\n"
@@ -169,7 +172,9 @@ def _masthead(ctx: BuildContext, inputs: ReportInputs, markets_on: bool, choices
     )
 
 
-def _headline(ctx: BuildContext, inputs: ReportInputs, markets_on: bool, choices_on: bool) -> str:
+def _headline(
+    ctx: BuildContext, inputs: ReportInputs, markets_on: bool, choices: dict | None
+) -> str:
     lines = report_data.lines_accepted(ctx.con)
     figures = [
         (f"{lines['accepted']:,}", f"receipt lines accepted of {lines['read']:,} read"),
@@ -184,11 +189,12 @@ def _headline(ctx: BuildContext, inputs: ReportInputs, markets_on: bool, choices
             (f"{counts['product_market_rows']:,}", "product-market rows per assumption"),
         ]
         for row in report_data.mean_outside_share(ctx.con).itertuples():
-            figures.append((f"{row.mean_outside_share:.3f}", f"mean outside share, {row.assumption}"))
+            figures.append(
+                (f"{row.mean_outside_share:.3f}", f"mean outside share, {row.assumption}")
+            )
         figures += _coefficient_figures(inputs.estimates)
-    if choices_on:
-        summary = report_data.choice_summary(ctx.con)
-        figures.append((f"{summary['occasions']:,}", "choice occasions"))
+    if choices is not None:
+        figures.append((f"{choices['occasions']:,}", "choice occasions"))
     else:
         figures.append(("choices off", "no choice table"))
     figures.append((str(len(ctx.warnings)), "warnings"))
@@ -365,7 +371,7 @@ def _ledger_body(ctx: BuildContext) -> str:
         _table(report_data.ledger_totals(ctx.con))
         + _table(report_data.quarantine_reasons(ctx.con))
         + selection
-        + legend(names, muted_first=True)
+        + legend(names)
         + chart
     )
 
@@ -416,8 +422,7 @@ def _quick_logit_body(inputs: ReportInputs) -> str:
     )
 
 
-def _choices_body(ctx: BuildContext) -> str:
-    summary = report_data.choice_summary(ctx.con)
+def _choices_body(ctx: BuildContext, summary: dict) -> str:
     facts = pd.DataFrame(
         {
             "item": [

@@ -271,21 +271,28 @@ def zero_sales_total(con: duckdb.DuckDBPyConnection) -> int | None:
 
 def choice_summary(con: duckdb.DuckDBPyConnection) -> dict[str, float]:
     """Occasions, choosers, rows, mean alternatives per occasion and the holdout's size."""
-    row = con.execute(
+    # One chosen row per occasion (the choice build's invariant) counts occasions without a
+    # distinct count over the long table.
+    occasions, rows, holdout_occasions = con.execute(
         """
         select
-            count(distinct occasion),
-            count(distinct chooser),
+            count(*) filter (where chosen),
             count(*),
-            count(*) / nullif(count(distinct occasion), 0),
-            count(distinct chooser) filter (where holdout),
-            count(distinct occasion) filter (where holdout),
+            count(*) filter (where chosen and holdout),
         from choices
         """
     ).fetchall()[0]
-    names = ("occasions", "choosers", "rows", "alternatives_per_occasion")
-    names += ("holdout_choosers", "holdout_occasions")
-    return dict(zip(names, row, strict=True))
+    choosers, holdout_choosers = con.execute(
+        "select count(*), count(*) filter (where holdout) from choosers"
+    ).fetchall()[0]
+    return {
+        "occasions": occasions,
+        "choosers": choosers,
+        "rows": rows,
+        "alternatives_per_occasion": rows / occasions if occasions else None,
+        "holdout_choosers": holdout_choosers,
+        "holdout_occasions": holdout_occasions,
+    }
 
 
 def alternatives_per_occasion(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:

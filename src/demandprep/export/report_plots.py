@@ -15,10 +15,20 @@ METHODS = ("ols", "iv")
 
 def share_distribution(histogram: pd.DataFrame) -> str:
     """Inside shares in tenth-of-a-decade bins of log10(share), one line per assumption."""
-    bins = sorted(set(histogram["log10_share"])) if not histogram.empty else []
+    bins = []
+    if not histogram.empty:
+        # every tenth of a decade from the lowest to the highest bin, empty ones included
+        first, last = (
+            round(float(v) * 10)
+            for v in (histogram["log10_share"].min(), histogram["log10_share"].max())
+        )
+        bins = [step / 10 for step in range(first, last + 1)]
     lines = []
     for index, (assumption, rows) in enumerate(histogram.groupby("assumption", sort=True)):
-        counts = dict(zip(rows["log10_share"], rows["products"], strict=True))
+        counts = {
+            round(float(b) * 10) / 10: n
+            for b, n in zip(rows["log10_share"], rows["products"], strict=True)
+        }
         lines.append(Line(str(assumption), [float(counts.get(b, 0)) for b in bins], index))
     labels = [f"{b:.1f}" for b in bins]
     return svg.line_chart(labels, lines, "share distribution", "product-market rows") + _axis_note(
@@ -56,25 +66,27 @@ def price_dispersion(quantiles: pd.DataFrame, unit: str) -> str:
 
 
 def ledger_outcomes(by_file: pd.DataFrame) -> tuple[list[str], str]:
-    """Per input file: accepted rows, then quarantined rows stacked by reason.
+    """Per input file: quarantined rows stacked by reason, with the file's accepted rows named.
 
-    Returns the legend's names (accepted first) and the chart."""
+    Quarantined rows get the scale to themselves (beside accepted rows they would not show).
+    Returns the legend's names (the reasons) and the chart."""
     files = list(dict.fromkeys(by_file["path"]))
     reasons = sorted(set(by_file.loc[by_file["outcome"] != "accepted", "outcome"]))
-    series = ["accepted", *reasons]
     bars = []
     for path in files:
         rows = by_file[by_file["path"] == path]
         counts = dict(zip(rows["outcome"], rows["rows"], strict=True))
         segments = tuple(
-            Segment(float(counts.get(name, 0)), index)
-            for index, name in enumerate(series)
+            Segment(float(counts[name]), index)
+            for index, name in enumerate(reasons)
             if counts.get(name, 0)
         )
         quarantined = int(sum(counts.get(name, 0) for name in reasons))
-        bars.append(Bar(path.rsplit("/", 1)[-1], segments, note=f"{quarantined:,} quarantined"))
-    chart = svg.hbar_chart(bars, "ledger per file", "rows", muted_first=True)
-    return series, chart
+        accepted = int(counts.get("accepted", 0))
+        note = f"{quarantined:,} of {quarantined + accepted:,} rows"
+        bars.append(Bar(path.rsplit("/", 1)[-1], segments, note=note))
+    chart = svg.hbar_chart(bars, "ledger per file", "quarantined rows")
+    return reasons, chart
 
 
 def zero_shares(counts: pd.DataFrame) -> tuple[list[str], str]:
@@ -102,7 +114,9 @@ def first_stage_strength(
     for estimate in estimates:
         if estimate.method == "iv":
             rows.append((f"quick IV {estimate.assumption}", estimate.first_stage_f, 0))
-            rows.append((f"quick IV {estimate.assumption}, robust", estimate.first_stage_f_robust, 1))
+            rows.append(
+                (f"quick IV {estimate.assumption}, robust", estimate.first_stage_f_robust, 1)
+            )
     for label, value, series in rows:
         if value is not None and value > 0:
             bars.append(Bar(label, (Segment(float(value), series),), note=f"F = {value:,.1f}"))

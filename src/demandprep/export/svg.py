@@ -13,7 +13,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 PALETTE = ("#1f5f5b", "#c8862a", "#7a3b69", "#3d5a80", "#8a9a3b", "#b5523b", "#5c6b73")
-MUTED = "#b9c2c0"
 INK = "#1d2a2a"
 GRID = "#e3e6e4"
 ALERT = "#b5523b"
@@ -113,7 +112,8 @@ class Canvas:
     def svg(self, label: str) -> str:
         title = html.escape(label)
         return (
-            f'<svg class="chart" role="img" aria-label="{title}" xmlns="http://www.w3.org/2000/svg" '
+            f'<svg class="chart" role="img" aria-label="{title}" '
+            'xmlns="http://www.w3.org/2000/svg" '
             f'viewBox="0 0 {_n(self.width)} {_n(self.height)}" '
             f'width="{_n(self.width)}" height="{_n(self.height)}">'
             f"<title>{title}</title>" + "".join(self.parts) + "</svg>"
@@ -146,11 +146,11 @@ class Scale:
         return nice_ticks(self.low, self.high)
 
 
-def legend(names: Sequence[str], muted_first: bool = False) -> str:
+def legend(names: Sequence[str]) -> str:
     """An HTML legend placed above a chart (never over its bars)."""
     items = []
     for index, name in enumerate(names):
-        fill = MUTED if muted_first and index == 0 else colour(index - int(muted_first))
+        fill = colour(index)
         items.append(
             f'<span class="key"><span class="swatch" style="background:{fill}"></span>'
             f"{html.escape(name)}</span>"
@@ -164,16 +164,19 @@ def hbar_chart(
     axis_label: str,
     log: bool = False,
     reference: tuple[float, str] | None = None,
-    muted_first: bool = False,
 ) -> str:
     """Horizontal (stacked) bars, one row per label; an optional dashed reference line."""
     totals = [sum(s.value for s in bar.segments) for bar in bars]
     values = [v for v in totals if v > 0] + ([reference[0]] if reference else [])
-    canvas = Canvas(height=40 + ROW_HEIGHT * max(len(bars), 1) + 30, left=_label_room(bars))
+    canvas = Canvas(
+        height=40 + ROW_HEIGHT * max(len(bars), 1) + 30, left=_label_room(bars), right=120
+    )
     if not values:
         return _empty(canvas, label)
-    low = 10.0 ** math.floor(math.log10(min(values))) if log else 0.0
-    high = max(values) * (1.0 if log else 1.05)
+    # Why half a decade: the lowest value (the reference line, say F = 10) never sits on the
+    # axis's left edge, where it would be hard to see.
+    low = 10.0 ** math.floor(math.log10(min(values)) - 0.5) if log else 0.0
+    high = 10.0 ** math.ceil(math.log10(max(values))) if log else max(values) * 1.05
     scale = _scale(low, high, canvas, log)
     _x_axis(canvas, scale, axis_label, log)
     for row, (bar, total) in enumerate(zip(bars, totals, strict=True)):
@@ -181,15 +184,14 @@ def hbar_chart(
         canvas.text(canvas.left - 6, y + 15, _short(bar.label, canvas.left), "end", "label")
         start = low if log else 0.0
         for segment in bar.segments:
-            fill = MUTED if muted_first and segment.series == 0 else colour(
-                segment.series - int(muted_first)
-            )
             x0, x1 = scale(start), scale(start + segment.value)
-            canvas.rect(x0, y + 4, x1 - x0, ROW_HEIGHT - 8, fill)
+            canvas.rect(x0, y + 4, x1 - x0, ROW_HEIGHT - 8, colour(segment.series))
             start += segment.value
         if bar.note or total:
             text = bar.note or _number(total)
-            canvas.text(min(scale(max(total, low)) + 4, canvas.width - 4), y + 15, text, cls="value")
+            canvas.text(
+                min(scale(max(total, low)) + 4, canvas.width - 4), y + 15, text, cls="value"
+            )
     if reference:
         x = scale(reference[0])
         canvas.line(x, canvas.top - 4, x, canvas.top + canvas.plot_height, ALERT, dash=True)
@@ -201,11 +203,12 @@ def column_chart(
     categories: Sequence[str], series: Sequence[Sequence[float]], label: str, axis_label: str
 ) -> str:
     """Vertical grouped columns: one group per category, one column per series."""
-    canvas = Canvas(height=260, bottom=54)
+    canvas = Canvas(height=260, bottom=54, right=44)
     values = [v for values in series for v in values]
     if not categories or not values:
         return _empty(canvas, label)
-    scale = Scale(0.0, max(max(values), 1e-12) * 1.05, canvas.top + canvas.plot_height, canvas.top)
+    top = max(values) * 1.05 if max(values) > 0 else 1.0
+    scale = Scale(0.0, top, canvas.top + canvas.plot_height, canvas.top)
     _y_axis(canvas, scale, axis_label)
     group = canvas.plot_width / len(categories)
     width = group * 0.8 / max(len(series), 1)
@@ -228,7 +231,7 @@ def line_chart(
     bounds: tuple[float, float] | None = None,
 ) -> str:
     """Lines over ordered categories (e.g. periods), with optional shaded bands."""
-    canvas = Canvas(height=280, bottom=54)
+    canvas = Canvas(height=280, bottom=54, right=44)
     values = [v for line in lines for v in line.values if v is not None]
     for line in lines:
         if line.band:
@@ -268,7 +271,9 @@ def line_chart(
 
 def range_chart(spans: Sequence[Span], label: str, axis_label: str, zero_line: bool = False) -> str:
     """One row per span: a whisker from low to high, a box when given, a mark at the middle."""
-    canvas = Canvas(height=40 + ROW_HEIGHT * max(len(spans), 1) + 30, left=_label_room(spans))
+    canvas = Canvas(
+        height=40 + ROW_HEIGHT * max(len(spans), 1) + 30, left=_label_room(spans), right=44
+    )
     values = [v for s in spans for v in (s.low, s.middle, s.high) if math.isfinite(v)]
     if not values:
         return _empty(canvas, label)
@@ -284,7 +289,9 @@ def range_chart(spans: Sequence[Span], label: str, axis_label: str, zero_line: b
         canvas.text(canvas.left - 6, y + 4, _short(span.label, canvas.left), "end", "label")
         canvas.line(scale(span.low), y, scale(span.high), y, tone)
         if span.box:
-            canvas.rect(scale(span.box[0]), y - 6, scale(span.box[1]) - scale(span.box[0]), 12, tone)
+            canvas.rect(
+                scale(span.box[0]), y - 6, scale(span.box[1]) - scale(span.box[0]), 12, tone
+            )
             canvas.line(scale(span.middle), y - 7, scale(span.middle), y + 7, "#ffffff")
         else:
             canvas.add(f'<circle cx="{_n(scale(span.middle))}" cy="{_n(y)}" r="4" fill="{tone}"/>')
@@ -314,7 +321,9 @@ def _x_axis(canvas: Canvas, scale: Scale, axis_label: str, log: bool) -> None:
         canvas.text(x, bottom + 14, _number(tick), "middle", "tick")
     canvas.line(canvas.left, bottom, canvas.left + canvas.plot_width, bottom, INK)
     suffix = " (log scale)" if log else ""
-    canvas.text(canvas.left + canvas.plot_width / 2, canvas.height - 4, axis_label + suffix, "middle")
+    canvas.text(
+        canvas.left + canvas.plot_width / 2, canvas.height - 4, axis_label + suffix, "middle"
+    )
 
 
 def _y_axis(canvas: Canvas, scale: Scale, axis_label: str) -> None:

@@ -110,16 +110,16 @@ class Page:
 
     def content_screenshot(self, path: Path) -> tuple[int, int]:
         """Save a PNG of everything laid out (not only the window); returns its pixel size."""
-        from PIL import Image
-
         size = self.call("Page.getLayoutMetrics")["cssContentSize"]
         clip = {"x": 0, "y": 0, "width": size["width"], "height": size["height"], "scale": 1}
         shot = self.call(
             "Page.captureScreenshot", format="png", captureBeyondViewport=True, clip=clip
         )
-        path.write_bytes(base64.b64decode(shot["data"]))
-        with Image.open(path) as image:
-            return image.size
+        data = base64.b64decode(shot["data"])
+        path.write_bytes(data)
+        # PNG specification: the IHDR chunk after the 8-byte signature holds width and height
+        assert data[:8] == b"\x89PNG\r\n\x1a\n" and data[12:16] == b"IHDR"
+        return int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
 
     def close(self) -> None:
         self._socket.close()

@@ -33,7 +33,8 @@ from demandprep.export.manifest import (
 )
 from demandprep.export.parquet import write_query_parquet
 from demandprep.export.quick_logit import LogitEstimate, quick_logit
-from demandprep.export.report import ReportInputs, write_report
+from demandprep.export.report import ReportInputs, market_build_enabled, write_report
+from demandprep.export.report_data import table_exists
 from demandprep.export.tables import OutputTable, output_query, plan_outputs
 
 
@@ -175,7 +176,11 @@ def write_extra_formats(
 
 
 def quick_logit_all(ctx: BuildContext) -> list[LogitEstimate]:
-    """Quick logit estimates for every assumption; a positive price coefficient is a warning."""
+    """Quick logit estimates for every assumption; a positive price coefficient is a warning.
+
+    A build without market tables (market build off) has none."""
+    if not market_build_enabled(ctx.config) or not table_exists(ctx.con, "share_table"):
+        return []
     estimates = [
         e for name in ctx.config.market_size for e in quick_logit(ctx.con, ctx.config, name)
     ]

@@ -49,9 +49,10 @@ select
     )) as gone,
 """
 
-# $column is 'share' or 'price' (bound, chosen from a fixed list); rows only in one build are
-# markets or products added or gone and are counted there, not here.
-CHANGES_SQL = """
+# One pass over both share files: every (market, product) with its share and price then and now.
+PAIRS_SQL = """
+create or replace temp table drift_pairs as
+
 with
 
 before as (
@@ -62,14 +63,57 @@ after as (
     select market, product, share, price from read_parquet($after)
 ),
 
+final as (
+    select
+        market,
+        product,
+        before.share as share_before,
+        after.share as share_after,
+        before.price as price_before,
+        after.price as price_after,
+        before.market is not null as in_before,
+        after.market is not null as in_after,
+    from before
+    full outer join after using (market, product)
+)
+
+select * from final
+"""
+
+PRODUCT_KEYS_SQL = """
+with
+
+products as (
+    select product, bool_or(in_before) as in_before, bool_or(in_after) as in_after
+    from drift_pairs
+    group by product
+)
+
+select
+    count(*) filter (where in_before) as before,
+    count(*) filter (where in_after) as after,
+    count(*) filter (where in_after and not in_before) as added_count,
+    count(*) filter (where in_before and not in_after) as gone_count,
+    coalesce(list(product order by product) filter (where in_after and not in_before), [])
+        as added,
+    coalesce(list(product order by product) filter (where in_before and not in_after), [])
+        as gone,
+from products
+"""
+
+# $column is 'share' or 'price' (bound, from a fixed list); rows in one build only are markets or
+# products added or gone, counted there, not here.
+CHANGES_SQL = """
+with
+
 matched as (
     select
         market,
         product,
-        case when $column = 'share' then before.share else before.price end as value_before,
-        case when $column = 'share' then after.share else after.price end as value_after,
-    from before
-    inner join after using (market, product)
+        case when $column = 'share' then share_before else price_before end as value_before,
+        case when $column = 'share' then share_after else price_after end as value_after,
+    from drift_pairs
+    where in_before and in_after
 ),
 
 final as (
@@ -80,9 +124,7 @@ final as (
         value_after as after,
         value_after - value_before as change,
     from matched
-    where value_after is distinct from value_before
-        and value_after is not null
-        and value_before is not null
+    where value_after <> value_before
 )
 
 select market, product, before, after, change
@@ -187,13 +229,18 @@ def _market_drift(
     markets = [b / f"markets_{assumption}.parquet" for b in (previous, folder)]
     if not all(path.is_file() for path in (*shares, *markets)):
         return {}
-    return {
-        "assumption": assumption,
-        "markets": _keys(con, *markets, "market"),
-        "products": _keys(con, *shares, "product"),
-        "largest_share_changes": _changes(con, *shares, "share"),
-        "largest_price_changes": _changes(con, *shares, "price"),
-    }
+    con.execute(PAIRS_SQL, {"before": str(shares[0]), "after": str(shares[1])})
+    try:
+        [products] = con.execute(PRODUCT_KEYS_SQL).fetchall()
+        return {
+            "assumption": assumption,
+            "markets": _keys(con, *markets, "market"),
+            "products": _listed(products),
+            "largest_share_changes": _changes(con, "share"),
+            "largest_price_changes": _changes(con, "price"),
+        }
+    finally:
+        con.execute("drop table if exists drift_pairs")
 
 
 def _market_build(config: ProjectConfig) -> bool:
@@ -202,14 +249,19 @@ def _market_build(config: ProjectConfig) -> bool:
 
 def _keys(con: duckdb.DuckDBPyConnection, before: Path, after: Path, column: str) -> dict:
     params = {"before": str(before), "after": str(after), "column": column, "listed": LISTED_KEYS}
-    row = con.execute(KEYS_SQL, params).fetchall()[0]
+    [row] = con.execute(KEYS_SQL, params).fetchall()
+    return _listed(row)
+
+
+def _listed(row: tuple) -> dict[str, Any]:
     names = ("before", "after", "added_count", "gone_count", "added", "gone")
-    return dict(zip(names, row, strict=True))
+    found = dict(zip(names, row, strict=True))
+    found["added"], found["gone"] = found["added"][:LISTED_KEYS], found["gone"][:LISTED_KEYS]
+    return found
 
 
-def _changes(con: duckdb.DuckDBPyConnection, before: Path, after: Path, column: str) -> list:
-    params = {"before": str(before), "after": str(after), "column": column, "top": TOP_CHANGES}
-    rows = con.execute(CHANGES_SQL, params).fetchall()
+def _changes(con: duckdb.DuckDBPyConnection, column: str) -> list:
+    rows = con.execute(CHANGES_SQL, {"column": column, "top": TOP_CHANGES}).fetchall()
     names = ("market", "product", "before", "after", "change")
     return [dict(zip(names, row, strict=True)) for row in rows]
 

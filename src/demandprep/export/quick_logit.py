@@ -25,7 +25,7 @@ from demandprep.instruments.fixed_effects import (
     fixed_effect_codes,
     row_columns,
 )
-from demandprep.instruments.regression import demean_within, partial_f_test
+from demandprep.instruments.regression import demean_within, dummy_columns, partial_f_test
 from demandprep.sqlfiles import quote_identifier
 
 SHARE_TABLE = "share_table"
@@ -219,8 +219,9 @@ def _estimate(data: LogitData, assumption: str, method: str) -> LogitEstimate:
 def effects_design(data: LogitData) -> Design:
     """Absorb the effect with most levels, add the others as dummies, drop collinear columns."""
     codes = sorted(data.effect_codes, key=lambda c: len(np.unique(c)), reverse=True)
-    rows = data.outcome.size
-    extra = np.column_stack([_dummies(c) for c in codes[1:]]) if codes[1:] else np.empty((rows, 0))
+    extra = np.column_stack(
+        [np.empty((data.outcome.size, 0)), *(dummy_columns(c) for c in codes[1:])]
+    )
     arrays = (data.outcome, data.price, data.exog, extra, data.instruments)
     absorbed = 0
     if codes:
@@ -237,13 +238,6 @@ def effects_design(data: LogitData) -> Design:
     names = ["price"] + [data.exog_names[0 if i == 0 else i - width] for i in named]
     regressors = np.column_stack([price, candidates[:, named], candidates[:, effect_columns]])
     return Design(outcome, regressors, instruments, names, absorbed)
-
-
-def _dummies(codes: np.ndarray) -> np.ndarray:
-    levels, index = np.unique(codes, return_inverse=True)
-    out = np.zeros((len(codes), len(levels)))
-    out[np.arange(len(codes)), index] = 1.0
-    return out
 
 
 def _std_errors(

@@ -58,7 +58,7 @@ def partial_f_test(
     codes = sorted(fixed_effects or [], key=lambda c: len(np.unique(c)), reverse=True)
     absorbed_levels = 0
     if codes:
-        x = np.column_stack([x, *[_dummies(c) for c in codes[1:]]])
+        x = np.column_stack([x, *[dummy_columns(c) for c in codes[1:]]])
         y, z, x = (demean_within(a, codes[0]) for a in (y, z, x))
         absorbed_levels = len(np.unique(codes[0]))
     rss_r, rank_r, _ = _least_squares(x, y)
@@ -104,7 +104,8 @@ def _least_squares(design: np.ndarray, y: np.ndarray) -> tuple[float, int, np.nd
     return float(residual @ residual), int(rank), scaled / scale
 
 
-def _dummies(codes: np.ndarray) -> np.ndarray:
+def dummy_columns(codes: np.ndarray) -> np.ndarray:
+    """One 0/1 column per level of an integer-coded effect."""
     levels, index = np.unique(codes, return_inverse=True)
     out = np.zeros((len(codes), len(levels)))
     out[np.arange(len(codes)), index] = 1.0

@@ -54,6 +54,8 @@ def test_drift_names_the_one_input_file_that_changed(two_builds) -> None:
     [added] = drift["inputs"]["added"]
     assert added.endswith(HELD_BACK)
     assert drift["inputs"]["gone"] == [] and drift["inputs"]["changed"] == []
+    assert drift["config_changed"] is False
+    assert drift["summary"].startswith("1 input files added, 0 gone, 0 changed; rows changed in ")
 
 
 def test_rows_per_output_are_the_two_manifests_rows(two_builds) -> None:
@@ -137,3 +139,19 @@ def test_quarantine_rates_first_stage_and_quick_logit_then_and_now(two_builds) -
     report = (second / "report.html").read_text(encoding="utf-8")
     assert "Since the last build" in report and first.name in report
     assert HELD_BACK.rsplit("/", 1)[-1] in report
+
+
+def test_a_changed_config_is_named(tmp_path: Path) -> None:
+    import duckdb
+    from export_fixtures import export_config
+
+    from demandprep.export.drift import since_last_build
+
+    previous, folder = tmp_path / "previous", tmp_path / "now"
+    previous.mkdir()
+    folder.mkdir()
+    (previous / "manifest.json").write_text(json.dumps({"config_hash": "older", "inputs": []}))
+    current = {"inputs": [], "outputs": [], "facts": {}, "quick_logit": []}
+    drift = since_last_build(duckdb.connect(), export_config(tmp_path), previous, folder, current)
+    assert drift["config_changed"] is True
+    assert drift["summary"].startswith("config changed; 0 input files added")

@@ -160,6 +160,7 @@ def since_last_build(
     drift: dict[str, Any] = {
         "previous_build": previous.name,
         "previous_built_at": manifest.get("built_at"),
+        "config_changed": manifest.get("config_hash") != config.config_hash(),
         "inputs": _inputs(manifest.get("inputs", []), current["inputs"]),
         "rows": _rows(manifest.get("outputs", []), current["outputs"]),
     }
@@ -176,7 +177,8 @@ def summary_line(drift: dict[str, Any]) -> str:
     if drift.get("previous_build") is None:
         return NO_PREVIOUS["summary"]
     inputs = drift["inputs"]
-    parts = [
+    parts = ["config changed"] if drift.get("config_changed") else []
+    parts += [
         f"{len(inputs['added'])} input files added, {len(inputs['gone'])} gone, "
         f"{len(inputs['changed'])} changed",
         f"rows changed in {sum(r['before'] != r['after'] for r in drift['rows'])} outputs",

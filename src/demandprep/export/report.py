@@ -198,13 +198,22 @@ def _headline(
     else:
         figures.append(("choices off", "no choice table"))
     figures.append((str(len(ctx.warnings)), "warnings"))
-    drift = inputs.drift.get("summary", "no previous build")
-    figures.append((drift.split(";")[0], "since the last build"))
+    figures.append(_drift_figure(inputs.drift))
     return "".join(
         f'<div class="figure"><span class="value">{html.escape(value)}</span>'
         f'<span class="what">{html.escape(what)}</span></div>'
         for value, what in figures
     )
+
+
+def _drift_figure(drift: dict[str, Any]) -> tuple[str, str]:
+    """How much moved since the last build, in a few words (the section below has it all)."""
+    if not drift or drift.get("previous_build") is None:
+        return ("first build", "no previous build to compare with")
+    changed = sum(r["before"] != r["after"] for r in drift["rows"])
+    inputs = sum(len(drift["inputs"][kind]) for kind in ("added", "gone", "changed"))
+    config = ", config changed" if drift.get("config_changed") else ""
+    return (f"{changed} outputs changed", f"since the last build: {inputs} input files{config}")
 
 
 def _coefficient_figures(estimates: Sequence[LogitEstimate]) -> list[tuple[str, str]]:
@@ -230,7 +239,9 @@ def _drift_body(drift: dict[str, Any]) -> str:
     parts = [
         _note(f"compared with build {drift['previous_build']}: {drift.get('summary', '')}"),
         _inputs_table(drift["inputs"]),
-        _table(_changed_rows(drift["rows"])),
+        _table(_changed_rows(drift["rows"]))
+        if _changed_rows(drift["rows"]).size
+        else _note("rows per output: unchanged."),
     ]
     if "markets" in drift:
         parts.append(_keys_table(drift))

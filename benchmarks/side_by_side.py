@@ -677,13 +677,27 @@ def one_round(
 
 
 def ingest_only(args: argparse.Namespace, world: Path, folder: Path) -> dict:
-    """`demandprep ingest` alone on an empty warehouse (its own process)."""
+    """`demandprep ingest` alone on an empty warehouse (its own process), with its phases."""
     run_dir = fresh_folder(folder / "ingest_only")
     config = demandprep_config(world, run_dir, args.memory_limit, args.threads)
     print("running demandprep ingest (empty warehouse) ...", flush=True)
     result = run_demandprep("ingest", config, folder / "demandprep_ingest.log")
     result["lines"] = ledger_numbers(run_dir)["accepted"]
+    result["phases"] = ingest_phases(run_dir)
     return result
+
+
+def ingest_phases(run_dir: Path) -> dict[str, float]:
+    """Seconds per ingest phase of the warehouse's latest ingest (its `ingest_runs` rows)."""
+    import duckdb
+
+    con = duckdb.connect(str(run_dir / "warehouse" / "demandprep.duckdb"), read_only=True)
+    rows = con.execute(
+        "select phase, seconds from ingest_runs "
+        "where run_at = (select max(run_at) from ingest_runs) order by phase"
+    ).fetchall()
+    con.close()
+    return dict(rows)
 
 
 def fresh_folder(path: Path) -> Path:
@@ -699,7 +713,7 @@ def median_results(rounds: list[dict[str, dict]]) -> dict[str, dict]:
         merged[name] = dict(last)
         if "skipped" in last:
             continue
-        for measure_name in ("wall", "cpu", "peak_mib"):
+        for measure_name in ("wall", "cpu", "peak_mib"):  # phases stay the last round's
             merged[name][measure_name] = statistics.median(r[name][measure_name] for r in rounds)
     return merged
 
@@ -759,8 +773,21 @@ def render_size(info: dict, results: dict, ledger: dict, timings: dict) -> str:
         f"timings add up to {sum(timings.values()):.1f} s of the run's "
         f"{results['demandprep_run']['wall']:.1f} s (median wall).",
         "",
+        *ingest_phase_lines(results["demandprep_ingest"]),
     ]
     return "\n".join(lines)
+
+
+def ingest_phase_lines(ingest: dict) -> list[str]:
+    """The ingest's five largest phases (warehouse table `ingest_runs`, last round)."""
+    phases = ingest.get("phases", {})
+    return [
+        "Five largest phases of `demandprep ingest` (its `ingest_runs` rows, last round): "
+        + "; ".join(top_costs(phases))
+        + f". They add up to {sum(phases.values()):.1f} s of its {ingest['wall']:.1f} s "
+        "(median wall); the rest is process start-up (imports) and closing the warehouse.",
+        "",
+    ]
 
 
 WHAT_THEY_DO = """### How to read the checksums

@@ -81,3 +81,4 @@ def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
     for label in side_by_side.CONTENDERS.values():
         assert f"| {label} | " in done.stdout
     assert re.search(r"\| [\d,]+ lines: full run / bare query, wall \| [\d.]+ \|", done.stdout)
+    assert re.search(r"Five largest phases of `demandprep ingest` .*: \w+: [\d.]+ s", done.stdout)

@@ -186,9 +186,11 @@ def test_report_opens_with_a_warnings_box_above_the_plots(problem_build):
     page = Page()
     page.feed((problem_build / "report.html").read_text(encoding="utf-8"))
     positions = [n for n, (tag, attrs) in enumerate(page.tags) if attrs.get("id") == "warnings"]
-    first_plot = min(n for n, (tag, _) in enumerate(page.tags) if tag == "img")
-    first_section = min(n for n, (tag, _) in enumerate(page.tags) if tag == "section")
-    assert len(positions) == 1 and positions[0] <= first_section < first_plot
+    first_plot = min(n for n, (tag, _) in enumerate(page.tags) if tag == "svg")
+    sections = [attrs.get("id") for tag, attrs in page.tags if tag == "section"]
+    # the first screen: headline numbers, then the warnings, before any chart
+    assert len(positions) == 1 and positions[0] < first_plot
+    assert sections[:2] == ["headline", "warnings"]
     text = " ".join(page.box_text)
     warnings = json.loads((problem_build / "manifest.json").read_text())["warnings"]
     assert len(warnings) >= 8

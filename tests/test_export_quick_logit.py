@@ -112,3 +112,12 @@ def test_too_few_rows_give_no_estimate(tmp_path: Path) -> None:
     fill_warehouse(con, occasions=5)
     con.execute("delete from share_table where market <> 'S01/2024-03-04'")
     assert quick_logit(con, export_config(tmp_path), "visits") == []
+
+
+def test_a_build_without_market_tables_has_no_quick_logit(tmp_path: Path) -> None:
+    from demandprep.context import BuildContext
+    from demandprep.export.build import quick_logit_all
+
+    con = duckdb.connect()
+    ctx = BuildContext(con=con, config=export_config(tmp_path))
+    assert quick_logit_all(ctx) == [] and ctx.warnings == []

@@ -105,3 +105,21 @@ def test_reported_first_stage_f_equals_linearmodels(built_world):
     reference = fit(rows, instrumented=True, debiased=True).first_stage.diagnostics
     assert facts["partial_f"] == pytest.approx(reference.loc["price", "f.stat"], abs=1e-6)
     assert facts["weak"] is False
+
+
+def test_quick_logit_with_product_effects_recovers_alpha(built_world):
+    from demandprep.export.quick_logit import quick_logit
+
+    ctx, _, alpha = built_world
+    config = ctx.config.model_copy(
+        update={
+            "instruments": ctx.config.instruments.model_copy(
+                update={"first_stage_fixed_effects": ["product"]}
+            )
+        }
+    )
+    ols, iv = quick_logit(ctx.con, config, "visits")
+    assert iv.fixed_effects == ["product"] and iv.instruments == ["iv_hausman_price"]
+    # Berry (1994): price coefficient = -alpha; Hausman (1996) instrument. The world's truth.
+    assert abs(-iv.price_coefficient - alpha) < 3 * iv.price_std_error
+    assert iv.first_stage_f is not None and iv.first_stage_f_robust is not None

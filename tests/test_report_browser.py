@@ -1,9 +1,11 @@
-"""report.html in a real browser: headless Chromium opens it from disk and renders every plot.
+"""report.html in a real browser: headless Chromium opens it from disk and renders every chart.
 
 Chromium is driven over its DevTools protocol (a websocket on the loopback interface): the test
 collects console messages, uncaught exceptions and browser log errors while the page loads,
-reads every image's natural size and keeps a full-page screenshot in test-artifacts/.
-Install on Debian: apt-get update && apt-get install -y chromium
+reads every chart's drawn size and keeps full-page screenshots in test-artifacts/ at 800 and
+1400 px wide. The screenshot covers the page's whole laid-out content, so a page wider than the
+window gives a wider picture: that is the horizontal-overflow check (a control page shows it
+can fail). Install on Debian: apt-get update && apt-get install -y chromium
 """
 
 from __future__ import annotations
@@ -32,10 +34,17 @@ FLAGS = (
     "--disable-component-update",
     "--disable-sync",
     "--no-first-run",
+    "--hide-scrollbars",  # so a screenshot is exactly the laid-out content, no scrollbar strip
     "--remote-debugging-port=0",
     "--window-size=1200,900",
 )
 GUARD_SECONDS = 60  # a hang guard for the browser, not a timing assertion
+CHART_SIZES = (
+    "Array.from(document.querySelectorAll('svg.chart')).map(s => {"
+    "const box = s.getBoundingClientRect();"
+    "return {label: s.getAttribute('aria-label'), width: box.width, height: box.height,"
+    " right: box.right}; })"
+)
 IMAGE_SIZES = (
     "Array.from(document.images).map(i => ({alt: i.alt, complete: i.complete, "
     "width: i.naturalWidth, height: i.naturalHeight}))"
@@ -89,6 +98,29 @@ class Page:
         shot = self.call("Page.captureScreenshot", format="png", captureBeyondViewport=True)
         path.write_bytes(base64.b64decode(shot["data"]))
 
+    def set_width(self, width: int, height: int = 900) -> None:
+        """Make the window `width` CSS pixels wide (device scale 1, desktop)."""
+        self.call(
+            "Emulation.setDeviceMetricsOverride",
+            width=width,
+            height=height,
+            deviceScaleFactor=1,
+            mobile=False,
+        )
+
+    def content_screenshot(self, path: Path) -> tuple[int, int]:
+        """Save a PNG of everything laid out (not only the window); returns its pixel size."""
+        size = self.call("Page.getLayoutMetrics")["cssContentSize"]
+        clip = {"x": 0, "y": 0, "width": size["width"], "height": size["height"], "scale": 1}
+        shot = self.call(
+            "Page.captureScreenshot", format="png", captureBeyondViewport=True, clip=clip
+        )
+        data = base64.b64decode(shot["data"])
+        path.write_bytes(data)
+        # PNG specification: the IHDR chunk after the 8-byte signature holds width and height
+        assert data[:8] == b"\x89PNG\r\n\x1a\n" and data[12:16] == b"IHDR"
+        return int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
+
     def close(self) -> None:
         self._socket.close()
 
@@ -127,20 +159,56 @@ def browser(tmp_path: Path) -> Iterator[Page]:
 
 
 @needs_chromium
-def test_report_renders_in_chromium_with_every_plot_drawn(
+def test_report_renders_in_chromium_with_every_chart_drawn(
     browser: Page, shared_export_build: Path
 ) -> None:
     report = shared_export_build / "report.html"
     browser.open(report.as_uri())
-    images = browser.evaluate(IMAGE_SIZES)
+    charts = browser.evaluate(CHART_SIZES)
     ARTIFACTS.mkdir(exist_ok=True)
     browser.screenshot(ARTIFACTS / "report.png")
     assert browser.problems == []
-    assert len(images) == 8
-    for image in images:
-        assert image["complete"] and image["width"] > 0 and image["height"] > 0, image
-    assert browser.evaluate("document.title").startswith("demandprep build ")
+    assert len(charts) == 12
+    for chart in charts:
+        assert chart["width"] > 300 and chart["height"] > 40, chart
+    assert browser.evaluate("document.images.length") == 0
+    assert " demandprep build " in browser.evaluate("document.title")
     assert (ARTIFACTS / "report.png").stat().st_size > 10_000
+
+
+@needs_chromium
+@pytest.mark.parametrize("width", [800, 1400])
+def test_report_fits_the_window_at_800_and_1400_px(
+    browser: Page, shared_export_build: Path, width: int
+) -> None:
+    browser.set_width(width)
+    browser.open((shared_export_build / "report.html").as_uri())
+    ARTIFACTS.mkdir(exist_ok=True)
+    shot_width, shot_height = browser.content_screenshot(ARTIFACTS / f"report-{width}.png")
+    assert browser.problems == []
+    # no horizontal overflow: everything laid out fits the window's width
+    assert shot_width == width and shot_height > 900
+    assert browser.evaluate("document.documentElement.scrollWidth") == width
+    charts = browser.evaluate(CHART_SIZES)
+    assert all(0 < chart["right"] <= width for chart in charts), charts
+    # the first screen shows the headline numbers
+    assert browser.evaluate("document.getElementById('headline').getBoundingClientRect().top") < 900
+
+
+@needs_chromium
+def test_the_width_check_sees_a_page_wider_than_the_window(browser: Page, tmp_path: Path) -> None:
+    # A control: the same measurement must report a page that overflows an 800 px window.
+    page = tmp_path / "wide.html"
+    page.write_text(
+        "<!DOCTYPE html><html><body style='margin:0'><div style='width:1200px;height:50px'>"
+        "</div></body></html>",
+        encoding="utf-8",
+    )
+    browser.set_width(800)
+    browser.open(page.as_uri())
+    shot_width, _ = browser.content_screenshot(tmp_path / "wide.png")
+    assert shot_width == 1200
+    assert browser.evaluate("document.documentElement.scrollWidth") == 1200
 
 
 @needs_chromium

@@ -11,12 +11,14 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 import tomllib
 from datetime import date
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     ConfigDict,
     Field,
@@ -82,6 +84,10 @@ class ProjectSection(Section):
         "Project name. Free text, shown in reports.", default="demandprep-project"
     )
     description: str = described("Project description. Free text, shown in reports.", default="")
+    currency: str = described(
+        "Currency of prices and amounts. Shown in reports (e.g. EUR); empty says 'currency units'.",
+        default="",
+    )
 
 
 class WarehouseSection(Section):
@@ -462,6 +468,21 @@ class CostShifterInstrument(Section):
     )
 
 
+FIXED_EFFECT_NAME = re.compile(r"^(period|product|market|[A-Za-z_][A-Za-z0-9_]*:period)$")
+
+
+def _fixed_effect_name(value: str) -> str:
+    if not FIXED_EFFECT_NAME.match(value):
+        raise ValueError(
+            f"{value!r} is not a fixed effect; use period, product, market or "
+            "<stores level>:period (e.g. region:period)"
+        )
+    return value
+
+
+FixedEffect = Annotated[str, AfterValidator(_fixed_effect_name)]
+
+
 class InstrumentsSection(Section):
     """Price instruments added to the share table, and the first-stage check."""
 
@@ -481,8 +502,11 @@ class InstrumentsSection(Section):
     cost_shifters: CostShifterInstrument | None = described(
         "Cost-shifter instruments. A table; unset for none.", default=None
     )
-    first_stage_fixed_effects: list[Literal["period", "product"]] = described(
-        "Fixed effects of the first-stage check.", default_factory=list
+    first_stage_fixed_effects: list[FixedEffect] = described(
+        "Fixed effects of the first stage and quick logit. period, product, market, or "
+        "<stores level>:period for a geography level the stores source maps (store, region, "
+        "chain...), e.g. region:period.",
+        default_factory=list,
     )
     weak_instrument_f: float = described(
         "Warn below this first-stage F. A rule of thumb (Staiger & Stock 1997).",

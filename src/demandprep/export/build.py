@@ -25,11 +25,18 @@ from demandprep.export.dictionary import (
     with_size_formula,
     write_dictionary,
 )
+from demandprep.export.drift import since_last_build
 from demandprep.export.input_warnings import input_warnings
-from demandprep.export.manifest import OutputFile, build_manifest, write_manifest
+from demandprep.export.manifest import (
+    OutputFile,
+    build_manifest,
+    input_records,
+    write_manifest,
+)
 from demandprep.export.parquet import write_query_parquet
 from demandprep.export.quick_logit import LogitEstimate, quick_logit
-from demandprep.export.report import ReportInputs, write_report
+from demandprep.export.report import ReportInputs, market_build_enabled, write_report
+from demandprep.export.report_data import table_exists
 from demandprep.export.tables import OutputTable, output_query, plan_outputs
 
 
@@ -51,8 +58,11 @@ def write_build(
     staging_dir: Path,
     built_at: datetime | None = None,
     models: ModelMap | None = None,
+    previous: Path | None = None,
 ) -> BuildOutputs:
-    """Write the whole build into `staging_dir` (named by the build id); the manifest comes last."""
+    """Write the whole build into `staging_dir` (named by the build id); the manifest comes last.
+
+    `previous` is the published build this one is compared with (drift), None for a first."""
     built = BuildOutputs(staging_dir, staging_dir.name, built_at or datetime.now(UTC))
     for message in input_warnings(ctx.con):
         ctx.warn(message)
@@ -78,6 +88,22 @@ def write_build(
         built.others += write_extra_formats(ctx, built.tables, entries)
     with _timed(ctx, "export.quick_logit"):
         built.estimates = quick_logit_all(ctx)
+    with _timed(ctx, "export.drift"):
+        drift = since_last_build(
+            ctx.con,
+            ctx.config,
+            previous,
+            staging_dir,
+            {
+                "inputs": input_records(ctx.con),
+                "outputs": [
+                    {"path": table.path.relative_to(staging_dir).as_posix(), "rows": table.rows}
+                    for table in built.tables
+                ],
+                "facts": ctx.facts,
+                "quick_logit": [estimate.as_dict() for estimate in built.estimates],
+            },
+        )
     with _timed(ctx, "export.report"):
         report = write_report(
             ctx,
@@ -87,6 +113,7 @@ def write_build(
                 built.built_at.isoformat(timespec="seconds"),
                 _outputs_frame(staging_dir, built.tables),
                 built.estimates,
+                drift,
             ),
         )
     built.others.append(OutputFile(report))
@@ -98,7 +125,10 @@ def write_build(
             built.built_at,
             staging_dir,
             built.tables + built.others,
-            {"quick_logit": [estimate.as_dict() for estimate in built.estimates]},
+            {
+                "quick_logit": [estimate.as_dict() for estimate in built.estimates],
+                "since_last_build": drift,
+            },
         ),
     )
     return built
@@ -155,7 +185,11 @@ def write_extra_formats(
 
 
 def quick_logit_all(ctx: BuildContext) -> list[LogitEstimate]:
-    """Quick logit estimates for every assumption; a positive price coefficient is a warning."""
+    """Quick logit estimates for every assumption; a positive price coefficient is a warning.
+
+    A build without market tables (market build off) has none."""
+    if not market_build_enabled(ctx.config) or not table_exists(ctx.con, "share_table"):
+        return []
     estimates = [
         e for name in ctx.config.market_size for e in quick_logit(ctx.con, ctx.config, name)
     ]

@@ -98,7 +98,7 @@ def write_staged_build(
             raise
         try:
             _mark_as_ours(staging)
-            write_build(ctx, staging, built_at, models)
+            write_build(ctx, staging, built_at, models, previous=latest_build(root))
         except BaseException as error:
             written = _bytes_under(staging)
             discard_staging(staging)

@@ -1,8 +1,12 @@
 """A quick plain-logit demand estimate for the report, by OLS and by IV (two-stage least squares).
 
 Berry (1994): with the outside good's share s_0, ln s_j - ln s_0 = x_j b - alpha p_j + xi_j, so
-the log share ratio is regressed on price and the product characteristics. The IV estimate
-instruments price with `iv_hausman_price` (else every numeric `iv_*` column). Own-price
+the log share ratio is regressed on price, the product characteristics and the configured fixed
+effects (`instruments.first_stage_fixed_effects`: the effect with most levels is absorbed by
+demeaning within its groups, any other enters as dummy columns; characteristics constant within
+an effect drop out). The IV estimate instruments price with `iv_hausman_price` (else every
+numeric `iv_*` column) and reports its own first stage, classic and heteroskedasticity-robust F,
+on the same rows, regressors and effects. Own-price
 elasticities of the logit are -alpha p_j (1 - s_j) (Train, Discrete Choice Methods with
 Simulation, ch. 3), i.e. the price coefficient times p_j (1 - s_j). Fringe products, zero shares
 and non-positive prices are left out. This is a diagnostic, not the study's model.
@@ -16,6 +20,12 @@ import duckdb
 import numpy as np
 
 from demandprep.config import ProjectConfig
+from demandprep.instruments.fixed_effects import (
+    configured_fixed_effects,
+    fixed_effect_codes,
+    row_columns,
+)
+from demandprep.instruments.regression import demean_within, dummy_columns, partial_f_test
 from demandprep.sqlfiles import quote_identifier
 
 SHARE_TABLE = "share_table"
@@ -34,7 +44,7 @@ NUMERIC_TYPES = (
     "UTINYINT",
     "BOOLEAN",
 )
-RANK_TOLERANCE = 1e-10
+INDEPENDENCE_TOLERANCE = 1e-9  # share of a column's norm left outside the span
 
 
 @dataclass
@@ -48,6 +58,8 @@ class LogitData:
     exog_names: list[str]
     instruments: np.ndarray
     instrument_names: list[str]
+    effect_codes: list[np.ndarray] = field(default_factory=list)
+    effect_names: list[str] = field(default_factory=list)
 
 
 @dataclass
@@ -68,6 +80,8 @@ class LogitEstimate:
     positive_elasticity_share: float
     instruments: list[str] = field(default_factory=list)
     first_stage_f: float | None = None
+    first_stage_f_robust: float | None = None
+    fixed_effects: list[str] = field(default_factory=list)
 
     def as_dict(self) -> dict:
         """JSON-ready form for the manifest."""
@@ -95,7 +109,11 @@ def load_logit_data(
     types = _column_types(con)
     characteristics = [c for c in config.products.characteristics if c in types]
     instruments = _instrument_columns(types)
-    wanted = ["log_share_ratio", "price", "share", *characteristics, *instruments]
+    effects = configured_fixed_effects(config)
+    keys = row_columns(effects)
+    wanted = list(
+        dict.fromkeys(["log_share_ratio", "price", "share", *characteristics, *instruments, *keys])
+    )
     sql = (
         f"select {', '.join(quote_identifier(c) for c in wanted)} from {SHARE_TABLE} "  # noqa: S608
         f"where {' and '.join(_sample_filters(types))} order by market, product"
@@ -115,35 +133,31 @@ def load_logit_data(
         exog_names,
         instrument_matrix.reshape(outcome.size, len(instruments)),
         instruments,
+        fixed_effect_codes(con, config, {key: columns[key] for key in keys}),
+        effects,
     )
     return _subset(data, keep)
 
 
-def ols(outcome: np.ndarray, design: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Least-squares coefficients and classical standard errors (residual variance / (n - k))."""
+def ols(
+    outcome: np.ndarray, design: np.ndarray, absorbed: int = 0
+) -> tuple[np.ndarray, np.ndarray]:
+    """Least-squares coefficients and classical standard errors (residual variance / (n - k));
+    `absorbed` counts the levels of an effect demeaned away beforehand (they enter k)."""
     beta, *_ = np.linalg.lstsq(design, outcome, rcond=None)
     residual = outcome - design @ beta
-    return beta, _std_errors(residual, design, design)
+    return beta, _std_errors(residual, design, design, absorbed)
 
 
 def two_stage_least_squares(
-    outcome: np.ndarray, design: np.ndarray, instruments: np.ndarray
+    outcome: np.ndarray, design: np.ndarray, instruments: np.ndarray, absorbed: int = 0
 ) -> tuple[np.ndarray, np.ndarray]:
     """2SLS coefficients and classical standard errors; `instruments` includes the exogenous."""
     gamma, *_ = np.linalg.lstsq(instruments, design, rcond=None)
     fitted = instruments @ gamma
     beta, *_ = np.linalg.lstsq(fitted, outcome, rcond=None)
     residual = outcome - design @ beta
-    return beta, _std_errors(residual, design, fitted)
-
-
-def partial_f(endogenous: np.ndarray, exog: np.ndarray, excluded: np.ndarray) -> float:
-    """First-stage F statistic of the excluded instruments (nested-model F test)."""
-    full = np.column_stack([exog, excluded])
-    rss_restricted = _rss(endogenous, exog)
-    rss_full = _rss(endogenous, full)
-    dof = endogenous.size - np.linalg.matrix_rank(full)
-    return float(((rss_restricted - rss_full) / excluded.shape[1]) / (rss_full / dof))
+    return beta, _std_errors(residual, design, fitted, absorbed)
 
 
 def own_price_elasticities(
@@ -154,47 +168,84 @@ def own_price_elasticities(
     return -alpha * price * (1.0 - share)
 
 
+@dataclass
+class Design:
+    """One estimate's matrices after the effects: price first, then the named regressors, then
+    the dummies of the effects not absorbed; `absorbed` levels were demeaned away."""
+
+    outcome: np.ndarray
+    regressors: np.ndarray
+    instruments: np.ndarray
+    names: list[str]
+    absorbed: int
+
+
 def _estimate(data: LogitData, assumption: str, method: str) -> LogitEstimate:
-    design = np.column_stack([data.price, data.exog])
-    names = ["price", *data.exog_names]
+    design = effects_design(data)
+    first_stage = None
     if method == "ols":
-        beta, errors = ols(data.outcome, design)
-        strength, used = None, []
+        beta, errors = ols(design.outcome, design.regressors, design.absorbed)
     else:
+        exogenous = np.column_stack([design.instruments, design.regressors[:, 1:]])
         beta, errors = two_stage_least_squares(
-            data.outcome, design, np.column_stack([data.instruments, data.exog])
+            design.outcome, design.regressors, exogenous, design.absorbed
         )
-        strength = partial_f(data.price, data.exog, data.instruments)
-        used = data.instrument_names
+        characteristics = [i for i, name in enumerate(data.exog_names) if name != "constant"]
+        first_stage = partial_f_test(
+            data.price, data.instruments, data.exog[:, characteristics], data.effect_codes
+        )
+    width = len(design.names)
     elasticity = own_price_elasticities(float(beta[0]), data.price, data.share)
     return LogitEstimate(
         assumption=assumption,
         method=method,
         rows=int(data.outcome.size),
-        names=names,
-        coefficients=[float(v) for v in beta],
-        std_errors=[float(v) for v in errors],
+        names=design.names,
+        coefficients=[float(v) for v in beta[:width]],
+        std_errors=[float(v) for v in errors[:width]],
         price_coefficient=float(beta[0]),
         price_std_error=float(errors[0]),
         elasticity_median=float(np.median(elasticity)),
         elasticity_p10=float(np.quantile(elasticity, 0.1)),
         elasticity_p90=float(np.quantile(elasticity, 0.9)),
         positive_elasticity_share=float(np.mean(elasticity > 0)),
-        instruments=list(used),
-        first_stage_f=strength,
+        instruments=list(data.instrument_names) if first_stage else [],
+        first_stage_f=None if first_stage is None else first_stage.partial_f,
+        first_stage_f_robust=None if first_stage is None else first_stage.partial_f_robust,
+        fixed_effects=list(data.effect_names),
     )
 
 
-def _std_errors(residual: np.ndarray, design: np.ndarray, bread: np.ndarray) -> np.ndarray:
+def effects_design(data: LogitData) -> Design:
+    """Absorb the effect with most levels, add the others as dummies, drop collinear columns."""
+    codes = sorted(data.effect_codes, key=lambda c: len(np.unique(c)), reverse=True)
+    extra = np.column_stack(
+        [np.empty((data.outcome.size, 0)), *(dummy_columns(c) for c in codes[1:])]
+    )
+    arrays = (data.outcome, data.price, data.exog, extra, data.instruments)
+    absorbed = 0
+    if codes:
+        arrays = tuple(demean_within(a, codes[0]) for a in arrays)
+        absorbed = len(np.unique(codes[0]))
+    outcome, price, exog, extra, instruments = arrays
+    # Order of preference: the constant, then the effects, then the characteristics, so a
+    # characteristic constant within an effect is the column that drops out.
+    candidates = np.column_stack([exog[:, :1], extra, exog[:, 1:]])
+    kept = _independent_columns(price, candidates)
+    width = extra.shape[1]
+    named = [i for i in kept if i == 0 or i > width]
+    effect_columns = [i for i in kept if 0 < i <= width]
+    names = ["price"] + [data.exog_names[0 if i == 0 else i - width] for i in named]
+    regressors = np.column_stack([price, candidates[:, named], candidates[:, effect_columns]])
+    return Design(outcome, regressors, instruments, names, absorbed)
+
+
+def _std_errors(
+    residual: np.ndarray, design: np.ndarray, bread: np.ndarray, absorbed: int = 0
+) -> np.ndarray:
     rows, width = design.shape
-    variance = residual @ residual / (rows - width)
+    variance = residual @ residual / (rows - width - absorbed)
     return np.sqrt(np.diag(variance * np.linalg.pinv(bread.T @ bread)))
-
-
-def _rss(outcome: np.ndarray, design: np.ndarray) -> float:
-    beta, *_ = np.linalg.lstsq(design, outcome, rcond=None)
-    residual = outcome - design @ beta
-    return float(residual @ residual)
 
 
 def _design(
@@ -221,17 +272,29 @@ def _independent(
 ) -> tuple[np.ndarray, list[str]]:
     """Drop columns that are linear combinations of price and the columns kept before them."""
     complete = ~np.isnan(matrix).any(axis=1) & ~np.isnan(_numeric(first_column))
-    kept = [_numeric(first_column)[complete]]
-    chosen: list[int] = []
-    for index in range(matrix.shape[1]):
-        trial = np.column_stack([*kept, matrix[complete, index]])
-        if (
-            np.linalg.matrix_rank(trial, tol=RANK_TOLERANCE * max(1, trial.shape[0]))
-            == trial.shape[1]
-        ):
-            kept.append(matrix[complete, index])
-            chosen.append(index)
+    chosen = _independent_columns(_numeric(first_column)[complete], matrix[complete])
     return matrix[:, chosen], [names[i] for i in chosen]
+
+
+def _independent_columns(first: np.ndarray, matrix: np.ndarray) -> list[int]:
+    """Indices of the columns of `matrix` outside the span of `first` and the columns kept
+    before them (Gram-Schmidt, twice, in order)."""
+    basis = np.zeros((matrix.shape[0], matrix.shape[1] + 1))
+    size = 0
+    chosen: list[int] = []
+    for index, column in enumerate([first, *matrix.T]):
+        norm = float(np.linalg.norm(column))
+        if norm == 0:
+            continue
+        rest = column - basis[:, :size] @ (basis[:, :size].T @ column)
+        rest -= basis[:, :size] @ (basis[:, :size].T @ rest)
+        remaining = float(np.linalg.norm(rest))
+        if remaining > INDEPENDENCE_TOLERANCE * norm:
+            basis[:, size] = rest / remaining
+            size += 1
+            if index > 0:
+                chosen.append(index - 1)
+    return chosen
 
 
 def _subset(data: LogitData, keep: np.ndarray) -> LogitData:
@@ -243,6 +306,8 @@ def _subset(data: LogitData, keep: np.ndarray) -> LogitData:
         data.exog_names,
         data.instruments[keep],
         data.instrument_names,
+        [codes[keep] for codes in data.effect_codes],
+        data.effect_names,
     )
 
 

@@ -210,3 +210,132 @@ def mean_outside_share(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
         order by assumption
         """
     ).df()
+
+
+def table_exists(con: duckdb.DuckDBPyConnection, name: str) -> bool:
+    """Whether the warehouse holds a table or view of this name."""
+    [(count,)] = con.execute(
+        "select count(*) from (select table_name as name from duckdb_tables() "
+        "where schema_name = current_schema() union all select view_name from duckdb_views() "
+        "where schema_name = current_schema()) where name = $name",
+        {"name": name},
+    ).fetchall()
+    return count > 0
+
+
+def market_headline(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
+    """Markets, inside products and product-market rows of the build (one assumption's view)."""
+    row = con.execute(
+        """
+        with first_assumption as (select min(assumption) as assumption from share_table)
+        select
+            count(distinct market),
+            count(distinct product) filter (where not coalesce(is_fringe, false)),
+            count(*),
+        from share_table
+        where assumption = (select assumption from first_assumption)
+        """
+    ).fetchall()[0]
+    return {"markets": row[0], "products": row[1], "product_market_rows": row[2]}
+
+
+def lines_accepted(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
+    """Receipt lines read, accepted and quarantined over the current receipts files."""
+    row = con.execute(
+        """
+        select
+            coalesce(sum(rows_read), 0)::bigint,
+            coalesce(sum(rows_accepted), 0)::bigint,
+            coalesce(sum(rows_quarantined), 0)::bigint,
+            count(*),
+        from ledger
+        where status = 'current' and source = 'receipts'
+        """
+    ).fetchall()[0]
+    return dict(zip(("read", "accepted", "quarantined", "files"), row, strict=True))
+
+
+def current_file_count(con: duckdb.DuckDBPyConnection) -> int:
+    """Current input files in the ledger (the ledger chart shows at most MAX_FILES of them)."""
+    [(count,)] = con.execute("select count(*) from ledger where status = 'current'").fetchall()
+    return count
+
+
+def zero_sales_total(con: duckdb.DuckDBPyConnection) -> int | None:
+    """Product-markets on the shelf without sales, before the zero-share policy; None if unknown."""
+    if not table_exists(con, "market_zero_sales"):
+        return None
+    [(count,)] = con.execute("select count(*) from market_zero_sales").fetchall()
+    return count
+
+
+def choice_summary(con: duckdb.DuckDBPyConnection) -> dict[str, float]:
+    """Occasions, choosers, rows, mean alternatives per occasion and the holdout's size."""
+    # One chosen row per occasion (the choice build's invariant) counts occasions without a
+    # distinct count over the long table.
+    occasions, rows, holdout_occasions = con.execute(
+        """
+        select
+            count(*) filter (where chosen),
+            count(*),
+            count(*) filter (where chosen and holdout),
+        from choices
+        """
+    ).fetchall()[0]
+    choosers, holdout_choosers = con.execute(
+        "select count(*), count(*) filter (where holdout) from choosers"
+    ).fetchall()[0]
+    return {
+        "occasions": occasions,
+        "choosers": choosers,
+        "rows": rows,
+        "alternatives_per_occasion": rows / occasions if occasions else None,
+        "holdout_choosers": holdout_choosers,
+        "holdout_occasions": holdout_occasions,
+    }
+
+
+def alternatives_per_occasion(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
+    """How many occasions offer each number of alternatives (rows per occasion)."""
+    return con.sql(
+        """
+        with per_occasion as (select occasion, count(*) as alternatives from choices group by 1)
+        select alternatives, count(*) as occasions
+        from per_occasion
+        group by alternatives
+        order by alternatives
+        """
+    ).df()
+
+
+def chosen_shares(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
+    """Share of occasions choosing each alternative, the most chosen first (at most 20)."""
+    return con.sql(
+        """
+        with chosen as (select alternative from choices where chosen),
+        total as (select count(*) as occasions from chosen)
+        select alternative, count(*) / any_value(total.occasions) as share
+        from chosen, total
+        group by alternative
+        order by share desc, alternative
+        limit 20
+        """
+    ).df()
+
+
+def loyalty_distribution(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
+    """Rows per tenth of the smoothed loyalty (0 to 1), outside the burn-in."""
+    return con.sql(
+        """
+        with bins as (select range / 10 as low from range(10))
+        select
+            bins.low,
+            count(choices.loyalty) as rows,
+        from bins
+        left join choices
+            on least(floor(choices.loyalty * 10), 9) / 10 = bins.low
+            and not choices.burn_in
+        group by bins.low
+        order by bins.low
+        """
+    ).df()

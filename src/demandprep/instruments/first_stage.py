@@ -15,20 +15,29 @@ import polars as pl
 from demandprep.context import BuildContext
 from demandprep.instruments.assemble import instrument_column_names
 from demandprep.instruments.columns import is_numeric_type, table_columns
+from demandprep.instruments.fixed_effects import (
+    configured_fixed_effects,
+    fixed_effect_codes,
+    row_columns,
+)
 from demandprep.instruments.regression import PartialFTest, partial_f_test
 
 STATISTIC = (
     "homoskedastic partial F of the excluded instruments in the OLS of price on the instruments,"
-    " a constant, the numeric product characteristics and the configured fixed effects: "
+    " a constant, the numeric product characteristics and the configured fixed effects"
+    " (period, product, market or <stores level>:period): "
     "((RSS_r - RSS_u)/q) / (RSS_u/(n - k)); equals linearmodels IV2SLS first_stage "
     "f.stat with cov_type='unadjusted', debiased=True"
 )
-FIXED_EFFECT_COLUMNS = {"period": "period_start", "product": "product"}
+STATISTIC_ROBUST = (
+    "heteroskedasticity-robust partial F: Wald statistic of the excluded instruments with the "
+    "White covariance scaled by n/(n - k), divided by q; equals linearmodels IV2SLS first_stage "
+    "f.stat with cov_type='robust', debiased=True"
+)
 
 ROWS_SQL = """
 select
-    period_start,
-    product,
+    columns(lambda c: list_contains($keys, c)),
     price::double as price,
     columns(lambda c: list_contains($columns, c))::double,
 from share_table
@@ -62,11 +71,12 @@ def measure_first_stage(ctx: BuildContext) -> None:
     frame = _first_stage_rows(ctx, instruments + exogenous)
     complete = frame.drop_nulls(subset=instruments + exogenous)
     dropped = frame.height - complete.height
+    keys = {name: complete[name].to_numpy() for name in row_columns(_fixed_effects(ctx))}
     result = partial_f_test(
         complete["price"].to_numpy(),
         complete.select(instruments).to_numpy(),
         complete.select(exogenous).to_numpy() if exogenous else np.zeros((complete.height, 0)),
-        [_codes(complete[FIXED_EFFECT_COLUMNS[name]]) for name in _fixed_effects(ctx)],
+        fixed_effect_codes(ctx.con, ctx.config, keys),
     )
     facts = _facts(result, instruments, exogenous, ctx, rows=complete.height, dropped=dropped)
     ctx.facts["first_stage"] = facts
@@ -80,16 +90,17 @@ def measure_first_stage(ctx: BuildContext) -> None:
 
 def _first_stage_rows(ctx: BuildContext, columns: list[str]) -> pl.DataFrame:
     assumption = next(iter(ctx.config.market_size))
-    relation = ctx.con.sql(ROWS_SQL, params={"columns": columns, "assumption": assumption})
-    return relation.pl()
+    params = {
+        "columns": columns,
+        "assumption": assumption,
+        # market is always read so the list is never empty (DuckDB refuses an empty columns())
+        "keys": list(dict.fromkeys(["market", *row_columns(_fixed_effects(ctx))])),
+    }
+    return ctx.con.sql(ROWS_SQL, params=params).pl()
 
 
 def _fixed_effects(ctx: BuildContext) -> list[str]:
-    return list(dict.fromkeys(ctx.config.instruments.first_stage_fixed_effects))
-
-
-def _codes(column: pl.Series) -> np.ndarray:
-    return column.cast(pl.String).rank("dense").to_numpy()
+    return configured_fixed_effects(ctx.config)
 
 
 def _facts(
@@ -103,6 +114,7 @@ def _facts(
     partial_f = None if result is None else result.partial_f
     return {
         "partial_f": partial_f,
+        "partial_f_robust": None if result is None else result.partial_f_robust,
         "df_num": 0 if result is None else result.df_num,
         "df_den": 0 if result is None else result.df_den,
         "p_value": None if result is None else result.p_value,
@@ -116,6 +128,7 @@ def _facts(
         "rows": rows,
         "rows_dropped_null": dropped,
         "statistic": STATISTIC,
+        "statistic_robust": STATISTIC_ROBUST,
     }
 
 

@@ -9,6 +9,12 @@ RSS_r: the same without the instruments; q = rank(full) - rank(restricted), the 
 independent excluded instruments; k_u = rank of the full design, fixed effects included.
 It equals linearmodels' IV2SLS first-stage ``f.stat`` with cov_type="unadjusted", debiased=True.
 
+The heteroskedasticity-robust F is the Wald statistic of the instruments' coefficients with the
+White (HC0) covariance scaled by n / (n - k), divided by q: b' V^-1 b / q, V = (Z'Z)^-1
+(sum e_i^2 z_i z_i') (Z'Z)^-1 n / (n - k), Z the instruments with the exogenous terms and effects
+partialled out (Frisch-Waugh-Lovell). It equals linearmodels' first-stage ``f.stat`` with
+cov_type="robust", debiased=True.
+
 Fixed effects: the one with most levels is absorbed exactly by demeaning within its groups
 (its levels are added to the rank); any other enters as dummy columns. Ranks are numerical ranks
 of the column-scaled designs, so collinear columns (e.g. characteristics constant within a
@@ -38,6 +44,7 @@ class PartialFTest:
     df_den: int
     p_value: float | None
     coefficients: list[float]
+    partial_f_robust: float | None = None
 
 
 def partial_f_test(
@@ -54,8 +61,8 @@ def partial_f_test(
     codes = sorted(fixed_effects or [], key=lambda c: len(np.unique(c)), reverse=True)
     absorbed_levels = 0
     if codes:
-        x = np.column_stack([x, *[_dummies(c) for c in codes[1:]]])
-        y, z, x = (_demean(a, codes[0]) for a in (y, z, x))
+        x = np.column_stack([x, *[dummy_columns(c) for c in codes[1:]]])
+        y, z, x = (demean_within(a, codes[0]) for a in (y, z, x))
         absorbed_levels = len(np.unique(codes[0]))
     rss_r, rank_r, _ = _least_squares(x, y)
     rss_u, rank_u, beta = _least_squares(np.column_stack([x, z]), y)
@@ -66,7 +73,28 @@ def partial_f_test(
         return PartialFTest(None, df_num, df_den, None, coefficients)
     f_value = ((rss_r - rss_u) / df_num) / (rss_u / df_den)
     p_value = float(special.fdtrc(df_num, df_den, f_value))
-    return PartialFTest(float(f_value), df_num, df_den, p_value, coefficients)
+    robust = _robust_f(_partialled(z, x), _partialled(y, x), df_num, len(y) / df_den)
+    return PartialFTest(float(f_value), df_num, df_den, p_value, coefficients, robust)
+
+
+def _partialled(z: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """The instruments' residuals after least squares on the exogenous design."""
+    scale = np.linalg.norm(x, axis=0)
+    scale[scale == 0] = 1.0
+    gamma, *_ = np.linalg.lstsq(x / scale, z, rcond=None)
+    return z - (x / scale) @ gamma
+
+
+def _robust_f(z: np.ndarray, y: np.ndarray, df_num: int, debias: float) -> float | None:
+    """Wald / q of the instruments with the n / (n - k) scaled White covariance; `z` and `y`
+    have the exogenous design partialled out."""
+    bread = np.linalg.pinv(z.T @ z)
+    coefficients = bread @ (z.T @ y)
+    residual = y - z @ coefficients
+    meat = (z * (residual**2)[:, None]).T @ z
+    covariance = debias * bread @ meat @ bread
+    wald = coefficients @ np.linalg.pinv(covariance) @ coefficients
+    return float(wald / df_num) if np.isfinite(wald) else None
 
 
 def _least_squares(design: np.ndarray, y: np.ndarray) -> tuple[float, int, np.ndarray]:
@@ -79,14 +107,15 @@ def _least_squares(design: np.ndarray, y: np.ndarray) -> tuple[float, int, np.nd
     return float(residual @ residual), int(rank), scaled / scale
 
 
-def _dummies(codes: np.ndarray) -> np.ndarray:
+def dummy_columns(codes: np.ndarray) -> np.ndarray:
+    """One 0/1 column per level of an integer-coded effect."""
     levels, index = np.unique(codes, return_inverse=True)
     out = np.zeros((len(codes), len(levels)))
     out[np.arange(len(codes)), index] = 1.0
     return out
 
 
-def _demean(values: np.ndarray, codes: np.ndarray) -> np.ndarray:
+def demean_within(values: np.ndarray, codes: np.ndarray) -> np.ndarray:
     """Subtract group means (the within transformation of a one-way fixed effect)."""
     _, index = np.unique(codes, return_inverse=True)
     counts = np.bincount(index)

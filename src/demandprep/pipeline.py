@@ -61,11 +61,11 @@ def build_unless_current(
     """Build and publish, unless `latest` was made from these very inputs and settings."""
     from demandprep.export.folder import check_export_root, export_build, latest_build
 
-    # the stage list imports every step (scipy among them): `ingest` needs none of it
-    from demandprep.stages import build_stages
-
     # the nightly flow's own test of "nothing new" (no Prefect is imported with it)
     from demandprep.flows.incremental import latest_build_is_current
+
+    # the stage list imports every step (scipy among them): `ingest` needs none of it
+    from demandprep.stages import build_stages
 
     # a restored `latest` folder or a linked `.staging` would only stop the export: say so now
     check_export_root(config.export.root)

@@ -23,3 +23,12 @@ create or replace temp macro ingest_problem(field, problem, value, values_shown)
 -- whole numbers as written: the bigint cast also takes '1_000', '0x10', '0b11', '.5' and '1e5'
 create or replace temp macro ingest_integer(text) as
     case when regexp_full_match(text, '[+-]?[0-9]+') then try_cast(text as bigint) end;
+-- trim(text) without its cost on most fields: trim removes only Unicode space separators, and
+-- the only one in ASCII is ' ', so plain ASCII text not starting or ending with ' ' is already
+-- trimmed (tests/test_ingest_trim.py tries every code point against trim itself)
+create or replace temp macro ingest_trim(text) as
+    case
+        when starts_with(text, ' ') or ends_with(text, ' ') or strlen(text) <> length(text)
+            then trim(text)
+        else text
+    end;

@@ -10,7 +10,6 @@ from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.ingest.results import PROBLEM_STATUSES
 from demandprep.stage import Stage, run_stage
-from demandprep.stages import build_stages
 from demandprep.warehouse import open_warehouse
 
 StageDone = Callable[[Stage, float], None]
@@ -64,6 +63,9 @@ def build_unless_current(
 
     # the nightly flow's own test of "nothing new" (no Prefect is imported with it)
     from demandprep.flows.incremental import latest_build_is_current
+
+    # the stage list imports every step (scipy among them): `ingest` needs none of it
+    from demandprep.stages import build_stages
 
     # a restored `latest` folder or a linked `.staging` would only stop the export: say so now
     check_export_root(config.export.root)

@@ -1,0 +1,90 @@
+"""Ingest speed-ups change no output: raw_lines, quarantine, ledger and ledger_reasons are the
+same row for row with the cheap `ingest_trim` as with DuckDB's plain `trim`.
+
+reference: DuckDB's own `trim(text)`, put back in place of `ingest_trim` for the second ingest
+of the same files (the fault fixture with a file of padded fields, and fuzzed worlds).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import tempfile
+from pathlib import Path
+from unittest import mock
+
+from fuzz_inputs import CONFIG, FuzzFile, fuzz_world
+from hypothesis import HealthCheck, given, settings
+from ingest_fixtures import copy_faults
+
+from demandprep import sqlfiles
+from demandprep.config import load_config
+from demandprep.errors import UserError
+from demandprep.ingest.runner import ingest_all
+from demandprep.warehouse import open_warehouse
+
+PLAIN_TRIM = "\ncreate or replace temp macro ingest_trim(text) as trim(text);\n"
+# what each table holds, in a total order, without the folder and the time of the run
+TABLES = {
+    "raw_lines": "select * from raw_lines order by file_id, line_no",
+    "quarantine": "select * exclude (path) from quarantine order by file_id, line_no, reason",
+    "ledger": "select * exclude (path, ingested_at) from ledger order by file_id",
+    "ledger_reasons": "select * from ledger_reasons order by all",
+}
+# spaces that trim removes (' ', no-break, ideographic) and ones it keeps (tab), on every field
+PADDED = (
+    "ticket;row;branch;stamp;article;qty;value;member;disc;kind\n"
+    " T0901 ; 1 ; B01 ;2024-03-05 10:00:00 ; K100;1 ; 6,49 ; M-17 ; 0,00 ; sale \n"
+    "T0902;1;\u00a0B01\u00a0;2024-03-05 10:01:00;\u3000K100;1;6,49;;0,00;\u2003sale\n"
+    "T0903;1;\tB01;2024-03-05 10:02:00;K100\t;1;6,49;;;sale\n"
+    "T0904;\u00a0;B01;\u00a02024-03-05 10:03:00;K100;\u00a0 ;6,49;;;  \n"
+    "T0905;é ;B01;2024-03-05 10:04:00;K100;2;\u00a06,49é;;;void\n"
+)
+
+
+def ingest_tables(config_path: Path, plain_trim: bool) -> dict[str, list]:
+    """Ingest the config's files into its (fresh) warehouse; every table's rows, in order."""
+    original = sqlfiles.sql_text
+
+    def with_plain_trim(name: str) -> str:
+        text = original(name)
+        return text + PLAIN_TRIM if name == "ingest/005_ingest_macros.sql" else text
+
+    config = load_config(config_path)
+    text = with_plain_trim if plain_trim else original
+    with mock.patch.object(sqlfiles, "sql_text", text), open_warehouse(config.warehouse) as con:
+        # stopping with one line is allowed: what went in must still be the same
+        with contextlib.suppress(UserError):
+            ingest_all(con, config)
+        return {name: con.execute(sql).fetchall() for name, sql in TABLES.items()}
+
+
+def test_faults_give_the_same_tables_with_plain_trim(tmp_path: Path) -> None:
+    tables = {}
+    for plain_trim in (False, True):
+        config_path = copy_faults(tmp_path / str(plain_trim))
+        (config_path.parent / "receipts" / "receipts_2024-03-05.csv").write_text(
+            PADDED, encoding="utf-8"
+        )
+        tables[plain_trim] = ingest_tables(config_path, plain_trim)
+    assert len(tables[False]["raw_lines"]) > 0 and len(tables[False]["quarantine"]) > 0
+    assert tables[False] == tables[True]
+
+
+@settings(
+    max_examples=8,
+    deadline=None,
+    derandomize=True,
+    database=None,
+    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
+)
+@given(files=fuzz_world())
+def test_fuzzed_worlds_give_the_same_tables_with_plain_trim(files: list[FuzzFile]) -> None:
+    tables = {}
+    for plain_trim in (False, True):
+        with tempfile.TemporaryDirectory(prefix="demandprep-trim-") as folder:
+            root = Path(folder)
+            (root / "demandprep.toml").write_text(CONFIG, encoding="utf-8")
+            for item in files:
+                item.write(root)
+            tables[plain_trim] = ingest_tables(root / "demandprep.toml", plain_trim)
+    assert tables[False] == tables[True]

@@ -14,16 +14,12 @@ from export_fixtures import fill_warehouse
 
 from demandprep.choices.settings import load_choice_settings
 from demandprep.choices.stages import CHOICE_STAGES
-from demandprep.choices.validation import (
-    insertion_order_kept,
-    model_checks,
-    sql_check_names,
-    validate_choices,
-)
+from demandprep.choices.validation import model_checks, sql_check_names, validate_choices
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.sqlfiles import LINE_COMMENT, sql_text
 from demandprep.stage import run_stage
+from demandprep.warehouse import insertion_order_kept
 
 MONDAY = date(2024, 1, 15)
 # the occasion the breaks below aim at: past burn-in, with earlier purchases

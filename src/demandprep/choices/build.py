@@ -19,12 +19,13 @@ from demandprep.choices.pseudonyms import (
     pseudonym_key,
 )
 from demandprep.choices.settings import FRINGE, OUTSIDE, ChoiceSettings, load_choice_settings
-from demandprep.choices.validation import insertion_order_kept, validate_choices
+from demandprep.choices.validation import validate_choices
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
+from demandprep.warehouse import insertion_order_kept
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",

@@ -11,9 +11,6 @@ checks the column types, which are one per column, so the sample covers every ro
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from contextlib import contextmanager
-
 import duckdb
 import pandera.polars as pa
 import polars as pl
@@ -31,6 +28,7 @@ from demandprep.schemas.choices import (
 )
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import SHOWN_FAILURES, validate_frame
+from demandprep.warehouse import insertion_order_kept
 
 SAMPLE_ROWS = 100_000
 CHECKS_FILE = "choices/091_choices_checks.sql"
@@ -44,17 +42,6 @@ OCCASION_CHECKS = (
     "occasion_columns_constant",
     "chooser__str_matches",
 )
-
-
-@contextmanager
-def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
-    """Within the block, DuckDB stores and scans rows in the order they were written."""
-    before = con.execute("select current_setting('preserve_insertion_order')").fetchone()[0]
-    con.execute("set preserve_insertion_order = true")
-    try:
-        yield
-    finally:
-        con.execute(f"set preserve_insertion_order = {'true' if before else 'false'}")
 
 
 def validate_choices(con: duckdb.DuckDBPyConnection, sample_rows: int = SAMPLE_ROWS) -> int:

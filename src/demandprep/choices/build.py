@@ -188,7 +188,7 @@ def build_choosers(ctx: BuildContext) -> None:
 
 
 def build_choices(ctx: BuildContext) -> None:
-    """The long choices table, validated by whole occasions; records facts and cleans up."""
+    """The long choices table, validated on every row; records facts and cleans up."""
     settings = _settings(ctx)
     # rows leave the unnest in (occasion, alternative) order; keep that order on disk
     with insertion_order_kept(ctx.con):

@@ -15,6 +15,7 @@ import os
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import suppress
 from dataclasses import dataclass
+from itertools import chain
 from pathlib import Path
 from typing import Any
 
@@ -110,7 +111,13 @@ def _write_batches(
     names = schema.names
     sorting = [pq.SortingColumn(names.index(key)) for key in sort_keys]
     rows = 0
+    groups = row_groups(reader, row_group_rows)
+    first = next(groups, None)
     last_keys: tuple | None = None
+    if checked_keys and first is not None:
+        # checked before the file opens: rows not stored in order mostly show in the first group,
+        # and then no byte is written before the sorted query takes over
+        last_keys = _keys_rising(first, checked_keys, None)
     with path.open("wb") as handle:
         writer = pq.ParquetWriter(
             handle,
@@ -122,8 +129,8 @@ def _write_batches(
             sorting_columns=sorting or None,
         )
         try:
-            for group in row_groups(reader, row_group_rows):
-                if checked_keys:
+            for group in chain([first] if first is not None else [], groups):
+                if checked_keys and group is not first:
                     last_keys = _keys_rising(group, checked_keys, last_keys)
                 writer.write_table(group, row_group_size=row_group_rows)
                 rows += group.num_rows

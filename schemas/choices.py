@@ -1,10 +1,11 @@
 """pandera models of the chooser-alternative build's outputs, `choices` and `choosers`.
 
 Descriptions and metadata (unit, formula) of every column feed the export's data dictionary.
-The dataframe checks of `Choices` need whole occasions: validate it in batches cut at occasion
-boundaries (demandprep.choices.validation does). Columns named by the config (characteristics,
-demographics, extra shelf-price columns) are allowed beside these (strict = False) and are
-described by `config_column_notes`.
+The dataframe checks of `Choices` need whole occasions. demandprep.choices.validation enforces
+every check of `Choices` on every row through its SQL twin in sql/choices/091_choices_checks.sql
+and runs the model itself on a sample of whole occasions: a new check needs its twin there.
+Columns named by the config (characteristics, demographics, extra shelf-price columns) are
+allowed beside these (strict = False) and are described by `config_column_notes`.
 """
 
 from __future__ import annotations

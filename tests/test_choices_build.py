@@ -11,7 +11,7 @@ import pytest
 from choices_fixtures import ChoiceWorld, choices_frame, row
 
 from demandprep.choices.pseudonyms import occasion_id
-from demandprep.choices.validation import validate_by_occasion
+from demandprep.choices.validation import validate_choices
 from demandprep.errors import UserError
 from demandprep.schemas.choices import Choices
 from demandprep.validate import validate_frame
@@ -331,14 +331,14 @@ def test_schema_rejects_two_chosen_rows_in_one_occasion():
         validate_frame(broken, Choices, "choices")
 
 
-def test_batched_validation_keeps_occasions_whole():
+def test_validation_checks_occasions_beyond_the_pandera_sample():
     world, first, _ = multi_purchase_world()
     ctx = world.build()
-    # 3 rows per occasion, batches of 2 rows: every occasion straddles a batch boundary
-    assert validate_by_occasion(ctx.con, "choices", Choices, batch_rows=2) == 6
+    # 3 rows per occasion, a sample of 2 rows: pandera sees no whole occasion, the SQL sees all
+    assert validate_choices(ctx.con, sample_rows=2) == 6
     ctx.con.execute("update choices set chosen = true where occasion = ?", [first])
     with pytest.raises(UserError, match="exactly one chosen row per occasion"):
-        validate_by_occasion(ctx.con, "choices", Choices, batch_rows=2)
+        validate_choices(ctx.con, sample_rows=2)
 
 
 def test_receipts_without_cards_give_empty_tables_and_a_warning():

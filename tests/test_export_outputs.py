@@ -188,7 +188,7 @@ def test_manifest_records_inputs_outputs_timings_and_warnings(build: Path, manif
 
 def test_fixture_tables_follow_the_step_schemas() -> None:
     # The export is tested on these tables, so they must be what the steps really write.
-    from demandprep.choices.validation import validate_by_occasion
+    from demandprep.choices.validation import validate_choices
     from demandprep.schemas import choices, ingest, instruments, market
     from demandprep.validate import validate_table
 
@@ -210,7 +210,7 @@ def test_fixture_tables_follow_the_step_schemas() -> None:
     }
     for table, model in checks.items():
         assert validate_table(con, table, model) > 0, table
-    assert validate_by_occasion(con, "choices", choices.Choices) == 60 * 7
+    assert validate_choices(con) == 60 * 7
 
 
 def test_a_table_with_a_card_column_is_refused(tmp_path: Path) -> None:

@@ -1,10 +1,14 @@
 -- One row per occasion with everything its rows need but prices and attributes: the choice set
 -- as a sorted list (the store-day's set, plus the chosen alternative when it was missing from
--- it), sampled when choices.sampled_alternatives is set, and the history from earlier
--- occasions (previous purchase, loyalty by alternative, counts).
+-- it), sampled when choices.sampled_alternatives is set, the history from earlier occasions
+-- (previous purchase, loyalty by alternative, counts), the chooser's holdout flag and
+-- demographics, and the store-day's position among the price maps (store_day_index).
 -- Sampling keeps the chosen alternative plus $sample_size others drawn uniformly without
 -- replacement (McFadden 1978: conditional logit on such sets stays consistent): the others are
 -- ordered by md5(occasion, alternative), so the draw is fixed by the occasion on every rebuild.
+-- Stored in occasion order (the stage keeps insertion order), with every join done here, before
+-- the sort: 090 then unnests these rows without joining, so `choices` lands in (occasion,
+-- alternative) order without sorting its rows.
 create or replace table choice_occasion_sets as
 
 with
@@ -35,8 +39,25 @@ occasions as (
         choice_visit_history.days_since_last_purchase,
         coalesce(previous_purchases.alternatives, []) as previous_alternatives,
         choice_visit_loyalty.loyalty_by_alternative,
+        choice_store_days.store_day_index,
+        choice_store_day_markets.market,
+        choosers.holdout,
+        choosers.household_known,
+        -- the configured demographics
+        choosers.* exclude (
+            chooser,
+            holdout,
+            household_known,
+            occasions,
+            purchase_occasions,
+            first_occasion_at,
+            last_occasion_at,
+        ),
     from choice_occasions
     left join choice_store_day_sets using (store, day)
+    left join choice_store_days using (store, day)
+    left join choice_store_day_markets using (store, day)
+    left join choosers using (chooser)
     join choice_visit_history using (visit)
     left join previous_purchases
         on previous_purchases.visit = choice_visit_history.last_purchase_visit
@@ -86,6 +107,7 @@ final as (
         occasion,
         chooser,
         store,
+        market,
         occasion_at,
         day,
         chosen_alternative,
@@ -100,25 +122,38 @@ final as (
         days_since_last_purchase,
         previous_alternatives,
         loyalty_by_alternative,
+        store_day_index,
+        holdout,
+        household_known,
+        -- the configured demographics: every column not named above
+        sampled_sets.* exclude (
+            occasion,
+            visit,
+            chooser,
+            store,
+            market,
+            occasion_at,
+            day,
+            chosen_alternative,
+            is_purchase,
+            quantity,
+            spend,
+            store_day_set,
+            burn_in,
+            purchase_count,
+            days_since_last_purchase,
+            previous_alternatives,
+            loyalty_by_alternative,
+            store_day_index,
+            holdout,
+            household_known,
+            chosen_added,
+            full_set,
+            choice_set_size,
+            sampled,
+            alternatives,
+        ),
     from sampled_sets
 )
 
-select
-    occasion,
-    chooser,
-    store,
-    occasion_at,
-    day,
-    chosen_alternative,
-    quantity,
-    spend,
-    chosen_added,
-    choice_set_size,
-    sampled,
-    alternatives,
-    burn_in,
-    purchase_count,
-    days_since_last_purchase,
-    previous_alternatives,
-    loyalty_by_alternative,
-from final;
+select * from final order by occasion;

@@ -1,9 +1,14 @@
--- Per store-day, a map from each priced alternative to its row of price, price source, promo,
--- extra shelf-price columns, firm, nest and characteristics, so 090 can look alternatives up
--- per occasion instead of joining the long table.
+-- Per store-day (every one of choice_store_days, by store_day_index), a map from each priced
+-- alternative to its row of price, price source, promo, extra shelf-price columns, firm, nest
+-- and characteristics (null where none is priced), so 090 can look alternatives up per
+-- occasion instead of joining the long table.
 create or replace table choice_store_day_info as
 
 with
+
+store_days as (
+    select store, day, store_day_index from choice_store_days
+),
 
 priced as (
     select
@@ -13,7 +18,7 @@ priced as (
     left join choice_alternative_attributes as attributes using (alternative)
 ),
 
-final as (
+store_day_maps as (
     select
         store,
         day,
@@ -22,6 +27,16 @@ final as (
         ) as alternative_info,
     from priced
     group by store, day
+),
+
+final as (
+    select
+        store_days.store_day_index,
+        store_days.store,
+        store_days.day,
+        store_day_maps.alternative_info,
+    from store_days
+    left join store_day_maps using (store, day)
 )
 
-select store, day, alternative_info from final;
+select store_day_index, store, day, alternative_info from final;

@@ -1,49 +1,29 @@
 -- The long chooser-alternative table: one row per occasion and alternative of its (sampled) set,
 -- with the alternative's price, promo flag and attributes at the occasion, the chosen row's
 -- quantity and spend, the chooser's history from earlier occasions, holdout flag and
--- demographics. Occasions are joined to small tables (store-day info, choosers) first and only
--- then unnested into rows, so the rows of one occasion are written together (the export orders
--- the file by occasion and alternative).
+-- demographics. Each occasion's row is unnested into its rows, its alternatives looked up in
+-- its store-day's map (078), which sits at position store_day_index of one list of them all.
+-- No join: choice_occasion_sets is stored in occasion order with sorted sets, and with the
+-- stage keeping insertion order the rows are written in (occasion, alternative) order, which
+-- the validation and the export rely on to skip a sort. A hash join here would let DuckDB write
+-- them out of order (its plan would show "Create Table As", not "Batch Create Table As").
 create or replace table choices as
 
 with
 
+store_day_maps as (
+    -- one row: every store-day's map at its position (store_day_index runs 1, 2, ...)
+    select list(alternative_info order by store_day_index) as alternative_infos
+    from choice_store_day_info
+),
+
 occasions as (
     select
-        choice_occasion_sets.occasion,
-        choice_occasion_sets.chooser,
-        choice_occasion_sets.store,
-        choice_occasion_sets.occasion_at,
-        choice_occasion_sets.chosen_alternative,
-        choice_occasion_sets.quantity,
-        choice_occasion_sets.spend,
-        choice_occasion_sets.chosen_added,
-        choice_occasion_sets.choice_set_size,
-        choice_occasion_sets.sampled,
-        choice_occasion_sets.burn_in,
-        choice_occasion_sets.purchase_count,
-        choice_occasion_sets.days_since_last_purchase,
-        choice_occasion_sets.previous_alternatives,
-        choice_occasion_sets.loyalty_by_alternative,
-        choice_occasion_sets.alternatives,
-        choice_store_day_info.alternative_info,
-        choice_store_day_markets.market,
-        choosers.holdout,
-        choosers.household_known,
-        -- the configured demographics
-        choosers.* exclude (
-            chooser,
-            holdout,
-            household_known,
-            occasions,
-            purchase_occasions,
-            first_occasion_at,
-            last_occasion_at,
-        ),
-    from choice_occasion_sets
-    left join choice_store_day_info using (store, day)
-    left join choice_store_day_markets using (store, day)
-    left join choosers using (chooser)
+        choice_occasion_sets.* exclude (day, store_day_index),
+        store_day_maps.alternative_infos[choice_occasion_sets.store_day_index]
+            as alternative_info,
+    -- a product with the one row, not a join: it keeps the occasions' order
+    from choice_occasion_sets, store_day_maps
 ),
 
 occasion_rows as (

@@ -68,3 +68,14 @@ def open_warehouse(settings: WarehouseSection) -> Iterator[duckdb.DuckDBPyConnec
             yield con
         finally:
             con.close()
+
+
+@contextmanager
+def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
+    """Within the block, DuckDB stores and scans rows in the order they were written."""
+    before = con.execute("select current_setting('preserve_insertion_order')").fetchone()[0]
+    con.execute("set preserve_insertion_order = true")
+    try:
+        yield
+    finally:
+        con.execute(f"set preserve_insertion_order = {'true' if before else 'false'}")

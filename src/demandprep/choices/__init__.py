@@ -45,4 +45,8 @@ as all null, and the market build's SKU ids are used when they exist ($from_mark
   uniformly without replacement, ordered by md5(occasion, alternative) so every rebuild draws
   the same (McFadden 1978).
 - Holdout: a second keyed hash of the chooser read as a uniform number < holdout_fraction.
+- Order and checks: `choices` is stored in (occasion, alternative) order without sorting its
+  rows (occasions sorted in 062, unnested without a join in 090), so the export writes it as
+  stored; every check of its pandera model runs on every row as SQL (091), the model itself
+  on a sample of whole occasions (demandprep.choices.validation).
 """

@@ -1,10 +1,11 @@
 """The chooser-alternative build's stage functions: each runs static SQL from sql/choices/.
 
 Order: inputs (alternatives, shelf prices, category lines) -> occasions (visits, pseudonyms,
-multiple-purchase policy) -> history (previous purchase, loyalty) -> sets (availability,
-sampling, prices, attributes) -> choosers -> choices (assembled, validated, counted).
-Everything long-table-sized is streamed: the per-occasion table choice_occasion_sets is
-sorted once, and `choices` unnests it joined only to small tables, keeping its order.
+multiple-purchase policy) -> history (previous purchase, loyalty) -> choosers -> sets
+(availability, sampling, prices, attributes) -> choices (assembled, validated, counted).
+Nothing long-table-sized is sorted: the per-occasion table choice_occasion_sets is joined to
+everything its rows need (choosers included) and sorted by occasion, and `choices` unnests it
+without a join, so its rows are stored in (occasion, alternative) order, the export's order.
 Intermediate tables are named choice_*; the last stage drops them, the card -> chooser map first.
 """
 
@@ -18,12 +19,13 @@ from demandprep.choices.pseudonyms import (
     pseudonym_key,
 )
 from demandprep.choices.settings import FRINGE, OUTSIDE, ChoiceSettings, load_choice_settings
-from demandprep.choices.validation import insertion_order_kept, validate_by_occasion
+from demandprep.choices.validation import validate_choices
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
-from demandprep.schemas.choices import Choices, Choosers
+from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
+from demandprep.warehouse import insertion_order_kept
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
@@ -166,11 +168,17 @@ def build_choice_sets(ctx: BuildContext) -> None:
         "055_choice_store_days",
         "060_choice_set_candidates",
         "061_choice_store_day_sets",
-        "062_choice_occasion_sets",
+        "079_choice_store_day_markets",  # before 062, which joins it: 090 joins nothing
+    )
+    # stored sorted by occasion, so that `choices` is written in key order (see 090)
+    with insertion_order_kept(ctx.con):
+        _run(ctx, settings, "062_choice_occasion_sets")
+    _run(
+        ctx,
+        settings,
         "070_choice_alternative_prices",
         "075_choice_alternative_attributes",
         "078_choice_store_day_info",
-        "079_choice_store_day_markets",
     )
 
 
@@ -182,12 +190,12 @@ def build_choosers(ctx: BuildContext) -> None:
 
 
 def build_choices(ctx: BuildContext) -> None:
-    """The long choices table, validated by whole occasions; records facts and cleans up."""
+    """The long choices table, validated on every row; records facts and cleans up."""
     settings = _settings(ctx)
-    # rows leave the unnest occasion by occasion; keep them in that order on disk
+    # rows leave the unnest in (occasion, alternative) order; keep that order on disk
     with insertion_order_kept(ctx.con):
         _run(ctx, settings, "090_choices")
-    validate_by_occasion(ctx.con, "choices", Choices)
+    validate_choices(ctx.con)
     facts = choice_facts(ctx.con, ctx.config)
     ctx.facts["choices"] = facts
     warn_on_facts(ctx, facts)

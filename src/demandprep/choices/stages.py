@@ -14,7 +14,8 @@ CHOICE_STAGES: tuple[Stage, ...] = (
     Stage("choice_inputs", prepare_choice_inputs),
     Stage("choice_occasions", build_choice_occasions),
     Stage("choice_history", build_choice_history),
-    Stage("choice_sets", build_choice_sets),
+    # before the sets: choice_occasion_sets carries each chooser's row (see build_choice_sets)
     Stage("choosers", build_choosers),
+    Stage("choice_sets", build_choice_sets),
     Stage("choices", build_choices),
 )

@@ -1,66 +1,150 @@
-"""Validate `choices` in batches that hold whole occasions, so occasion-level checks see them all.
+"""Guard `choices` with its pandera model: SQL twins of every check on every row, pandera itself
+on a sample of whole occasions.
 
-The build writes each occasion's rows together (090_choices.sql unnests one occasion at a time
-with insertion order kept), so a scan in storage order meets an occasion's rows in one run:
-each batch keeps back its last occasion and hands it to the next one.
+Pandera in Python batches cost as much as building the table, so each check of the model
+(`Choices`) has a twin in sql/choices/091_choices_checks.sql that DuckDB evaluates on every row
+in a few scans, without sorting; a check without its twin stops the build as a bug. Pandera
+validates the first `sample_rows` rows of whole occasions as stored (the build stores them in
+key order, so these are the occasions with the smallest ids, a spread of the table): it alone
+checks the column types, which are one per column, so the sample covers every row.
 """
 
 from __future__ import annotations
-
-from collections.abc import Iterator
-from contextlib import contextmanager
 
 import duckdb
 import pandera.polars as pa
 import polars as pl
 
+from demandprep.errors import UserError
 from demandprep.memory import memory_shared_with_batches
-from demandprep.validate import BATCH_ROWS, validate_frame
+from demandprep.schemas.choices import (
+    FRINGE,
+    LOYALTY_TOLERANCE,
+    OUTSIDE,
+    PRICE_SOURCES,
+    PSEUDONYM_PATTERN,
+    UNPRICED_SOURCES,
+    Choices,
+)
+from demandprep.sqlfiles import run_sql
+from demandprep.validate import SHOWN_FAILURES, validate_frame
+from demandprep.warehouse import insertion_order_kept
+
+SAMPLE_ROWS = 100_000
+CHECKS_FILE = "choices/091_choices_checks.sql"
+REPEATED_KEYS_FILE = "choices/092_choices_repeated_keys.sql"
+# counts of the SQL checks that are not failures of the model
+COUNT_COLUMNS = ("row_count", "rows_out_of_key_order")
+# checks counted in occasions, not rows
+OCCASION_CHECKS = (
+    "one_chosen_per_occasion",
+    "rows_match_set_size",
+    "occasion_columns_constant",
+    "chooser__str_matches",
+)
 
 
-@contextmanager
-def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
-    """Within the block, DuckDB stores and scans rows in the order they were written."""
-    before = con.execute("select current_setting('preserve_insertion_order')").fetchone()[0]
-    con.execute("set preserve_insertion_order = true")
+def validate_choices(con: duckdb.DuckDBPyConnection, sample_rows: int = SAMPLE_ROWS) -> int:
+    """Validate the `choices` table against `Choices`; returns its rows, raises on failure."""
+    with insertion_order_kept(con):
+        _validate_sample(con, sample_rows)
+        counts = _sql_check_counts(con)
+    failures = {name: n for name, n in counts.items() if name not in COUNT_COLUMNS and n}
+    if failures:
+        raise UserError(
+            f"stage output 'choices' breaks its schema {Choices.__name__}: {_summary(failures)}",
+            "this is a bad input or a bug; query the warehouse table 'choices' for the rows.",
+        )
+    return counts["row_count"]
+
+
+def model_checks(model: type[pa.DataFrameModel] = Choices) -> set[str]:
+    """Each check of `model` by its SQL twin's name: <column>__<check>, or the table check's."""
+    schema = model.to_schema()
+    names = {check.name for check in schema.checks}
+    for column_name, column in schema.columns.items():
+        names |= {f"{column_name}__{check.name}" for check in column.checks}
+        if not column.nullable:
+            names.add(f"{column_name}__not_nullable")
+    return names
+
+
+def sql_check_names() -> set[str]:
+    """The checks sql/choices/091 counts: its result columns, run on an empty `choices`."""
+    columns = Choices.to_schema().columns
+    empty = pl.DataFrame(schema={name: column.dtype.type for name, column in columns.items()})
+    con = duckdb.connect()
     try:
-        yield
+        con.register("empty_choices", empty.to_arrow())
+        con.execute("create table choices as select * from empty_choices")
+        result = run_sql(con, CHECKS_FILE, _check_parameters())
+        return {column[0] for column in result.description} - set(COUNT_COLUMNS)
     finally:
-        con.execute(f"set preserve_insertion_order = {'true' if before else 'false'}")
+        con.close()
 
 
-def validate_by_occasion(
-    con: duckdb.DuckDBPyConnection,
-    table: str,
-    model: type[pa.DataFrameModel],
-    batch_rows: int = BATCH_ROWS,
-) -> int:
-    """Validate `table` against `model` in batches cut between occasions; returns the rows."""
-    rows = 0
-    carry: pl.DataFrame | None = None
-    with insertion_order_kept(con), memory_shared_with_batches(con):
-        reader = con.cursor().sql(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
-        for batch in reader:
-            frame = pl.from_arrow(batch)
-            assert isinstance(frame, pl.DataFrame)
-            if carry is not None:
-                frame = pl.concat([carry, frame], how="vertical")
-            whole, carry = _split_last_occasion(frame)
-            if whole.height:
-                validate_frame(whole, model, table, first_row=rows)
-                rows += whole.height
-        if carry is not None and carry.height:
-            validate_frame(carry, model, table, first_row=rows)
-            rows += carry.height
-        if rows == 0:
-            validate_frame(pl.from_arrow(reader.schema.empty_table()), model, table)
-    return rows
+def _validate_sample(con: duckdb.DuckDBPyConnection, sample_rows: int) -> None:
+    with memory_shared_with_batches(con):
+        first_rows = {"rows": sample_rows + 1}
+        rows = con.cursor().sql("select * from choices limit $rows", params=first_rows)
+        sample = pl.from_arrow(rows.to_arrow_table())
+    assert isinstance(sample, pl.DataFrame)
+    if sample.height > sample_rows:
+        # keep whole occasions: the limit cut the last one short
+        sample = _without_last_occasion(sample)
+    validate_frame(sample, Choices, "choices")
 
 
-def _split_last_occasion(frame: pl.DataFrame) -> tuple[pl.DataFrame, pl.DataFrame]:
-    if frame.height == 0:
-        return frame, frame
-    # the last occasion's rows are the trailing run of its id
+def _without_last_occasion(frame: pl.DataFrame) -> pl.DataFrame:
     others = (frame["occasion"] != frame["occasion"][-1]).to_numpy().nonzero()[0]
-    start = int(others[-1]) + 1 if len(others) else 0
-    return frame.slice(0, start), frame.slice(start)
+    return frame.slice(0, int(others[-1]) + 1 if len(others) else 0)
+
+
+def _sql_check_counts(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
+    result = run_sql(con, CHECKS_FILE, _check_parameters())
+    names = [column[0] for column in result.description]
+    counts = dict(zip(names, result.fetchone(), strict=True))
+    missing = model_checks() - set(counts)
+    if missing:
+        raise RuntimeError(f"checks of Choices without an SQL twin in 091: {sorted(missing)}")
+    if counts["rows_out_of_key_order"]:
+        # a repeated pair need not sit next to its twin: group the pairs instead
+        counts.update(_repeated_keys(con))
+    return counts
+
+
+def _repeated_keys(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
+    result = run_sql(con, REPEATED_KEYS_FILE)
+    names = [column[0] for column in result.description]
+    return dict(zip(names, result.fetchone(), strict=True))
+
+
+def _check_parameters() -> dict[str, object]:
+    return {
+        "outside": OUTSIDE,
+        "fringe": FRINGE,
+        "price_sources": list(PRICE_SOURCES),
+        "unpriced_sources": list(UNPRICED_SOURCES),
+        "pseudonym_pattern": PSEUDONYM_PATTERN,
+        "loyalty_max": 1 + LOYALTY_TOLERANCE,
+    }
+
+
+def _summary(failures: dict[str, int]) -> str:
+    errors = _check_errors()
+    parts = []
+    for name, count in list(failures.items())[:SHOWN_FAILURES]:
+        unit = "occasions" if name in OCCASION_CHECKS else "rows"
+        parts.append(f"{errors.get(name, name)} ({count} {unit})")
+    return "; ".join(parts)
+
+
+def _check_errors() -> dict[str, str]:
+    """Each SQL check's name -> the words pandera uses for it ('chooser: str_matches(...)')."""
+    schema = Choices.to_schema()
+    errors = {check.name: check.error or check.name for check in schema.checks}
+    for column_name, column in schema.columns.items():
+        for check in column.checks:
+            errors[f"{column_name}__{check.name}"] = f"{column_name}: {check.error or check.name}"
+        errors[f"{column_name}__not_nullable"] = f"{column_name}: not_nullable"
+    return errors

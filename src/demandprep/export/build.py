@@ -157,6 +157,7 @@ def write_output_table(
             **{f"demandprep.{k}": v for k, v in output.metadata.items()},
         },
         output.sort_keys,
+        query.stored_order_sql,
     )
     types = {item.name: str(item.type) for item in written.schema}
     return (

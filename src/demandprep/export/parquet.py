@@ -3,22 +3,30 @@
 Rows arrive from DuckDB as Arrow batches of uneven size; they are re-cut into row groups of
 exactly `row_group_rows` rows so the file layout depends only on the data, never on how the
 engine happened to chunk it. Nothing time-dependent is written into the file.
+
+A table stored in its key order is read as stored (no sort), and each row group is checked to
+continue the keys' strictly rising order; at the first row out of order the file is started
+again from the sorted query. Either way the file holds the same rows in the same order.
 """
 
 from __future__ import annotations
 
 import os
 from collections.abc import Iterator, Mapping, Sequence
+from contextlib import suppress
 from dataclasses import dataclass
+from itertools import chain
 from pathlib import Path
 from typing import Any
 
 import duckdb
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from demandprep import __version__
 from demandprep.memory import memory_shared_with_batches
+from demandprep.warehouse import insertion_order_kept
 
 COMPRESSION = "zstd"
 COMPRESSION_LEVEL = 6
@@ -33,6 +41,10 @@ class WrittenTable:
     schema: pa.Schema
 
 
+class RowsOutOfKeyOrder(Exception):
+    """The rows read as stored do not rise strictly by the sort keys."""
+
+
 def write_query_parquet(
     con: duckdb.DuckDBPyConnection,
     sql: str,
@@ -42,18 +54,45 @@ def write_query_parquet(
     column_docs: Mapping[str, Mapping[str, str]],
     table_metadata: Mapping[str, str],
     sort_keys: Sequence[str] = (),
+    stored_order_sql: str | None = None,
 ) -> WrittenTable:
     """Write the rows of `sql` to `path`; each column carries its dictionary entry as metadata.
 
     `sort_keys` names the leading ORDER BY columns of `sql`; they are declared in the file.
+    `stored_order_sql` is `sql` without its sort, for a table stored in the order of its unique
+    sort keys: it is tried first, and `sql` runs only if a row comes out of that order.
     While the rows stream, DuckDB keeps to a share of its memory limit (the batches and the
     Parquet writer's row group live outside it).
     """
+    layout = (path, row_group_rows, column_docs, table_metadata, sort_keys)
+    if stored_order_sql is not None and sort_keys:
+        with suppress(RowsOutOfKeyOrder), insertion_order_kept(con):
+            return _write_query(con, stored_order_sql, params, *layout, check_order=True)
+    return _write_query(con, sql, params, *layout, check_order=False)
+
+
+def _write_query(
+    con: duckdb.DuckDBPyConnection,
+    sql: str,
+    params: Mapping[str, Any],
+    path: Path,
+    row_group_rows: int,
+    column_docs: Mapping[str, Mapping[str, str]],
+    table_metadata: Mapping[str, str],
+    sort_keys: Sequence[str],
+    check_order: bool,
+) -> WrittenTable:
     with memory_shared_with_batches(con):
         reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
         try:
             return _write_batches(
-                reader, path, row_group_rows, column_docs, table_metadata, sort_keys
+                reader,
+                path,
+                row_group_rows,
+                column_docs,
+                table_metadata,
+                sort_keys,
+                sort_keys if check_order else (),
             )
         finally:
             reader.close()  # a write that failed mid-stream must not leave the connection busy
@@ -66,11 +105,19 @@ def _write_batches(
     column_docs: Mapping[str, Mapping[str, str]],
     table_metadata: Mapping[str, str],
     sort_keys: Sequence[str],
+    checked_keys: Sequence[str] = (),
 ) -> WrittenTable:
     schema = documented_schema(reader.schema, column_docs, table_metadata)
     names = schema.names
     sorting = [pq.SortingColumn(names.index(key)) for key in sort_keys]
     rows = 0
+    groups = row_groups(reader, row_group_rows)
+    first = next(groups, None)
+    last_keys: tuple | None = None
+    if checked_keys and first is not None:
+        # checked before the file opens: rows not stored in order mostly show in the first group,
+        # and then no byte is written before the sorted query takes over
+        last_keys = _keys_rising(first, checked_keys, None)
     with path.open("wb") as handle:
         writer = pq.ParquetWriter(
             handle,
@@ -82,7 +129,9 @@ def _write_batches(
             sorting_columns=sorting or None,
         )
         try:
-            for group in row_groups(reader, row_group_rows):
+            for group in chain([first] if first is not None else [], groups):
+                if checked_keys and group is not first:
+                    last_keys = _keys_rising(group, checked_keys, last_keys)
                 writer.write_table(group, row_group_size=row_group_rows)
                 rows += group.num_rows
         finally:
@@ -90,6 +139,27 @@ def _write_batches(
         handle.flush()
         os.fsync(handle.fileno())
     return WrittenTable(path, rows, schema)
+
+
+def _keys_rising(group: pa.Table, keys: Sequence[str], before: tuple | None) -> tuple | None:
+    """The group's last keys, if its keys rise strictly from `before` on; else raise."""
+    columns = [group.column(key) for key in keys]
+    if group.num_rows == 0:
+        return before
+    first = tuple(column[0].as_py() for column in columns)
+    # Python compares str by code point, the byte order of UTF-8, as DuckDB's sort does
+    if None in first or (before is not None and not before < first):
+        raise RowsOutOfKeyOrder
+    later = [column.slice(1) for column in columns]
+    earlier = [column.slice(0, group.num_rows - 1) for column in columns]
+    rising = pa.repeat(False, group.num_rows - 1)
+    tied = pa.repeat(True, group.num_rows - 1)
+    for after, prior in zip(later, earlier, strict=True):
+        rising = pc.or_(rising, pc.and_(tied, pc.greater(after, prior)))
+        tied = pc.and_(tied, pc.equal(after, prior))
+    if not pc.all(pc.fill_null(rising, False)).as_py():
+        raise RowsOutOfKeyOrder
+    return tuple(column[-1].as_py() for column in columns)
 
 
 def row_groups(reader: pa.RecordBatchReader, size: int) -> Iterator[pa.Table]:

@@ -2,7 +2,9 @@
 
 Every query orders its rows totally so the same warehouse gives the same Parquet bytes: by the
 file's sort keys, which the step's pandera model proves unique (e.g. occasion and alternative),
-or, where no model makes them unique, by the keys and then every other column. Raw loyalty card
+or, where no model makes them unique, by the keys and then every other column. A table its step
+stores in key order (`choices`) also gets that query without its sort: the writer tries it first
+and checks the order as the rows pass (export/parquet.py). Raw loyalty card
 ids never leave the warehouse: the quarantine's original line text is kept only for sources
 whose column mapping has no card column.
 """
@@ -24,6 +26,9 @@ FORBIDDEN_COLUMNS = ("card",)
 # builds differ (it stays in the warehouse's ledger).
 UNEXPORTED_COLUMNS: dict[str, tuple[str, ...]] = {"ledger": ("ingested_at",)}
 WITHHELD_FLAG = "original_text_withheld"
+# Kinds whose step stores the warehouse table in the file's key order (its unique sort keys):
+# sorting them again would cost more than the rest of their export (150 M rows of choices).
+STORED_IN_KEY_ORDER = ("choices",)
 
 
 @dataclass(frozen=True)
@@ -37,6 +42,7 @@ class OutputTable:
     assumption: str | None = None
     keys_unique: bool = False
     metadata: dict[str, str] = field(default_factory=dict)
+    stored_in_key_order: bool = False
 
     @property
     def file_name(self) -> str:
@@ -50,6 +56,8 @@ class TableQuery:
 
     sql: str
     params: dict[str, Any]
+    # the same select without its sort, for a table stored in key order (else None)
+    stored_order_sql: str | None = None
 
 
 # kind -> (warehouse table, sort keys, required?, keys unique by the step's model?)
@@ -110,7 +118,8 @@ def plan_outputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[
 def output_table(kind: str) -> OutputTable:
     """The one data file of a kind written once per build (not per assumption), e.g. 'choices'."""
     table, keys, _required, unique = _KINDS[kind]
-    return OutputTable(kind, kind, table, keys, keys_unique=unique)
+    stored = kind in STORED_IN_KEY_ORDER
+    return OutputTable(kind, kind, table, keys, keys_unique=unique, stored_in_key_order=stored)
 
 
 def table_columns(con: duckdb.DuckDBPyConnection, table: str) -> list[str]:
@@ -149,8 +158,9 @@ def output_query(
     # Why: extra sort columns cost time on big tables and change nothing when keys are unique.
     ties = [] if output.keys_unique else [c for c in columns if c not in output.sort_keys]
     order = ", ".join(f"{quote_identifier(c)} nulls last" for c in (*output.sort_keys, *ties))
-    sql = f"select {', '.join(select)} from {output.table}{where} order by {order}"  # noqa: S608
-    return TableQuery(sql, params)
+    unsorted = f"select {', '.join(select)} from {output.table}{where}"  # noqa: S608
+    stored = unsorted if output.stored_in_key_order and output.keys_unique else None
+    return TableQuery(f"{unsorted} order by {order}", params, stored)
 
 
 def card_free_sources(config: ProjectConfig) -> list[str]:

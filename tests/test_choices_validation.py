@@ -1,0 +1,211 @@
+"""`choices` is guarded on every row by SQL twins of its pandera model's checks, and pandera
+itself on a sample of whole occasions; the build stores the table in (occasion, alternative)
+order, which lets the uniqueness check and the export skip a sort."""
+
+from __future__ import annotations
+
+from datetime import date, datetime, timedelta
+
+import duckdb
+import pyarrow as pa
+import pytest
+from choices_fixtures import ChoiceWorld, make_config
+from export_fixtures import fill_warehouse
+
+from demandprep.choices.settings import load_choice_settings
+from demandprep.choices.stages import CHOICE_STAGES
+from demandprep.choices.validation import model_checks, sql_check_names, validate_choices
+from demandprep.context import BuildContext
+from demandprep.errors import UserError
+from demandprep.sqlfiles import LINE_COMMENT, sql_text
+from demandprep.stage import run_stage
+from demandprep.warehouse import insertion_order_kept
+
+MONDAY = date(2024, 1, 15)
+# the occasion the breaks below aim at: past burn-in, with earlier purchases
+TARGET = "(select max(occasion) from choices where not burn_in and purchase_count > 0)"
+ONE_INSIDE_ROW = (
+    f"rowid = (select max(rowid) from choices where occasion = {TARGET} "
+    "and alternative <> 'none' and not chosen)"
+)
+CHOSEN_INSIDE_ROW = (
+    f"rowid = (select max(rowid) from choices where occasion = {TARGET} "
+    "and alternative <> 'none' and chosen)"
+)
+NONE_ROW = f"occasion = {TARGET} and alternative = 'none'"
+WHOLE_OCCASION = f"occasion = {TARGET}"
+
+
+@pytest.fixture(scope="module")
+def sorted_choices() -> pa.Table:
+    """The export fixture's choices table, rows in (occasion, alternative) order."""
+    con = duckdb.connect()
+    fill_warehouse(con, occasions=60)
+    return con.sql("select * from choices order by occasion, alternative").to_arrow_table()
+
+
+def _warehouse(rows: pa.Table, order: str = "occasion, alternative") -> duckdb.DuckDBPyConnection:
+    con = duckdb.connect(config={"preserve_insertion_order": True, "threads": 2})
+    con.register("fixture_rows", rows)
+    con.execute(f"create table choices as select * from fixture_rows order by {order}")  # noqa: S608
+    con.unregister("fixture_rows")
+    return con
+
+
+def _message(con: duckdb.DuckDBPyConnection, **options) -> str:
+    with pytest.raises(UserError) as caught:
+        validate_choices(con, **options)
+    return caught.value.one_line()
+
+
+def test_the_build_stores_choices_in_key_order():
+    world = ChoiceWorld(shelf=None)
+    for sku, brand in (("a1", "A"), ("b1", "B"), ("c1", "C")):
+        world.product(sku, brand, 1)
+    world.store("S1")
+    world.store("S2")
+    for n in range(24):
+        store, sku = ("S1", "S2")[n % 2], ("a1", "b1", "c1")[n % 3]
+        world.visit(
+            store,
+            datetime(2024, 1, 15, 9) + timedelta(hours=5 * n),
+            f"card{n % 5}",
+            [(sku, 1, 2.0)],
+        )
+    ctx = world.build({"choices": {"occasions": "all_visits"}})
+    ctx.con.execute("set preserve_insertion_order = true")
+    stored = ctx.con.execute("select occasion, alternative from choices").fetchall()
+    assert len(stored) > 24
+    assert stored == sorted(stored)
+
+
+def test_the_sorted_steps_write_in_order_however_many_rows():
+    # a small build fits in one batch and keeps its order whatever the plan; a plan that keeps
+    # insertion order shows "Batch Create Table As", one with a hash join "Create Table As"
+    world = ChoiceWorld()
+    world.product("a1", "A", 1)
+    world.store("S1")
+    world.visit("S1", datetime(2024, 1, 15, 9), "card1", [("a1", 1, 2.0)])
+    con = duckdb.connect(config={"preserve_insertion_order": False, "threads": 2})
+    world.write(con)
+    ctx = BuildContext(con=con, config=make_config())
+    for stage in CHOICE_STAGES[:-1]:
+        run_stage(stage, ctx)
+    params = load_choice_settings(con, ctx.config).params()
+    for name in ("062_choice_occasion_sets", "090_choices"):
+        text = sql_text(f"choices/{name}.sql")
+        code = LINE_COMMENT.sub("", text)
+        used = {k: v for k, v in params.items() if f"${k}" in code}
+        with insertion_order_kept(con):
+            plan = con.execute(f"explain {text}", used).fetchall()[0][1]
+        assert "Batch Create Table As" in plan, name
+
+
+def test_every_check_of_the_model_has_its_sql_twin():
+    # the SQL must enforce each check pandera would, or the sample alone would guard it
+    assert model_checks() <= sql_check_names()
+    assert "chosen__not_nullable" in model_checks()
+    assert "one_chosen_per_occasion" in model_checks()
+    assert "price__greater_than_or_equal_to" in model_checks()
+
+
+def test_an_unbroken_table_passes_in_or_out_of_key_order(sorted_choices):
+    assert validate_choices(_warehouse(sorted_choices), sample_rows=0) == 420
+    shuffled = _warehouse(sorted_choices, order="hash(occasion, alternative)")
+    assert validate_choices(shuffled, sample_rows=0) == 420
+
+
+BREAKS = [
+    ("occasion = null", ONE_INSIDE_ROW, "occasion: not_nullable"),
+    ("store = null", WHOLE_OCCASION, "store: not_nullable"),
+    ("chosen = null", ONE_INSIDE_ROW, "chosen: not_nullable"),
+    ("previous_choice = null", ONE_INSIDE_ROW, "previous_choice: not_nullable"),
+    ("household_known = null", ONE_INSIDE_ROW, "household_known: not_nullable"),
+    (
+        "chooser = 'CARD-0001' || repeat('0', 23)",
+        WHOLE_OCCASION,
+        "chooser: str_matches('^[0-9a-f]{32}$')",
+    ),
+    ("choice_set_size = 0", WHOLE_OCCASION, "choice_set_size: greater_than_or_equal_to(1)"),
+    ("price = -1.0", ONE_INSIDE_ROW, "price: greater_than_or_equal_to(0)"),
+    ("price_source = 'guessed'", ONE_INSIDE_ROW, "price_source: isin("),
+    ("loyalty = -0.5", ONE_INSIDE_ROW, "loyalty: greater_than_or_equal_to(0)"),
+    ("loyalty = 1.5", ONE_INSIDE_ROW, "loyalty: less_than_or_equal_to(1.000000001)"),
+    (
+        "days_since_last_purchase = -1",
+        WHOLE_OCCASION,
+        "days_since_last_purchase: greater_than_or_equal_to(0)",
+    ),
+    ("purchase_count = -1", WHOLE_OCCASION, "purchase_count: greater_than_or_equal_to(0)"),
+    ("chosen = true", ONE_INSIDE_ROW, "exactly one chosen row per occasion"),
+    ("chosen = false", CHOSEN_INSIDE_ROW, "exactly one chosen row per occasion"),
+    ("choice_set_size = 8", WHOLE_OCCASION, "no more rows than the choice set"),
+    ("choice_set_size = 6", WHOLE_OCCASION, "no more rows than the choice set"),
+    ("price = null", ONE_INSIDE_ROW, "price is null exactly where price_source is missing"),
+    ("promo = null", ONE_INSIDE_ROW, "promo is null only on unpriced rows"),
+    ("price_source = 'outside'", ONE_INSIDE_ROW, "'outside' price source exactly on the 'none'"),
+    ("price_source = 'missing'", NONE_ROW, "'outside' price source exactly on the 'none'"),
+    ("firm = null", ONE_INSIDE_ROW, "firm is null only for 'fringe' and 'none'"),
+    ("quantity = 1.0", ONE_INSIDE_ROW, "quantity and spend set exactly on the chosen inside row"),
+    ("spend = null", CHOSEN_INSIDE_ROW, "quantity and spend set exactly on the chosen inside"),
+    ("added_to_set = true", ONE_INSIDE_ROW, "only the chosen alternative is ever added"),
+    ("loyalty = null", ONE_INSIDE_ROW, "loyalty is null exactly on burn-in occasions"),
+    (
+        "days_since_last_purchase = null",
+        WHOLE_OCCASION,
+        "days_since_last_purchase is null exactly when purchase_count = 0",
+    ),
+    ("previous_choice = true", NONE_ROW, "previous_choice never on 'none'"),
+    ("store = 'S99'", ONE_INSIDE_ROW, "occasion-level columns constant within the occasion"),
+    ("holdout = not holdout", ONE_INSIDE_ROW, "occasion-level columns constant"),
+    ("occasion_at = null", ONE_INSIDE_ROW, "occasion-level columns constant"),
+    # one row's chooser broken: the occasion's chooser is no longer constant
+    ("chooser = 'ffff' || chooser[5:]", ONE_INSIDE_ROW, "occasion-level columns constant"),
+]
+
+
+@pytest.mark.parametrize(("assignment", "where", "expected"), BREAKS)
+def test_a_broken_row_fails_naming_its_check(sorted_choices, assignment, where, expected):
+    con = _warehouse(sorted_choices)
+    con.execute(f"update choices set {assignment} where {where}")  # noqa: S608
+    # no pandera sample: the SQL twins alone must find it
+    message = _message(con, sample_rows=0)
+    assert message.startswith("stage output 'choices' breaks its schema Choices: ")
+    assert expected in message
+
+
+def test_a_repeated_alternative_fails_whether_stored_next_to_its_twin_or_not(sorted_choices):
+    ordered = f"select alternative from choices where occasion = {TARGET} order by alternative"  # noqa: S608
+    # the second alternative renamed to the first stays in key order (the twins are neighbours);
+    # the third renamed to the first breaks the order, so the check groups the pairs instead
+    for position in (1, 2):
+        con = _warehouse(sorted_choices)
+        alternatives = [r[0] for r in con.execute(ordered).fetchall()]
+        con.execute(
+            f"update choices set alternative = ? where occasion = {TARGET} and alternative = ?",  # noqa: S608
+            [alternatives[0], alternatives[position]],
+        )
+        assert "each alternative at most once per occasion" in _message(con, sample_rows=0)
+
+
+def test_a_wrong_column_type_fails_in_the_pandera_sample(sorted_choices):
+    con = _warehouse(sorted_choices)
+    con.execute("alter table choices alter choice_set_size type integer")
+    assert "choice_set_size" in _message(con, sample_rows=0)
+
+
+def test_the_pandera_sample_shows_the_failing_value(sorted_choices):
+    con = _warehouse(sorted_choices)
+    first = "(select min(occasion) from choices)"
+    con.execute(
+        f"update choices set price_source = 'guessed' where occasion = {first} "  # noqa: S608
+        "and alternative <> 'none'"
+    )
+    assert "(value 'guessed')" in _message(con, sample_rows=10)
+
+
+def test_an_empty_table_passes():
+    con = duckdb.connect()
+    fill_warehouse(con, occasions=60)
+    con.execute("delete from choices")
+    assert validate_choices(con) == 0

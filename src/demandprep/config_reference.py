@@ -36,6 +36,7 @@ from demandprep.config import (
     InstrumentsSection,
     MarketSizeAssumption,
     MarketsSection,
+    PartitioningSection,
     ProductsSection,
     ProjectConfig,
     ProjectSection,
@@ -73,6 +74,7 @@ REFERENCE_SECTIONS: list[tuple[str, Any]] = [
     ("demographic_draws", DemographicDrawsSection),
     ("export", ExportSection),
     ("schedule", ScheduleSection),
+    ("partitioning", PartitioningSection),
 ]
 
 

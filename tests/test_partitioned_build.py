@@ -22,6 +22,7 @@ from demandprep.pipeline import run_build, run_ingest
 from demandprep.warehouse import open_warehouse
 
 INGEST_RECORDS = ("ledger", "quarantine")
+LAST_DAY = Path("receipts/2024/receipts_2024-02-18.csv.gz")
 PARTITIONING = '\n[partitioning]\nby = "region"\n'
 
 
@@ -123,3 +124,33 @@ def test_partitioning_by_a_column_stores_lack_is_one_line(
         "stores column. Hint: use one of: store, region, chain, population."
     )
     assert latest_build(config.export.root) is None
+
+
+def test_a_night_with_one_more_day_recomputes_only_its_week_in_each_partition(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    last_day = config.config_path.parent / LAST_DAY
+    held_back = tmp_path / last_day.name
+    shutil.move(last_day, held_back)
+    first = build_partitioned(config, map_in_process(config))
+    assert first.ctx.facts["build_scope"]["build_mode"] == "full"
+    shutil.move(held_back, last_day)
+    second = build_partitioned(config, map_in_process(config))
+    scope = second.ctx.facts["build_scope"]
+    # the day's file holds lines of every region, so every partition recomputes its week
+    assert scope["build_mode"] == "incremental"
+    assert scope["periods_rebuilt"] == ["2024-02-12"]
+    assert scope["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor", "Saltmarsh Coast"]
+    assert_same_tables(single_process_build, second.folder)
+
+
+def test_a_night_without_new_files_keeps_latest(coffee_sample: Path, tmp_path: Path) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    first = build_partitioned(config, map_in_process(config))
+
+    def no_partition_may_run(partitions):
+        raise AssertionError("a night without new files mapped partitions")
+
+    again = build_partitioned(config, no_partition_may_run)
+    assert again.skipped and again.kept == first.folder

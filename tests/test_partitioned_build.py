@@ -154,3 +154,44 @@ def test_a_night_without_new_files_keeps_latest(coffee_sample: Path, tmp_path: P
 
     again = build_partitioned(config, no_partition_may_run)
     assert again.skipped and again.kept == first.folder
+
+
+def test_the_partitioned_command_without_a_partition_key_is_one_line(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    from typer.testing import CliRunner
+
+    from demandprep.cli import app
+
+    config = sample_copy(coffee_sample, tmp_path / "sample")
+    result = CliRunner().invoke(app, ["partitioned", str(config.config_path)], terminal_width=2000)
+    assert result.exit_code == 1, result.output
+    assert result.output.strip() == (
+        f"error: {config.config_path}: partitioning.by is not set, so there is nothing to "
+        'partition. Hint: name a stores column (e.g. by = "region") under [partitioning], '
+        "or use `demandprep run`."
+    )
+    assert not (config.config_path.parent / "warehouse").exists()
+
+
+def test_receipt_ids_unique_in_the_chain_refuse_partitioning(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    text = config.config_path.read_text(encoding="utf-8")
+    config.config_path.write_text(
+        text.replace(
+            'categories = ["coffee"]', 'categories = ["coffee"]\nreceipt_ids_unique_per = "chain"'
+        ),
+        "utf-8",
+    )
+    config = load_config(config.config_path)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line() == (
+        f"{config.config_path}: key 'partitioning.by' needs receipt ids unique per store or "
+        "store-day, but markets.receipt_ids_unique_per = 'chain' lets a visit span partitions. "
+        "Hint: set receipt_ids_unique_per to 'store' or 'store_day', or leave partitioning.by "
+        "unset."
+    )
+    assert not config.partitioning.root.exists() and latest_build(config.export.root) is None

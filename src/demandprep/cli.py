@@ -239,6 +239,31 @@ def run_command(config: ConfigArg, force: ForceOption = False) -> None:
     exit_on_problems(summary)
 
 
+@app.command("partitioned")
+def partitioned_command(config: ConfigArg, force: ForceOption = False) -> None:
+    """Ingest and build partition by partition on a Dask cluster ([partitioning])."""
+    with user_errors():
+        project = load_config(config)
+        if project.partitioning.by is None:
+            raise UserError(
+                f"{project.config_path}: partitioning.by is not set, so there is nothing to "
+                "partition.",
+                'name a stores column (e.g. by = "region") under [partitioning], or use '
+                "`demandprep run`.",
+            )
+        try:
+            import distributed  # noqa: F401 - the optional extra, checked before any work
+            import prefect_dask  # noqa: F401
+        except ImportError as error:
+            raise UserError(
+                f"the partitioned build needs {error.name}, which is not installed.",
+                "install the extra: pip install 'demandprep[distributed]'.",
+            ) from None
+        from demandprep.flows.partitioned import run_partitioned
+
+        say(run_partitioned(str(project.config_path), force)["message"])
+
+
 @app.command("serve")
 def serve_command(config: ConfigArg) -> None:
     """Serve the nightly flow on the config's schedule with Prefect (runs until stopped)."""

@@ -624,6 +624,7 @@ class PartitioningSection(Section):
         "Folder of the partition warehouses and summaries. Every Dask worker must see it; "
         "relative to the config file's folder.",
         default=Path("partitions"),
+        validate_default=True,
     )
     cluster_address: str | None = described(
         "Dask scheduler address, e.g. tcp://10.0.0.5:8786. Unset: the address in "

@@ -194,4 +194,5 @@ def test_receipt_ids_unique_in_the_chain_refuse_partitioning(
         "Hint: set receipt_ids_unique_per to 'store' or 'store_day', or leave partitioning.by "
         "unset."
     )
-    assert not config.partitioning.root.exists() and latest_build(config.export.root) is None
+    # refused from the config alone: nothing was ingested or partitioned
+    assert not config.warehouse.path.exists() and not config.partitioning.root.exists()

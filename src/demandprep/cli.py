@@ -244,13 +244,9 @@ def partitioned_command(config: ConfigArg, force: ForceOption = False) -> None:
     """Ingest and build partition by partition on a Dask cluster ([partitioning])."""
     with user_errors():
         project = load_config(config)
-        if project.partitioning.by is None:
-            raise UserError(
-                f"{project.config_path}: partitioning.by is not set, so there is nothing to "
-                "partition.",
-                'name a stores column (e.g. by = "region") under [partitioning], or use '
-                "`demandprep run`.",
-            )
+        from demandprep.partitioned.plan import require_partition_key
+
+        require_partition_key(project)  # before Prefect starts
         try:
             import distributed  # noqa: F401 - the optional extra, checked before any work
             import prefect_dask  # noqa: F401

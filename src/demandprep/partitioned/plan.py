@@ -62,8 +62,8 @@ def partition_config(config: ProjectConfig, partition: Partition) -> ProjectConf
 
 def plan_partitions(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[Partition]:
     """The partitions of the coordinator's receipt lines, by the stores column named in config."""
+    require_partition_key(config)
     column = config.partitioning.by
-    assert column is not None, "plan_partitions needs partitioning.by"
     check_partitioning(con, config)
     # the column was checked against the stores table's real columns just above
     rows = con.execute(
@@ -75,6 +75,26 @@ def plan_partitions(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> li
     return [Partition(key, tuple(stores)) for key, stores in rows]
 
 
+def require_partition_key(config: ProjectConfig) -> None:
+    """Refuse a partitioned build of a config that names no partition key."""
+    if config.partitioning.by is None:
+        raise UserError(
+            f"{config.config_path}: partitioning.by is not set, so there is nothing to partition.",
+            'name a stores column (e.g. by = "region") under [partitioning], or use '
+            "`demandprep run`.",
+        )
+
+
+def check_visits_stay_in_stores(config: ProjectConfig) -> None:
+    """Refuse receipt ids unique only in the chain: a visit could then span partitions."""
+    if config.markets.receipt_ids_unique_per == "chain":
+        raise UserError(
+            f"{config.config_path}: key 'partitioning.by' needs receipt ids unique per store or "
+            "store-day, but markets.receipt_ids_unique_per = 'chain' lets a visit span partitions.",
+            "set receipt_ids_unique_per to 'store' or 'store_day', or leave partitioning.by unset.",
+        )
+
+
 def check_partitioning(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:
     """Refuse a partitioning that could split a market or a visit between partitions."""
     column = config.partitioning.by
@@ -84,12 +104,7 @@ def check_partitioning(con: duckdb.DuckDBPyConnection, config: ProjectConfig) ->
             f"{config.config_path}: {key} names {column!r}, which is not a stores column.",
             f"use one of: {', '.join(table_columns(con, 'stores'))}.",
         )
-    if config.markets.receipt_ids_unique_per == "chain":
-        raise UserError(
-            f"{config.config_path}: {key} needs receipt ids unique per store or store-day, "
-            "but markets.receipt_ids_unique_per = 'chain' lets a visit span partitions.",
-            "set receipt_ids_unique_per to 'store' or 'store_day', or leave partitioning.by unset.",
-        )
+    check_visits_stay_in_stores(config)
     geography = config.markets.geography
     if geography in ("store", column) or geography not in table_columns(con, "stores"):
         return  # an unknown geography column is the market settings' to report

@@ -15,7 +15,12 @@ from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.ingest.runner import ingest_all
 from demandprep.partitioned.map import PartitionSummaries, build_partition
-from demandprep.partitioned.plan import Partition, plan_partitions
+from demandprep.partitioned.plan import (
+    Partition,
+    check_visits_stay_in_stores,
+    plan_partitions,
+    require_partition_key,
+)
 from demandprep.partitioned.reduce import reduce_stages
 from demandprep.pipeline import BuildOutcome
 from demandprep.stage import run_stage
@@ -37,6 +42,8 @@ def build_partitioned(
     from demandprep.flows.incremental import latest_build_is_current
 
     check_export_root(config.export.root)
+    require_partition_key(config)
+    check_visits_stay_in_stores(config)
     with open_warehouse(config.warehouse) as con:
         ingest_all(con, config)
         if not force and latest_build_is_current(con, config):

@@ -253,6 +253,27 @@ def run_command(
     exit_on_problems(summary)
 
 
+@app.command("partitioned")
+def partitioned_command(config: ConfigArg, force: ForceOption = False) -> None:
+    """Ingest and build partition by partition on a Dask cluster ([partitioning])."""
+    with user_errors():
+        project = load_config(config)
+        from demandprep.partitioned.plan import require_partition_key
+
+        require_partition_key(project)  # before Prefect starts
+        try:
+            import distributed  # noqa: F401 - the optional extra, checked before any work
+            import prefect_dask  # noqa: F401
+        except ImportError as error:
+            raise UserError(
+                f"the partitioned build needs {error.name}, which is not installed.",
+                "install the extra: pip install 'demandprep[distributed]'.",
+            ) from None
+        from demandprep.flows.partitioned import run_partitioned
+
+        say(run_partitioned(str(project.config_path), force)["message"])
+
+
 @app.command("serve")
 def serve_command(config: ConfigArg) -> None:
     """Serve the nightly flow on the config's schedule with Prefect (runs until stopped)."""

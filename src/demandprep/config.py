@@ -636,6 +636,51 @@ class ExportSection(Section):
         return _resolve(value, info)
 
 
+class PartitioningSection(Section):
+    """A partitioned build: per-partition market scans as Prefect tasks on a Dask cluster."""
+
+    by: Identifier | None = described(
+        "Stores column that partitions the build. Each of its values is one partition with "
+        "its own warehouse; unset: one process builds everything (docs/scaling.md).",
+        default=None,
+    )
+    root: LaxPath = described(
+        "Folder of the partition warehouses and summaries. Every Dask worker must see it; "
+        "relative to the config file's folder.",
+        default=Path("partitions"),
+        validate_default=True,
+    )
+    cluster_address: str | None = described(
+        "Dask scheduler address, e.g. tcp://10.0.0.5:8786. Unset: the address in "
+        "cluster_address_env, else a local cluster of local_workers processes.",
+        default=None,
+    )
+    cluster_address_env: str = described(
+        "Environment variable with the scheduler address. Read when cluster_address is unset.",
+        default="DEMANDPREP_DASK_ADDRESS",
+        pattern=r"^[A-Za-z_][A-Za-z0-9_]*$",
+    )
+    local_workers: int = described(
+        "Worker processes of the local cluster. Used when no address is given.",
+        unit="processes",
+        default=2,
+        ge=1,
+        le=256,
+    )
+    partition_retries: int = described(
+        "Retries of a failed partition task. On top of Dask's own rerun of a lost worker's task.",
+        unit="retries",
+        default=1,
+        ge=0,
+        le=10,
+    )
+
+    @field_validator("root", mode="after")
+    @classmethod
+    def _absolute(cls, value: Path, info: ValidationInfo) -> Path:
+        return _resolve(value, info)
+
+
 class ScheduleSection(Section):
     """The nightly run of `demandprep serve`."""
 
@@ -680,6 +725,9 @@ class ProjectConfig(Section):
     )
     export: ExportSection = described("Build folders and formats.", default=ExportSection())
     schedule: ScheduleSection = described("The nightly schedule.", default=ScheduleSection())
+    partitioning: PartitioningSection = described(
+        "Partitioned builds on a Dask cluster.", default=PartitioningSection()
+    )
     config_path: Path | None = Field(None, exclude=True)
 
     @property

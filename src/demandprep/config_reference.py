@@ -36,6 +36,7 @@ from demandprep.config import (
     InstrumentsSection,
     MarketSizeAssumption,
     MarketsSection,
+    PartitioningSection,
     ProductsSection,
     ProjectConfig,
     ProjectSection,
@@ -73,6 +74,7 @@ REFERENCE_SECTIONS: list[tuple[str, Any]] = [
     ("demographic_draws", DemographicDrawsSection),
     ("export", ExportSection),
     ("schedule", ScheduleSection),
+    ("partitioning", PartitioningSection),
 ]
 
 
@@ -189,6 +191,10 @@ STARTER_VALUES: dict[str, Any] = {
         "demographics": Commented(["household_size"]),
     },
     "demographic_draws": {"draws": Commented(200)},
+    "partitioning": {
+        "by": Commented("region"),
+        "cluster_address": Commented("tcp://10.0.0.5:8786"),
+    },
 }
 STARTER_HEAD = """\
 # demandprep starter config. Edit the paths and column mappings for your data, then run

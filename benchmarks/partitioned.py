@@ -1,0 +1,135 @@
+"""Benchmark: the partitioned build on a local Dask cluster of 1 and 2 workers, and one process.
+
+    .venv/bin/python benchmarks/partitioned.py                      # the committed sample
+    .venv/bin/python benchmarks/partitioned.py --partitioned 1 2    # worker counts to compare
+    .venv/bin/python benchmarks/partitioned.py --folder WORLD       # a generated world's folder
+
+Each contender runs in its own child process on a fresh copy of the folder (ingest, build,
+export from an empty warehouse), with `partitioning.by = region`:
+
+- single:          the one-process build (`pipeline.run_ingest` + `run_build`);
+- partitioned N:   `partitioned.runner.build_partitioned` with the map on a local Dask cluster
+                   of N worker processes (one thread each), the partitions submitted through a
+                   plain Dask client (Prefect's server start is left out of the figures).
+
+It prints wall time and CPU time (this process plus the workers, each worker's own count read
+before the cluster closes), and what the reduce exchanged: raw receipt lines against the rows and
+bytes of the partitions' summary files. No assertion: this is a measurement.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+SAMPLE = REPO / "data_samples" / "coffee_sample"
+PARTITIONING = '\n[partitioning]\nby = "region"\n'
+
+
+def cpu_seconds() -> float:
+    """User plus system CPU time of this process so far."""
+    usage = resource.getrusage(resource.RUSAGE_SELF)
+    return usage.ru_utime + usage.ru_stime
+
+
+def fresh_copy(source: Path, target: Path):
+    """A copy of the folder without warehouse or builds, partitioned by region; its config."""
+    from demandprep.config import load_config
+
+    shutil.copytree(source, target, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    config_path = target / "demandprep.toml"
+    config_path.write_text(config_path.read_text(encoding="utf-8") + PARTITIONING, "utf-8")
+    return load_config(config_path)
+
+
+def run_single(config) -> dict:
+    """The one-process build; its wall and CPU time."""
+    from demandprep.pipeline import run_build, run_ingest
+
+    started, cpu = time.perf_counter(), cpu_seconds()
+    run_ingest(config)
+    run_build(config)
+    return {"wall": time.perf_counter() - started, "cpu": cpu_seconds() - cpu}
+
+
+def run_partitioned(config, workers: int) -> dict:
+    """The partitioned build on a local cluster of `workers` processes; times and sizes."""
+    from distributed import Client, LocalCluster
+
+    from demandprep.partitioned.map import build_partition
+    from demandprep.partitioned.runner import build_partitioned
+    from demandprep.warehouse import connect
+
+    exchanged: dict = {}
+    with (
+        LocalCluster(
+            n_workers=workers, processes=True, threads_per_worker=1, dashboard_address=None
+        ) as cluster,
+        Client(cluster) as client,
+    ):
+        worker_cpu_before = sum(client.run(cpu_seconds).values())
+
+        def map_with_client(partitions):
+            futures = [
+                client.submit(build_partition, config, item, pure=False) for item in partitions
+            ]
+            summaries = client.gather(futures)
+            exchanged["partitions"] = len(summaries)
+            for summary in ("market_store_visits", "market_sku_sales"):
+                exchanged[summary] = {
+                    "rows": sum(item.rows[summary] for item in summaries),
+                    "bytes": sum(item.files[summary].stat().st_size for item in summaries),
+                }
+            return summaries
+
+        started, cpu = time.perf_counter(), cpu_seconds()
+        build_partitioned(config, map_with_client)
+        wall, own_cpu = time.perf_counter() - started, cpu_seconds() - cpu
+        worker_cpu = sum(client.run(cpu_seconds).values()) - worker_cpu_before
+    con = connect(config.warehouse, read_only=True)
+    exchanged["raw_lines"] = con.execute("select count(*) from raw_lines").fetchone()[0]
+    con.close()
+    return {"wall": wall, "cpu": own_cpu + worker_cpu, "exchanged": exchanged}
+
+
+def child(folder: Path, contender: str) -> None:
+    """Run one contender on a fresh copy and print its figures as JSON."""
+    with tempfile.TemporaryDirectory() as scratch:
+        config = fresh_copy(folder, Path(scratch) / "world")
+        figures = (
+            run_single(config) if contender == "single" else run_partitioned(config, int(contender))
+        )
+    print(json.dumps(figures))
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--folder", type=Path, default=SAMPLE)
+    parser.add_argument("--partitioned", type=int, nargs="+", default=[1, 2])
+    parser.add_argument("--child", help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.child:
+        child(args.folder, args.child)
+        return
+    print(f"folder: {args.folder}")
+    print(f"{'contender':<16}{'wall s':>9}{'CPU s':>9}")
+    for contender in ["single", *map(str, args.partitioned)]:
+        command = [sys.executable, __file__, "--folder", str(args.folder), "--child", contender]
+        output = subprocess.run(command, check=True, capture_output=True, text=True).stdout
+        figures = json.loads(output.strip().splitlines()[-1])
+        name = contender if contender == "single" else f"partitioned {contender}"
+        print(f"{name:<16}{figures['wall']:>9.1f}{figures['cpu']:>9.1f}")
+        if "exchanged" in figures:
+            print(f"  exchanged: {json.dumps(figures['exchanged'])}")
+
+
+if __name__ == "__main__":
+    main()

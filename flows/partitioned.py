@@ -1,0 +1,96 @@
+"""The partitioned build as a Prefect flow: one task per partition on a Dask cluster.
+
+The coordinator (this flow's process) ingests into the configured warehouse, submits each
+partition's map step (`partitioned/map.py`) to the Dask task runner, waits for every one, then
+reduces and publishes in its own thread. A partition task that fails is retried
+(`partitioning.partition_retries`); a worker that dies mid-partition has its task rerun by Dask
+on another worker. Rerunning a partition is safe: its ingest and its summaries are atomic and
+incremental, so a rerun finishes what the lost one began.
+"""
+
+from __future__ import annotations
+
+import os
+from typing import Any
+
+from prefect import flow, get_run_logger, task
+from prefect.futures import wait
+
+from demandprep.config import ProjectConfig, load_config
+from demandprep.flows.nightly import NO_RESULTS
+from demandprep.partitioned.map import PartitionSummaries, build_partition
+from demandprep.partitioned.plan import Partition
+from demandprep.partitioned.runner import build_partitioned
+
+
+@task(name="build partition", **NO_RESULTS)
+def partition_task(config_path: str, key: str | None, stores: list[str]) -> PartitionSummaries:
+    """One partition's ingest and period summaries, in its own warehouse on a worker.
+
+    The task gets the config's path, not the model: the Dask runner walks a task's arguments,
+    and a config model is not a plain collection (a section has a field named `keys`). The
+    config file sits on the storage every worker sees, beside the partitions. The partition
+    travels as plain values for the same reason.
+    """
+    return build_partition(load_config(config_path), Partition(key, tuple(stores)))
+
+
+def map_on_cluster(config: ProjectConfig):
+    """The map step as Prefect tasks on the flow's task runner; returns when all finished."""
+
+    def run(partitions: list[Partition]) -> list[PartitionSummaries]:
+        futures = [
+            partition_task.with_options(
+                task_run_name=f"partition {item.label}",
+                retries=config.partitioning.partition_retries,
+            ).submit(str(config.config_path), item.key, list(item.stores))
+            for item in partitions
+        ]
+        wait(futures)  # every partition ends before the first failure is raised
+        return [future.result() for future in futures]
+
+    return run
+
+
+@flow(name="demandprep-partitioned", description="Build partition by partition on Dask.")
+def partitioned_flow(config_path: str, force_rebuild: bool = False) -> dict[str, Any]:
+    """Ingest, build every partition on the cluster, reduce and publish; or keep `latest`."""
+    config = load_config(config_path)
+    outcome = build_partitioned(config, map_on_cluster(config), force_rebuild)
+    if outcome.skipped:
+        message = f"nothing new since the latest build {outcome.kept}"
+        get_run_logger().info(message)
+        return {"status": "skipped", "message": message, "build": None}
+    message = f"published {outcome.folder.name}"
+    get_run_logger().info(message)
+    return {"status": "published", "message": message, "build": str(outcome.folder)}
+
+
+def cluster_address(config: ProjectConfig) -> str | None:
+    """The scheduler address from the config, else from its environment variable, else None."""
+    settings = config.partitioning
+    return settings.cluster_address or os.environ.get(settings.cluster_address_env) or None
+
+
+def dask_task_runner(config: ProjectConfig):
+    """A Dask task runner on the configured cluster, or on a local cluster of worker processes."""
+    from prefect_dask import DaskTaskRunner
+
+    address = cluster_address(config)
+    if address is not None:
+        return DaskTaskRunner(address=address)
+    return DaskTaskRunner(
+        cluster_class="distributed.LocalCluster",
+        cluster_kwargs={
+            "n_workers": config.partitioning.local_workers,
+            "processes": True,
+            "threads_per_worker": 1,
+        },
+    )
+
+
+def run_partitioned(config_path: str, force_rebuild: bool = False) -> dict[str, Any]:
+    """Run the partitioned flow on the cluster its config names."""
+    config = load_config(config_path)
+    flow_on_cluster = partitioned_flow.with_options(task_runner=dask_task_runner(config))
+    return flow_on_cluster(config_path, force_rebuild)

@@ -1,0 +1,88 @@
+"""The map step: one partition's ingest and period summaries, in its own warehouse.
+
+It runs the single-process build's own stages, up to and including the two scans of raw lines
+(`050`/`060`), so the summaries stay incremental per partition; then it writes them as Parquet
+(sorted, so a partition that recomputed nothing writes the same bytes again).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import duckdb
+import pyarrow.parquet as pq
+
+from demandprep.config import ProjectConfig
+from demandprep.context import BuildContext
+from demandprep.ingest.runner import ingest_all
+from demandprep.market.stages import MARKET_STAGES
+from demandprep.memory import memory_shared_with_batches
+from demandprep.partitioned.plan import (
+    SUMMARY_FILES,
+    Partition,
+    partition_config,
+    summary_path,
+)
+from demandprep.stage import Stage, run_stage
+from demandprep.warehouse import open_warehouse
+
+# the stages a partition runs: the market build up to its last scan of raw lines
+LAST_MAP_STAGE = "market_sku_sales"
+BATCH_ROWS = 65_536
+
+
+@dataclass(frozen=True)
+class PartitionSummaries:
+    """What a finished partition hands the reduce: its summary files and what it rebuilt."""
+
+    partition: Partition
+    files: dict[str, Path]
+    rows: dict[str, int]
+    build_scope: dict[str, Any] = field(default_factory=dict)
+
+
+def map_stages() -> tuple[Stage, ...]:
+    """The market stages from the settings to the last period summary, in order."""
+    names = [stage.name for stage in MARKET_STAGES]
+    return MARKET_STAGES[: names.index(LAST_MAP_STAGE) + 1]
+
+
+def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSummaries:
+    """Ingest into the partition's warehouse, keep its stores' lines, build and write summaries."""
+    own = partition_config(config, partition)
+    with open_warehouse(own.warehouse) as con:
+        ingest_all(con, own)
+        keep_partition_lines(con, partition)
+        ctx = BuildContext(con=con, config=own)
+        for stage in map_stages():
+            run_stage(stage, ctx)
+        files = {name: summary_path(config, partition, name) for name in SUMMARY_FILES}
+        rows = {name: write_summary(con, name, path) for name, path in files.items()}
+    return PartitionSummaries(partition, files, rows, ctx.facts.get("build_scope", {}))
+
+
+def keep_partition_lines(con: duckdb.DuckDBPyConnection, partition: Partition) -> None:
+    """Delete the lines of other partitions' stores (this warehouse is the partition's alone)."""
+    con.execute(
+        "delete from raw_lines where not list_contains($stores, store)",
+        {"stores": list(partition.stores)},
+    )
+
+
+def write_summary(con: duckdb.DuckDBPyConnection, summary: str, path: Path) -> int:
+    """Write one summary, sorted, to `path` (via a temporary file and a rename); returns rows."""
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    rows = 0
+    # a cursor of its own: the stages' last statement may still hold the connection's result
+    with con.cursor() as cursor, memory_shared_with_batches(cursor):
+        # the table names are ours (SUMMARY_FILES), never the user's
+        reader = cursor.sql(f"from {summary} order by all").to_arrow_reader(BATCH_ROWS)  # noqa: S608
+        with pq.ParquetWriter(temporary, reader.schema, compression="zstd") as writer:
+            for batch in reader:
+                writer.write_batch(batch)
+                rows += batch.num_rows
+    os.replace(temporary, path)
+    return rows

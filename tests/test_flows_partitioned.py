@@ -1,0 +1,106 @@
+"""The partitioned flow on a local Dask cluster of two worker processes started by the test.
+
+Slow (Prefect's test server, a cluster, three builds of the sample): opt in with -m slow.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import threading
+import time
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+from distributed import Client, LocalCluster
+from test_partitioned_build import PARTITIONING, assert_same_tables, sample_copy
+
+from demandprep.export.folder import latest_build
+from demandprep.flows.partitioned import run_partitioned
+from demandprep.pipeline import run_build, run_ingest
+
+pytestmark = pytest.mark.slow
+
+HARNESS_START_TIMEOUT_SECONDS = 180
+WAIT_SECONDS = 600
+
+
+@pytest.fixture(scope="module", autouse=True)
+def prefect_server() -> Iterator[None]:
+    """One Prefect test server for the module (it takes ~20 s to start)."""
+    from prefect.testing.utilities import prefect_test_harness
+
+    with prefect_test_harness(server_startup_timeout=HARNESS_START_TIMEOUT_SECONDS):
+        yield
+
+
+@pytest.fixture()
+def cluster() -> Iterator[LocalCluster]:
+    """Two worker processes of one thread each, as the issue asks."""
+    with LocalCluster(
+        n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None
+    ) as local:
+        yield local
+
+
+@pytest.fixture(scope="module")
+def single_process_build(coffee_sample: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The sample built by the one-process runner (the reference)."""
+    config = sample_copy(coffee_sample, tmp_path_factory.mktemp("single") / "sample")
+    run_ingest(config)
+    folder, _ = run_build(config)
+    return folder
+
+
+def on_cluster(address: str) -> str:
+    return PARTITIONING + f'cluster_address = "{address}"\n'
+
+
+def test_partitioned_flow_on_two_workers_gives_the_single_process_tables(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path, cluster: LocalCluster
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", on_cluster(cluster.scheduler_address))
+    result = run_partitioned(str(config.config_path))
+    assert result["status"] == "published"
+    assert latest_build(config.export.root) == Path(result["build"])
+    assert_same_tables(single_process_build, Path(result["build"]))
+
+
+def test_a_worker_killed_mid_partition_is_replaced_and_the_tables_agree(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path, cluster: LocalCluster
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", on_cluster(cluster.scheduler_address))
+    outcome: dict = {}
+
+    def night() -> None:
+        try:
+            outcome["result"] = run_partitioned(str(config.config_path))
+        except BaseException as error:  # noqa: BLE001 - handed to the test's thread
+            outcome["error"] = error
+
+    runner = threading.Thread(target=night)
+    runner.start()
+    with Client(cluster.scheduler_address) as client:
+        killed = kill_a_worker_inside_a_partition(client, config.partitioning.root)
+    runner.join(WAIT_SECONDS)
+    assert not runner.is_alive()
+    assert "error" not in outcome, outcome.get("error")
+    with pytest.raises(ProcessLookupError):
+        os.kill(killed, 0)  # the process really ended
+    assert outcome["result"]["status"] == "published"
+    assert_same_tables(single_process_build, Path(outcome["result"]["build"]))
+
+
+def kill_a_worker_inside_a_partition(client: Client, partitions_root: Path) -> int:
+    """SIGKILL the first worker seen running a partition task whose warehouse exists; its pid."""
+    deadline = time.monotonic() + WAIT_SECONDS
+    while time.monotonic() < deadline:
+        busy = [address for address, keys in client.processing().items() if keys]
+        started = list(partitions_root.glob("partition-*/warehouse.duckdb"))
+        if busy and started:
+            pid = client.run(os.getpid, workers=[busy[0]])[busy[0]]
+            os.kill(pid, signal.SIGKILL)
+            return pid
+        time.sleep(0.05)
+    raise AssertionError("no partition task started on the cluster")

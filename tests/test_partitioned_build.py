@@ -1,0 +1,198 @@
+"""A partitioned build (one warehouse per region, then a reduce) against the one-process build.
+
+The map runs in this process here; tests/test_flows_partitioned.py runs it on a Dask cluster.
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import polars as pl
+import pytest
+from polars.testing import assert_frame_equal
+
+from demandprep.config import ProjectConfig, load_config
+from demandprep.errors import UserError
+from demandprep.export.folder import latest_build, published_builds
+from demandprep.partitioned.map import build_partition
+from demandprep.partitioned.plan import plan_partitions
+from demandprep.partitioned.runner import build_partitioned, map_in_process
+from demandprep.pipeline import run_build, run_ingest
+from demandprep.warehouse import open_warehouse
+
+INGEST_RECORDS = ("ledger", "quarantine")
+LAST_DAY = Path("receipts/2024/receipts_2024-02-18.csv.gz")
+PARTITIONING = '\n[partitioning]\nby = "region"\n'
+
+
+def sample_copy(sample: Path, folder: Path, partitioning: str = "") -> ProjectConfig:
+    """A private copy of the committed sample, with `partitioning` appended to its config."""
+    shutil.copytree(sample, folder, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    config_path = folder / "demandprep.toml"
+    config_path.write_text(config_path.read_text(encoding="utf-8") + partitioning, "utf-8")
+    return load_config(config_path)
+
+
+def built_tables(folder: Path) -> list[str]:
+    """The Parquet files of a build folder that the stages build (not the ingest's records)."""
+    names = sorted(path.name for path in folder.glob("*.parquet"))
+    return [name for name in names if not name.startswith(INGEST_RECORDS)]
+
+
+def assert_same_tables(expected: Path, actual: Path) -> None:
+    """The built tables of two build folders hold the same rows (floats within 1e-12).
+
+    The ledger and quarantine name each input's absolute path, which differs between copies.
+    """
+    names = built_tables(expected)
+    assert names == built_tables(actual)
+    assert any(name.startswith("shares_") for name in names) and "choices.parquet" in names
+    for name in names:
+        left = pl.read_parquet(expected / name)
+        right = pl.read_parquet(actual / name)
+        columns = left.columns
+        # polars compares floats with rtol 0 and atol 1e-12; other columns exactly
+        assert_frame_equal(
+            left.sort(columns, nulls_last=True),
+            right.sort(columns, nulls_last=True),
+            check_exact=False,
+            rel_tol=0,
+            abs_tol=1e-12,
+        )
+
+
+@pytest.fixture(scope="module")
+def single_process_build(coffee_sample: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The sample built by the one-process runner (the reference)."""
+    config = sample_copy(coffee_sample, tmp_path_factory.mktemp("single") / "sample")
+    run_ingest(config)
+    folder, _ = run_build(config)
+    return folder
+
+
+def test_partitioned_build_gives_the_single_process_tables(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    outcome = build_partitioned(config, map_in_process(config))
+    assert outcome.folder is not None and latest_build(config.export.root) == outcome.folder
+    assert_same_tables(single_process_build, outcome.folder)
+
+
+def test_partitions_are_the_regions_and_hold_only_their_stores(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    run_ingest(config)
+    with open_warehouse(config.warehouse) as con:
+        partitions = plan_partitions(con, config)
+        regions = con.execute("select distinct region from stores order by 1").fetchall()
+        visits = con.execute("select count(distinct store) from raw_lines").fetchone()[0]
+    assert [item.key for item in partitions] == [row[0] for row in regions]
+    assert sum(len(item.stores) for item in partitions) == visits
+    summaries = build_partition(config, partitions[0])
+    stores = pl.read_parquet(summaries.files["market_store_visits"])["store"].unique().sort()
+    assert stores.to_list() == sorted(partitions[0].stores)
+
+
+def test_a_failed_partition_publishes_nothing_and_keeps_latest(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    first = build_partitioned(config, map_in_process(config)).folder
+
+    def second_partition_fails(partitions):
+        build_partition(config, partitions[0])
+        raise RuntimeError("worker lost")
+
+    with pytest.raises(RuntimeError, match="worker lost"):
+        build_partitioned(config, second_partition_fails, force=True)
+    assert latest_build(config.export.root) == first
+    assert published_builds(config.export.root) == [first]
+    assert not list((config.export.root / ".staging").glob("*"))
+
+
+def test_partitioning_by_a_column_stores_lack_is_one_line(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", '\n[partitioning]\nby = "county"\n')
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line() == (
+        f"{config.config_path}: key 'partitioning.by' names 'county', which is not a "
+        "stores column. Hint: use one of: store, region, chain, population."
+    )
+    assert latest_build(config.export.root) is None
+
+
+def test_a_night_with_one_more_day_recomputes_only_its_week_in_each_partition(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    last_day = config.config_path.parent / LAST_DAY
+    held_back = tmp_path / last_day.name
+    shutil.move(last_day, held_back)
+    first = build_partitioned(config, map_in_process(config))
+    assert first.ctx.facts["build_scope"]["build_mode"] == "full"
+    shutil.move(held_back, last_day)
+    second = build_partitioned(config, map_in_process(config))
+    scope = second.ctx.facts["build_scope"]
+    # the day's file holds lines of every region, so every partition recomputes its week
+    assert scope["build_mode"] == "incremental"
+    assert scope["periods_rebuilt"] == ["2024-02-12"]
+    assert scope["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor", "Saltmarsh Coast"]
+    assert_same_tables(single_process_build, second.folder)
+
+
+def test_a_night_without_new_files_keeps_latest(coffee_sample: Path, tmp_path: Path) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    first = build_partitioned(config, map_in_process(config))
+
+    def no_partition_may_run(partitions):
+        raise AssertionError("a night without new files mapped partitions")
+
+    again = build_partitioned(config, no_partition_may_run)
+    assert again.skipped and again.kept == first.folder
+
+
+def test_the_partitioned_command_without_a_partition_key_is_one_line(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    from typer.testing import CliRunner
+
+    from demandprep.cli import app
+
+    config = sample_copy(coffee_sample, tmp_path / "sample")
+    result = CliRunner().invoke(app, ["partitioned", str(config.config_path)], terminal_width=2000)
+    assert result.exit_code == 1, result.output
+    assert result.output.strip() == (
+        f"error: {config.config_path}: partitioning.by is not set, so there is nothing to "
+        'partition. Hint: name a stores column (e.g. by = "region") under [partitioning], '
+        "or use `demandprep run`."
+    )
+    assert not (config.config_path.parent / "warehouse").exists()
+
+
+def test_receipt_ids_unique_in_the_chain_refuse_partitioning(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    text = config.config_path.read_text(encoding="utf-8")
+    config.config_path.write_text(
+        text.replace(
+            'categories = ["coffee"]', 'categories = ["coffee"]\nreceipt_ids_unique_per = "chain"'
+        ),
+        "utf-8",
+    )
+    config = load_config(config.config_path)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line() == (
+        f"{config.config_path}: key 'partitioning.by' needs receipt ids unique per store or "
+        "store-day, but markets.receipt_ids_unique_per = 'chain' lets a visit span partitions. "
+        "Hint: set receipt_ids_unique_per to 'store' or 'store_day', or leave partitioning.by "
+        "unset."
+    )
+    # refused from the config alone: nothing was ingested or partitioned
+    assert not config.warehouse.path.exists() and not config.partitioning.root.exists()

@@ -62,7 +62,7 @@ store_geographies as (
     from market_store_geographies
 ),
 
-market_ids as (
+built_markets as (
     select distinct
         market,
         geography,
@@ -91,11 +91,11 @@ known_visits as (
 pool_rows as (
     select
         'market' as draw_level,
-        market_ids.market as pool,
+        built_markets.market as pool,
         known_visits.card,
         count(*) as visits,
     from known_visits
-    inner join market_ids using (geography, period_start)
+    inner join built_markets using (geography, period_start)
     group by all
     union all
     select
@@ -141,17 +141,17 @@ pool_sizes as (
 
 market_levels as (
     select
-        market_ids.market,
-        market_ids.geography,
+        built_markets.market,
+        built_markets.geography,
         case
             when coalesce(own.households, 0) >= $min_households then 'market'
             when coalesce(area.households, 0) >= $min_households then 'geography'
             else 'all'
         end as level,
-    from market_ids
-    left join pool_sizes as own on own.draw_level = 'market' and own.pool = market_ids.market
+    from built_markets
+    left join pool_sizes as own on own.draw_level = 'market' and own.pool = built_markets.market
     left join pool_sizes as area
-        on area.draw_level = 'geography' and area.pool = market_ids.geography
+        on area.draw_level = 'geography' and area.pool = built_markets.geography
 ),
 
 market_pools as (

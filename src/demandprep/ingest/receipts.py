@@ -21,10 +21,10 @@ from demandprep.config import (
     ReceiptSource,
 )
 from demandprep.errors import UserError
+from demandprep.ingest.line_checks import validate_raw_lines
 from demandprep.ingest.reader import SourceColumn, is_typed_timestamp
 from demandprep.ingest.references import table_columns
 from demandprep.ingest.timings import PhaseTimer
-from demandprep.ingest.line_checks import validate_raw_lines
 from demandprep.personal import carries_cards
 from demandprep.schemas.ingest import RawLines
 from demandprep.sqlfiles import run_sql

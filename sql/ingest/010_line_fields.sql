@@ -3,8 +3,9 @@
 -- quoted field ends on its line) and, when the reader refuses the line, why. A line without
 -- quotes keeps no list of fields: it is split where its fields are read (ingest_line_fields,
 -- 005), so no copy of every field is stored; its field count is its delimiters plus one, which
--- is the length of string_split's list (tests/test_ingest_fields.py)
-create temp table ingest_fields as
+-- is the length of string_split's list (tests/test_ingest_fields.py). Run once per piece of
+-- lines handed over by the reader (`ingest_lines`: an Arrow table, never copied into a table)
+insert into ingest_fields
 with
 
 lines as (

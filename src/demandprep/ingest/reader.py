@@ -65,8 +65,8 @@ TEXT_TYPES = ("VARCHAR",)
 TIMESTAMP_TYPES = ("TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "DATE")
 ZONED_TIMESTAMP_TYPES = ("TIMESTAMP WITH TIME ZONE",)
 COMMON_DELIMITERS = (";", ",", "\t", "|")
-# lines gathered in Python before one insert into DuckDB: one insert per chunk cost ms each,
-# and Python holds at most this much (plus the threads' read-ahead) beside DuckDB's limit
+# lines gathered in Python before DuckDB splits them (010): one statement per chunk cost ms
+# each, and Python holds at most this much (plus the threads' read-ahead) beside DuckDB's limit
 HANDOFF_BYTES = 32 * 1024 * 1024
 
 CSV_OPTIONS = (
@@ -198,10 +198,9 @@ def stage_files(
                 names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
                 raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
     else:
-        with timer.phase("read"):
-            _read_lines(con, paths, source)
+        _read_lines(con, paths, source, timer)
         with timer.phase("classify"):
-            _split_lines(con, source)
+            run_sql(con, "ingest/011_file_records.sql")
             columns, mapped = _stage_csv(con, paths, source, name)
     rows = con.execute("select path, lines, records from ingest_file_records").fetchall()
     return Staged(
@@ -212,55 +211,60 @@ def stage_files(
     )
 
 
-def _read_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
+def _read_lines(
+    con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource, timer: PhaseTimer
+) -> None:
     # each file's physical lines, cut apart from any CSV parser (lines.py), files read in as
-    # many threads as DuckDB has; DuckDB gets them in pieces of about HANDOFF_BYTES
-    con.execute(
-        "create temp table ingest_lines "
-        "(position integer, line_no bigint, text varchar, raw blob, length bigint)"
-    )
+    # many threads as DuckDB has; DuckDB splits them into `ingest_fields` in pieces of about
+    # HANDOFF_BYTES, straight from Arrow (the reader threads read on meanwhile)
+    run_sql(con, "ingest/009_ingest_fields_table.sql")
     workers = int(con.execute("select current_setting('threads')").fetchall()[0][0])
     pieces: list[pa.Table] = []
     size = 0
+    chunks = batch_line_chunks(paths, source.encoding, workers)
     try:
-        for position, chunk in batch_line_chunks(paths, source.encoding, workers):
+        while True:
+            with timer.phase("read"):
+                found = next(chunks, None)
+            if found is None:
+                break
+            position, chunk = found
             positions = pa.array(np.full(chunk.num_rows, position, dtype=np.int32))
             pieces.append(chunk.add_column(0, "position", positions))
             size += pieces[-1].nbytes
             if size >= HANDOFF_BYTES:
-                _hand_over(con, pieces)
+                with timer.phase("classify"):
+                    _split_lines(con, pieces, source)
                 pieces, size = [], 0
     except LinesUnreadable as error:
         raise FileUnreadable(f"{error.path}: cannot be read ({error}).") from None
-    if pieces:
-        _hand_over(con, pieces)
-
-
-def _hand_over(con: duckdb.DuckDBPyConnection, pieces: list[pa.Table]) -> None:
-    """Append line tables to `ingest_lines` in one insert (one per chunk costs ms each)."""
-    con.register("ingest_line_chunk", pa.concat_tables(pieces))
-    try:
-        con.execute("insert into ingest_lines select * from ingest_line_chunk")
     finally:
-        con.unregister("ingest_line_chunk")
+        chunks.close()  # stops the reader threads when a piece failed
+    if pieces:
+        with timer.phase("classify"):
+            _split_lines(con, pieces, source)
 
 
-def _split_lines(con: duckdb.DuckDBPyConnection, source: FileSource) -> None:
-    # one record per line: text, fields, and why the reader refuses it (010); then the count
-    # per file
-    run_sql(
-        con,
-        "ingest/010_line_fields.sql",
-        {
-            "delimiter": source.delimiter,
-            "header": source.header,
-            "encoding": source.encoding,
-            "max_line_bytes": MAX_LINE_BYTES,
-            "kept_bytes": KEPT_BYTES,
-        },
-    )
-    con.execute("drop table ingest_lines")
-    run_sql(con, "ingest/011_file_records.sql")
+def _split_lines(
+    con: duckdb.DuckDBPyConnection, pieces: list[pa.Table], source: FileSource
+) -> None:
+    """One record per line of `pieces` into `ingest_fields`: text, fields, and why the reader
+    refuses it (010); one statement per piece (one per chunk costs ms each)."""
+    con.register("ingest_lines", pa.concat_tables(pieces))
+    try:
+        run_sql(
+            con,
+            "ingest/010_line_fields.sql",
+            {
+                "delimiter": source.delimiter,
+                "header": source.header,
+                "encoding": source.encoding,
+                "max_line_bytes": MAX_LINE_BYTES,
+                "kept_bytes": KEPT_BYTES,
+            },
+        )
+    finally:
+        con.unregister("ingest_lines")
 
 
 def _stage_csv(

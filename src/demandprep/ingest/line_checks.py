@@ -22,7 +22,12 @@ from demandprep.errors import UserError
 from demandprep.memory import memory_shared_with_batches
 from demandprep.schemas.ingest import RawLines
 from demandprep.sqlfiles import run_sql
-from demandprep.validate import SHOWN_FAILURES, validate_frame
+from demandprep.validate import (
+    SHOWN_FAILURES,
+    check_wording,
+    model_check_names,
+    validate_frame,
+)
 
 SAMPLE_ROWS = 100_000
 CHECKS_FILE = "ingest/070_raw_lines_checks.sql"
@@ -51,13 +56,7 @@ def validate_raw_lines(
 
 def model_checks(model: type[pa.DataFrameModel]) -> set[str]:
     """Each check of `model` by its SQL twin's name: <column>__<check>, or the table check's."""
-    schema = model.to_schema()
-    names = {check.name for check in schema.checks}
-    for column_name, column in schema.columns.items():
-        names |= {f"{column_name}__{check.name}" for check in column.checks}
-        if not column.nullable:
-            names.add(f"{column_name}__not_nullable")
-    return names
+    return model_check_names(model)
 
 
 def sql_check_names() -> set[str]:
@@ -116,19 +115,8 @@ def _statistic(column: Any, check_name: str, statistic: str) -> Any:
 
 
 def _summary(failures: dict[str, int], model: type[pa.DataFrameModel]) -> str:
-    errors = _check_errors(model)
+    errors = check_wording(model)
     return "; ".join(
         f"{errors.get(name, name)} ({count} rows)"
         for name, count in list(failures.items())[:SHOWN_FAILURES]
     )
-
-
-def _check_errors(model: type[pa.DataFrameModel]) -> dict[str, str]:
-    """Each SQL check's name -> the words pandera uses for it ('line_kind: isin([...])')."""
-    schema = model.to_schema()
-    errors = {check.name: check.error or check.name for check in schema.checks}
-    for column_name, column in schema.columns.items():
-        for check in column.checks:
-            errors[f"{column_name}__{check.name}"] = f"{column_name}: {check.error or check.name}"
-        errors[f"{column_name}__not_nullable"] = f"{column_name}: not_nullable"
-    return errors

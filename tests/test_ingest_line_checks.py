@@ -147,6 +147,15 @@ def test_the_pandera_sample_names_the_check_but_withholds_the_value():
     )
 
 
+def test_the_pandera_sample_sees_the_batch_before_its_commit():
+    # the ingest validates inside the batch's transaction: a sample read on another connection
+    # (a cursor) would see none of the batch's lines and leave the twins alone
+    con = _warehouse()
+    con.execute("begin transaction")
+    con.execute(f"update raw_lines set line_kind = 'gift' where {ROW}")  # noqa: S608
+    assert "(value withheld)" in _message(con, sample_rows=100)
+
+
 def test_an_empty_batch_passes():
     con = _warehouse()
     con.execute("delete from raw_lines where file_id >= 'F0000002'")

@@ -81,7 +81,8 @@ def _validate_sample(
         return
     with memory_shared_with_batches(con):
         sql = f"select * from raw_lines {IN_BATCH} limit $rows"  # noqa: S608 (static text)
-        rows = con.cursor().sql(sql, params={**id_range, "rows": sample_rows})
+        # on `con` itself, not a cursor: the batch's lines are not committed yet
+        rows = con.sql(sql, params={**id_range, "rows": sample_rows})
         sample = pl.from_arrow(rows.to_arrow_table())
     assert isinstance(sample, pl.DataFrame)
     if sample.height:

@@ -152,6 +152,18 @@ def test_threaded_read_fills_the_warehouse_as_the_serial_read(
     assert repr(threaded).replace(four, one) == repr(serial)
 
 
+def test_lines_split_in_many_pieces_fill_the_warehouse_as_in_one(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    whole = warehouse_tables(copy_faults(tmp_path / "one"), threads=2)
+    monkeypatch.setattr(reader_module, "HANDOFF_BYTES", 500)  # 010 runs once per few lines
+    pieces = warehouse_tables(copy_faults(tmp_path / "many"), threads=2)
+    assert whole["raw_lines"]
+    assert whole["quarantine"]
+    one, many = str(tmp_path / "one"), str(tmp_path / "many")
+    assert repr(pieces).replace(many, one) == repr(whole)
+
+
 def test_checksums_taken_in_threads_match_hashlib_in_file_order(tmp_path: Path) -> None:
     paths = write_files(tmp_path)
     found = discover_source("receipts", paths, {}, workers=3)

@@ -32,3 +32,7 @@ create or replace temp macro ingest_trim(text) as
             then trim(text)
         else text
     end;
+-- the fields of a line of ingest_fields (010) that the reader takes (null for one it refuses):
+-- a quoted line's list as 010 split it, any other line split at the delimiter here
+create or replace temp macro ingest_line_fields(text, fields, reason, delimiter) as
+    case when reason is null then coalesce(fields, string_split(text, delimiter)) end;

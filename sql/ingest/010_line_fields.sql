@@ -1,7 +1,11 @@
 -- one row per physical line of the batch's files: its text without the terminator, its fields
 -- split at the configured delimiter ('"' quotes a field, '""' inside quotes is one quote, a
--- quoted field ends on its line) and, when the reader refuses the line, why
-create temp table ingest_fields as
+-- quoted field ends on its line) and, when the reader refuses the line, why. A line without
+-- quotes keeps no list of fields: it is split where its fields are read (ingest_line_fields,
+-- 005), so no copy of every field is stored; its field count is its delimiters plus one, which
+-- is the length of string_split's list (tests/test_ingest_fields.py). Run once per piece of
+-- lines handed over by the reader (`ingest_lines`: an Arrow table, never copied into a table)
+insert into ingest_fields
 with
 
 lines as (
@@ -48,9 +52,10 @@ unterminated as (
 split as (
     select
         *,
+        text is not null and not contains(text, '"') as unquoted,
         case
             when text is null then null
-            when not contains(text, '"') then string_split(text, $delimiter)
+            when not contains(text, '"') then null
             -- every field quoted, no quote inside one (a common export): split between them
             when regexp_full_match(
                 text,
@@ -75,7 +80,7 @@ split as (
                     else field
                 end
             )
-        end as split_fields,
+        end as quoted_fields,
     from unterminated
 ),
 
@@ -86,9 +91,10 @@ classified as (
             when length > $max_line_bytes then 'line_too_long'
             when text is null then 'unparseable_field'
             when contains(text, chr(13)) then 'stray_carriage_return'
-            when split_fields is null and (length(text) - length(replace(text, '"', ''))) % 2 = 1
+            when unquoted then null
+            when quoted_fields is null and (length(text) - length(replace(text, '"', ''))) % 2 = 1
                 then 'unclosed_quote'
-            when split_fields is null then 'unparseable_field'
+            when quoted_fields is null then 'unparseable_field'
         end as reason,
     from split
 ),
@@ -104,9 +110,14 @@ final as (
             when text is null then regexp_replace(raw::varchar, '(\x0D)?\x0A$', '')
             else text
         end as text,
-        case when reason is null then split_fields end as fields,
+        case when reason is null then quoted_fields end as fields,
         -- stored beside the list: the width checks need not scan the lists
-        case when reason is null then len(split_fields) end as field_count,
+        case
+            when reason is null and unquoted
+                then (strlen(text) - strlen(replace(text, $delimiter, ''))) // strlen($delimiter)
+                + 1
+            when reason is null then len(quoted_fields)
+        end as field_count,
         reason,
         case reason
             when 'line_too_long' then 'the line has ' || length || ' bytes, more than '

@@ -1,11 +1,12 @@
 -- accepted lines that repeat one already accepted: the same store, sale day, receipt and line
 -- earlier in this batch (same file or an earlier file) or in raw_lines (an earlier run); a line
 -- without a line number repeats when its receipt (store, day, receipt) was already accepted
--- from another file
+-- from another file. The CTEs read more than once are not materialized: a copy of every
+-- accepted line's key strings cost more than scanning ingest_checked again
 create temp table ingest_duplicates as
 with
 
-candidates as (
+candidates as not materialized (
     select
         ordinal,
         path,
@@ -18,7 +19,7 @@ candidates as (
 ),
 
 -- only the days this batch covers: raw_lines is appended in time order, so this prunes
-accepted_before as (
+accepted_before as not materialized (
     select
         store,
         sold_at::date as sale_day,
@@ -29,7 +30,7 @@ accepted_before as (
 ),
 
 -- a cheap first pass on one hashed key; the exact rule then runs on the few keys it keeps
-keyed as (
+keyed as not materialized (
     select
         *,
         hash(store, sale_day, receipt, line) as key_hash,

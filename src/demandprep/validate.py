@@ -63,3 +63,26 @@ def _summary(error: Exception, withheld: bool) -> str:
 
 def _shown(value: object, withheld: bool) -> str:
     return "value withheld" if withheld else f"value {value!r}"
+
+
+def model_check_names(model: type[pa.DataFrameModel]) -> set[str]:
+    """Each check of `model` by its SQL twin's name: <column>__<check> (<column>__not_nullable
+    for a column's nulls), or the table check's own name."""
+    schema = model.to_schema()
+    names = {check.name for check in schema.checks}
+    for column_name, column in schema.columns.items():
+        names |= {f"{column_name}__{check.name}" for check in column.checks}
+        if not column.nullable:
+            names.add(f"{column_name}__not_nullable")
+    return names
+
+
+def check_wording(model: type[pa.DataFrameModel]) -> dict[str, str]:
+    """Each SQL twin's name -> the words pandera uses for its check ('line_kind: isin([...])')."""
+    schema = model.to_schema()
+    errors = {check.name: check.error or check.name for check in schema.checks}
+    for column_name, column in schema.columns.items():
+        for check in column.checks:
+            errors[f"{column_name}__{check.name}"] = f"{column_name}: {check.error or check.name}"
+        errors[f"{column_name}__not_nullable"] = f"{column_name}: not_nullable"
+    return errors

@@ -27,7 +27,12 @@ from demandprep.schemas.choices import (
     Choices,
 )
 from demandprep.sqlfiles import run_sql
-from demandprep.validate import SHOWN_FAILURES, validate_frame
+from demandprep.validate import (
+    SHOWN_FAILURES,
+    check_wording,
+    model_check_names,
+    validate_frame,
+)
 from demandprep.warehouse import insertion_order_kept
 
 SAMPLE_ROWS = 100_000
@@ -60,13 +65,7 @@ def validate_choices(con: duckdb.DuckDBPyConnection, sample_rows: int = SAMPLE_R
 
 def model_checks(model: type[pa.DataFrameModel] = Choices) -> set[str]:
     """Each check of `model` by its SQL twin's name: <column>__<check>, or the table check's."""
-    schema = model.to_schema()
-    names = {check.name for check in schema.checks}
-    for column_name, column in schema.columns.items():
-        names |= {f"{column_name}__{check.name}" for check in column.checks}
-        if not column.nullable:
-            names.add(f"{column_name}__not_nullable")
-    return names
+    return model_check_names(model)
 
 
 def sql_check_names() -> set[str]:
@@ -141,10 +140,4 @@ def _summary(failures: dict[str, int]) -> str:
 
 def _check_errors() -> dict[str, str]:
     """Each SQL check's name -> the words pandera uses for it ('chooser: str_matches(...)')."""
-    schema = Choices.to_schema()
-    errors = {check.name: check.error or check.name for check in schema.checks}
-    for column_name, column in schema.columns.items():
-        for check in column.checks:
-            errors[f"{column_name}__{check.name}"] = f"{column_name}: {check.error or check.name}"
-        errors[f"{column_name}__not_nullable"] = f"{column_name}: not_nullable"
-    return errors
+    return check_wording(Choices)

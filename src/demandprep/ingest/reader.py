@@ -14,8 +14,8 @@ checks `records = accepted + quarantined` against a count the parser did not mak
 goes through `read_parquet`. After `stage_files`, these temporary objects exist until
 `drop_staging`:
 
-- `ingest_fields`: ordinal, position, line_no, text, fields, field_count, reason, detail, record
-  per line;
+- `ingest_fields`: ordinal, position, line_no, text, fields (quoted lines only: the others are
+  split as the stage reads them), field_count, reason, detail, record per line;
 - `ingest_stage`: ordinal (file position << 40 + line number), `ingest_file_path`, line_no and
   every mapped source column (CSV: a view of the accepted-shape lines);
 - `ingest_rejected`: path, line_no, reason, detail, original_text of each refused line;
@@ -65,8 +65,8 @@ TEXT_TYPES = ("VARCHAR",)
 TIMESTAMP_TYPES = ("TIMESTAMP", "TIMESTAMP_S", "TIMESTAMP_MS", "TIMESTAMP_NS", "DATE")
 ZONED_TIMESTAMP_TYPES = ("TIMESTAMP WITH TIME ZONE",)
 COMMON_DELIMITERS = (";", ",", "\t", "|")
-# lines gathered in Python before one insert into DuckDB: one insert per chunk cost ms each,
-# and Python holds at most this much (plus the threads' read-ahead) beside DuckDB's limit
+# lines gathered in Python before DuckDB splits them (010): one statement per chunk cost ms
+# each, and Python holds at most this much (plus the threads' read-ahead) beside DuckDB's limit
 HANDOFF_BYTES = 32 * 1024 * 1024
 
 CSV_OPTIONS = (
@@ -198,10 +198,9 @@ def stage_files(
                 names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
                 raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
     else:
-        with timer.phase("read"):
-            _read_lines(con, paths, source)
+        _read_lines(con, paths, source, timer)
         with timer.phase("classify"):
-            _split_lines(con, source)
+            run_sql(con, "ingest/011_file_records.sql")
             columns, mapped = _stage_csv(con, paths, source, name)
     rows = con.execute("select path, lines, records from ingest_file_records").fetchall()
     return Staged(
@@ -212,62 +211,67 @@ def stage_files(
     )
 
 
-def _read_lines(con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource) -> None:
+def _read_lines(
+    con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource, timer: PhaseTimer
+) -> None:
     # each file's physical lines, cut apart from any CSV parser (lines.py), files read in as
-    # many threads as DuckDB has; DuckDB gets them in pieces of about HANDOFF_BYTES
-    con.execute(
-        "create temp table ingest_lines "
-        "(position integer, line_no bigint, text varchar, raw blob, length bigint)"
-    )
+    # many threads as DuckDB has; DuckDB splits them into `ingest_fields` in pieces of about
+    # HANDOFF_BYTES, straight from Arrow (the reader threads read on meanwhile)
+    run_sql(con, "ingest/009_ingest_fields_table.sql")
     workers = int(con.execute("select current_setting('threads')").fetchall()[0][0])
     pieces: list[pa.Table] = []
     size = 0
+    chunks = batch_line_chunks(paths, source.encoding, workers)
     try:
-        for position, chunk in batch_line_chunks(paths, source.encoding, workers):
+        while True:
+            with timer.phase("read"):
+                found = next(chunks, None)
+            if found is None:
+                break
+            position, chunk = found
             positions = pa.array(np.full(chunk.num_rows, position, dtype=np.int32))
             pieces.append(chunk.add_column(0, "position", positions))
             size += pieces[-1].nbytes
             if size >= HANDOFF_BYTES:
-                _hand_over(con, pieces)
+                with timer.phase("classify"):
+                    _split_lines(con, pieces, source)
                 pieces, size = [], 0
     except LinesUnreadable as error:
         raise FileUnreadable(f"{error.path}: cannot be read ({error}).") from None
-    if pieces:
-        _hand_over(con, pieces)
-
-
-def _hand_over(con: duckdb.DuckDBPyConnection, pieces: list[pa.Table]) -> None:
-    """Append line tables to `ingest_lines` in one insert (one per chunk costs ms each)."""
-    con.register("ingest_line_chunk", pa.concat_tables(pieces))
-    try:
-        con.execute("insert into ingest_lines select * from ingest_line_chunk")
     finally:
-        con.unregister("ingest_line_chunk")
+        chunks.close()  # stops the reader threads when a piece failed
+    if pieces:
+        with timer.phase("classify"):
+            _split_lines(con, pieces, source)
 
 
-def _split_lines(con: duckdb.DuckDBPyConnection, source: FileSource) -> None:
-    # one record per line: text, fields, and why the reader refuses it (010); then the count
-    # per file
-    run_sql(
-        con,
-        "ingest/010_line_fields.sql",
-        {
-            "delimiter": source.delimiter,
-            "header": source.header,
-            "encoding": source.encoding,
-            "max_line_bytes": MAX_LINE_BYTES,
-            "kept_bytes": KEPT_BYTES,
-        },
-    )
-    con.execute("drop table ingest_lines")
-    run_sql(con, "ingest/011_file_records.sql")
+def _split_lines(
+    con: duckdb.DuckDBPyConnection, pieces: list[pa.Table], source: FileSource
+) -> None:
+    """One record per line of `pieces` into `ingest_fields`: text, fields, and why the reader
+    refuses it (010); one statement per piece (one per chunk costs ms each)."""
+    con.register("ingest_lines", pa.concat_tables(pieces))
+    try:
+        run_sql(
+            con,
+            "ingest/010_line_fields.sql",
+            {
+                "delimiter": source.delimiter,
+                "header": source.header,
+                "encoding": source.encoding,
+                "max_line_bytes": MAX_LINE_BYTES,
+                "kept_bytes": KEPT_BYTES,
+            },
+        )
+    finally:
+        con.unregister("ingest_lines")
 
 
 def _stage_csv(
     con: duckdb.DuckDBPyConnection, paths: list[Path], source: FileSource, name: str
 ) -> tuple[tuple[SourceColumn, ...], dict[str, SourceColumn]]:
     # every file's own header (or first line) gives its width and where the mapped columns are
-    firsts = _first_lines(con, source.header)
+    firsts = _first_lines(con, source.header, source.delimiter)
     layouts, first_columns, first_mapped = [], None, None
     for position, path in enumerate(paths):
         if position not in firsts:
@@ -287,19 +291,23 @@ def _stage_csv(
     if first_mapped is None:  # every file is empty: the mapping is checked when one has lines
         first_columns, first_mapped = (), {}
     names = list(dict.fromkeys(column.name for column in first_mapped.values()))
-    _create_layouts(con, layouts, names)
+    _create_layouts(con, layouts, names, source.delimiter)
     run_sql(con, "ingest/012_rejected_lines.sql", {"header": source.header})
     fields = ", ".join(
-        f"f.fields[l.{_position_column(i)}] as {quote_identifier(column)}"
+        f"line_fields[{_position_column(i)}] as {quote_identifier(column)}"
         for i, column in enumerate(names)
     )
+    places = "".join(f", l.{_position_column(i)}" for i in range(len(names)))
+    # each line is split once, as the stage is read (010 keeps no list for unquoted lines)
     con.execute(
         "create temp view ingest_stage as "  # noqa: S608 (quoted identifiers)
-        f"select f.ordinal, b.path as {FILE_PATH_COLUMN}, f.line_no"
+        f"select ordinal, {FILE_PATH_COLUMN}, line_no"
         + (f", {fields}" if fields else "")
-        + " from ingest_fields f join ingest_file_layouts l using (position) "
+        + f" from (select f.ordinal, b.path as {FILE_PATH_COLUMN}, f.line_no{places}, "
+        "ingest_line_fields(f.text, f.fields, f.reason, l.delimiter) as line_fields "
+        "from ingest_fields f join ingest_file_layouts l using (position) "
         "join ingest_batch_files b using (position) "
-        "where f.record and f.reason is null and f.field_count = l.width"
+        "where f.record and f.reason is null and f.field_count = l.width)"
     )
     con.execute("create temp view ingest_numbered as select * from ingest_stage")
     mapped_text = {ours: SourceColumn(c.name, "VARCHAR") for ours, c in first_mapped.items()}
@@ -307,18 +315,20 @@ def _stage_csv(
 
 
 def _first_lines(
-    con: duckdb.DuckDBPyConnection, header: bool
+    con: duckdb.DuckDBPyConnection, header: bool, delimiter: str
 ) -> dict[int, tuple[list[str] | None, str | None]]:
     """position -> (fields, why unreadable) of each file's header, or first record without one."""
+    fields = "ingest_line_fields(text, fields, reason, $delimiter)"
     if header:
-        sql = "select position, fields, detail from ingest_fields where line_no = 1"
+        sql = f"select position, {fields}, detail from ingest_fields where line_no = 1"  # noqa: S608
     else:
         # every file with a record, the first one that splits giving the width
         sql = (
-            "select position, arg_min(fields, line_no) filter (where fields is not null), "
+            f"select position, arg_min({fields}, line_no) filter (where reason is null), "  # noqa: S608
             "'no line splits into fields' from ingest_fields where record group by position"
         )
-    return {position: (fields, detail) for position, fields, detail in con.execute(sql).fetchall()}
+    rows = con.execute(sql, {"delimiter": delimiter}).fetchall()
+    return {position: (fields, detail) for position, fields, detail in rows}
 
 
 def _header_columns(
@@ -357,16 +367,19 @@ def _create_layouts(
     con: duckdb.DuckDBPyConnection,
     layouts: list[tuple[int, int, dict[str, int]]],
     names: list[str],
+    delimiter: str,
 ) -> None:
-    """`ingest_file_layouts`: per file position, its width and each mapped column's place."""
+    """`ingest_file_layouts`: per file position, its width, delimiter and each mapped column's
+    place."""
     places = ", ".join(f"{_position_column(i)} integer" for i in range(len(names)))
     con.execute(
-        "create temp table ingest_file_layouts (position integer, width integer"
+        "create temp table ingest_file_layouts (position integer, width integer, delimiter varchar"
         + (f", {places})" if places else ")")
     )
     if not layouts:
         return
     values = [[position for position, _, _ in layouts], [width for _, width, _ in layouts]]
+    values += [[delimiter] * len(layouts)]
     values += [[where[name] for _, _, where in layouts] for name in names]
     selects = ", ".join(f"unnest($c{i})" for i in range(len(values)))
     con.execute(

@@ -21,10 +21,10 @@ from demandprep.config import (
     ReceiptSource,
 )
 from demandprep.errors import UserError
+from demandprep.ingest.line_checks import validate_raw_lines
 from demandprep.ingest.reader import SourceColumn, is_typed_timestamp
 from demandprep.ingest.references import table_columns
 from demandprep.ingest.timings import PhaseTimer
-from demandprep.ingest.validation import validate_query
 from demandprep.personal import carries_cards
 from demandprep.schemas.ingest import RawLines
 from demandprep.sqlfiles import run_sql
@@ -126,11 +126,5 @@ def count_accepted_lines(con: duckdb.DuckDBPyConnection, id_range: dict[str, str
 
 
 def validate_receipt_lines(con: duckdb.DuckDBPyConnection, id_range: dict[str, str]) -> None:
-    """Guard the batch's accepted lines with the RawLines schema, in batches of rows."""
-    validate_query(
-        con,
-        "select * from raw_lines where file_id >= $first_file_id and file_id <= $last_file_id",
-        id_range,
-        RawLines,
-        "raw_lines",
-    )
+    """Guard the batch's accepted lines with the RawLines schema (SQL twins and a sample)."""
+    validate_raw_lines(con, id_range, model=RawLines)

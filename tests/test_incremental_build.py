@@ -6,6 +6,8 @@ from __future__ import annotations
 import gzip
 import json
 import shutil
+import subprocess
+import sys
 from pathlib import Path
 
 import duckdb
@@ -310,3 +312,40 @@ def test_crash_while_storing_summaries_keeps_the_old_ones_and_the_next_build_is_
     assert manifest["periods_rebuilt"] == ["2024-02-12"]
     assert latest_build(config.export.root) == recovered
     assert_same_parquet(recovered, full_rebuild(world))
+
+
+def test_run_opens_the_warehouse_once_for_ingest_and_build(world, monkeypatch):
+    from typer.testing import CliRunner
+
+    from demandprep import warehouse
+    from demandprep.cli import app
+
+    opened = []
+    connect = warehouse.connect
+
+    def counted(*args, **kwargs):
+        opened.append(args)
+        return connect(*args, **kwargs)
+
+    monkeypatch.setattr(warehouse, "connect", counted)
+    result = CliRunner().invoke(app, ["run", str(world / "demandprep.toml")])
+    assert result.exit_code == 0, result.output
+    assert "built" in result.output
+    assert len(opened) == 1
+
+
+def test_a_skipped_night_imports_no_build_step(world):
+    build(world)
+    # a fresh interpreter, so that no other test has imported the steps already
+    probe = (
+        "import sys\n"
+        "from demandprep.config import load_config\n"
+        "from demandprep.pipeline import build_unless_current\n"
+        f"outcome = build_unless_current(load_config({str(world / 'demandprep.toml')!r}))\n"
+        "loaded = ('scipy', 'demandprep.stages', 'demandprep.export.build', 'pandas')\n"
+        "print(outcome.skipped, [name for name in loaded if name in sys.modules])\n"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", probe], capture_output=True, text=True, check=True
+    )
+    assert result.stdout.strip() == "True []"

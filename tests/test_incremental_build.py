@@ -173,18 +173,38 @@ def test_a_night_without_new_files_rebuilds_no_period(world):
     assert_same_parquet(same, full_rebuild(world))
 
 
-def test_a_moved_spread_recomputes_the_differentiation_of_every_period(world):
+def test_a_moved_spread_recomputes_the_near_rival_counts_of_every_period(world):
     # Gandhi & Houde (2019): the near-rival count uses the characteristic's spread over every
     # product-market, so when the spread moves no stored count can be kept
     build(world)
     config = load_config(world / "demandprep.toml")
     with open_warehouse(config.warehouse) as con:
         con.execute("update iv_stored_spreads set spread = spread + 1")
-        con.execute("update iv_stored_values set value = -7 where family = 'differentiation'")
+        con.execute(
+            "update iv_stored_values set value = -7 where instrument = 'iv_diff_near_roast_level'"
+        )
     moved, manifest = build(world)
     assert instrument_scope(manifest)["periods_rebuilt"] == []
     assert instrument_scope(manifest)["every_period"] == ["cost_shifters", "differentiation"]
     assert_same_parquet(moved, full_rebuild(world))
+
+
+def test_a_moved_spread_keeps_the_squared_distances_of_untouched_periods(world):
+    # the squared distance to rivals reads only its own market: the spread does not enter it
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute("update iv_stored_spreads set spread = spread + 1")
+        # distances and counts must not be negative (InstrumentsModel): plant a large one
+        con.execute(
+            "update iv_stored_values set value = 7777 where family = 'differentiation' "
+            "and period_start = '2024-01-15'"
+        )
+    build(world)
+    near = stored_instrument(world, "iv_diff_near_roast_level", "2024-01-15")
+    squared = stored_instrument(world, "iv_diff_sq_roast_level", "2024-01-15")
+    assert 7777 not in {value for _market, _product, value in near}
+    assert {value for _market, _product, value in squared} == {7777}
 
 
 def test_crash_while_storing_instruments_keeps_the_old_ones_and_the_next_build_is_right(

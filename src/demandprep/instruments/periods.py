@@ -11,8 +11,9 @@
   the product-markets of every period.
 - Per period: Hausman means (other markets of the same period), characteristic sums and counts
   and the squared distances (own market). Every period: the near-rival count when the
-  characteristic's spread over all product-markets moved (`059_iv_spreads.sql`), and the cost
-  shifters (cheap; their windows come from the whole list of periods).
+  characteristic's spread over all product-markets moved (`059_iv_spreads.sql`; a plain count,
+  cheap), and the cost shifters (cheap; their windows come from the whole list of periods).
+  The merge replaces an iv_ column's rows of each period the build computed.
 - The merge, the input copy and the state are written in one transaction: a crash leaves the
   stored values as they were, and the next build recomputes from that record.
 
@@ -197,11 +198,11 @@ def store_instrument_values(ctx: BuildContext) -> None:
     con = ctx.con
     con.execute("begin transaction")
     try:
-        for stored, fresh in (
-            ("iv_stored_values", "instrument_values"),
-            ("iv_stored_flags", "instrument_flags"),
+        for stored, fresh, column in (
+            ("iv_stored_values", "instrument_values", "instrument"),
+            ("iv_stored_flags", "instrument_flags", "flag"),
         ):
-            _replace_rows(con, stored, fresh, is_full_build(ctx))
+            _replace_rows(con, stored, fresh, column, is_full_build(ctx))
         _store_inputs(con, ctx.config.instruments.differentiation)
         store_instrument_state(con, current_fingerprint(ctx))
         con.execute("commit")
@@ -218,14 +219,16 @@ def store_instrument_state(
     con.execute("insert into instrument_state values (?, ?, ?)", list(fingerprint))
 
 
-def _replace_rows(con: duckdb.DuckDBPyConnection, stored: str, fresh: str, full: bool) -> None:
-    # the table names are ours, never the user's; a family's rows of a period go as a whole
+def _replace_rows(
+    con: duckdb.DuckDBPyConnection, stored: str, fresh: str, column: str, full: bool
+) -> None:
+    # the names are ours, never the user's; an iv_ column's rows of a period go as a whole
     if full:
         con.execute(f"delete from {stored}")  # noqa: S608
     else:
         con.execute(
             f"delete from {stored} where exists (select 1 from {fresh} "  # noqa: S608
-            f"where {fresh}.family = {stored}.family "
+            f"where {fresh}.{column} = {stored}.{column} "
             f"and {fresh}.period_start = {stored}.period_start) "
             f"or {stored}.period_start not in (select period_start from iv_products)"
         )

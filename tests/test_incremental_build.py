@@ -6,6 +6,8 @@ from __future__ import annotations
 import gzip
 import json
 import shutil
+import subprocess
+import sys
 from pathlib import Path
 
 import duckdb
@@ -50,9 +52,29 @@ def full_rebuild(world: Path) -> Path:
     config = load_config(world / "demandprep.toml")
     with open_warehouse(config.warehouse) as con:
         con.execute("drop table market_summary_state")
+        con.execute("drop table if exists instrument_state")
     folder, manifest = build(world)
     assert manifest["build_mode"] == "full"
+    assert instrument_scope(manifest)["build_mode"] == "full"
     return folder
+
+
+def instrument_scope(manifest: dict) -> dict:
+    """Which periods the instrument stages recomputed (the manifest's facts)."""
+    return manifest["facts"]["instrument_scope"]
+
+
+def stored_instrument(world: Path, instrument: str, period: str) -> list[tuple]:
+    """The stored values of one instrument in one period, in (market, product) order."""
+    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
+    try:
+        return con.execute(
+            "select market, product, value from iv_stored_values "
+            "where instrument = $instrument and period_start = $period::date order by all",
+            {"instrument": instrument, "period": period},
+        ).fetchall()
+    finally:
+        con.close()
 
 
 def fresh_build(world: Path, tmp_path: Path) -> Path:
@@ -107,8 +129,38 @@ def test_one_more_day_rebuilds_its_week_only_and_equals_a_full_build(world, tmp_
     assert manifest["build_mode"] == "incremental"
     assert manifest["full_build_reason"] is None
     assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert instrument_scope(manifest)["build_mode"] == "incremental"
+    assert instrument_scope(manifest)["periods_rebuilt"] == ["2024-02-12"]
     assert_same_parquet(incremental, full_rebuild(world))
     assert_same_parquet(incremental, fresh_build(world, tmp_path))
+
+
+def test_first_build_stores_the_instruments_and_says_why_it_was_full(world):
+    _folder, manifest = build(world)
+    assert instrument_scope(manifest) == {
+        "build_mode": "full",
+        "periods_rebuilt": manifest["periods_rebuilt"],
+        "full_build_reason": "no instrument values are stored yet",
+        "every_period": ["cost_shifters", "differentiation"],
+    }
+    assert len(stored_instrument(world, "iv_firm_sum_roast_level", "2024-01-15")) > 3
+
+
+def test_one_more_day_reuses_the_stored_instruments_of_the_other_weeks(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    # a planted value in an untouched week survives: the night did not recompute that week
+    with open_warehouse(config.warehouse) as con:
+        con.execute(
+            "update iv_stored_values set value = -7 where instrument = 'iv_firm_sum_roast_level' "
+            "and period_start in ('2024-01-15', '2024-02-12')"
+        )
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    build(world)
+    kept = stored_instrument(world, "iv_firm_sum_roast_level", "2024-01-15")
+    recomputed = stored_instrument(world, "iv_firm_sum_roast_level", "2024-02-12")
+    assert {value for _market, _product, value in kept} == {-7}
+    assert -7 not in {value for _market, _product, value in recomputed}
 
 
 def test_a_night_without_new_files_rebuilds_no_period(world):
@@ -116,7 +168,66 @@ def test_a_night_without_new_files_rebuilds_no_period(world):
     same, manifest = build(world)
     assert manifest["build_mode"] == "incremental"
     assert manifest["periods_rebuilt"] == []
+    assert instrument_scope(manifest)["periods_rebuilt"] == []
+    assert instrument_scope(manifest)["every_period"] == ["cost_shifters"]
     assert_same_parquet(same, full_rebuild(world))
+
+
+def test_a_moved_spread_recomputes_the_near_rival_counts_of_every_period(world):
+    # Gandhi & Houde (2019): the near-rival count uses the characteristic's spread over every
+    # product-market, so when the spread moves no stored count can be kept
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute("update iv_stored_spreads set spread = spread + 1")
+        con.execute(
+            "update iv_stored_values set value = -7 where instrument = 'iv_diff_near_roast_level'"
+        )
+    moved, manifest = build(world)
+    assert instrument_scope(manifest)["periods_rebuilt"] == []
+    assert instrument_scope(manifest)["every_period"] == ["cost_shifters", "differentiation"]
+    assert_same_parquet(moved, full_rebuild(world))
+
+
+def test_a_moved_spread_keeps_the_squared_distances_of_untouched_periods(world):
+    # the squared distance to rivals reads only its own market: the spread does not enter it
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute("update iv_stored_spreads set spread = spread + 1")
+        # distances and counts must not be negative (InstrumentsModel): plant a large one
+        con.execute(
+            "update iv_stored_values set value = 7777 where family = 'differentiation' "
+            "and period_start = '2024-01-15'"
+        )
+    build(world)
+    near = stored_instrument(world, "iv_diff_near_roast_level", "2024-01-15")
+    squared = stored_instrument(world, "iv_diff_sq_roast_level", "2024-01-15")
+    assert 7777 not in {value for _market, _product, value in near}
+    assert {value for _market, _product, value in squared} == {7777}
+
+
+def test_crash_while_storing_instruments_keeps_the_old_ones_and_the_next_build_is_right(
+    world, tmp_path, monkeypatch
+):
+    from demandprep.instruments import periods
+
+    build(world)
+    before = stored_instrument(world, "iv_hausman_price", "2024-02-12")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+
+    def crash(*_args, **_kwargs):
+        raise RuntimeError("power cut")
+
+    # the crash comes after the period rows were replaced, before the state is written
+    with monkeypatch.context() as patch:
+        patch.setattr(periods, "store_instrument_state", crash)
+        with pytest.raises(RuntimeError, match="power cut"):
+            build(world)
+    assert stored_instrument(world, "iv_hausman_price", "2024-02-12") == before
+    recovered, manifest = build(world)
+    assert instrument_scope(manifest)["periods_rebuilt"] == ["2024-02-12"]
+    assert_same_parquet(recovered, full_rebuild(world))
 
 
 def test_corrected_file_recomputes_the_periods_of_its_old_and_new_lines(world, tmp_path):
@@ -160,6 +271,9 @@ def test_changed_config_forces_a_full_build_and_says_why(world):
     _folder, manifest = build(world)
     assert manifest["build_mode"] == "full"
     assert manifest["full_build_reason"] == "the config changed since the summaries were built"
+    assert instrument_scope(manifest)["full_build_reason"] == (
+        "the config changed since the instrument values were stored"
+    )
 
 
 def test_changed_reference_table_forces_a_full_build_and_says_why(world):
@@ -218,3 +332,40 @@ def test_crash_while_storing_summaries_keeps_the_old_ones_and_the_next_build_is_
     assert manifest["periods_rebuilt"] == ["2024-02-12"]
     assert latest_build(config.export.root) == recovered
     assert_same_parquet(recovered, full_rebuild(world))
+
+
+def test_run_opens_the_warehouse_once_for_ingest_and_build(world, monkeypatch):
+    from typer.testing import CliRunner
+
+    from demandprep import warehouse
+    from demandprep.cli import app
+
+    opened = []
+    connect = warehouse.connect
+
+    def counted(*args, **kwargs):
+        opened.append(args)
+        return connect(*args, **kwargs)
+
+    monkeypatch.setattr(warehouse, "connect", counted)
+    result = CliRunner().invoke(app, ["run", str(world / "demandprep.toml")])
+    assert result.exit_code == 0, result.output
+    assert "built" in result.output
+    assert len(opened) == 1
+
+
+def test_a_skipped_night_imports_no_build_step(world):
+    build(world)
+    # a fresh interpreter, so that no other test has imported the steps already
+    probe = (
+        "import sys\n"
+        "from demandprep.config import load_config\n"
+        "from demandprep.pipeline import build_unless_current\n"
+        f"outcome = build_unless_current(load_config({str(world / 'demandprep.toml')!r}))\n"
+        "loaded = ('scipy', 'demandprep.stages', 'demandprep.export.build', 'pandas')\n"
+        "print(outcome.skipped, [name for name in loaded if name in sys.modules])\n"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", probe], capture_output=True, text=True, check=True
+    )
+    assert result.stdout.strip() == "True []"

@@ -2,6 +2,7 @@
 create or replace table instrument_flags (
     market varchar not null,
     product varchar not null,
+    period_start date not null,
     flag varchar not null,
     family varchar not null,
     source varchar,

@@ -1,4 +1,4 @@
--- Long form (market, product, firm, characteristic, value) of the characteristics that some
+-- Long form (market, product, period_start, firm, characteristic, value) of the characteristics that some
 -- instrument family uses, so that the family SQL stays static whatever the config names.
 -- $characteristics: the checked column names; values are cast to double (booleans become 0/1).
 create or replace table iv_characteristic_values as
@@ -23,6 +23,7 @@ with_firm as (
     select
         long.market,
         long.product,
+        products.period_start,
         products.firm,
         long.characteristic,
         long.value,
@@ -34,6 +35,7 @@ final as (
     select
         market,
         product,
+        period_start,
         firm,
         characteristic,
         value,
@@ -43,6 +45,7 @@ final as (
 select
     market,
     product,
+    period_start,
     firm,
     characteristic,
     value,

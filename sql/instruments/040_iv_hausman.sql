@@ -3,6 +3,7 @@
 -- region). Computed as (period total - group total) / (period count - group count), one pass
 -- over the data instead of a market-by-market self-join; sums are ordered for determinism.
 -- Markets where the product has no price (no sales) do not count. No other market -> null.
+-- Only the periods in iv_build_periods: the means never reach across periods.
 create or replace table iv_hausman as
 
 with
@@ -16,6 +17,7 @@ priced as (
         groups.exclusion_group,
     from iv_products as products
     inner join iv_market_groups as groups using (market)
+    semi join iv_build_periods using (period_start)
 ),
 
 period_totals as (
@@ -43,6 +45,7 @@ other_markets as (
     select
         priced.market,
         priced.product,
+        priced.period_start,
         period_totals.priced_markets - group_totals.priced_markets as other_market_count,
         period_totals.price_sum - group_totals.price_sum as other_price_sum,
     from priced
@@ -54,6 +57,7 @@ final as (
     select
         market,
         product,
+        period_start,
         other_market_count,
         case
             when other_market_count > 0 then other_price_sum / other_market_count
@@ -65,6 +69,7 @@ final as (
 select
     market,
     product,
+    period_start,
     other_market_count,
     hausman_price,
     hausman_missing,

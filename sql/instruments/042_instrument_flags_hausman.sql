@@ -7,6 +7,7 @@ hausman as (
     select
         market,
         product,
+        period_start,
         hausman_missing,
     from iv_hausman
 ),
@@ -15,6 +16,7 @@ final as (
     select
         market,
         product,
+        period_start,
         'iv_hausman_missing' as flag,
         'hausman' as family,
         'price' as source,
@@ -25,6 +27,7 @@ final as (
 select
     market,
     product,
+    period_start,
     flag,
     family,
     source,

@@ -1,6 +1,7 @@
 -- Characteristic sums (Berry, Levinsohn & Pakes 1995): for each chosen characteristic, the sum
 -- over the firm's other products in the market and the sum over rivals' products in the market.
--- An empty set sums to 0. $characteristics: the checked characteristic names.
+-- An empty set sums to 0. $characteristics: the checked characteristic names. Only the periods
+-- in iv_build_periods: a market's sums read only that market.
 insert into instrument_values
 
 with
@@ -9,10 +10,12 @@ chosen as (
     select
         market,
         product,
+        period_start,
         firm,
         characteristic,
         value,
     from iv_characteristic_values
+    semi join iv_build_periods using (period_start)
     where list_contains($characteristics, characteristic)
 ),
 
@@ -20,6 +23,7 @@ pairs as (
     select
         own.market,
         own.product,
+        own.period_start,
         own.characteristic,
         other.product as other_product,
         other.firm = own.firm as same_firm,
@@ -35,6 +39,7 @@ sums as (
     select
         market,
         product,
+        period_start,
         characteristic,
         coalesce(
             sum(other_value order by other_product) filter (where same_firm), 0
@@ -43,13 +48,14 @@ sums as (
             sum(other_value order by other_product) filter (where not same_firm), 0
         ) as rival_sum,
     from pairs
-    group by market, product, characteristic
+    group by market, product, period_start, characteristic
 ),
 
 final as (
     select
         market,
         product,
+        period_start,
         'iv_firm_sum_' || characteristic as instrument,
         'characteristic_sums' as family,
         characteristic as source,
@@ -59,6 +65,7 @@ final as (
     select
         market,
         product,
+        period_start,
         'iv_rival_sum_' || characteristic as instrument,
         'characteristic_sums' as family,
         characteristic as source,
@@ -69,6 +76,7 @@ final as (
 select
     market,
     product,
+    period_start,
     instrument,
     family,
     source,

@@ -3,6 +3,8 @@
 -- dated inside the market's period). No matching row -> null.
 -- $columns: checked shifter column names; $join_period / $join_firm / $join_product: the keys;
 -- $period: the market period length ('day', 'week', 'month', 'quarter').
+-- Computed for every period in every build: it is cheap, and its period windows come from the
+-- whole list of periods.
 insert into instrument_values
 
 with
@@ -86,6 +88,7 @@ matched as (
     select
         products.market,
         products.product,
+        products.period_start,
         names.shifter,
         shifts.value,
     from iv_products as products
@@ -104,6 +107,7 @@ final as (
     select
         market,
         product,
+        period_start,
         'iv_cost_' || shifter as instrument,
         'cost_shifters' as family,
         shifter as source,
@@ -114,6 +118,7 @@ final as (
 select
     market,
     product,
+    period_start,
     instrument,
     family,
     source,

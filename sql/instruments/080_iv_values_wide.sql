@@ -1,4 +1,4 @@
--- One column per numeric instrument, named by instrument_values.instrument (names are built
+-- One column per numeric instrument, named by iv_stored_values.instrument (names are built
 -- only from fixed prefixes and checked config identifiers). Columns come out in name order.
 create or replace table iv_values_wide as
 
@@ -10,7 +10,7 @@ instrument_rows as (
         product,
         instrument,
         value,
-    from instrument_values
+    from iv_stored_values
 )
 
 pivot instrument_rows

@@ -9,7 +9,7 @@ flag_rows as (
         product,
         flag,
         value,
-    from instrument_flags
+    from iv_stored_flags
 )
 
 pivot flag_rows

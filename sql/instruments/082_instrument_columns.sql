@@ -10,7 +10,7 @@ instrument_names as (
         'instrument' as role,
         family,
         source,
-    from instrument_values
+    from iv_stored_values
 ),
 
 flag_names as (
@@ -19,7 +19,7 @@ flag_names as (
         'flag' as role,
         family,
         source,
-    from instrument_flags
+    from iv_stored_flags
 ),
 
 final as (

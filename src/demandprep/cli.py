@@ -139,9 +139,11 @@ def ingest_command(
 
 
 def ingest_with_progress(
-    project: ProjectConfig, reload: list[str] | None = None, timings: bool = False
+    project: ProjectConfig, reload: list[str] | None = None, timings: bool = False, con=None
 ):
-    """Run the ingest with a progress bar (log lines outside a terminal), then its summary."""
+    """Run the ingest with a progress bar (log lines outside a terminal), then its summary.
+
+    `con`: the warehouse connection to use (`run` holds one), else the warehouse is opened."""
     from demandprep.ingest.results import timings_line
     from demandprep.ingest.runner import summary_table
     from demandprep.pipeline import run_ingest
@@ -149,9 +151,9 @@ def ingest_with_progress(
 
     if console.is_terminal:
         with IngestProgress(console) as progress:
-            summary = run_ingest(project, progress=progress.update, reload=reload)
+            summary = run_ingest(project, progress=progress.update, reload=reload, con=con)
     else:
-        summary = run_ingest(project, progress=IngestLog(say).update, reload=reload)
+        summary = run_ingest(project, progress=IngestLog(say).update, reload=reload, con=con)
     Console().print(summary_table(summary))
     if timings:
         say(timings_line(summary))
@@ -198,10 +200,11 @@ def build_command(config: ConfigArg, force: ForceOption = False) -> None:
         build_with_progress(load_config(config), force)
 
 
-def build_with_progress(project: ProjectConfig, force: bool = False) -> Path | None:
+def build_with_progress(project: ProjectConfig, force: bool = False, con=None) -> Path | None:
     """Build with a status line (log lines outside a terminal) and print what it made.
 
     Returns the published folder, or None when nothing changed since `latest` and not `force`.
+    `con`: the warehouse connection to use (`run` holds one), else the warehouse is opened.
     """
     from demandprep.build_summary import summary_lines
     from demandprep.pipeline import build_unless_current
@@ -210,11 +213,11 @@ def build_with_progress(project: ProjectConfig, force: bool = False) -> Path | N
     if console.is_terminal:
         with console.status("building") as status:
             outcome = build_unless_current(
-                project, force, on_stage=lambda s: status.update(f"stage {s.name}")
+                project, force, on_stage=lambda s: status.update(f"stage {s.name}"), con=con
             )
     else:
         log = BuildLog(say)
-        outcome = build_unless_current(project, force, on_stage_done=log.stage_done)
+        outcome = build_unless_current(project, force, on_stage_done=log.stage_done, con=con)
         if not outcome.skipped:
             log.export_done()
     if outcome.folder is None or outcome.ctx is None:
@@ -238,18 +241,21 @@ def run_command(
 ) -> None:
     """Ingest, then build: what a nightly job does, without an orchestrator."""
     from demandprep.pipeline import every_receipts_file_failed
+    from demandprep.warehouse import open_warehouse
 
     with user_errors():
         project = load_config(config)
-        summary = ingest_with_progress(project, timings=timings)
-        if every_receipts_file_failed(summary):
-            say(
-                "every receipts file failed or was refused, so nothing was built.",
-                "error:",
-                "bold red",
-            )
-            exit_on_problems(summary)
-        build_with_progress(project, force)
+        # one connection for both: opening and closing (a checkpoint) the warehouse costs
+        with open_warehouse(project.warehouse) as con:
+            summary = ingest_with_progress(project, timings=timings, con=con)
+            if every_receipts_file_failed(summary):
+                say(
+                    "every receipts file failed or was refused, so nothing was built.",
+                    "error:",
+                    "bold red",
+                )
+                exit_on_problems(summary)
+            build_with_progress(project, force, con=con)
     exit_on_problems(summary)
 
 

@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
+
+import duckdb
 
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
@@ -29,12 +32,29 @@ class BuildOutcome:
         return self.folder is None
 
 
-def run_ingest(config: ProjectConfig, progress=None, reload: list[str] | None = None):
+@contextmanager
+def warehouse_for(
+    config: ProjectConfig, con: duckdb.DuckDBPyConnection | None = None
+) -> Iterator[duckdb.DuckDBPyConnection]:
+    """The connection given (`run` holds one for ingest and build), else the warehouse opened."""
+    if con is not None:
+        yield con
+        return
+    with open_warehouse(config.warehouse) as opened:
+        yield opened
+
+
+def run_ingest(
+    config: ProjectConfig,
+    progress=None,
+    reload: list[str] | None = None,
+    con: duckdb.DuckDBPyConnection | None = None,
+):
     """Ingest every new or changed input file into the warehouse; returns the ingest summary."""
     from demandprep.ingest.runner import ingest_all
 
-    with open_warehouse(config.warehouse) as con:
-        return ingest_all(con, config, progress=progress, reload=reload)
+    with warehouse_for(config, con) as opened:
+        return ingest_all(opened, config, progress=progress, reload=reload)
 
 
 def every_receipts_file_failed(summary) -> bool:
@@ -57,21 +77,24 @@ def build_unless_current(
     force: bool = False,
     on_stage: Callable[[Stage], None] | None = None,
     on_stage_done: StageDone | None = None,
+    con: duckdb.DuckDBPyConnection | None = None,
 ) -> BuildOutcome:
     """Build and publish, unless `latest` was made from these very inputs and settings."""
-    from demandprep.export.folder import check_export_root, export_build, latest_build
+    from demandprep.export.folder import check_export_root, latest_build
 
     # the nightly flow's own test of "nothing new" (no Prefect is imported with it)
     from demandprep.flows.incremental import latest_build_is_current
 
-    # the stage list imports every step (scipy among them): `ingest` needs none of it
-    from demandprep.stages import build_stages
-
     # a restored `latest` folder or a linked `.staging` would only stop the export: say so now
     check_export_root(config.export.root)
-    with open_warehouse(config.warehouse) as con:
+    with warehouse_for(config, con) as con:
         if not force and latest_build_is_current(con, config):
             return BuildOutcome(kept=latest_build(config.export.root))
+        # the stage list and the export import every step (scipy, pandas): a skipped night
+        # and `ingest` need none of them
+        from demandprep.export.folder import export_build
+        from demandprep.stages import build_stages
+
         ctx = BuildContext(con=con, config=config)
         for stage in build_stages(config):
             if on_stage is not None:

@@ -27,18 +27,20 @@ import re
 import shutil
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
-from demandprep.export.build import BuildOutputs, write_build
-from demandprep.export.dictionary import ModelMap
 from demandprep.export.manifest import input_records
 from demandprep.export.root_lock import LOCK_FILE, export_root_lock
 from demandprep.memory import out_of_memory_reported
 
+if TYPE_CHECKING:
+    # the writer imports pandas and scipy: a night that finds `latest` current needs neither
+    from demandprep.export.dictionary import ModelMap
+
 __all__ = [
     "LOCK_FILE",
-    "BuildOutputs",
     "check_export_root",
     "clean_stale_staging",
     "discard_staging",
@@ -49,7 +51,6 @@ __all__ = [
     "open_staging",
     "prune",
     "publish",
-    "write_build",
     "write_staged_build",
 ]
 
@@ -85,6 +86,8 @@ def write_staged_build(
     Returns the staging folder. A failed write leaves nothing behind; a full disk or DuckDB
     running out of memory becomes one `UserError` line. Call it holding the root's lock.
     """
+    from demandprep.export.build import write_build
+
     root = ctx.config.export.root
     check_export_root(root)
     clean_stale_staging(root)

@@ -17,7 +17,6 @@ import pyarrow as pa
 
 from demandprep import __version__
 from demandprep.context import BuildContext
-from demandprep.export.dictionary import market_build_record
 
 MANIFEST_NAME = "manifest.json"
 HASH_BLOCK = 1 << 20
@@ -78,6 +77,9 @@ def build_manifest(
     extra: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
     """The whole manifest as a JSON-ready dict."""
+    # the dictionary imports pandera: `latest_build_is_current` reads this module without it
+    from demandprep.export.dictionary import market_build_record
+
     return {
         "build_id": build_id,
         "built_at": built_at.isoformat(),

@@ -1,11 +1,13 @@
 """Price instruments for the share table and the first-stage strength of the chosen set.
 
 Reads `market_products`, `stores`, `cost_shifters` and `shares`; writes, in stage order:
-`iv_products` and `iv_characteristic_values` (inputs), the long tables `instrument_values` and
-`instrument_flags` (one row per product-market and iv_ column, appended by each family),
-`instruments` (wide: market, product, iv_*), `instrument_columns` (catalogue of the iv_ columns)
-and `share_table` (shares left join instruments). Facts: ctx.facts["first_stage"],
-ctx.facts["instrument_columns"], ctx.facts["hausman_missing"].
+`iv_products` and `iv_characteristic_values` (inputs), `iv_build_periods` (the periods this
+build computes, `periods.py`), the long tables `instrument_values` and `instrument_flags` (one
+row per product-market, period and iv_ column, appended by each family), merged into the kept
+`iv_stored_values` / `iv_stored_flags`, `instruments` (wide: market, product, iv_*, pivoted from
+the stored rows), `instrument_columns` (catalogue of the iv_ columns) and `share_table` (shares
+left join instruments). Facts: ctx.facts["first_stage"],
+ctx.facts["instrument_columns"], ctx.facts["hausman_missing"], ctx.facts["instrument_scope"].
 
 Choices made here:
 - the composite fringe product gets no instruments and is nobody's rival or sibling: its price

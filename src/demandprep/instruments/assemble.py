@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from demandprep.context import BuildContext
 from demandprep.instruments.columns import require_table
+from demandprep.instruments.periods import store_instrument_values
 from demandprep.schemas.instruments import (
     InstrumentColumnsModel,
     InstrumentsModel,
@@ -14,7 +15,9 @@ from demandprep.validate import validate_table
 
 
 def assemble_instruments(ctx: BuildContext) -> None:
-    """Build `instruments` (one row per inside product-market) and `instrument_columns`."""
+    """Store this build's rows per period, then build `instruments` (one row per inside
+    product-market) from the stored values, and `instrument_columns`."""
+    store_instrument_values(ctx)
     run_sql(ctx.con, "instruments/080_iv_values_wide.sql")
     run_sql(ctx.con, "instruments/081_iv_flags_wide.sql")
     run_sql(ctx.con, "instruments/082_instrument_columns.sql")

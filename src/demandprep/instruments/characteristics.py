@@ -4,6 +4,7 @@ Pakes 1995) and differentiation measures (Gandhi & Houde 2019)."""
 from __future__ import annotations
 
 from demandprep.context import BuildContext
+from demandprep.instruments.periods import note_every_period, spread_moved
 from demandprep.sqlfiles import run_sql
 
 
@@ -21,12 +22,19 @@ def build_characteristic_sums(ctx: BuildContext) -> None:
 
 
 def build_differentiation(ctx: BuildContext) -> None:
-    """Append iv_diff_sq_<c> and iv_diff_near_<c> for each configured characteristic."""
+    """Append iv_diff_sq_<c> and iv_diff_near_<c> for each configured characteristic.
+
+    Only the build's periods, unless a spread moved: then every near-rival count may move."""
     characteristics = ctx.config.instruments.differentiation
     if not characteristics:
         return
+    params = {"characteristics": characteristics}
+    run_sql(ctx.con, "instruments/059_iv_spreads.sql", params)
+    every_period = spread_moved(ctx)
+    if every_period:
+        note_every_period(ctx, "differentiation")
     run_sql(
         ctx.con,
         "instruments/060_instrument_values_differentiation.sql",
-        {"characteristics": characteristics},
+        params | {"every_period": every_period},
     )

@@ -5,13 +5,14 @@ from __future__ import annotations
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.instruments.columns import require_numeric_columns, require_table
+from demandprep.instruments.periods import note_every_period
 from demandprep.sqlfiles import run_sql
 
 KEY_COLUMNS = ("period", "firm", "product")
 
 
 def build_cost_shifters(ctx: BuildContext) -> None:
-    """Append iv_cost_<column> for each configured shifter column."""
+    """Append iv_cost_<column> for each configured shifter column, for every period."""
     settings = ctx.config.instruments.cost_shifters
     if settings is None:
         return
@@ -42,6 +43,7 @@ def build_cost_shifters(ctx: BuildContext) -> None:
             "period": ctx.config.markets.period,
         },
     )
+    note_every_period(ctx, "cost_shifters")
 
 
 def _check_keys(join_on: list[str], columns: dict[str, str]) -> None:

@@ -1,8 +1,8 @@
 """Stage 1 of the instruments: check the config against real columns and lay out the inputs.
 
 Creates `iv_products` (inside product-markets), `iv_characteristic_values` (long form of the
-characteristics that instrument families use) and the empty long tables `instrument_values` and
-`instrument_flags` that the family stages append to.
+characteristics that instrument families use), the empty long tables `instrument_values` and
+`instrument_flags` that the family stages append to, and `iv_build_periods` (`periods.py`).
 """
 
 from __future__ import annotations
@@ -10,6 +10,7 @@ from __future__ import annotations
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.instruments.columns import require_numeric_columns, require_table
+from demandprep.instruments.periods import create_empty_characteristics, plan_instrument_periods
 from demandprep.sqlfiles import run_sql
 
 MARKET_PRODUCT_COLUMNS = ("market", "geography", "period_start", "product", "firm", "price")
@@ -23,7 +24,8 @@ def instrument_characteristics(ctx: BuildContext) -> list[str]:
 
 
 def prepare_instrument_inputs(ctx: BuildContext) -> None:
-    """Check configured columns, then build iv_products and the characteristic long form."""
+    """Check configured columns, build iv_products and the characteristic long form, and
+    decide which periods the families compute."""
     columns = require_table(ctx.con, "market_products", "the market build's product-markets")
     missing = [name for name in MARKET_PRODUCT_COLUMNS + ("is_fringe",) if name not in columns]
     if missing:
@@ -45,6 +47,9 @@ def prepare_instrument_inputs(ctx: BuildContext) -> None:
             {"characteristics": characteristics},
         )
         _require_complete_characteristics(ctx)
+    else:
+        create_empty_characteristics(ctx.con)
+    plan_instrument_periods(ctx)
 
 
 def _check_characteristics(characteristics: list[str], columns: dict[str, str]) -> None:

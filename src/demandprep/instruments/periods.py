@@ -1,0 +1,254 @@
+"""Instrument values kept per period, so that a night recomputes only the periods that changed.
+
+- The family stages append this build's rows, each with its period, to `instrument_values` and
+  `instrument_flags`; `store_instrument_values` merges them into the kept tables
+  `iv_stored_values` / `iv_stored_flags`, which the instruments stage pivots.
+- Which periods a build computes (`013_iv_build_periods.sql`): every period when nothing is
+  stored yet or the fingerprint changed (config, reference files, tool and instrument SQL),
+  else the periods whose inputs (`iv_products`, `iv_characteristic_values`) differ from the
+  copy stored with the values. The inputs are compared rather than the market build's
+  `periods_rebuilt`, because a change in one period (a product entering the universe) can move
+  the product-markets of every period.
+- Per period: Hausman means (other markets of the same period), characteristic sums and counts
+  and the squared distances (own market). Every period: the near-rival count when the
+  characteristic's spread over all product-markets moved (`059_iv_spreads.sql`; a plain count,
+  cheap), and the cost shifters (cheap; their windows come from the whole list of periods).
+  The merge replaces an iv_ column's rows of each period the build computed.
+- The merge, the input copy and the state are written in one transaction: a crash leaves the
+  stored values as they were, and the next build recomputes from that record.
+
+Values of a period depend only on that period's inputs (and on the spread, compared bit for
+bit), and every later step pivots and sorts, so the Parquet files equal a full build's.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from typing import Any
+
+import duckdb
+
+from demandprep import __version__
+from demandprep.context import BuildContext
+from demandprep.market.inputs import has_ledger
+from demandprep.sqlfiles import run_sql, sql_text
+
+# the steps whose text decides what a stored value means
+INSTRUMENT_SQL = (
+    "instruments/010_iv_products.sql",
+    "instruments/011_instrument_values.sql",
+    "instruments/012_instrument_flags.sql",
+    "instruments/013_iv_build_periods.sql",
+    "instruments/020_iv_characteristic_values.sql",
+    "instruments/030_iv_market_groups.sql",
+    "instruments/040_iv_hausman.sql",
+    "instruments/041_instrument_values_hausman.sql",
+    "instruments/042_instrument_flags_hausman.sql",
+    "instruments/050_instrument_values_characteristic_sums.sql",
+    "instruments/051_instrument_values_product_counts.sql",
+    "instruments/059_iv_spreads.sql",
+    "instruments/060_instrument_values_differentiation.sql",
+    "instruments/070_instrument_values_cost_shifters.sql",
+)
+
+STATE_DDL = """
+create table if not exists instrument_state (
+    config_hash varchar not null,
+    references_hash varchar not null,
+    code_hash varchar not null,
+);
+create table if not exists iv_stored_products (
+    market varchar not null,
+    geography varchar,
+    period_start date not null,
+    product varchar not null,
+    firm varchar,
+    price double,
+);
+create table if not exists iv_stored_characteristics (
+    market varchar not null,
+    product varchar not null,
+    period_start date not null,
+    firm varchar,
+    characteristic varchar not null,
+    value double,
+);
+create table if not exists iv_stored_spreads (
+    characteristic varchar not null,
+    spread double,
+);
+create table if not exists iv_stored_values (
+    market varchar not null,
+    product varchar not null,
+    period_start date not null,
+    instrument varchar not null,
+    family varchar not null,
+    source varchar,
+    value double,
+);
+create table if not exists iv_stored_flags (
+    market varchar not null,
+    product varchar not null,
+    period_start date not null,
+    flag varchar not null,
+    family varchar not null,
+    source varchar,
+    value boolean not null,
+);
+"""
+
+# what a build without characteristics compares (the family SQL never reads it then)
+NO_CHARACTERISTICS_DDL = """
+create or replace table iv_characteristic_values (
+    market varchar,
+    product varchar,
+    period_start date,
+    firm varchar,
+    characteristic varchar,
+    value double,
+)
+"""
+
+NO_VALUES = "no instrument values are stored yet"
+NO_LEDGER = "the warehouse has no ledger to tell whether a reference file changed"
+CODE_CHANGED = "demandprep or its SQL changed since the instrument values were stored"
+CONFIG_CHANGED = "the config changed since the instrument values were stored"
+REFERENCES_CHANGED = "a reference file changed since the instrument values were stored"
+
+
+def create_empty_characteristics(con: duckdb.DuckDBPyConnection) -> None:
+    """An empty `iv_characteristic_values` for a config whose families use no characteristic."""
+    con.execute(NO_CHARACTERISTICS_DDL)
+
+
+def plan_instrument_periods(ctx: BuildContext) -> None:
+    """Decide full or incremental and write the periods to compute into `iv_build_periods`."""
+    con = ctx.con
+    con.execute(STATE_DDL)
+    reason = full_build_reason(con, current_fingerprint(ctx))
+    run_sql(con, "instruments/013_iv_build_periods.sql", {"every_period": reason is not None})
+    ctx.facts["instrument_scope"] = {
+        "build_mode": "full" if reason is not None else "incremental",
+        "periods_rebuilt": _build_periods(con),
+        "full_build_reason": reason,
+        "every_period": [],
+    }
+
+
+def current_fingerprint(ctx: BuildContext) -> tuple[str, str, str]:
+    """(config, reference files, tool and SQL) hashes; references '' without a ledger."""
+    references = ""
+    if has_ledger(ctx.con):
+        rows = ctx.con.execute(
+            "select source, path, sha256 from ledger "
+            "where status = 'current' and source <> 'receipts' order by all"
+        ).fetchall()
+        references = _digest(rows)
+    code = _digest([__version__, *(sql_text(name) for name in INSTRUMENT_SQL)])
+    return ctx.config.config_hash(), references, code
+
+
+def full_build_reason(
+    con: duckdb.DuckDBPyConnection, fingerprint: tuple[str, str, str]
+) -> str | None:
+    """Why every period's instruments must be computed, or None when changed periods suffice."""
+    stored = con.execute(
+        "select config_hash, references_hash, code_hash from instrument_state"
+    ).fetchall()
+    if len(stored) != 1:
+        return NO_VALUES
+    config_hash, references_hash, code_hash = fingerprint
+    if not references_hash:
+        return NO_LEDGER
+    if stored[0][2] != code_hash:
+        return CODE_CHANGED
+    if stored[0][0] != config_hash:
+        return CONFIG_CHANGED
+    if stored[0][1] != references_hash:
+        return REFERENCES_CHANGED
+    return None
+
+
+def is_full_build(ctx: BuildContext) -> bool:
+    """True when this build computes every period's instruments."""
+    return ctx.facts["instrument_scope"]["build_mode"] == "full"
+
+
+def note_every_period(ctx: BuildContext, family: str) -> None:
+    """Record that `family` was computed for every period in this build."""
+    families = ctx.facts["instrument_scope"]["every_period"]
+    families.append(family)
+    families.sort()
+
+
+def spread_moved(ctx: BuildContext) -> bool:
+    """True when a differentiation spread differs (bit for bit) from the stored one."""
+    if is_full_build(ctx):
+        return True
+    moved = ctx.con.execute(
+        "select count(*) from iv_spreads "
+        "full join iv_stored_spreads as stored using (characteristic) "
+        "where iv_spreads.spread is distinct from stored.spread"
+    ).fetchone()[0]
+    return bool(moved)
+
+
+def store_instrument_values(ctx: BuildContext) -> None:
+    """Merge this build's rows into the stored values and store their inputs, atomically."""
+    con = ctx.con
+    con.execute("begin transaction")
+    try:
+        for stored, fresh, column in (
+            ("iv_stored_values", "instrument_values", "instrument"),
+            ("iv_stored_flags", "instrument_flags", "flag"),
+        ):
+            _replace_rows(con, stored, fresh, column, is_full_build(ctx))
+        _store_inputs(con, ctx.config.instruments.differentiation)
+        store_instrument_state(con, current_fingerprint(ctx))
+        con.execute("commit")
+    except BaseException:
+        con.execute("rollback")
+        raise
+
+
+def store_instrument_state(
+    con: duckdb.DuckDBPyConnection, fingerprint: tuple[str, str, str]
+) -> None:
+    """Record the fingerprint the stored values were computed under."""
+    con.execute("delete from instrument_state")
+    con.execute("insert into instrument_state values (?, ?, ?)", list(fingerprint))
+
+
+def _replace_rows(
+    con: duckdb.DuckDBPyConnection, stored: str, fresh: str, column: str, full: bool
+) -> None:
+    # the names are ours, never the user's; an iv_ column's rows of a period go as a whole
+    if full:
+        con.execute(f"delete from {stored}")  # noqa: S608
+    else:
+        con.execute(
+            f"delete from {stored} where exists (select 1 from {fresh} "  # noqa: S608
+            f"where {fresh}.{column} = {stored}.{column} "
+            f"and {fresh}.period_start = {stored}.period_start) "
+            f"or {stored}.period_start not in (select period_start from iv_products)"
+        )
+    con.execute(f"insert into {stored} by name from {fresh}")  # noqa: S608
+
+
+def _store_inputs(con: duckdb.DuckDBPyConnection, differentiation: list[str]) -> None:
+    con.execute("delete from iv_stored_products")
+    con.execute("insert into iv_stored_products by name from iv_products")
+    con.execute("delete from iv_stored_characteristics")
+    con.execute("insert into iv_stored_characteristics by name from iv_characteristic_values")
+    con.execute("delete from iv_stored_spreads")
+    if differentiation:
+        con.execute("insert into iv_stored_spreads by name from iv_spreads")
+
+
+def _build_periods(con: duckdb.DuckDBPyConnection) -> list[str]:
+    rows = con.execute("select period_start from iv_build_periods order by 1").fetchall()
+    return [row[0].isoformat() for row in rows]
+
+
+def _digest(values: list[Any]) -> str:
+    return hashlib.sha256(repr(values).encode()).hexdigest()

@@ -5,9 +5,12 @@ The map runs in this process here; tests/test_flows_partitioned.py runs it on a 
 
 from __future__ import annotations
 
+import csv
+import gzip
 import shutil
 from pathlib import Path
 
+import duckdb
 import polars as pl
 import pytest
 from polars.testing import assert_frame_equal
@@ -32,6 +35,49 @@ def sample_copy(sample: Path, folder: Path, partitioning: str = "") -> ProjectCo
     config_path = folder / "demandprep.toml"
     config_path.write_text(config_path.read_text(encoding="utf-8") + partitioning, "utf-8")
     return load_config(config_path)
+
+
+def region_layout(config: ProjectConfig) -> ProjectConfig:
+    """The copy's daily files split by region: `receipts/<region>/receipts_<day>.csv.gz`.
+
+    Lines whose store is in no region (broken lines, unknown stores) go to `receipts/unplaced/`.
+    The lines keep their bytes; the config's glob `receipts/*/receipts_*.csv.gz` still matches.
+    """
+    folder = config.config_path.parent
+    with (folder / "stores.csv").open(encoding="utf-8", newline="") as stores:
+        regions = {row["shop_id"]: region_folder(row["region"]) for row in csv.DictReader(stores)}
+    for daily in sorted((folder / "receipts").glob("*/receipts_*.csv.gz")):
+        header, *lines = gzip.decompress(daily.read_bytes()).split(b"\n")
+        store_at = header.decode().split(",").index("shop_id")
+        split: dict[str, list[bytes]] = {}
+        for line in filter(None, lines):
+            fields = next(csv.reader([line.decode("utf-8", "replace")]))
+            region = regions.get(fields[store_at]) if len(fields) > store_at else None
+            split.setdefault(region or "unplaced", []).append(line)
+        daily.unlink()
+        for region, kept in split.items():
+            target = folder / "receipts" / region / daily.name
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(gzip.compress(b"\n".join([header, *kept, b""])))
+    return load_config(config.config_path)
+
+
+def region_folder(region: str) -> str:
+    """The folder of a region's files (`Saltmarsh Coast` -> `saltmarsh-coast`)."""
+    return region.lower().replace(" ", "-")
+
+
+def partition_receipts_files(config: ProjectConfig) -> dict[str, list[str]]:
+    """The receipts files each partition's own warehouse ingested, by partition folder name."""
+    ingested = {}
+    for warehouse in sorted(config.partitioning.root.glob("partition-*/warehouse.duckdb")):
+        con = duckdb.connect(str(warehouse), read_only=True)
+        rows = con.execute(
+            "select path from ledger where source = 'receipts' and status = 'current' order by 1"
+        ).fetchall()
+        con.close()
+        ingested[warehouse.parent.name] = [row[0] for row in rows]
+    return ingested
 
 
 def built_tables(folder: Path) -> list[str]:
@@ -196,3 +242,44 @@ def test_receipt_ids_unique_in_the_chain_refuse_partitioning(
     )
     # refused from the config alone: nothing was ingested or partitioned
     assert not config.warehouse.path.exists() and not config.partitioning.root.exists()
+
+
+def test_per_region_files_feed_only_their_partition_and_give_the_same_tables(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    outcome = build_partitioned(config, map_in_process(config))
+    with open_warehouse(config.warehouse) as con:
+        partitions = plan_partitions(con, config)
+    ingested = partition_receipts_files(config)
+    assert sorted(ingested) == sorted(item.name for item in partitions)
+    receipts = config.config_path.parent / "receipts"
+    for item in partitions:
+        # a partition reads its region's 49 daily files and no other region's (nor unplaced)
+        assert ingested[item.name] == [
+            str(path) for path in sorted((receipts / region_folder(item.key)).glob("*.csv.gz"))
+        ]
+    assert_same_tables(single_process_build, outcome.folder)
+
+
+def test_a_new_file_of_one_region_maps_only_that_regions_partition(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    last_day = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    held_back = tmp_path / last_day.name
+    shutil.move(last_day, held_back)
+    build_partitioned(config, map_in_process(config))
+    shutil.move(held_back, last_day)
+    mapped = []
+
+    def recording_map(partitions):
+        mapped.extend(item.label for item in partitions)
+        return map_in_process(config)(partitions)
+
+    second = build_partitioned(config, recording_map)
+    assert mapped == ["Lindenmoor"]
+    scope = second.ctx.facts["build_scope"]
+    assert (scope["build_mode"], scope["periods_rebuilt"]) == ("incremental", ["2024-02-12"])
+    assert scope["partitions_rebuilt"] == ["Lindenmoor"]
+    assert_same_tables(single_process_build, second.folder)

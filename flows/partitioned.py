@@ -24,7 +24,9 @@ from demandprep.partitioned.runner import build_partitioned
 
 
 @task(name="build partition", **NO_RESULTS)
-def partition_task(config_path: str, key: str | None, stores: list[str]) -> PartitionSummaries:
+def partition_task(
+    config_path: str, key: str | None, stores: list[str], files: list[str], inputs: str
+) -> PartitionSummaries:
     """One partition's ingest and period summaries, in its own warehouse on a worker.
 
     The task gets the config's path, not the model: the Dask runner walks a task's arguments,
@@ -32,7 +34,8 @@ def partition_task(config_path: str, key: str | None, stores: list[str]) -> Part
     config file sits on the storage every worker sees, beside the partitions. The partition
     travels as plain values for the same reason.
     """
-    return build_partition(load_config(config_path), Partition(key, tuple(stores)))
+    partition = Partition(key, tuple(stores), tuple(files), inputs)
+    return build_partition(load_config(config_path), partition)
 
 
 def map_on_cluster(config: ProjectConfig):
@@ -43,7 +46,9 @@ def map_on_cluster(config: ProjectConfig):
             partition_task.with_options(
                 task_run_name=f"partition {item.label}",
                 retries=config.partitioning.partition_retries,
-            ).submit(str(config.config_path), item.key, list(item.stores))
+            ).submit(
+                str(config.config_path), item.key, list(item.stores), list(item.files), item.inputs
+            )
             for item in partitions
         ]
         wait(futures)  # every partition ends before the first failure is raised
@@ -64,6 +69,16 @@ def partitioned_flow(config_path: str, force_rebuild: bool = False) -> dict[str,
     message = f"published {outcome.folder.name}"
     get_run_logger().info(message)
     return {"status": "published", "message": message, "build": str(outcome.folder)}
+
+
+@flow(name="demandprep-partitioned-night", description="A scheduled partitioned build.")
+def partitioned_night(config_path: str, force_rebuild: bool = False) -> dict[str, Any]:
+    """The night `demandprep serve` schedules for a partitioned project: the flow on its cluster.
+
+    The task runner depends on the config (its cluster address), so the served flow picks it
+    at run time and runs the partitioned flow with it, as `demandprep partitioned` does.
+    """
+    return run_partitioned(config_path, force_rebuild)
 
 
 def cluster_address(config: ProjectConfig) -> str | None:

@@ -1,19 +1,33 @@
-"""Which partitions a build has, and where each one keeps its warehouse and summaries."""
+"""Which partitions a build has, which receipts files feed each, and where each keeps its state.
+
+Partitions come from the stores reference file (one per value of `partitioning.by`, plus one for
+stores without a value); a line of a store missing from that file is quarantined by the ingest,
+so it belongs to no partition. Each receipts file is routed to the partitions whose stores it
+holds (the coordinator's own lines say which), and to every partition it fed before, so a
+corrected file that no longer holds a partition's stores still replaces its old lines there.
+"""
 
 from __future__ import annotations
 
+import glob
 import hashlib
+import json
+import os
 from dataclasses import dataclass
 from pathlib import Path
 
 import duckdb
 
+from demandprep import __version__
 from demandprep.config import ProjectConfig
 from demandprep.errors import UserError
 from demandprep.market.settings import table_columns
-from demandprep.sqlfiles import quote_identifier
+from demandprep.market.summaries import SUMMARY_SQL
+from demandprep.sqlfiles import quote_identifier, sql_text
 
 SUMMARY_FILES = ("market_store_visits", "market_sku_sales")
+# what a partition last built from: its receipts files and the digest of its inputs
+ROUTING_RECORD = "routed_files.json"
 # the partition of stores without a value in the partitioning column (or without a stores row)
 NO_VALUE = "no value"
 
@@ -24,6 +38,11 @@ class Partition:
 
     key: str | None
     stores: tuple[str, ...]
+    # the receipts files that hold its stores' lines (absolute paths), and a digest of every
+    # input that gives its summaries their meaning (a partition whose digest matches its
+    # record needs no map step)
+    files: tuple[str, ...] = ()
+    inputs: str = ""
 
     @property
     def name(self) -> str:
@@ -61,18 +80,99 @@ def partition_config(config: ProjectConfig, partition: Partition) -> ProjectConf
 
 
 def plan_partitions(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[Partition]:
-    """The partitions of the coordinator's receipt lines, by the stores column named in config."""
+    """The partitions that have receipts files, from the stores file, each with its files."""
     require_partition_key(config)
-    column = config.partitioning.by
     check_partitioning(con, config)
-    # the column was checked against the stores table's real columns just above
-    rows = con.execute(
-        "with line_stores as (select distinct store from raw_lines), "
-        f"keyed as (select store, {quote_identifier(column)}::varchar as key from stores) "  # noqa: S608
-        "select keyed.key, list(line_stores.store order by line_stores.store) "
-        "from line_stores left join keyed using (store) group by keyed.key order by keyed.key"
+    current = current_receipts_files(con)
+    references = reference_inputs(con)
+    partitions = []
+    for key, stores, holding in partition_stores_and_files(con, config):
+        partition = Partition(key, tuple(stores))
+        files = sorted((set(holding) | set(recorded_files(config, partition))) & current.keys())
+        if files:
+            inputs = inputs_digest(config, [(path, current[path]) for path in files], references)
+            partitions.append(Partition(key, tuple(stores), tuple(files), inputs))
+    return partitions
+
+
+def partition_stores_and_files(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig
+) -> list[tuple[str | None, list[str], list[str]]]:
+    """Per value of the partitioning column: its stores and the files holding their lines."""
+    # the column was checked against the stores table's real columns (check_partitioning)
+    column = quote_identifier(config.partitioning.by)
+    return con.execute(
+        f"with keyed as (select store, {column}::varchar as key from stores), "  # noqa: S608
+        "line_files as (select distinct raw_lines.store, ledger.path from raw_lines "
+        "join ledger using (file_id) where ledger.status = 'current') "
+        "select keyed.key, list(distinct keyed.store order by keyed.store), "
+        "coalesce(list(distinct line_files.path order by line_files.path) "
+        "filter (where line_files.path is not null), []) "
+        "from keyed left join line_files using (store) group by keyed.key order by keyed.key"
     ).fetchall()
-    return [Partition(key, tuple(stores)) for key, stores in rows]
+
+
+def current_receipts_files(con: duckdb.DuckDBPyConnection) -> dict[str, str]:
+    """The coordinator's current receipts files: path to sha256."""
+    rows = con.execute(
+        "select path, sha256 from ledger where source = 'receipts' and status = 'current'"
+    ).fetchall()
+    return dict(rows)
+
+
+def reference_inputs(con: duckdb.DuckDBPyConnection) -> list[tuple[str, str, str]]:
+    """The current reference files (source, path, sha256): every partition reads them all."""
+    return con.execute(
+        "select source, path, sha256 from ledger "
+        "where source <> 'receipts' and status = 'current' order by all"
+    ).fetchall()
+
+
+def inputs_digest(
+    config: ProjectConfig,
+    files: list[tuple[str, str]],
+    references: list[tuple[str, str, str]],
+) -> str:
+    """A digest of what a partition's summaries are built from: config, files, tool and SQL."""
+    code = [__version__, *(sql_text(name) for name in SUMMARY_SQL)]
+    values = [config.config_hash(), files, references, code]
+    return hashlib.sha256(repr(values).encode()).hexdigest()
+
+
+def recorded_files(config: ProjectConfig, partition: Partition) -> list[str]:
+    """The receipts files the partition was built from last time (none without a record)."""
+    return read_routing_record(config, partition).get("files", [])
+
+
+def read_routing_record(config: ProjectConfig, partition: Partition) -> dict:
+    """The partition's routing record, or an empty one."""
+    path = partition_folder(config, partition) / ROUTING_RECORD
+    return json.loads(path.read_text(encoding="utf-8")) if path.is_file() else {}
+
+
+def write_routing_record(config: ProjectConfig, partition: Partition) -> None:
+    """Record the files and inputs digest a finished partition was built from (atomically)."""
+    path = partition_folder(config, partition) / ROUTING_RECORD
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    record = {"partition": partition.label, "inputs": partition.inputs, "files": partition.files}
+    temporary.write_text(json.dumps(record, indent=1, sort_keys=True), encoding="utf-8")
+    os.replace(temporary, path)
+
+
+def partition_is_current(config: ProjectConfig, partition: Partition) -> bool:
+    """True when the partition's summaries were built from exactly its inputs of tonight."""
+    record = read_routing_record(config, partition)
+    summaries = [summary_path(config, partition, name) for name in SUMMARY_FILES]
+    return record.get("inputs") == partition.inputs and all(path.is_file() for path in summaries)
+
+
+def routed_config(config: ProjectConfig, partition: Partition) -> ProjectConfig:
+    """The config with the receipts source narrowed to the partition's files, for its ingest."""
+    receipts = config.sources.receipts
+    # the paths are literal: escape any glob character a file name may hold
+    narrowed = receipts.model_copy(update={"files": [glob.escape(p) for p in partition.files]})
+    sources = config.sources.model_copy(update={"receipts": narrowed})
+    return config.model_copy(update={"sources": sources})
 
 
 def require_partition_key(config: ProjectConfig) -> None:

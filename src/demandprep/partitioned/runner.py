@@ -3,7 +3,9 @@
 The map is a function from the partitions to their summaries: the Prefect flow
 (`flows/partitioned.py`) runs it as tasks on a Dask cluster, a test may run it in-process.
 It must return only when every partition finished, and raise when one failed: the reduce and
-the export come after it, so a failed partition publishes nothing and `latest` stays.
+the export come after it, so a failed partition publishes nothing and `latest` stays. Only the
+partitions whose inputs changed since their last map are handed to it; the others' summary files
+are reused as they are.
 """
 
 from __future__ import annotations
@@ -14,10 +16,11 @@ from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.ingest.runner import ingest_all
-from demandprep.partitioned.map import PartitionSummaries, build_partition
+from demandprep.partitioned.map import PartitionSummaries, build_partition, kept_summaries
 from demandprep.partitioned.plan import (
     Partition,
     check_visits_stay_in_stores,
+    partition_is_current,
     plan_partitions,
     require_partition_key,
 )
@@ -55,8 +58,20 @@ def build_partitioned(
                 "warehouse to partition.",
                 "check sources.receipts.files, or leave partitioning.by unset.",
             )
-        summaries = map_partitions(partitions)
+        summaries = map_changed_partitions(config, partitions, map_partitions, force)
         ctx = BuildContext(con=con, config=config)
         for stage in reduce_stages(config, summaries):
             run_stage(stage, ctx)
         return BuildOutcome(folder=export_build(ctx), ctx=ctx)
+
+
+def map_changed_partitions(
+    config: ProjectConfig,
+    partitions: list[Partition],
+    map_partitions: MapPartitions,
+    force: bool = False,
+) -> list[PartitionSummaries]:
+    """Map the partitions whose inputs changed (all with `force`); keep the others' summaries."""
+    changed = [item for item in partitions if force or not partition_is_current(config, item)]
+    kept = [kept_summaries(config, item) for item in partitions if item not in changed]
+    return (map_partitions(changed) if changed else []) + kept

@@ -11,6 +11,7 @@ incremental, so a rerun finishes what the lost one began.
 from __future__ import annotations
 
 import os
+from datetime import date
 from typing import Any
 
 from prefect import flow, get_run_logger, task
@@ -25,7 +26,12 @@ from demandprep.partitioned.runner import build_partitioned
 
 @task(name="build partition", **NO_RESULTS)
 def partition_task(
-    config_path: str, key: str | None, stores: list[str], files: list[str], inputs: str
+    config_path: str,
+    key: str | None,
+    stores: list[str],
+    files: list[str],
+    inputs: str,
+    period_range: list[str | None],
 ) -> PartitionSummaries:
     """One partition's ingest and period summaries, in its own warehouse on a worker.
 
@@ -34,7 +40,8 @@ def partition_task(
     config file sits on the storage every worker sees, beside the partitions. The partition
     travels as plain values for the same reason.
     """
-    partition = Partition(key, tuple(stores), tuple(files), inputs)
+    first, after = (None if day is None else date.fromisoformat(day) for day in period_range)
+    partition = Partition(key, tuple(stores), tuple(files), inputs, first, after)
     return build_partition(load_config(config_path), partition)
 
 
@@ -47,7 +54,12 @@ def map_on_cluster(config: ProjectConfig):
                 task_run_name=f"partition {item.label}",
                 retries=config.partitioning.partition_retries,
             ).submit(
-                str(config.config_path), item.key, list(item.stores), list(item.files), item.inputs
+                str(config.config_path),
+                item.key,
+                list(item.stores),
+                list(item.files),
+                item.inputs,
+                [None if day is None else day.isoformat() for day in period_range(item)],
             )
             for item in partitions
         ]
@@ -79,6 +91,11 @@ def partitioned_night(config_path: str, force_rebuild: bool = False) -> dict[str
     at run time and runs the partitioned flow with it, as `demandprep partitioned` does.
     """
     return run_partitioned(config_path, force_rebuild)
+
+
+def period_range(partition: Partition) -> tuple[date | None, date | None]:
+    """The partition's first day and the day after its last (None: open-ended)."""
+    return partition.first_day, partition.after_last_day
 
 
 def cluster_address(config: ProjectConfig) -> str | None:

@@ -8,6 +8,7 @@ from __future__ import annotations
 import csv
 import gzip
 import shutil
+from datetime import date
 from pathlib import Path
 
 import duckdb
@@ -27,6 +28,8 @@ from demandprep.warehouse import open_warehouse
 INGEST_RECORDS = ("ledger", "quarantine")
 LAST_DAY = Path("receipts/2024/receipts_2024-02-18.csv.gz")
 PARTITIONING = '\n[partitioning]\nby = "region"\n'
+# two period ranges: the sample's first three weeks, and the four after them
+PERIOD_RANGES = PARTITIONING + 'period_boundaries = ["2024-01-22"]\n'
 
 
 def sample_copy(sample: Path, folder: Path, partitioning: str = "") -> ProjectConfig:
@@ -283,3 +286,91 @@ def test_a_new_file_of_one_region_maps_only_that_regions_partition(
     assert (scope["build_mode"], scope["periods_rebuilt"]) == ("incremental", ["2024-02-12"])
     assert scope["partitions_rebuilt"] == ["Lindenmoor"]
     assert_same_tables(single_process_build, second.folder)
+
+
+def test_a_corrected_file_leaving_a_partition_takes_its_old_lines_out_of_it(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    corrected = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    build_partitioned(config, map_in_process(config))
+    # the Lindenmoor file is corrected: its lines were Harrowfield's store S01's
+    header, *lines = gzip.decompress(corrected.read_bytes()).decode().split("\n")
+    store_at = header.split(",").index("shop_id")
+    moved = [line.split(",") for line in filter(None, lines)]
+    for fields in moved:
+        fields[store_at] = "S01" if len(fields) > store_at else fields[store_at]
+    text = "\n".join([header, *(",".join(fields) for fields in moved), ""])
+    corrected.write_bytes(gzip.compress(text.encode()))
+    second = build_partitioned(config, map_in_process(config))
+    assert second.ctx.facts["build_scope"]["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor"]
+    with open_warehouse(config.warehouse) as con:
+        partitions = {item.label: item for item in plan_partitions(con, config)}
+    lindenmoor = partitions["Lindenmoor"]
+    warehouse = config.partitioning.root / lindenmoor.name / "warehouse.duckdb"
+    con = duckdb.connect(str(warehouse), read_only=True)
+    stores = con.execute(
+        "select distinct store from raw_lines where sold_at >= '2024-02-18' order by 1"
+    ).fetchall()
+    con.close()
+    # the corrected version replaced the old one there, and its lines are not Lindenmoor's
+    assert stores == []
+    assert str(corrected) in lindenmoor.files
+
+
+def test_period_ranges_split_each_region_and_give_the_same_tables(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PERIOD_RANGES)
+    outcome = build_partitioned(config, map_in_process(config))
+    with open_warehouse(config.warehouse) as con:
+        partitions = plan_partitions(con, config)
+    boundary = date(2024, 1, 22)
+    assert [(item.key, item.first_day, item.after_last_day) for item in partitions] == [
+        (region, first, after)
+        for region in ("Harrowfield", "Lindenmoor", "Saltmarsh Coast")
+        for first, after in ((None, boundary), (boundary, None))
+    ]
+    ingested = partition_receipts_files(config)
+    for item in partitions:
+        # the daily files are named by their day: a partition reads only its range's days
+        days = {date.fromisoformat(path[-17:-7]) for path in ingested[item.name]}
+        in_range = {day for day in days if (day < boundary) == (item.after_last_day == boundary)}
+        assert days == in_range and len(days) == (21 if item.first_day is None else 28)
+    assert_same_tables(single_process_build, outcome.folder)
+
+
+def test_a_period_boundary_inside_a_week_is_one_line(coffee_sample: Path, tmp_path: Path) -> None:
+    ranges = PARTITIONING + 'period_boundaries = ["2024-01-24"]\n'
+    config = sample_copy(coffee_sample, tmp_path / "sample", ranges)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line() == (
+        f"{config.config_path}: key 'partitioning.period_boundaries' has 2024-01-24, which "
+        "does not start a week period, so a market would span two partitions. Hint: give "
+        "dates that start a period, such as 2024-01-22."
+    )
+    assert not config.warehouse.path.exists()
+
+
+def test_period_ranges_need_receipt_ids_unique_per_store_day(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PERIOD_RANGES)
+    text = config.config_path.read_text(encoding="utf-8")
+    config.config_path.write_text(
+        text.replace(
+            'categories = ["coffee"]', 'categories = ["coffee"]\nreceipt_ids_unique_per = "store"'
+        ),
+        "utf-8",
+    )
+    config = load_config(config.config_path)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line() == (
+        f"{config.config_path}: key 'partitioning.period_boundaries' needs receipt ids unique "
+        "per store-day, but markets.receipt_ids_unique_per = 'store' lets a visit span two "
+        "period ranges. Hint: set receipt_ids_unique_per to 'store_day', or leave "
+        "period_boundaries empty."
+    )
+    assert not config.warehouse.path.exists()

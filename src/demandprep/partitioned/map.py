@@ -79,10 +79,16 @@ def kept_summaries(config: ProjectConfig, partition: Partition) -> PartitionSumm
 
 
 def keep_partition_lines(con: duckdb.DuckDBPyConnection, partition: Partition) -> None:
-    """Delete the lines of other partitions' stores (this warehouse is the partition's alone)."""
+    """Delete the lines of other partitions' stores and periods (the warehouse is its own)."""
     con.execute(
-        "delete from raw_lines where not list_contains($stores, store)",
-        {"stores": list(partition.stores)},
+        "delete from raw_lines where not list_contains($stores, store) "
+        "or sold_at::date < coalesce($first_day, sold_at::date) "
+        "or sold_at::date >= coalesce($after_last_day, sold_at::date + 1)",
+        {
+            "stores": list(partition.stores),
+            "first_day": partition.first_day,
+            "after_last_day": partition.after_last_day,
+        },
     )
 
 

@@ -14,6 +14,7 @@ import hashlib
 import json
 import os
 from dataclasses import dataclass
+from datetime import date, timedelta
 from pathlib import Path
 
 import duckdb
@@ -43,17 +44,26 @@ class Partition:
     # record needs no map step)
     files: tuple[str, ...] = ()
     inputs: str = ""
+    # its period range (partitioning.period_boundaries): sale days from first_day up to the day
+    # before after_last_day; None is open-ended
+    first_day: date | None = None
+    after_last_day: date | None = None
 
     @property
     def name(self) -> str:
         """A folder name that does not depend on the value's spelling (values are free text)."""
         label = NO_VALUE if self.key is None else f"value:{self.key}"
+        if self.first_day is not None or self.after_last_day is not None:
+            label += f"|from:{self.first_day}|before:{self.after_last_day}"
         return "partition-" + hashlib.sha256(label.encode()).hexdigest()[:16]
 
     @property
     def label(self) -> str:
-        """The value as shown in logs and docs."""
-        return NO_VALUE if self.key is None else self.key
+        """The value (and period range) as shown in logs and docs."""
+        value = NO_VALUE if self.key is None else self.key
+        if self.first_day is None and self.after_last_day is None:
+            return value
+        return f"{value} [{self.first_day or ''}, {self.after_last_day or ''})"
 
 
 def partition_folder(config: ProjectConfig, partition: Partition) -> Path:
@@ -85,31 +95,54 @@ def plan_partitions(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> li
     check_partitioning(con, config)
     current = current_receipts_files(con)
     references = reference_inputs(con)
+    holding = files_by_key_and_range(con, config)
     partitions = []
-    for key, stores, holding in partition_stores_and_files(con, config):
-        partition = Partition(key, tuple(stores))
-        files = sorted((set(holding) | set(recorded_files(config, partition))) & current.keys())
-        if files:
-            inputs = inputs_digest(config, [(path, current[path]) for path in files], references)
-            partitions.append(Partition(key, tuple(stores), tuple(files), inputs))
+    for key, stores in stores_by_key(con, config):
+        for index, (first, after) in enumerate(period_ranges(config)):
+            partition = Partition(key, tuple(stores), first_day=first, after_last_day=after)
+            routed = set(holding.get((key, index), [])) | set(recorded_files(config, partition))
+            files = tuple(sorted(routed & current.keys()))
+            if files:
+                inputs = inputs_digest(
+                    config, [(path, current[path]) for path in files], references
+                )
+                partitions.append(Partition(key, tuple(stores), files, inputs, first, after))
     return partitions
 
 
-def partition_stores_and_files(
+def period_ranges(config: ProjectConfig) -> list[tuple[date | None, date | None]]:
+    """The period ranges between the boundaries (one open range without boundaries)."""
+    bounds: list[date | None] = sorted(set(config.partitioning.period_boundaries))
+    return list(zip([None, *bounds], [*bounds, None], strict=True))
+
+
+def stores_by_key(
     con: duckdb.DuckDBPyConnection, config: ProjectConfig
-) -> list[tuple[str | None, list[str], list[str]]]:
-    """Per value of the partitioning column: its stores and the files holding their lines."""
+) -> list[tuple[str | None, list[str]]]:
+    """Each value of the partitioning column with its stores, from the stores file."""
     # the column was checked against the stores table's real columns (check_partitioning)
     column = quote_identifier(config.partitioning.by)
     return con.execute(
-        f"with keyed as (select store, {column}::varchar as key from stores), "  # noqa: S608
-        "line_files as (select distinct raw_lines.store, ledger.path from raw_lines "
-        "join ledger using (file_id) where ledger.status = 'current') "
-        "select keyed.key, list(distinct keyed.store order by keyed.store), "
-        "coalesce(list(distinct line_files.path order by line_files.path) "
-        "filter (where line_files.path is not null), []) "
-        "from keyed left join line_files using (store) group by keyed.key order by keyed.key"
+        f"select {column}::varchar as key, list(store order by store) from stores "  # noqa: S608
+        "group by key order by key"
     ).fetchall()
+
+
+def files_by_key_and_range(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig
+) -> dict[tuple[str | None, int], list[str]]:
+    """The current receipts files holding lines of each (value, period range index)."""
+    column = quote_identifier(config.partitioning.by)
+    rows = con.execute(
+        "with file_days as (select distinct file_id, store, sold_at::date as day from raw_lines), "
+        f"keyed as (select store, {column}::varchar as key from stores) "  # noqa: S608
+        "select keyed.key, len(list_filter($bounds, lambda bound: bound <= file_days.day)), "
+        "list(distinct ledger.path order by ledger.path) from file_days "
+        "join ledger using (file_id) join keyed using (store) "
+        "where ledger.status = 'current' group by all",
+        {"bounds": sorted(set(config.partitioning.period_boundaries))},
+    ).fetchall()
+    return {(key, index): paths for key, index, paths in rows}
 
 
 def current_receipts_files(con: duckdb.DuckDBPyConnection) -> dict[str, str]:
@@ -193,6 +226,43 @@ def check_visits_stay_in_stores(config: ProjectConfig) -> None:
             "store-day, but markets.receipt_ids_unique_per = 'chain' lets a visit span partitions.",
             "set receipt_ids_unique_per to 'store' or 'store_day', or leave partitioning.by unset.",
         )
+    if config.partitioning.period_boundaries:
+        check_period_boundaries(config)
+
+
+def check_period_boundaries(config: ProjectConfig) -> None:
+    """Refuse period ranges that could split a market or a visit between partitions."""
+    key = "key 'partitioning.period_boundaries'"
+    unique_per = config.markets.receipt_ids_unique_per
+    if unique_per != "store_day":
+        raise UserError(
+            f"{config.config_path}: {key} needs receipt ids unique per store-day, but "
+            f"markets.receipt_ids_unique_per = {unique_per!r} lets a visit span two period ranges.",
+            "set receipt_ids_unique_per to 'store_day', or leave period_boundaries empty.",
+        )
+    period = config.markets.period
+    for boundary in sorted(config.partitioning.period_boundaries):
+        start = period_start(boundary, period, config.markets.week_starts_on)
+        if start != boundary:
+            raise UserError(
+                f"{config.config_path}: {key} has {boundary}, which does not start a {period} "
+                "period, so a market would span two partitions.",
+                f"give dates that start a period, such as {start}.",
+            )
+
+
+WEEKDAYS = ("monday", "tuesday", "wednesday", "thursday", "friday", "saturday", "sunday")
+
+
+def period_start(day: date, period: str, week_starts_on: str) -> date:
+    """The first day of the market period holding `day` (as `sql/market/010` computes it)."""
+    if period == "week":
+        return day - timedelta(days=(day.weekday() - WEEKDAYS.index(week_starts_on)) % 7)
+    if period == "month":
+        return day.replace(day=1)
+    if period == "quarter":
+        return day.replace(month=(day.month - 1) // 3 * 3 + 1, day=1)
+    return day
 
 
 def check_partitioning(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:

@@ -374,3 +374,40 @@ def test_period_ranges_need_receipt_ids_unique_per_store_day(
         "period_boundaries empty."
     )
     assert not config.warehouse.path.exists()
+
+
+def test_a_line_lost_between_partitions_fails_the_build_before_publishing(
+    coffee_sample: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import demandprep.partitioned.map as partition_map
+
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    keep = partition_map.keep_partition_lines
+
+    def keep_and_lose_the_first_line(con, partition):
+        # each partition loses its first line of the first day's file
+        keep(con, partition)
+        con.execute(
+            "with first_file as (select file_id from ledger where path like '%2024-01-01.csv.gz'), "
+            "first_line as (select file_id, min(line_no) as line_no from raw_lines "
+            "semi join first_file using (file_id) group by all) "
+            "delete from raw_lines using first_line "
+            "where raw_lines.file_id = first_line.file_id "
+            "and raw_lines.line_no = first_line.line_no"
+        )
+
+    monkeypatch.setattr(partition_map, "keep_partition_lines", keep_and_lose_the_first_line)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    first_file = config.config_path.parent / "receipts" / "2024" / "receipts_2024-01-01.csv.gz"
+    with open_warehouse(config.warehouse) as con:
+        accepted = con.execute(
+            "select rows_accepted from ledger where path = $path", {"path": str(first_file)}
+        ).fetchone()[0]
+    # every accepted line of a file that feeds several partitions is in exactly one of them
+    assert raised.value.one_line() == (
+        f"{first_file}: the coordinator accepted {accepted} lines of this receipts file, but "
+        f"the partitions hold {accepted - 3}. Hint: remove the partitions' folders under "
+        f"{config.partitioning.root} to rebuild them from their files."
+    )
+    assert latest_build(config.export.root) is None

@@ -26,6 +26,7 @@ from demandprep.partitioned.plan import (
     SUMMARY_FILES,
     Partition,
     partition_config,
+    read_routing_record,
     routed_config,
     summary_path,
     write_routing_record,
@@ -46,6 +47,8 @@ class PartitionSummaries:
     files: dict[str, Path]
     rows: dict[str, int]
     build_scope: dict[str, Any] = field(default_factory=dict)
+    # the partition's accepted lines per receipts file (path): the reduce checks they add up
+    lines: dict[str, int] = field(default_factory=dict)
 
 
 def map_stages() -> tuple[Stage, ...]:
@@ -60,6 +63,7 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
     with open_warehouse(own.warehouse) as con:
         ingest_all(con, routed_config(own, partition))
         keep_partition_lines(con, partition)
+        lines = lines_per_file(con)
         # the stages see the project's receipts globs, not tonight's routed list: the config's
         # hash is the summaries' fingerprint, and it must not change with the files
         ctx = BuildContext(con=con, config=own)
@@ -67,15 +71,25 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
             run_stage(stage, ctx)
         files = {name: summary_path(config, partition, name) for name in SUMMARY_FILES}
         rows = {name: write_summary(con, name, path) for name, path in files.items()}
-    write_routing_record(config, partition)
-    return PartitionSummaries(partition, files, rows, ctx.facts.get("build_scope", {}))
+    write_routing_record(config, partition, lines)
+    return PartitionSummaries(partition, files, rows, ctx.facts.get("build_scope", {}), lines)
 
 
 def kept_summaries(config: ProjectConfig, partition: Partition) -> PartitionSummaries:
     """The summaries of a partition whose inputs did not change, as its last map wrote them."""
     files = {name: summary_path(config, partition, name) for name in SUMMARY_FILES}
     rows = {name: pq.read_metadata(path).num_rows for name, path in files.items()}
-    return PartitionSummaries(partition, files, rows)
+    lines = read_routing_record(config, partition).get("lines", {})
+    return PartitionSummaries(partition, files, rows, lines=lines)
+
+
+def lines_per_file(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
+    """The partition's lines per receipts file, by the file's path."""
+    rows = con.execute(
+        "select ledger.path, count(*) from raw_lines join ledger using (file_id) "
+        "where ledger.status = 'current' group by all"
+    ).fetchall()
+    return dict(rows)
 
 
 def keep_partition_lines(con: duckdb.DuckDBPyConnection, partition: Partition) -> None:

@@ -183,11 +183,18 @@ def read_routing_record(config: ProjectConfig, partition: Partition) -> dict:
     return json.loads(path.read_text(encoding="utf-8")) if path.is_file() else {}
 
 
-def write_routing_record(config: ProjectConfig, partition: Partition) -> None:
-    """Record the files and inputs digest a finished partition was built from (atomically)."""
+def write_routing_record(
+    config: ProjectConfig, partition: Partition, lines: dict[str, int]
+) -> None:
+    """Record what a finished partition was built from and its lines per file (atomically)."""
     path = partition_folder(config, partition) / ROUTING_RECORD
     temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    record = {"partition": partition.label, "inputs": partition.inputs, "files": partition.files}
+    record = {
+        "partition": partition.label,
+        "inputs": partition.inputs,
+        "files": partition.files,
+        "lines": lines,
+    }
     temporary.write_text(json.dumps(record, indent=1, sort_keys=True), encoding="utf-8")
     os.replace(temporary, path)
 

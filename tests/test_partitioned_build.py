@@ -411,3 +411,24 @@ def test_a_line_lost_between_partitions_fails_the_build_before_publishing(
         f"{config.partitioning.root} to rebuild them from their files."
     )
     assert latest_build(config.export.root) is None
+
+
+def test_a_file_withdrawn_on_the_coordinator_stops_the_next_build_until_partitions_rebuild(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    from demandprep.ingest.withdraw import withdraw_files
+
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    build_partitioned(config, map_in_process(config))
+    withdrawn = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    with open_warehouse(config.warehouse) as con:
+        withdraw_files(con, config, str(withdrawn), "recalled by the store")
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line().startswith(
+        f"{withdrawn}: the coordinator accepted 0 lines of this receipts file, but the "
+        "partitions hold "
+    )
+    shutil.rmtree(config.partitioning.root)
+    rebuilt = build_partitioned(config, map_in_process(config))
+    assert rebuilt.folder is not None and latest_build(config.export.root) == rebuilt.folder

@@ -124,7 +124,7 @@ def stores_by_key(
     column = quote_identifier(config.partitioning.by)
     return con.execute(
         f"select {column}::varchar as key, list(store order by store) from stores "  # noqa: S608
-        "group by key order by key"
+        "group by all order by 1"
     ).fetchall()
 
 

@@ -112,8 +112,11 @@ def run_partitioned(config, workers: int) -> dict:
             ]
             summaries = client.gather(futures)
             exchanged["partitions"] = len(summaries)
-            # receipts files read: each partition reads its routed files, the coordinator all
+            # receipts bytes read: each partition reads its routed files, the coordinator all
             exchanged["partition_file_reads"] = sum(len(item.partition.files) for item in summaries)
+            exchanged["partition_bytes_read"] = sum(
+                Path(path).stat().st_size for item in summaries for path in item.partition.files
+            )
             for summary in ("market_store_visits", "market_sku_sales"):
                 exchanged[summary] = {
                     "rows": sum(item.rows[summary] for item in summaries),
@@ -127,6 +130,9 @@ def run_partitioned(config, workers: int) -> dict:
         worker_cpu = sum(client.run(cpu_seconds).values()) - worker_cpu_before
     con = connect(config.warehouse, read_only=True)
     exchanged["raw_lines"] = con.execute("select count(*) from raw_lines").fetchone()[0]
+    exchanged["receipts_bytes"] = con.execute(
+        "select sum(bytes) from ledger where source = 'receipts' and status = 'current'"
+    ).fetchone()[0]
     con.close()
     return {"wall": wall, "cpu": own_cpu + worker_cpu, "exchanged": exchanged}
 

@@ -3,9 +3,13 @@
     .venv/bin/python benchmarks/partitioned.py                      # the committed sample
     .venv/bin/python benchmarks/partitioned.py --partitioned 1 2    # worker counts to compare
     .venv/bin/python benchmarks/partitioned.py --folder WORLD       # a generated world's folder
+    .venv/bin/python benchmarks/partitioned.py --layout region      # files split per region
 
 Each contender runs in its own child process on a fresh copy of the folder (ingest, build,
-export from an empty warehouse), with `partitioning.by = region`:
+export from an empty warehouse), with `partitioning.by = region`. `--layout daily` keeps the
+folder's files (the sample's daily files hold every store, so every partition reads every
+file); `--layout region` first splits each file by region into `receipts/<region>/` (lines of
+no region into `receipts/unplaced/`), so each partition reads only its region's files:
 
 - single:          the one-process build (`pipeline.run_ingest` + `run_build`);
 - partitioned N:   `partitioned.runner.build_partitioned` with the map on a local Dask cluster
@@ -20,6 +24,8 @@ bytes of the partitions' summary files. No assertion: this is a measurement.
 from __future__ import annotations
 
 import argparse
+import csv
+import gzip
 import json
 import resource
 import shutil
@@ -48,6 +54,29 @@ def fresh_copy(source: Path, target: Path):
     config_path = target / "demandprep.toml"
     config_path.write_text(config_path.read_text(encoding="utf-8") + PARTITIONING, "utf-8")
     return load_config(config_path)
+
+
+def split_by_region(config) -> None:
+    """Split each receipts file of the copy by region, under `receipts/<region>/`."""
+    folder = config.config_path.parent
+    with (folder / "stores.csv").open(encoding="utf-8", newline="") as stores:
+        regions = {
+            row["shop_id"]: row["region"].lower().replace(" ", "-")
+            for row in csv.DictReader(stores)
+        }
+    for original in sorted((folder / "receipts").glob("*/receipts_*.csv.gz")):
+        header, *lines = gzip.decompress(original.read_bytes()).split(b"\n")
+        store_at = header.decode().split(",").index("shop_id")
+        split: dict[str, list[bytes]] = {}
+        for line in filter(None, lines):
+            fields = next(csv.reader([line.decode("utf-8", "replace")]))
+            region = regions.get(fields[store_at]) if len(fields) > store_at else None
+            split.setdefault(region or "unplaced", []).append(line)
+        original.unlink()
+        for region, kept in split.items():
+            target = folder / "receipts" / region / original.name
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(gzip.compress(b"\n".join([header, *kept, b""]), mtime=0))
 
 
 def run_single(config) -> dict:
@@ -83,6 +112,11 @@ def run_partitioned(config, workers: int) -> dict:
             ]
             summaries = client.gather(futures)
             exchanged["partitions"] = len(summaries)
+            # receipts bytes read: each partition reads its routed files, the coordinator all
+            exchanged["partition_file_reads"] = sum(len(item.partition.files) for item in summaries)
+            exchanged["partition_bytes_read"] = sum(
+                Path(path).stat().st_size for item in summaries for path in item.partition.files
+            )
             for summary in ("market_store_visits", "market_sku_sales"):
                 exchanged[summary] = {
                     "rows": sum(item.rows[summary] for item in summaries),
@@ -96,14 +130,19 @@ def run_partitioned(config, workers: int) -> dict:
         worker_cpu = sum(client.run(cpu_seconds).values()) - worker_cpu_before
     con = connect(config.warehouse, read_only=True)
     exchanged["raw_lines"] = con.execute("select count(*) from raw_lines").fetchone()[0]
+    exchanged["receipts_bytes"] = con.execute(
+        "select sum(bytes) from ledger where source = 'receipts' and status = 'current'"
+    ).fetchone()[0]
     con.close()
     return {"wall": wall, "cpu": own_cpu + worker_cpu, "exchanged": exchanged}
 
 
-def child(folder: Path, contender: str) -> None:
+def child(folder: Path, contender: str, layout: str) -> None:
     """Run one contender on a fresh copy and print its figures as JSON."""
     with tempfile.TemporaryDirectory() as scratch:
         config = fresh_copy(folder, Path(scratch) / "world")
+        if layout == "region":
+            split_by_region(config)  # before the clock starts
         figures = (
             run_single(config) if contender == "single" else run_partitioned(config, int(contender))
         )
@@ -114,15 +153,17 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--folder", type=Path, default=SAMPLE)
     parser.add_argument("--partitioned", type=int, nargs="+", default=[1, 2])
+    parser.add_argument("--layout", choices=["daily", "region"], default="daily")
     parser.add_argument("--child", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
-        child(args.folder, args.child)
+        child(args.folder, args.child, args.layout)
         return
-    print(f"folder: {args.folder}")
+    print(f"folder: {args.folder} (layout: {args.layout})")
     print(f"{'contender':<16}{'wall s':>9}{'CPU s':>9}")
     for contender in ["single", *map(str, args.partitioned)]:
-        command = [sys.executable, __file__, "--folder", str(args.folder), "--child", contender]
+        command = [sys.executable, __file__, "--folder", str(args.folder), "--child", contender,
+                   "--layout", args.layout]  # fmt: skip
         output = subprocess.run(command, check=True, capture_output=True, text=True).stdout
         figures = json.loads(output.strip().splitlines()[-1])
         name = contender if contender == "single" else f"partitioned {contender}"

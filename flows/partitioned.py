@@ -11,6 +11,7 @@ incremental, so a rerun finishes what the lost one began.
 from __future__ import annotations
 
 import os
+from datetime import date
 from typing import Any
 
 from prefect import flow, get_run_logger, task
@@ -24,7 +25,14 @@ from demandprep.partitioned.runner import build_partitioned
 
 
 @task(name="build partition", **NO_RESULTS)
-def partition_task(config_path: str, key: str | None, stores: list[str]) -> PartitionSummaries:
+def partition_task(
+    config_path: str,
+    key: str | None,
+    stores: list[str],
+    files: list[str],
+    inputs: str,
+    period_range: list[str | None],
+) -> PartitionSummaries:
     """One partition's ingest and period summaries, in its own warehouse on a worker.
 
     The task gets the config's path, not the model: the Dask runner walks a task's arguments,
@@ -32,7 +40,9 @@ def partition_task(config_path: str, key: str | None, stores: list[str]) -> Part
     config file sits on the storage every worker sees, beside the partitions. The partition
     travels as plain values for the same reason.
     """
-    return build_partition(load_config(config_path), Partition(key, tuple(stores)))
+    first, after = (None if day is None else date.fromisoformat(day) for day in period_range)
+    partition = Partition(key, tuple(stores), tuple(files), inputs, first, after)
+    return build_partition(load_config(config_path), partition)
 
 
 def map_on_cluster(config: ProjectConfig):
@@ -43,7 +53,14 @@ def map_on_cluster(config: ProjectConfig):
             partition_task.with_options(
                 task_run_name=f"partition {item.label}",
                 retries=config.partitioning.partition_retries,
-            ).submit(str(config.config_path), item.key, list(item.stores))
+            ).submit(
+                str(config.config_path),
+                item.key,
+                list(item.stores),
+                list(item.files),
+                item.inputs,
+                [None if day is None else day.isoformat() for day in period_range(item)],
+            )
             for item in partitions
         ]
         wait(futures)  # every partition ends before the first failure is raised
@@ -64,6 +81,21 @@ def partitioned_flow(config_path: str, force_rebuild: bool = False) -> dict[str,
     message = f"published {outcome.folder.name}"
     get_run_logger().info(message)
     return {"status": "published", "message": message, "build": str(outcome.folder)}
+
+
+@flow(name="demandprep-partitioned-night", description="A scheduled partitioned build.")
+def partitioned_night(config_path: str, force_rebuild: bool = False) -> dict[str, Any]:
+    """The night `demandprep serve` schedules for a partitioned project: the flow on its cluster.
+
+    The task runner depends on the config (its cluster address), so the served flow picks it
+    at run time and runs the partitioned flow with it, as `demandprep partitioned` does.
+    """
+    return run_partitioned(config_path, force_rebuild)
+
+
+def period_range(partition: Partition) -> tuple[date | None, date | None]:
+    """The partition's first day and the day after its last (None: open-ended)."""
+    return partition.first_day, partition.after_last_day
 
 
 def cluster_address(config: ProjectConfig) -> str | None:

@@ -1,5 +1,7 @@
 """The nightly deployment, built from the config's [schedule] section, and the process serving it.
 
+A config with `partitioning.by` set is served the partitioned night (`flows/partitioned.py`).
+
 Prefect's scheduler runs only in a full server, so when no server is configured (no
 PREFECT_API_URL) `serve_nightly` starts a temporary one on 127.0.0.1 for as long as it serves.
 """
@@ -21,7 +23,7 @@ from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
-from prefect import serve
+from prefect import Flow, serve
 from prefect.client.schemas.schedules import CronSchedule
 from prefect.deployments.runner import EntrypointType, RunnerDeployment
 from prefect.exceptions import ParameterTypeError
@@ -31,6 +33,7 @@ from prefect.settings import PREFECT_API_URL, temporary_settings
 from demandprep.config import ProjectConfig, load_config
 from demandprep.errors import UserError
 from demandprep.flows.nightly import nightly_flow
+from demandprep.flows.partitioned import partitioned_night
 
 SERVER_START_TIMEOUT_SECONDS = 120.0
 SERVER_STOP_TIMEOUT_SECONDS = 30.0
@@ -58,10 +61,16 @@ def nightly_schedule(config: ProjectConfig) -> Schedule:
     return Cron(section.cron, timezone=section.timezone)
 
 
+def scheduled_flow(config: ProjectConfig) -> Flow:
+    """The flow a night runs: the partitioned build when [partitioning] names a key."""
+    return nightly_flow if config.partitioning.by is None else partitioned_night
+
+
 def deployment_parameters(config: ProjectConfig) -> dict[str, Any]:
     """The parameters of every scheduled run: this config's path, then [schedule.parameters]."""
     extra = dict(config.schedule.parameters)
-    allowed = [name for name in nightly_flow.parameters.properties if name != "config_path"]
+    night = scheduled_flow(config)
+    allowed = [name for name in night.parameters.properties if name != "config_path"]
     unknown = [name for name in extra if name not in allowed]
     if unknown:
         raise UserError(
@@ -71,7 +80,7 @@ def deployment_parameters(config: ProjectConfig) -> dict[str, Any]:
         )
     parameters = {"config_path": str(config.config_path), **extra}
     try:
-        return nightly_flow.validate_parameters(parameters)
+        return night.validate_parameters(parameters)
     except ParameterTypeError as error:
         raise UserError(
             f"{config.config_path}: key 'schedule.parameters': {error}.",
@@ -81,7 +90,7 @@ def deployment_parameters(config: ProjectConfig) -> dict[str, Any]:
 
 def build_deployment(config: ProjectConfig) -> RunnerDeployment:
     """The nightly deployment of this config: its name, cron schedule, timezone and parameters."""
-    return nightly_flow.to_deployment(
+    return scheduled_flow(config).to_deployment(
         name=config.schedule.deployment_name,
         schedule=nightly_schedule(config),
         parameters=deployment_parameters(config),

@@ -17,7 +17,7 @@ from distributed import Client, LocalCluster
 from test_partitioned_build import PARTITIONING, assert_same_tables, sample_copy
 
 from demandprep.export.folder import latest_build
-from demandprep.flows.partitioned import run_partitioned
+from demandprep.flows.partitioned import partitioned_night, run_partitioned
 from demandprep.pipeline import run_build, run_ingest
 
 pytestmark = pytest.mark.slow
@@ -64,6 +64,16 @@ def test_partitioned_flow_on_two_workers_gives_the_single_process_tables(
     result = run_partitioned(str(config.config_path))
     assert result["status"] == "published"
     assert latest_build(config.export.root) == Path(result["build"])
+    assert_same_tables(single_process_build, Path(result["build"]))
+
+
+def test_the_served_partitioned_night_runs_the_flow_on_the_configured_cluster(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path, cluster: LocalCluster
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", on_cluster(cluster.scheduler_address))
+    # the flow `demandprep serve` deploys for a partitioned config (flows/schedule.py)
+    result = partitioned_night(str(config.config_path))
+    assert result["status"] == "published"
     assert_same_tables(single_process_build, Path(result["build"]))
 
 

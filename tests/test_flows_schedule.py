@@ -50,6 +50,17 @@ def test_deployment_has_the_configured_cron_timezone_and_name(tmp_path: Path) ->
     assert deployment.entrypoint == "demandprep.flows.nightly.nightly_flow"
 
 
+def test_a_partitioned_config_serves_the_partitioned_night(tmp_path: Path) -> None:
+    config = config_with_schedule(tmp_path, {"parameters": {"force_rebuild": True}})
+    partitioning = config.partitioning.model_copy(update={"by": "region"})
+    deployment = build_deployment(config.model_copy(update={"partitioning": partitioning}))
+    assert deployment.entrypoint == "demandprep.flows.partitioned.partitioned_night"
+    assert deployment.parameters == {
+        "config_path": str(tmp_path / "demandprep.toml"),
+        "force_rebuild": True,
+    }
+
+
 def test_deployment_parameters_come_from_the_config(tmp_path: Path) -> None:
     config = config_with_schedule(tmp_path, {"parameters": {"force_rebuild": True}})
     deployment = build_deployment(config)

@@ -5,9 +5,13 @@ The map runs in this process here; tests/test_flows_partitioned.py runs it on a 
 
 from __future__ import annotations
 
+import csv
+import gzip
 import shutil
+from datetime import date
 from pathlib import Path
 
+import duckdb
 import polars as pl
 import pytest
 from polars.testing import assert_frame_equal
@@ -24,6 +28,8 @@ from demandprep.warehouse import open_warehouse
 INGEST_RECORDS = ("ledger", "quarantine")
 LAST_DAY = Path("receipts/2024/receipts_2024-02-18.csv.gz")
 PARTITIONING = '\n[partitioning]\nby = "region"\n'
+# two period ranges: the sample's first three weeks, and the four after them
+PERIOD_RANGES = PARTITIONING + 'period_boundaries = ["2024-01-22"]\n'
 
 
 def sample_copy(sample: Path, folder: Path, partitioning: str = "") -> ProjectConfig:
@@ -32,6 +38,49 @@ def sample_copy(sample: Path, folder: Path, partitioning: str = "") -> ProjectCo
     config_path = folder / "demandprep.toml"
     config_path.write_text(config_path.read_text(encoding="utf-8") + partitioning, "utf-8")
     return load_config(config_path)
+
+
+def region_layout(config: ProjectConfig) -> ProjectConfig:
+    """The copy's daily files split by region: `receipts/<region>/receipts_<day>.csv.gz`.
+
+    Lines whose store is in no region (broken lines, unknown stores) go to `receipts/unplaced/`.
+    The lines keep their bytes; the config's glob `receipts/*/receipts_*.csv.gz` still matches.
+    """
+    folder = config.config_path.parent
+    with (folder / "stores.csv").open(encoding="utf-8", newline="") as stores:
+        regions = {row["shop_id"]: region_folder(row["region"]) for row in csv.DictReader(stores)}
+    for daily in sorted((folder / "receipts").glob("*/receipts_*.csv.gz")):
+        header, *lines = gzip.decompress(daily.read_bytes()).split(b"\n")
+        store_at = header.decode().split(",").index("shop_id")
+        split: dict[str, list[bytes]] = {}
+        for line in filter(None, lines):
+            fields = next(csv.reader([line.decode("utf-8", "replace")]))
+            region = regions.get(fields[store_at]) if len(fields) > store_at else None
+            split.setdefault(region or "unplaced", []).append(line)
+        daily.unlink()
+        for region, kept in split.items():
+            target = folder / "receipts" / region / daily.name
+            target.parent.mkdir(parents=True, exist_ok=True)
+            target.write_bytes(gzip.compress(b"\n".join([header, *kept, b""])))
+    return load_config(config.config_path)
+
+
+def region_folder(region: str) -> str:
+    """The folder of a region's files (`Saltmarsh Coast` -> `saltmarsh-coast`)."""
+    return region.lower().replace(" ", "-")
+
+
+def partition_receipts_files(config: ProjectConfig) -> dict[str, list[str]]:
+    """The receipts files each partition's own warehouse ingested, by partition folder name."""
+    ingested = {}
+    for warehouse in sorted(config.partitioning.root.glob("partition-*/warehouse.duckdb")):
+        con = duckdb.connect(str(warehouse), read_only=True)
+        rows = con.execute(
+            "select path from ledger where source = 'receipts' and status = 'current' order by 1"
+        ).fetchall()
+        con.close()
+        ingested[warehouse.parent.name] = [row[0] for row in rows]
+    return ingested
 
 
 def built_tables(folder: Path) -> list[str]:
@@ -196,3 +245,190 @@ def test_receipt_ids_unique_in_the_chain_refuse_partitioning(
     )
     # refused from the config alone: nothing was ingested or partitioned
     assert not config.warehouse.path.exists() and not config.partitioning.root.exists()
+
+
+def test_per_region_files_feed_only_their_partition_and_give_the_same_tables(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    outcome = build_partitioned(config, map_in_process(config))
+    with open_warehouse(config.warehouse) as con:
+        partitions = plan_partitions(con, config)
+    ingested = partition_receipts_files(config)
+    assert sorted(ingested) == sorted(item.name for item in partitions)
+    receipts = config.config_path.parent / "receipts"
+    for item in partitions:
+        # a partition reads its region's 49 daily files and no other region's (nor unplaced)
+        assert ingested[item.name] == [
+            str(path) for path in sorted((receipts / region_folder(item.key)).glob("*.csv.gz"))
+        ]
+    assert_same_tables(single_process_build, outcome.folder)
+
+
+def test_a_new_file_of_one_region_maps_only_that_regions_partition(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    last_day = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    held_back = tmp_path / last_day.name
+    shutil.move(last_day, held_back)
+    build_partitioned(config, map_in_process(config))
+    shutil.move(held_back, last_day)
+    mapped = []
+
+    def recording_map(partitions):
+        mapped.extend(item.label for item in partitions)
+        return map_in_process(config)(partitions)
+
+    second = build_partitioned(config, recording_map)
+    assert mapped == ["Lindenmoor"]
+    scope = second.ctx.facts["build_scope"]
+    assert (scope["build_mode"], scope["periods_rebuilt"]) == ("incremental", ["2024-02-12"])
+    assert scope["partitions_rebuilt"] == ["Lindenmoor"]
+    assert_same_tables(single_process_build, second.folder)
+
+
+def test_a_corrected_file_leaving_a_partition_takes_its_old_lines_out_of_it(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    corrected = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    build_partitioned(config, map_in_process(config))
+    # the Lindenmoor file is corrected: its lines were Harrowfield's store S01's
+    header, *lines = gzip.decompress(corrected.read_bytes()).decode().split("\n")
+    store_at = header.split(",").index("shop_id")
+    moved = [line.split(",") for line in filter(None, lines)]
+    for fields in moved:
+        fields[store_at] = "S01" if len(fields) > store_at else fields[store_at]
+    text = "\n".join([header, *(",".join(fields) for fields in moved), ""])
+    corrected.write_bytes(gzip.compress(text.encode()))
+    second = build_partitioned(config, map_in_process(config))
+    assert second.ctx.facts["build_scope"]["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor"]
+    with open_warehouse(config.warehouse) as con:
+        partitions = {item.label: item for item in plan_partitions(con, config)}
+    lindenmoor = partitions["Lindenmoor"]
+    warehouse = config.partitioning.root / lindenmoor.name / "warehouse.duckdb"
+    con = duckdb.connect(str(warehouse), read_only=True)
+    stores = con.execute(
+        "select distinct store from raw_lines where sold_at >= '2024-02-18' order by 1"
+    ).fetchall()
+    con.close()
+    # the corrected version replaced the old one there, and its lines are not Lindenmoor's
+    assert stores == []
+    assert str(corrected) in lindenmoor.files
+
+
+def test_period_ranges_split_each_region_and_give_the_same_tables(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PERIOD_RANGES)
+    outcome = build_partitioned(config, map_in_process(config))
+    with open_warehouse(config.warehouse) as con:
+        partitions = plan_partitions(con, config)
+    boundary = date(2024, 1, 22)
+    assert [(item.key, item.first_day, item.after_last_day) for item in partitions] == [
+        (region, first, after)
+        for region in ("Harrowfield", "Lindenmoor", "Saltmarsh Coast")
+        for first, after in ((None, boundary), (boundary, None))
+    ]
+    ingested = partition_receipts_files(config)
+    for item in partitions:
+        # the daily files are named by their day: a partition reads only its range's days
+        days = {date.fromisoformat(path[-17:-7]) for path in ingested[item.name]}
+        in_range = {day for day in days if (day < boundary) == (item.after_last_day == boundary)}
+        assert days == in_range and len(days) == (21 if item.first_day is None else 28)
+    assert_same_tables(single_process_build, outcome.folder)
+
+
+def test_a_period_boundary_inside_a_week_is_one_line(coffee_sample: Path, tmp_path: Path) -> None:
+    ranges = PARTITIONING + 'period_boundaries = ["2024-01-24"]\n'
+    config = sample_copy(coffee_sample, tmp_path / "sample", ranges)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line() == (
+        f"{config.config_path}: key 'partitioning.period_boundaries' has 2024-01-24, which "
+        "does not start a week period, so a market would span two partitions. Hint: give "
+        "dates that start a period, such as 2024-01-22."
+    )
+    assert not config.warehouse.path.exists()
+
+
+def test_period_ranges_need_receipt_ids_unique_per_store_day(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PERIOD_RANGES)
+    text = config.config_path.read_text(encoding="utf-8")
+    config.config_path.write_text(
+        text.replace(
+            'categories = ["coffee"]', 'categories = ["coffee"]\nreceipt_ids_unique_per = "store"'
+        ),
+        "utf-8",
+    )
+    config = load_config(config.config_path)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line() == (
+        f"{config.config_path}: key 'partitioning.period_boundaries' needs receipt ids unique "
+        "per store-day, but markets.receipt_ids_unique_per = 'store' lets a visit span two "
+        "period ranges. Hint: set receipt_ids_unique_per to 'store_day', or leave "
+        "period_boundaries empty."
+    )
+    assert not config.warehouse.path.exists()
+
+
+def test_a_line_lost_between_partitions_fails_the_build_before_publishing(
+    coffee_sample: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import demandprep.partitioned.map as partition_map
+
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    keep = partition_map.keep_partition_lines
+
+    def keep_and_lose_the_first_line(con, partition):
+        # each partition loses its first line of the first day's file
+        keep(con, partition)
+        con.execute(
+            "with first_file as (select file_id from ledger where path like '%2024-01-01.csv.gz'), "
+            "first_line as (select file_id, min(line_no) as line_no from raw_lines "
+            "semi join first_file using (file_id) group by all) "
+            "delete from raw_lines using first_line "
+            "where raw_lines.file_id = first_line.file_id "
+            "and raw_lines.line_no = first_line.line_no"
+        )
+
+    monkeypatch.setattr(partition_map, "keep_partition_lines", keep_and_lose_the_first_line)
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    first_file = config.config_path.parent / "receipts" / "2024" / "receipts_2024-01-01.csv.gz"
+    with open_warehouse(config.warehouse) as con:
+        accepted = con.execute(
+            "select rows_accepted from ledger where path = $path", {"path": str(first_file)}
+        ).fetchone()[0]
+    # every accepted line of a file that feeds several partitions is in exactly one of them
+    assert raised.value.one_line() == (
+        f"{first_file}: the coordinator accepted {accepted} lines of this receipts file, but "
+        f"the partitions hold {accepted - 3}. Hint: remove the partitions' folders under "
+        f"{config.partitioning.root} to rebuild them from their files."
+    )
+    assert latest_build(config.export.root) is None
+
+
+def test_a_file_withdrawn_on_the_coordinator_stops_the_next_build_until_partitions_rebuild(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    from demandprep.ingest.withdraw import withdraw_files
+
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    build_partitioned(config, map_in_process(config))
+    withdrawn = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    with open_warehouse(config.warehouse) as con:
+        withdraw_files(con, config, str(withdrawn), "recalled by the store")
+    with pytest.raises(UserError) as raised:
+        build_partitioned(config, map_in_process(config))
+    assert raised.value.one_line().startswith(
+        f"{withdrawn}: the coordinator accepted 0 lines of this receipts file, but the "
+        "partitions hold "
+    )
+    shutil.rmtree(config.partitioning.root)
+    rebuilt = build_partitioned(config, map_in_process(config))
+    assert rebuilt.folder is not None and latest_build(config.export.root) == rebuilt.folder

@@ -644,6 +644,11 @@ class PartitioningSection(Section):
         "its own warehouse; unset: one process builds everything (docs/scaling.md).",
         default=None,
     )
+    period_boundaries: list[LaxDate] = described(
+        "Dates that start a new period range. Each range between two boundaries is a partition "
+        "with each value of by; each date must start a market period. Empty: no period ranges.",
+        default_factory=list,
+    )
     root: LaxPath = described(
         "Folder of the partition warehouses and summaries. Every Dask worker must see it; "
         "relative to the config file's folder.",

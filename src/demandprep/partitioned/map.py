@@ -1,8 +1,10 @@
 """The map step: one partition's ingest and period summaries, in its own warehouse.
 
-It runs the single-process build's own stages, up to and including the two scans of raw lines
-(`050`/`060`), so the summaries stay incremental per partition; then it writes them as Parquet
-(sorted, so a partition that recomputed nothing writes the same bytes again).
+It ingests only the receipts files routed to the partition (`plan.py`; a file holding several
+partitions' stores is read by each of them, which keep their own lines). It runs the
+single-process build's own stages, up to and including the two scans of raw lines (`050`/`060`),
+so the summaries stay incremental per partition; then it writes them as Parquet (sorted, so a
+partition that recomputed nothing writes the same bytes again).
 """
 
 from __future__ import annotations
@@ -24,7 +26,10 @@ from demandprep.partitioned.plan import (
     SUMMARY_FILES,
     Partition,
     partition_config,
+    read_routing_record,
+    routed_config,
     summary_path,
+    write_routing_record,
 )
 from demandprep.stage import Stage, run_stage
 from demandprep.warehouse import open_warehouse
@@ -42,6 +47,8 @@ class PartitionSummaries:
     files: dict[str, Path]
     rows: dict[str, int]
     build_scope: dict[str, Any] = field(default_factory=dict)
+    # the partition's accepted lines per receipts file (path): the reduce checks they add up
+    lines: dict[str, int] = field(default_factory=dict)
 
 
 def map_stages() -> tuple[Stage, ...]:
@@ -51,24 +58,51 @@ def map_stages() -> tuple[Stage, ...]:
 
 
 def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSummaries:
-    """Ingest into the partition's warehouse, keep its stores' lines, build and write summaries."""
+    """Ingest the partition's files, keep its stores' lines, build and write its summaries."""
     own = partition_config(config, partition)
     with open_warehouse(own.warehouse) as con:
-        ingest_all(con, own)
+        ingest_all(con, routed_config(own, partition))
         keep_partition_lines(con, partition)
+        lines = lines_per_file(con)
+        # the stages see the project's receipts globs, not tonight's routed list: the config's
+        # hash is the summaries' fingerprint, and it must not change with the files
         ctx = BuildContext(con=con, config=own)
         for stage in map_stages():
             run_stage(stage, ctx)
         files = {name: summary_path(config, partition, name) for name in SUMMARY_FILES}
         rows = {name: write_summary(con, name, path) for name, path in files.items()}
-    return PartitionSummaries(partition, files, rows, ctx.facts.get("build_scope", {}))
+    write_routing_record(config, partition, lines)
+    return PartitionSummaries(partition, files, rows, ctx.facts.get("build_scope", {}), lines)
+
+
+def kept_summaries(config: ProjectConfig, partition: Partition) -> PartitionSummaries:
+    """The summaries of a partition whose inputs did not change, as its last map wrote them."""
+    files = {name: summary_path(config, partition, name) for name in SUMMARY_FILES}
+    rows = {name: pq.read_metadata(path).num_rows for name, path in files.items()}
+    lines = read_routing_record(config, partition).get("lines", {})
+    return PartitionSummaries(partition, files, rows, lines=lines)
+
+
+def lines_per_file(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
+    """The partition's lines per receipts file, by the file's path."""
+    rows = con.execute(
+        "select ledger.path, count(*) from raw_lines join ledger using (file_id) "
+        "where ledger.status = 'current' group by all"
+    ).fetchall()
+    return dict(rows)
 
 
 def keep_partition_lines(con: duckdb.DuckDBPyConnection, partition: Partition) -> None:
-    """Delete the lines of other partitions' stores (this warehouse is the partition's alone)."""
+    """Delete the lines of other partitions' stores and periods (the warehouse is its own)."""
     con.execute(
-        "delete from raw_lines where not list_contains($stores, store)",
-        {"stores": list(partition.stores)},
+        "delete from raw_lines where not list_contains($stores, store) "
+        "or sold_at::date < coalesce($first_day, sold_at::date) "
+        "or sold_at::date >= coalesce($after_last_day, sold_at::date + 1)",
+        {
+            "stores": list(partition.stores),
+            "first_day": partition.first_day,
+            "after_last_day": partition.after_last_day,
+        },
     )
 
 

@@ -1,19 +1,34 @@
-"""Which partitions a build has, and where each one keeps its warehouse and summaries."""
+"""Which partitions a build has, which receipts files feed each, and where each keeps its state.
+
+Partitions come from the stores reference file (one per value of `partitioning.by`, plus one for
+stores without a value); a line of a store missing from that file is quarantined by the ingest,
+so it belongs to no partition. Each receipts file is routed to the partitions whose stores it
+holds (the coordinator's own lines say which), and to every partition it fed before, so a
+corrected file that no longer holds a partition's stores still replaces its old lines there.
+"""
 
 from __future__ import annotations
 
+import glob
 import hashlib
+import json
+import os
 from dataclasses import dataclass
+from datetime import date, timedelta
 from pathlib import Path
 
 import duckdb
 
+from demandprep import __version__
 from demandprep.config import ProjectConfig
 from demandprep.errors import UserError
 from demandprep.market.settings import table_columns
-from demandprep.sqlfiles import quote_identifier
+from demandprep.market.summaries import SUMMARY_SQL
+from demandprep.sqlfiles import quote_identifier, sql_text
 
 SUMMARY_FILES = ("market_store_visits", "market_sku_sales")
+# what a partition last built from: its receipts files and the digest of its inputs
+ROUTING_RECORD = "routed_files.json"
 # the partition of stores without a value in the partitioning column (or without a stores row)
 NO_VALUE = "no value"
 
@@ -24,17 +39,31 @@ class Partition:
 
     key: str | None
     stores: tuple[str, ...]
+    # the receipts files that hold its stores' lines (absolute paths), and a digest of every
+    # input that gives its summaries their meaning (a partition whose digest matches its
+    # record needs no map step)
+    files: tuple[str, ...] = ()
+    inputs: str = ""
+    # its period range (partitioning.period_boundaries): sale days from first_day up to the day
+    # before after_last_day; None is open-ended
+    first_day: date | None = None
+    after_last_day: date | None = None
 
     @property
     def name(self) -> str:
         """A folder name that does not depend on the value's spelling (values are free text)."""
         label = NO_VALUE if self.key is None else f"value:{self.key}"
+        if self.first_day is not None or self.after_last_day is not None:
+            label += f"|from:{self.first_day}|before:{self.after_last_day}"
         return "partition-" + hashlib.sha256(label.encode()).hexdigest()[:16]
 
     @property
     def label(self) -> str:
-        """The value as shown in logs and docs."""
-        return NO_VALUE if self.key is None else self.key
+        """The value (and period range) as shown in logs and docs."""
+        value = NO_VALUE if self.key is None else self.key
+        if self.first_day is None and self.after_last_day is None:
+            return value
+        return f"{value} [{self.first_day or ''}, {self.after_last_day or ''})"
 
 
 def partition_folder(config: ProjectConfig, partition: Partition) -> Path:
@@ -61,18 +90,129 @@ def partition_config(config: ProjectConfig, partition: Partition) -> ProjectConf
 
 
 def plan_partitions(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[Partition]:
-    """The partitions of the coordinator's receipt lines, by the stores column named in config."""
+    """The partitions that have receipts files, from the stores file, each with its files."""
     require_partition_key(config)
-    column = config.partitioning.by
     check_partitioning(con, config)
-    # the column was checked against the stores table's real columns just above
-    rows = con.execute(
-        "with line_stores as (select distinct store from raw_lines), "
-        f"keyed as (select store, {quote_identifier(column)}::varchar as key from stores) "  # noqa: S608
-        "select keyed.key, list(line_stores.store order by line_stores.store) "
-        "from line_stores left join keyed using (store) group by keyed.key order by keyed.key"
+    current = current_receipts_files(con)
+    references = reference_inputs(con)
+    holding = files_by_key_and_range(con, config)
+    partitions = []
+    for key, stores in stores_by_key(con, config):
+        for index, (first, after) in enumerate(period_ranges(config)):
+            partition = Partition(key, tuple(stores), first_day=first, after_last_day=after)
+            routed = set(holding.get((key, index), [])) | set(recorded_files(config, partition))
+            files = tuple(sorted(routed & current.keys()))
+            if files:
+                inputs = inputs_digest(
+                    config, [(path, current[path]) for path in files], references
+                )
+                partitions.append(Partition(key, tuple(stores), files, inputs, first, after))
+    return partitions
+
+
+def period_ranges(config: ProjectConfig) -> list[tuple[date | None, date | None]]:
+    """The period ranges between the boundaries (one open range without boundaries)."""
+    bounds: list[date | None] = sorted(set(config.partitioning.period_boundaries))
+    return list(zip([None, *bounds], [*bounds, None], strict=True))
+
+
+def stores_by_key(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig
+) -> list[tuple[str | None, list[str]]]:
+    """Each value of the partitioning column with its stores, from the stores file."""
+    # the column was checked against the stores table's real columns (check_partitioning)
+    column = quote_identifier(config.partitioning.by)
+    return con.execute(
+        f"select {column}::varchar as key, list(store order by store) from stores "  # noqa: S608
+        "group by all order by 1"
     ).fetchall()
-    return [Partition(key, tuple(stores)) for key, stores in rows]
+
+
+def files_by_key_and_range(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig
+) -> dict[tuple[str | None, int], list[str]]:
+    """The current receipts files holding lines of each (value, period range index)."""
+    column = quote_identifier(config.partitioning.by)
+    rows = con.execute(
+        "with file_days as (select distinct file_id, store, sold_at::date as day from raw_lines), "
+        f"keyed as (select store, {column}::varchar as key from stores) "  # noqa: S608
+        "select keyed.key, len(list_filter($bounds, lambda bound: bound <= file_days.day)), "
+        "list(distinct ledger.path order by ledger.path) from file_days "
+        "join ledger using (file_id) join keyed using (store) "
+        "where ledger.status = 'current' group by all",
+        {"bounds": sorted(set(config.partitioning.period_boundaries))},
+    ).fetchall()
+    return {(key, index): paths for key, index, paths in rows}
+
+
+def current_receipts_files(con: duckdb.DuckDBPyConnection) -> dict[str, str]:
+    """The coordinator's current receipts files: path to sha256."""
+    rows = con.execute(
+        "select path, sha256 from ledger where source = 'receipts' and status = 'current'"
+    ).fetchall()
+    return dict(rows)
+
+
+def reference_inputs(con: duckdb.DuckDBPyConnection) -> list[tuple[str, str, str]]:
+    """The current reference files (source, path, sha256): every partition reads them all."""
+    return con.execute(
+        "select source, path, sha256 from ledger "
+        "where source <> 'receipts' and status = 'current' order by all"
+    ).fetchall()
+
+
+def inputs_digest(
+    config: ProjectConfig,
+    files: list[tuple[str, str]],
+    references: list[tuple[str, str, str]],
+) -> str:
+    """A digest of what a partition's summaries are built from: config, files, tool and SQL."""
+    code = [__version__, *(sql_text(name) for name in SUMMARY_SQL)]
+    values = [config.config_hash(), files, references, code]
+    return hashlib.sha256(repr(values).encode()).hexdigest()
+
+
+def recorded_files(config: ProjectConfig, partition: Partition) -> list[str]:
+    """The receipts files the partition was built from last time (none without a record)."""
+    return read_routing_record(config, partition).get("files", [])
+
+
+def read_routing_record(config: ProjectConfig, partition: Partition) -> dict:
+    """The partition's routing record, or an empty one."""
+    path = partition_folder(config, partition) / ROUTING_RECORD
+    return json.loads(path.read_text(encoding="utf-8")) if path.is_file() else {}
+
+
+def write_routing_record(
+    config: ProjectConfig, partition: Partition, lines: dict[str, int]
+) -> None:
+    """Record what a finished partition was built from and its lines per file (atomically)."""
+    path = partition_folder(config, partition) / ROUTING_RECORD
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    record = {
+        "partition": partition.label,
+        "inputs": partition.inputs,
+        "files": partition.files,
+        "lines": lines,
+    }
+    temporary.write_text(json.dumps(record, indent=1, sort_keys=True), encoding="utf-8")
+    os.replace(temporary, path)
+
+
+def partition_is_current(config: ProjectConfig, partition: Partition) -> bool:
+    """True when the partition's summaries were built from exactly its inputs of tonight."""
+    record = read_routing_record(config, partition)
+    summaries = [summary_path(config, partition, name) for name in SUMMARY_FILES]
+    return record.get("inputs") == partition.inputs and all(path.is_file() for path in summaries)
+
+
+def routed_config(config: ProjectConfig, partition: Partition) -> ProjectConfig:
+    """The config with the receipts source narrowed to the partition's files, for its ingest."""
+    receipts = config.sources.receipts
+    # the paths are literal: escape any glob character a file name may hold
+    narrowed = receipts.model_copy(update={"files": [glob.escape(p) for p in partition.files]})
+    sources = config.sources.model_copy(update={"receipts": narrowed})
+    return config.model_copy(update={"sources": sources})
 
 
 def require_partition_key(config: ProjectConfig) -> None:
@@ -93,6 +233,43 @@ def check_visits_stay_in_stores(config: ProjectConfig) -> None:
             "store-day, but markets.receipt_ids_unique_per = 'chain' lets a visit span partitions.",
             "set receipt_ids_unique_per to 'store' or 'store_day', or leave partitioning.by unset.",
         )
+    if config.partitioning.period_boundaries:
+        check_period_boundaries(config)
+
+
+def check_period_boundaries(config: ProjectConfig) -> None:
+    """Refuse period ranges that could split a market or a visit between partitions."""
+    key = "key 'partitioning.period_boundaries'"
+    unique_per = config.markets.receipt_ids_unique_per
+    if unique_per != "store_day":
+        raise UserError(
+            f"{config.config_path}: {key} needs receipt ids unique per store-day, but "
+            f"markets.receipt_ids_unique_per = {unique_per!r} lets a visit span two period ranges.",
+            "set receipt_ids_unique_per to 'store_day', or leave period_boundaries empty.",
+        )
+    period = config.markets.period
+    for boundary in sorted(config.partitioning.period_boundaries):
+        start = period_start(boundary, period, config.markets.week_starts_on)
+        if start != boundary:
+            raise UserError(
+                f"{config.config_path}: {key} has {boundary}, which does not start a {period} "
+                "period, so a market would span two partitions.",
+                f"give dates that start a period, such as {start}.",
+            )
+
+
+WEEKDAYS = ("monday", "tuesday", "wednesday", "thursday", "friday", "saturday", "sunday")
+
+
+def period_start(day: date, period: str, week_starts_on: str) -> date:
+    """The first day of the market period holding `day` (as `sql/market/010` computes it)."""
+    if period == "week":
+        return day - timedelta(days=(day.weekday() - WEEKDAYS.index(week_starts_on)) % 7)
+    if period == "month":
+        return day.replace(day=1)
+    if period == "quarter":
+        return day.replace(month=(day.month - 1) // 3 * 3 + 1, day=1)
+    return day
 
 
 def check_partitioning(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> None:

@@ -70,7 +70,7 @@ def test_unknown_key_names_file_key_and_allowed_keys(demo_config: Path) -> None:
     assert str(demo_config) in message
     assert message == (
         f"{demo_config}: unknown key 'warehouse.threadz'. Hint: allowed here: "
-        "path (DuckDB warehouse file), memory_limit (Memory DuckDB may use), "
+        "path (DuckDB warehouse file), memory_limit (Memory the process may use), "
         "threads (DuckDB worker threads), "
         "temp_directory (Where DuckDB spills beyond memory_limit), "
         "lock_timeout_seconds (How long a second writer waits); see docs/config.md."

@@ -46,13 +46,26 @@ def _warehouse(tmp_path: Path, memory_limit: str = "2GB") -> duckdb.DuckDBPyConn
     )
 
 
+@pytest.mark.parametrize(
+    ("configured", "budget"),
+    [("4GB", 4_000_000_000 - 256 * 2**20), ("2GiB", 2**31 - 256 * 2**20), ("300MB", 150_000_000)],
+)
+def test_duckdb_leaves_the_python_process_its_reserve(
+    tmp_path: Path, configured: str, budget: int
+) -> None:
+    # the limit is the whole process's: DuckDB gets it less 256 MiB, at most half the limit
+    con = _warehouse(tmp_path, configured)
+    expected = duckdb.connect(config={"memory_limit": f"{budget}B"})
+    assert _limit(con) == _limit(expected)
+
+
 def test_batches_get_half_the_limit_and_it_is_set_back_exactly(tmp_path: Path) -> None:
     con = _warehouse(tmp_path)
     before = _limit(con)
     with memory_shared_with_batches(con):
         during = _limit(con)
-    assert before == "1.8 GiB"  # 2e9 bytes as DuckDB prints them
-    assert during == "953.6 MiB"  # 1e9 bytes
+    assert before == "1.6 GiB"  # 2e9 bytes less the process reserve, as DuckDB prints them
+    assert during == "825.6 MiB"  # half of that
     assert _limit(con) == before
 
 
@@ -87,19 +100,19 @@ def test_parquet_export_streams_under_half_the_limit(
     written = parquet.write_query_parquet(
         con, "select k from t order by k", {}, tmp_path / "t.parquet", 1024, {}, {}, ("k",)
     )
-    assert seen == ["953.6 MiB"]
-    assert _limit(con) == "1.8 GiB"
+    assert seen == ["825.6 MiB"]
+    assert _limit(con) == "1.6 GiB"
     assert pq.read_table(written.path).column("k").to_pylist() == list(range(5000))
 
 
 @pytest.mark.parametrize(
     ("configured", "during"),
-    [("2GB", "953.6 MiB"), ("250MB", "128.0 MiB"), ("200MB", "128.0 MiB"), ("100MB", "95.3 MiB")],
+    [("2GB", "825.6 MiB"), ("250MB", "119.2 MiB"), ("200MB", "95.3 MiB"), ("100MB", "47.6 MiB")],
 )
 def test_the_shared_limit_never_exceeds_the_configured_one(
     tmp_path: Path, configured: str, during: str
 ) -> None:
-    # half the limit, at least DuckDB's 128 MiB scan floor, at most the limit itself
+    # half of DuckDB's budget, at least DuckDB's 128 MiB scan floor, at most the budget itself
     con = _warehouse(tmp_path, configured)
     before = _limit(con)
     with memory_shared_with_batches(con):

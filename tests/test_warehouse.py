@@ -31,7 +31,8 @@ def test_warehouse_opens_with_configured_limits(tmp_path: Path) -> None:
         memory = con.execute("select current_setting('memory_limit')").fetchone()[0]
         spill = con.execute("select current_setting('temp_directory')").fetchone()[0]
     assert int(threads) == 1
-    assert memory.replace(" ", "").upper() in {"512.0MIB", "488.2MIB", "512MB", "488.2MB"}
+    # 512MB less the process reserve, at most half of it: 256e6 bytes as DuckDB prints them
+    assert memory == "244.1 MiB"
     assert Path(spill) == tmp_path / "spill"
     assert (tmp_path / "w.duckdb").exists()
 

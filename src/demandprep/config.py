@@ -98,8 +98,8 @@ class WarehouseSection(Section):
         default=Path("warehouse/demandprep.duckdb"),
     )
     memory_limit: str = described(
-        "Memory DuckDB may use. DuckDB spills to temp_directory beyond it; "
-        "the process peaks a little above it.",
+        "Memory the process may use. DuckDB gets it less 256 MiB (at most half) for Python "
+        "and spills to temp_directory beyond that; the process peaks a little above it.",
         unit="bytes, with KB, MB, GB, TB, KiB, MiB, GiB or TiB",
         default="4GB",
         pattern=r"^\d+(\.\d+)?\s*(KB|MB|GB|TB|KiB|MiB|GiB|TiB)$",

@@ -15,7 +15,7 @@ import duckdb
 from demandprep.config import WarehouseSection
 from demandprep.errors import UserError
 from demandprep.file_lock import pid_file_lock
-from demandprep.memory import remember_memory_limit
+from demandprep.memory import duckdb_budget, remember_memory_limit
 
 
 def lock_path(database: Path) -> Path:
@@ -42,8 +42,9 @@ def connect(settings: WarehouseSection, read_only: bool = False) -> duckdb.DuckD
     """A DuckDB connection to the warehouse file with memory, threads and spill folder set."""
     settings.path.parent.mkdir(parents=True, exist_ok=True)
     settings.temp_directory.mkdir(parents=True, exist_ok=True)
+    budget = duckdb_budget(settings.memory_limit)
     config = {
-        "memory_limit": settings.memory_limit,
+        "memory_limit": budget,
         "threads": settings.threads,
         "temp_directory": str(settings.temp_directory),
         "preserve_insertion_order": False,
@@ -55,7 +56,7 @@ def connect(settings: WarehouseSection, read_only: bool = False) -> duckdb.DuckD
             f"{settings.path}: cannot open the warehouse ({str(error).splitlines()[0]}).",
             "another program may hold it open; close it and retry.",
         ) from None
-    remember_memory_limit(con, settings.memory_limit)
+    remember_memory_limit(con, budget)
     return con
 
 

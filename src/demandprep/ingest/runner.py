@@ -1,6 +1,6 @@
 """Ingest every configured source: references first, then receipts, in atomic batches.
 
-New and changed files of a source are read in batches (consecutive files, up to `batch_bytes`
+New and changed files of a source are read in batches (consecutive files, up to BATCH_BYTES
 and BATCH_FILES; a large file is a batch alone), each in a single DuckDB transaction: the older
 versions' rows go, the accepted rows and the quarantined lines come in, the ledger rows are
 written, and `rows read = accepted + quarantined` is verified per file before COMMIT. A crash
@@ -73,16 +73,10 @@ from demandprep.ingest.references import (
 from demandprep.ingest.refusal import FilesRefused, Refusal, refusals
 from demandprep.ingest.results import FileResult, IngestSummary, summary_table
 from demandprep.ingest.timings import PhaseTimer, record_timings
-from demandprep.memory import duckdb_budget, parse_bytes
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
 
-# bytes of files per batch: DuckDB's budget / 96, within 16 MiB (~1.3M lines of gzip CSV) and
-# 32 MiB. Measured on 13.1M lines at 4GB: 32 MiB batches took about 10% less CPU than 16 MiB
-# ones (fewer per-batch statements and checks), with a peak 0.7 GiB higher
-BATCH_BYTES_FLOOR = 16 * 2**20
-BATCH_BYTES_CEILING = 32 * 2**20
-BUDGET_PER_BATCH_BYTE = 96
+BATCH_BYTES = 16 * 1024 * 1024  # ~1.3M lines of gzip CSV: staging stays well in memory
 BATCH_FILES = 256
 
 Progress = Callable[..., Any]
@@ -162,7 +156,7 @@ def ingest_all(
         if item.status == "unchanged":
             _report(notify, summary, _unchanged(item))
     receipts_prepared = False
-    for batch in batches(to_read, batch_bytes(config.warehouse.memory_limit)):
+    for batch in batches(to_read):
         if batch[0].source == "receipts" and not receipts_prepared:
             with timer.phase("classify"):  # settings the receipt rules read
                 prepare_receipts(con, config)  # after the stores are loaded: their timezones
@@ -207,20 +201,12 @@ def _report(notify: Progress, summary: IngestSummary, result: FileResult) -> Non
     )
 
 
-def batch_bytes(memory_limit: str) -> int:
-    """The bytes of files a batch may hold under `memory_limit` (see BATCH_BYTES_FLOOR)."""
-    budget = parse_bytes(duckdb_budget(memory_limit))
-    return min(BATCH_BYTES_CEILING, max(BATCH_BYTES_FLOOR, budget // BUDGET_PER_BATCH_BYTE))
-
-
-def batches(
-    files: list[DiscoveredFile], max_bytes: int = BATCH_BYTES_FLOOR
-) -> Iterator[list[DiscoveredFile]]:
-    """Consecutive files of one source, up to `max_bytes` and BATCH_FILES per batch."""
+def batches(files: list[DiscoveredFile]) -> Iterator[list[DiscoveredFile]]:
+    """Consecutive files of one source, up to BATCH_BYTES and BATCH_FILES per batch."""
     batch: list[DiscoveredFile] = []
     size = 0
     for item in files:
-        full = len(batch) >= BATCH_FILES or size + item.bytes > max_bytes
+        full = len(batch) >= BATCH_FILES or size + item.bytes > BATCH_BYTES
         if batch and (item.source != batch[0].source or full):
             yield batch
             batch, size = [], 0

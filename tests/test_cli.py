@@ -294,3 +294,10 @@ def test_check_names_each_role_column_its_source_does_not_provide(tmp_path: Path
         "products.characteristics does not list. Hint: list it in products.characteristics so "
         "the market build carries it.",
     ]
+
+
+def test_help_names_the_partitioning_section_literally() -> None:
+    # the help is rendered as console markup, where a bracketed word would vanish
+    result = RUNNER.invoke(app, ["partitioned", "--help"], terminal_width=200)
+    assert result.exit_code == 0
+    assert "on a Dask cluster (section partitioning)." in " ".join(result.output.split())

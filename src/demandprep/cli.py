@@ -261,7 +261,7 @@ def run_command(
 
 @app.command("partitioned")
 def partitioned_command(config: ConfigArg, force: ForceOption = False) -> None:
-    """Ingest and build partition by partition on a Dask cluster ([partitioning])."""
+    """Ingest and build partition by partition on a Dask cluster (section partitioning)."""
     with user_errors():
         project = load_config(config)
         from demandprep.partitioned.plan import require_partition_key

@@ -10,6 +10,7 @@ import polars as pl
 from demandprep.errors import UserError
 from demandprep.memory import memory_shared_with_batches
 from demandprep.personal import carries_cards
+from demandprep.sqlfiles import run_sql
 
 BATCH_ROWS = 1_000_000
 SHOWN_FAILURES = 5
@@ -86,3 +87,21 @@ def check_wording(model: type[pa.DataFrameModel]) -> dict[str, str]:
             errors[f"{column_name}__{check.name}"] = f"{column_name}: {check.error or check.name}"
         errors[f"{column_name}__not_nullable"] = f"{column_name}: not_nullable"
     return errors
+
+
+def count_sql_checks(
+    con: duckdb.DuckDBPyConnection,
+    sql_file: str,
+    params: dict[str, object],
+    model: type[pa.DataFrameModel],
+) -> dict[str, int]:
+    """Run a file of SQL twins (one row of counts); a check of `model` it lacks is a bug."""
+    result = run_sql(con, sql_file, params)
+    names = [column[0] for column in result.description]
+    counts = dict(zip(names, result.fetchone(), strict=True))
+    missing = model_check_names(model) - set(counts)
+    if missing:
+        raise RuntimeError(
+            f"checks of {model.__name__} without an SQL twin in {sql_file}: {sorted(missing)}"
+        )
+    return counts

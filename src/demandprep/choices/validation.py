@@ -30,6 +30,7 @@ from demandprep.sqlfiles import run_sql
 from demandprep.validate import (
     SHOWN_FAILURES,
     check_wording,
+    count_sql_checks,
     model_check_names,
     validate_frame,
 )
@@ -100,12 +101,7 @@ def _without_last_occasion(frame: pl.DataFrame) -> pl.DataFrame:
 
 
 def _sql_check_counts(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
-    result = run_sql(con, CHECKS_FILE, _check_parameters())
-    names = [column[0] for column in result.description]
-    counts = dict(zip(names, result.fetchone(), strict=True))
-    missing = model_checks() - set(counts)
-    if missing:
-        raise RuntimeError(f"checks of Choices without an SQL twin in 091: {sorted(missing)}")
+    counts = count_sql_checks(con, CHECKS_FILE, _check_parameters(), Choices)
     if counts["rows_out_of_key_order"]:
         # a repeated pair need not sit next to its twin: group the pairs instead
         counts.update(_repeated_keys(con))

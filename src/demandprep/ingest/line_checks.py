@@ -25,6 +25,7 @@ from demandprep.sqlfiles import run_sql
 from demandprep.validate import (
     SHOWN_FAILURES,
     check_wording,
+    count_sql_checks,
     model_check_names,
     validate_frame,
 )
@@ -92,13 +93,7 @@ def _validate_sample(
 def _sql_check_counts(
     con: duckdb.DuckDBPyConnection, id_range: dict[str, str], model: type[pa.DataFrameModel]
 ) -> dict[str, int]:
-    result = run_sql(con, CHECKS_FILE, {**id_range, **_check_parameters(model)})
-    names = [column[0] for column in result.description]
-    counts = dict(zip(names, result.fetchone(), strict=True))
-    missing = model_checks(model) - set(counts)
-    if missing:
-        raise RuntimeError(f"checks of {model.__name__} without an SQL twin in 070: {missing}")
-    return counts
+    return count_sql_checks(con, CHECKS_FILE, {**id_range, **_check_parameters(model)}, model)
 
 
 def _check_parameters(model: type[pa.DataFrameModel]) -> dict[str, Any]:

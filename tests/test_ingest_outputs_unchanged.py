@@ -1,10 +1,8 @@
 """Ingest speed-ups change no output: raw_lines, quarantine, ledger and ledger_reasons are the
-same row for row with the cheap `ingest_trim` (and the lines `ingest_line_trimmed` lets skip
-it) as with DuckDB's plain `trim` on every field.
+same row for row with the cheap `ingest_trim` as with DuckDB's plain `trim`.
 
-reference: DuckDB's own `trim(text)`, put back in place of `ingest_trim`, and no line skipping
-it, for the second ingest of the same files (the fault fixture with a file of padded fields,
-and fuzzed worlds).
+reference: DuckDB's own `trim(text)`, put back in place of `ingest_trim` for the second ingest
+of the same files (the fault fixture with a file of padded fields, and fuzzed worlds).
 """
 
 from __future__ import annotations
@@ -24,10 +22,7 @@ from demandprep.errors import UserError
 from demandprep.ingest.runner import ingest_all
 from demandprep.warehouse import open_warehouse
 
-PLAIN_TRIM = (
-    "\ncreate or replace temp macro ingest_trim(text) as trim(text);\n"
-    "create or replace temp macro ingest_line_trimmed(text, delimiter) as false;\n"
-)
+PLAIN_TRIM = "\ncreate or replace temp macro ingest_trim(text) as trim(text);\n"
 # what each table holds, in a total order, without the folder and the time of the run
 TABLES = {
     "raw_lines": "select * from raw_lines order by file_id, line_no",

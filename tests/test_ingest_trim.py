@@ -1,5 +1,4 @@
-"""`ingest_trim` (sql/ingest/005) gives exactly what DuckDB's `trim` gives, at a lower cost, and
-`ingest_line_trimmed` says a line needs no trim only when `trim` leaves every field of it alone.
+"""`ingest_trim` (sql/ingest/005) gives exactly what DuckDB's `trim` gives, at a lower cost.
 
 reference: DuckDB's own `trim(text)`; every Unicode code point is tried at the start, at the end
 and alone, beside the cases a receipt field meets (spaces inside, runs of spaces, empty, NULL).
@@ -43,48 +42,3 @@ def test_ingest_trim_keeps_inner_spaces_and_nulls() -> None:
         {"cases": cases},
     ).fetchone()[0]
     assert got == [True] * len(cases)
-
-
-DELIMITERS = (",", ";", "\t", "|", " ", "\u00a6")
-
-
-def test_a_line_said_trimmed_has_no_field_that_trim_changes() -> None:
-    con = macros()
-    con.execute(
-        "create table points as select chr(i::int) as ch from range(1, 1114112) t(i) "
-        "where i < 55296 or i > 57343"
-    )
-    # each code point at the start and the end of the line's first, middle and last field
-    lines = (
-        "select d.delimiter, concat_ws(d.delimiter, ch || 'a', 'b' || ch || 'c', 'd' || ch) "
-        "as line from points, (select unnest($delimiters) as delimiter) d "
-        "union all select d.delimiter, "
-        "concat_ws(d.delimiter, 'a' || ch, ch || 'b' || ch, ch || 'c', '') "
-        "from points, (select unnest($delimiters) as delimiter) d"
-    )
-    wrong = con.execute(
-        f"select count(*) from ({lines}) "  # noqa: S608 (no user text)
-        "where ingest_line_trimmed(line, delimiter) and exists ("
-        "select 1 from unnest(string_split(line, delimiter)) f(field) "
-        "where trim(field) <> field)",
-        {"delimiters": list(DELIMITERS)},
-    ).fetchone()[0]
-    assert wrong == 0
-
-
-def test_a_plain_receipt_line_is_said_trimmed_and_a_padded_one_not() -> None:
-    con = macros()
-    got = con.execute(
-        "select ingest_line_trimmed($plain, ','), ingest_line_trimmed($inner, ','), "
-        "ingest_line_trimmed($padded, ','), ingest_line_trimmed($accented, ','), "
-        "ingest_line_trimmed($leading, ','), ingest_line_trimmed($tabbed, '\t')",
-        {
-            "plain": "S01-1,1,S01,2024-01-01 07:17:57,G0077,1,1.12,,0.00,sale",
-            "inner": "S01-1,1,S01,2024-01-01 07:17:57,G 77,1,1.12,,0.00,sale",
-            "padded": "S01-1,1,S01 ,2024-01-01 07:17:57,G0077,1,1.12,,0.00,sale",
-            "accented": "S01-1,1,S01,2024-01-01 07:17:57,Caf\u00e9,1,1.12,,0.00,sale",
-            "leading": " S01-1,1,S01,2024-01-01 07:17:57,G0077,1,1.12,,0.00,sale",
-            "tabbed": "S01-1\t1\tS01\t2024-01-01 07:17:57\t G0077\t1",
-        },
-    ).fetchone()
-    assert got == (True, True, False, False, False, False)

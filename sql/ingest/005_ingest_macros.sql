@@ -32,19 +32,6 @@ create or replace temp macro ingest_trim(text) as
             then trim(text)
         else text
     end;
--- true when trim leaves every field of an unquoted line as it is: plain ASCII (the only ASCII
--- space trim removes is ' ') and no field starting or ending with ' '. One test per line is far
--- cheaper than ingest_trim on each of its fields (tests/test_ingest_trim.py checks it against
--- trim for every code point at either end of a field)
-create or replace temp macro ingest_line_trimmed(text, delimiter) as
-    strlen(text) = length(text)
-    and not starts_with(text, ' ')
-    and not ends_with(text, ' ')
-    and not contains(text, ' ' || delimiter)
-    and not contains(text, delimiter || ' ');
--- a field trimmed, unless its line is known to need no trim (ingest_line_trimmed)
-create or replace temp macro ingest_field_trim(text, line_trimmed) as
-    case when line_trimmed then text else ingest_trim(text) end;
 -- the fields of a line of ingest_fields (010) that the reader takes (null for one it refuses):
 -- a quoted line's list as 010 split it, any other line split at the delimiter here
 create or replace temp macro ingest_line_fields(text, fields, reason, delimiter) as

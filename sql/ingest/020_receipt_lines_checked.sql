@@ -11,22 +11,21 @@ store_timezones as (
     select store, timezone from ingest_store_timezones
 ),
 
--- fields_trimmed: the reader found that no field of the line needs trim (005)
 trimmed as (
     select
         ordinal,
         path,
         line_no,
-        nullif(ingest_field_trim(receipt, fields_trimmed), '') as receipt,
-        nullif(ingest_field_trim(line, fields_trimmed), '') as line_text,
-        nullif(ingest_field_trim(store, fields_trimmed), '') as store,
-        nullif(ingest_field_trim(sold_at, fields_trimmed), '') as sold_at_text,
-        nullif(ingest_field_trim(sku, fields_trimmed), '') as sku,
-        nullif(ingest_field_trim(quantity, fields_trimmed), '') as quantity_text,
-        nullif(ingest_field_trim(amount, fields_trimmed), '') as amount_text,
-        nullif(ingest_field_trim(discount, fields_trimmed), '') as discount_text,
-        nullif(ingest_field_trim(card, fields_trimmed), '') as card,
-        coalesce(lower(nullif(ingest_field_trim(line_kind, fields_trimmed), '')), 'sale') as line_kind,
+        nullif(ingest_trim(receipt), '') as receipt,
+        nullif(ingest_trim(line), '') as line_text,
+        nullif(ingest_trim(store), '') as store,
+        nullif(ingest_trim(sold_at), '') as sold_at_text,
+        nullif(ingest_trim(sku), '') as sku,
+        nullif(ingest_trim(quantity), '') as quantity_text,
+        nullif(ingest_trim(amount), '') as amount_text,
+        nullif(ingest_trim(discount), '') as discount_text,
+        nullif(ingest_trim(card), '') as card,
+        coalesce(lower(nullif(ingest_trim(line_kind), '')), 'sale') as line_kind,
     from source_lines
 ),
 

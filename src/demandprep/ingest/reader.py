@@ -16,15 +16,12 @@ goes through `read_parquet`. After `stage_files`, these temporary objects exist 
 
 - `ingest_fields`: ordinal, position, line_no, text, fields (quoted lines only: the others are
   split as the stage reads them), field_count, reason, detail, record per line;
-- `ingest_stage`: ordinal (file position << 40 + line number), `ingest_file_path`, line_no,
-  `ingest_fields_trimmed` (an unquoted CSV line no field of which `trim` would change: the
-  receipt rules skip trimming its fields) and every mapped source column (CSV: a view of the
-  accepted-shape lines);
+- `ingest_stage`: ordinal (file position << 40 + line number), `ingest_file_path`, line_no and
+  every mapped source column (CSV: a view of the accepted-shape lines);
 - `ingest_rejected`: path, line_no, reason, detail, original_text of each refused line;
 - `ingest_file_records`: path, lines (physical, header included), records per file;
 - `ingest_numbered` (view): the stage with each record's physical line number (header = 1);
-- `ingest_source_lines` (view, `create_source_view`): ordinal, path, line_no, fields_trimmed +
-  our names.
+- `ingest_source_lines` (view, `create_source_view`): ordinal, path, line_no + our names.
 """
 
 from __future__ import annotations
@@ -49,7 +46,6 @@ from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier, run_sql
 
 FILE_PATH_COLUMN = "ingest_file_path"
-TRIMMED_COLUMN = "ingest_fields_trimmed"  # the line needs no trim (005, ingest_line_trimmed)
 STAGING_OBJECTS = (
     "ingest_source_lines",
     "ingest_numbered",
@@ -302,16 +298,13 @@ def _stage_csv(
         for i, column in enumerate(names)
     )
     places = "".join(f", l.{_position_column(i)}" for i in range(len(names)))
-    # each line is split once, as the stage is read (010 keeps no list for unquoted lines);
-    # an unquoted line is tested once for fields that trim would change (quoted ones are not)
+    # each line is split once, as the stage is read (010 keeps no list for unquoted lines)
     con.execute(
         "create temp view ingest_stage as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {FILE_PATH_COLUMN}, line_no, {TRIMMED_COLUMN}"
+        f"select ordinal, {FILE_PATH_COLUMN}, line_no"
         + (f", {fields}" if fields else "")
         + f" from (select f.ordinal, b.path as {FILE_PATH_COLUMN}, f.line_no{places}, "
-        "ingest_line_fields(f.text, f.fields, f.reason, l.delimiter) as line_fields, "
-        "f.fields is null and ingest_line_trimmed(f.text, l.delimiter) "
-        f"as {TRIMMED_COLUMN} "
+        "ingest_line_fields(f.text, f.fields, f.reason, l.delimiter) as line_fields "
         "from ingest_fields f join ingest_file_layouts l using (position) "
         "join ingest_batch_files b using (position) "
         "where f.record and f.reason is null and f.field_count = l.width)"
@@ -409,16 +402,14 @@ def _stage_parquet(con: duckdb.DuckDBPyConnection, paths: list[Path]) -> None:
     run_sql(con, "ingest/014_parquet_records.sql")
     con.execute(
         "create temp view ingest_numbered as "
-        "select * exclude (ingest_row_number), ingest_row_number as line_no, "
-        f"false as {TRIMMED_COLUMN} from ingest_stage"
+        "select * exclude (ingest_row_number), ingest_row_number as line_no from ingest_stage"
     )
 
 
 def create_source_view(
     con: duckdb.DuckDBPyConnection, mapped: dict[str, SourceColumn], names: tuple[str, ...]
 ) -> None:
-    """`ingest_source_lines`: ordinal, path, line_no, fields_trimmed (true: no field of the line
-    needs trim), then each of `names` as text (or NULL)."""
+    """`ingest_source_lines`: ordinal, path, line_no, then each of `names` as text (or NULL)."""
     fields = [
         _text_expression(mapped[name]) if name in mapped else "null::varchar" for name in names
     ]
@@ -427,8 +418,7 @@ def create_source_view(
     )
     con.execute(
         "create or replace temp view ingest_source_lines as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {FILE_PATH_COLUMN} as path, line_no, "
-        f"{TRIMMED_COLUMN} as fields_trimmed, {select} from ingest_numbered"
+        f"select ordinal, {FILE_PATH_COLUMN} as path, line_no, {select} from ingest_numbered"
     )
 
 

@@ -32,8 +32,9 @@ import pandera.polars as pa
 from demandprep import __version__
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
+from demandprep.errors import UserError
 from demandprep.market.inputs import has_ledger
-from demandprep.sqlfiles import run_sql, sql_text
+from demandprep.sqlfiles import quote_identifier, run_sql, sql_text
 from demandprep.validate import validate_table
 
 SUMMARIES = ("market_store_visits", "market_sku_sales")
@@ -201,24 +202,53 @@ def is_full_build(con: duckdb.DuckDBPyConnection, summary: str) -> bool:
 
 
 def store_summary(ctx: BuildContext, summary: str, model: type[pa.DataFrameModel]) -> int:
-    """Merge `<summary>_slice` into `summary`, validate it and write its state, atomically."""
+    """Validate `<summary>_slice`, merge it into `summary`, check the summary's key and write
+    its state, atomically; returns the summary's rows."""
     con = ctx.con
     full = is_full_build(con, summary)
     con.execute("begin transaction")
     try:
+        # the kept periods' rows passed this model when they were stored (same fingerprint):
+        # only the recomputed rows are read into Python, the key is checked whole in SQL
+        validate_table(con, f"{summary}_slice", model, shown_as=summary)
         # the table names are ours (SUMMARIES), never the user's
         if full:
             con.execute(f"create or replace table {summary} as from {summary}_slice")  # noqa: S608
         else:
             _replace_periods(con, summary)
         con.execute(f"drop table {summary}_slice")  # merged: the warehouse keeps one copy
-        rows = validate_table(con, summary, model)
+        require_unique_key(con, summary, model)
+        rows = con.execute(f"select count(*) from {summary}").fetchone()[0]  # noqa: S608
         store_summary_state(con, summary, current_fingerprint(con, ctx.config))
         con.execute("commit")
     except BaseException:
         con.execute("rollback")
         raise
     return rows
+
+
+def require_unique_key(
+    con: duckdb.DuckDBPyConnection, table: str, model: type[pa.DataFrameModel]
+) -> None:
+    """Refuse `table` when two rows share its model's key (`Config.unique`), naming one key."""
+    key = model.to_schema().unique or []
+    if not key:
+        return
+    columns = ", ".join(quote_identifier(column) for column in key)
+    repeated = con.execute(
+        f"select count(*), {columns} from {table} group by all "  # noqa: S608
+        "having count(*) > 1 order by all limit 1"
+    ).fetchall()
+    if repeated:
+        count, *values = repeated[0]
+        named = ", ".join(
+            f"{column} {str(value)!r}" for column, value in zip(key, values, strict=True)
+        )
+        raise UserError(
+            f"stage output {table!r} breaks its schema {model.__name__}: "
+            f"{count} rows for one key: {named}",
+            "this is a bad input or a bug: a recomputed period repeats a row kept from before.",
+        )
 
 
 def _replace_periods(con: duckdb.DuckDBPyConnection, summary: str) -> None:

@@ -502,3 +502,20 @@ def test_a_recomputed_row_that_repeats_a_kept_key_is_refused_and_nothing_is_stor
         f"2 rows for one key: store {first_store(world)!r}, period_start '2024-01-15'"
     )
     assert summary_files(world) == before
+
+
+def test_a_changed_summary_model_rebuilds_the_summaries_whole(world, monkeypatch):
+    from demandprep.schemas import market
+
+    build(world)
+
+    # the kept periods passed the old model only: a new check must see every row again
+    class StricterVisits(market.MarketStoreVisits):
+        """Visits of a store and period, with a check the stored rows never met."""
+
+    monkeypatch.setitem(market.MARKET_MODELS, "market_store_visits", StricterVisits)
+    _folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    assert manifest["full_build_reason"] == (
+        "demandprep or its SQL changed since the summaries were built"
+    )

@@ -14,8 +14,9 @@
   characteristic's spread over all product-markets moved (`059_iv_spreads.sql`; a plain count,
   cheap), and the cost shifters (cheap; their windows come from the whole list of periods).
   The merge replaces an iv_ column's rows of each period the build computed.
-- The merge, the input copy and the state are written in one transaction: a crash leaves the
-  stored values as they were, and the next build recomputes from that record.
+- The merge, the input copy (rewritten for the computed periods and those that left only)
+  and the state are written in one transaction: a crash leaves the stored values as they
+  were, and the next build recomputes from that record.
 
 Values of a period depend only on that period's inputs (and on the spread, compared bit for
 bit), and every later step pivots and sorts, so the Parquet files equal a full build's.

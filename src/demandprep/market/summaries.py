@@ -12,8 +12,10 @@ summaries; every later step (070 onward, instruments) reads them whole, and they
   (`045_market_build_ranges.sql`); the scans recompute only those periods into `<summary>_slice`.
 - A summary with no state, another fingerprint, or receipt ids that let a visit span days
   (markets.receipt_ids_unique_per other than store_day) is rebuilt whole: same SQL, every period.
-- `store_summary` replaces the slice's periods and writes the state in one transaction, so a
-  crash leaves the summary and its state as they were, and the next build recomputes the rest.
+- `store_summary` validates the slice (the kept rows passed the same model when stored),
+  replaces the slice's periods, checks the whole summary's key in SQL and writes the state in
+  one transaction, so a crash leaves the summary and its state as they were, and the next
+  build recomputes the rest.
 
 Rows are merged as sets; every later step sums in a fixed order, so an incremental build writes
 the same bytes as a full one.
@@ -22,6 +24,7 @@ the same bytes as a full one.
 from __future__ import annotations
 
 import hashlib
+import inspect
 from dataclasses import dataclass
 from datetime import datetime, time, timedelta
 from typing import Any
@@ -34,6 +37,7 @@ from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.market.inputs import has_ledger
+from demandprep.schemas import market as market_schemas
 from demandprep.sqlfiles import quote_identifier, run_sql, sql_text
 from demandprep.validate import validate_table
 
@@ -89,13 +93,20 @@ class Fingerprint:
 
 
 def current_fingerprint(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> Fingerprint:
-    """The fingerprint of this config, the current reference files and this tool's SQL."""
+    """The fingerprint of this config, the current reference files, this tool's SQL and the
+    summaries' models."""
     references = con.execute(
         "select source, path, sha256 from market_input_ledger "
         "where status = 'current' and source <> 'receipts' order by all"
     ).fetchall()
-    code = [__version__, *(sql_text(name) for name in SUMMARY_SQL)]
+    code = [__version__, *(sql_text(name) for name in SUMMARY_SQL), *summary_model_sources()]
     return Fingerprint(config.config_hash(), _digest(references), _digest(code))
+
+
+def summary_model_sources() -> list[str]:
+    """The source of each summary's pandera model: only the recomputed rows meet it each
+    night, so a changed model must see every period again."""
+    return [inspect.getsource(market_schemas.MARKET_MODELS[name]) for name in SUMMARIES]
 
 
 def _digest(values: list[Any]) -> str:

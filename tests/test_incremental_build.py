@@ -369,3 +369,153 @@ def test_a_skipped_night_imports_no_build_step(world):
         [sys.executable, "-c", probe], capture_output=True, text=True, check=True
     )
     assert result.stdout.strip() == "True []"
+
+
+def stored_zero_signs(world: Path, period: str) -> set[bool]:
+    """The sign bits of the stored organic values that are zero in one period."""
+    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
+    try:
+        rows = con.execute(
+            "select distinct signbit(value) from iv_stored_characteristics "
+            "where characteristic = 'organic' and value = 0 and period_start = $period::date",
+            {"period": period},
+        ).fetchall()
+        return {row[0] for row in rows}
+    finally:
+        con.close()
+
+
+def test_one_more_day_rewrites_the_stored_instrument_inputs_of_its_week_only(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    # -0.0 equals 0.0, so the planted copy still matches the week's inputs: only a rewrite of
+    # that week's stored rows (a night that did not touch it) would turn it back into 0.0
+    with open_warehouse(config.warehouse) as con:
+        zero = (
+            "from iv_stored_characteristics where characteristic = 'organic' and value = 0 "
+            "and period_start in ('2024-01-15', '2024-02-12')"
+        )
+        # an update would write 0.0 back: the rows are deleted and inserted again
+        con.execute(
+            f"create temp table planted as select * replace (-(0.0::double) as value) {zero}"
+        )
+        con.execute(f"delete {zero}")
+        con.execute("insert into iv_stored_characteristics by name from planted")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    incremental, manifest = build(world)
+    assert instrument_scope(manifest)["periods_rebuilt"] == ["2024-02-12"]
+    assert stored_zero_signs(world, "2024-01-15") == {True}
+    assert stored_zero_signs(world, "2024-02-12") == {False}
+    with open_warehouse(config.warehouse) as con:
+        differing = con.execute(
+            "select count(*) from (select market, product, period_start, firm, price "
+            "from iv_products except select market, product, period_start, firm, price "
+            "from iv_stored_products)"
+        ).fetchone()[0]
+    assert differing == 0
+    assert_same_parquet(incremental, full_rebuild(world))
+
+
+def test_a_week_that_left_drops_its_stored_instrument_inputs(world):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    # a stored week that no current product-market has (its files were withdrawn, say)
+    with open_warehouse(config.warehouse) as con:
+        con.execute(
+            "insert into iv_stored_products select market, geography, period_start - 700, "
+            "product, firm, price from iv_stored_products where period_start = '2024-01-15'"
+        )
+    build(world)
+    with open_warehouse(config.warehouse) as con:
+        left = con.execute(
+            "select count(*) from iv_stored_products where period_start < '2024-01-01'"
+        ).fetchone()[0]
+    assert left == 0
+
+
+def plant_in_slice(monkeypatch, summary: str, statement: str) -> None:
+    """Run `statement` on the warehouse right after `summary`'s slice is written."""
+    from demandprep.market import stages
+
+    slice_file = stages.SQL_FILES[summary]
+    real_run_sql = stages.run_sql
+
+    def run_sql_then_plant(con, name, params=None):
+        result = real_run_sql(con, name, params)
+        if name == slice_file:
+            con.execute(statement)
+        return result
+
+    monkeypatch.setattr(stages, "run_sql", run_sql_then_plant)
+
+
+def test_a_bad_row_in_a_recomputed_week_is_refused_and_nothing_is_stored(
+    world, tmp_path, monkeypatch
+):
+    from demandprep.errors import UserError
+
+    build(world)
+    before = summary_files(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    plant_in_slice(
+        monkeypatch, "market_store_visits", "update market_store_visits_slice set visits = -3"
+    )
+    with pytest.raises(UserError) as refused:
+        build(world)
+    assert refused.value.message.startswith(
+        "stage output 'market_store_visits' breaks its schema MarketStoreVisits: visits: "
+        "greater_than_or_equal_to(0) (value '-3')"
+    )
+    assert summary_files(world) == before
+
+
+def first_store(world: Path) -> str:
+    """The first store (in order) of the stored visits of the week of 2024-01-15."""
+    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
+    try:
+        return con.execute(
+            "select min(store) from market_store_visits where period_start = '2024-01-15'"
+        ).fetchone()[0]
+    finally:
+        con.close()
+
+
+def test_a_recomputed_row_that_repeats_a_kept_key_is_refused_and_nothing_is_stored(
+    world, tmp_path, monkeypatch
+):
+    from demandprep.errors import UserError
+
+    build(world)
+    before = summary_files(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    # a row of a week the night keeps, written again by the recomputed week's slice
+    plant_in_slice(
+        monkeypatch,
+        "market_store_visits",
+        "insert into market_store_visits_slice by name select * from market_store_visits "
+        "where period_start = '2024-01-15' order by store limit 1",
+    )
+    with pytest.raises(UserError) as refused:
+        build(world)
+    assert refused.value.message == (
+        "stage output 'market_store_visits' breaks its schema MarketStoreVisits: "
+        f"2 rows for one key: store {first_store(world)!r}, period_start '2024-01-15'"
+    )
+    assert summary_files(world) == before
+
+
+def test_a_changed_summary_model_rebuilds_the_summaries_whole(world, monkeypatch):
+    from demandprep.schemas import market
+
+    build(world)
+
+    # the kept periods passed the old model only: a new check must see every row again
+    class StricterVisits(market.MarketStoreVisits):
+        """Visits of a store and period, with a check the stored rows never met."""
+
+    monkeypatch.setitem(market.MARKET_MODELS, "market_store_visits", StricterVisits)
+    _folder, manifest = build(world)
+    assert manifest["build_mode"] == "full"
+    assert manifest["full_build_reason"] == (
+        "demandprep or its SQL changed since the summaries were built"
+    )

@@ -90,7 +90,7 @@ def build_unless_current(
     with warehouse_for(config, con) as con:
         if not force and latest_build_is_current(con, config):
             return BuildOutcome(kept=latest_build(config.export.root))
-        # the stage list and the export import every step (scipy, pandas): a skipped night
+        # the stage list and the export import every step (pandas, pandera): a skipped night
         # and `ingest` need none of them
         from demandprep.export.folder import export_build
         from demandprep.stages import build_stages

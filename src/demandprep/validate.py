@@ -21,18 +21,26 @@ def validate_table(
     table: str,
     model: type[pa.DataFrameModel],
     batch_rows: int = BATCH_ROWS,
+    shown_as: str | None = None,
 ) -> int:
-    """Validate every row of `table` against `model`; returns the row count, raises on failure."""
+    """Validate every row of `table` against `model`; returns the row count, raises on failure.
+
+    A failure names `shown_as` (the table the rows are bound for), else `table`."""
     rows = 0
+    name = shown_as or table
     with memory_shared_with_batches(con):
         reader = con.sql(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
-        for batch in reader:
-            frame = pl.from_arrow(batch)
-            assert isinstance(frame, pl.DataFrame)
-            validate_frame(frame, model, table, first_row=rows)
-            rows += frame.height
-        if rows == 0:
-            validate_frame(pl.from_arrow(reader.schema.empty_table()), model, table, first_row=0)
+        # closed on failure too: an open result would refuse the caller's rollback
+        try:
+            for batch in reader:
+                frame = pl.from_arrow(batch)
+                assert isinstance(frame, pl.DataFrame)
+                validate_frame(frame, model, name, first_row=rows)
+                rows += frame.height
+            if rows == 0:
+                validate_frame(pl.from_arrow(reader.schema.empty_table()), model, name)
+        finally:
+            reader.close()
     return rows
 
 

@@ -36,7 +36,7 @@ from demandprep.export.root_lock import LOCK_FILE, export_root_lock
 from demandprep.memory import out_of_memory_reported
 
 if TYPE_CHECKING:
-    # the writer imports pandas and scipy: a night that finds `latest` current needs neither
+    # the writer imports pandas: a night that finds `latest` current does not need it
     from demandprep.export.dictionary import ModelMap
 
 __all__ = [

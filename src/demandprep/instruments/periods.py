@@ -14,8 +14,9 @@
   characteristic's spread over all product-markets moved (`059_iv_spreads.sql`; a plain count,
   cheap), and the cost shifters (cheap; their windows come from the whole list of periods).
   The merge replaces an iv_ column's rows of each period the build computed.
-- The merge, the input copy and the state are written in one transaction: a crash leaves the
-  stored values as they were, and the next build recomputes from that record.
+- The merge, the input copy (rewritten for the computed periods and those that left only)
+  and the state are written in one transaction: a crash leaves the stored values as they
+  were, and the next build recomputes from that record.
 
 Values of a period depend only on that period's inputs (and on the spread, compared bit for
 bit), and every later step pivots and sorts, so the Parquet files equal a full build's.
@@ -236,10 +237,21 @@ def _replace_rows(
 
 
 def _store_inputs(con: duckdb.DuckDBPyConnection, differentiation: list[str]) -> None:
-    con.execute("delete from iv_stored_products")
-    con.execute("insert into iv_stored_products by name from iv_products")
-    con.execute("delete from iv_stored_characteristics")
-    con.execute("insert into iv_stored_characteristics by name from iv_characteristic_values")
+    # a period outside iv_build_periods equals its stored copy (013), so only the computed
+    # periods and those that left are written: a night rewrites one period, not every one
+    for stored, current in (
+        ("iv_stored_products", "iv_products"),
+        ("iv_stored_characteristics", "iv_characteristic_values"),
+    ):
+        con.execute(
+            f"delete from {stored} where period_start in "  # noqa: S608
+            "(select period_start from iv_build_periods) "
+            "or period_start not in (select period_start from iv_products)"
+        )
+        con.execute(
+            f"insert into {stored} by name from {current} where period_start in "  # noqa: S608
+            "(select period_start from iv_build_periods)"
+        )
     con.execute("delete from iv_stored_spreads")
     if differentiation:
         con.execute("insert into iv_stored_spreads by name from iv_spreads")

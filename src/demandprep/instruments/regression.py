@@ -28,9 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-# scipy.special, not scipy.stats: the F survival function is special.fdtrc (what
-# stats.f.sf calls), and scipy.stats costs about a second of start-up on every build
-from scipy import special
+from demandprep.instruments.f_distribution import f_survival
 
 VANISHED = 1e-10
 
@@ -72,7 +70,7 @@ def partial_f_test(
     if df_num <= 0 or df_den <= 0 or rss_u <= 0:
         return PartialFTest(None, df_num, df_den, None, coefficients)
     f_value = ((rss_r - rss_u) / df_num) / (rss_u / df_den)
-    p_value = float(special.fdtrc(df_num, df_den, f_value))
+    p_value = f_survival(df_num, df_den, f_value)
     robust = _robust_f(_partialled(z, x), _partialled(y, x), df_num, len(y) / df_den)
     return PartialFTest(float(f_value), df_num, df_den, p_value, coefficients, robust)
 

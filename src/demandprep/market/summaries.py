@@ -12,8 +12,10 @@ summaries; every later step (070 onward, instruments) reads them whole, and they
   (`045_market_build_ranges.sql`); the scans recompute only those periods into `<summary>_slice`.
 - A summary with no state, another fingerprint, or receipt ids that let a visit span days
   (markets.receipt_ids_unique_per other than store_day) is rebuilt whole: same SQL, every period.
-- `store_summary` replaces the slice's periods and writes the state in one transaction, so a
-  crash leaves the summary and its state as they were, and the next build recomputes the rest.
+- `store_summary` validates the slice (the kept rows passed the same model when stored),
+  replaces the slice's periods, checks the whole summary's key in SQL and writes the state in
+  one transaction, so a crash leaves the summary and its state as they were, and the next
+  build recomputes the rest.
 
 Rows are merged as sets; every later step sums in a fixed order, so an incremental build writes
 the same bytes as a full one.
@@ -22,6 +24,7 @@ the same bytes as a full one.
 from __future__ import annotations
 
 import hashlib
+import inspect
 from dataclasses import dataclass
 from datetime import datetime, time, timedelta
 from typing import Any
@@ -32,8 +35,10 @@ import pandera.polars as pa
 from demandprep import __version__
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
+from demandprep.errors import UserError
 from demandprep.market.inputs import has_ledger
-from demandprep.sqlfiles import run_sql, sql_text
+from demandprep.schemas import market as market_schemas
+from demandprep.sqlfiles import quote_identifier, run_sql, sql_text
 from demandprep.validate import validate_table
 
 SUMMARIES = ("market_store_visits", "market_sku_sales")
@@ -88,13 +93,20 @@ class Fingerprint:
 
 
 def current_fingerprint(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> Fingerprint:
-    """The fingerprint of this config, the current reference files and this tool's SQL."""
+    """The fingerprint of this config, the current reference files, this tool's SQL and the
+    summaries' models."""
     references = con.execute(
         "select source, path, sha256 from market_input_ledger "
         "where status = 'current' and source <> 'receipts' order by all"
     ).fetchall()
-    code = [__version__, *(sql_text(name) for name in SUMMARY_SQL)]
+    code = [__version__, *(sql_text(name) for name in SUMMARY_SQL), *summary_model_sources()]
     return Fingerprint(config.config_hash(), _digest(references), _digest(code))
+
+
+def summary_model_sources() -> list[str]:
+    """The source of each summary's pandera model: only the recomputed rows meet it each
+    night, so a changed model must see every period again."""
+    return [inspect.getsource(market_schemas.MARKET_MODELS[name]) for name in SUMMARIES]
 
 
 def _digest(values: list[Any]) -> str:
@@ -201,24 +213,53 @@ def is_full_build(con: duckdb.DuckDBPyConnection, summary: str) -> bool:
 
 
 def store_summary(ctx: BuildContext, summary: str, model: type[pa.DataFrameModel]) -> int:
-    """Merge `<summary>_slice` into `summary`, validate it and write its state, atomically."""
+    """Validate `<summary>_slice`, merge it into `summary`, check the summary's key and write
+    its state, atomically; returns the summary's rows."""
     con = ctx.con
     full = is_full_build(con, summary)
     con.execute("begin transaction")
     try:
+        # the kept periods' rows passed this model when they were stored (same fingerprint):
+        # only the recomputed rows are read into Python, the key is checked whole in SQL
+        validate_table(con, f"{summary}_slice", model, shown_as=summary)
         # the table names are ours (SUMMARIES), never the user's
         if full:
             con.execute(f"create or replace table {summary} as from {summary}_slice")  # noqa: S608
         else:
             _replace_periods(con, summary)
         con.execute(f"drop table {summary}_slice")  # merged: the warehouse keeps one copy
-        rows = validate_table(con, summary, model)
+        require_unique_key(con, summary, model)
+        rows = con.execute(f"select count(*) from {summary}").fetchone()[0]  # noqa: S608
         store_summary_state(con, summary, current_fingerprint(con, ctx.config))
         con.execute("commit")
     except BaseException:
         con.execute("rollback")
         raise
     return rows
+
+
+def require_unique_key(
+    con: duckdb.DuckDBPyConnection, table: str, model: type[pa.DataFrameModel]
+) -> None:
+    """Refuse `table` when two rows share its model's key (`Config.unique`), naming one key."""
+    key = model.to_schema().unique or []
+    if not key:
+        return
+    columns = ", ".join(quote_identifier(column) for column in key)
+    repeated = con.execute(
+        f"select count(*), {columns} from {table} group by all "  # noqa: S608
+        "having count(*) > 1 order by all limit 1"
+    ).fetchall()
+    if repeated:
+        count, *values = repeated[0]
+        named = ", ".join(
+            f"{column} {str(value)!r}" for column, value in zip(key, values, strict=True)
+        )
+        raise UserError(
+            f"stage output {table!r} breaks its schema {model.__name__}: "
+            f"{count} rows for one key: {named}",
+            "this is a bad input or a bug: a recomputed period repeats a row kept from before.",
+        )
 
 
 def _replace_periods(con: duckdb.DuckDBPyConnection, summary: str) -> None:

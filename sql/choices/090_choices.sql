@@ -52,7 +52,7 @@ final as (
             as price_source,
         info.promo,
         -- extra shelf-price columns (e.g. display), then firm, nest and characteristics
-        info.* exclude (store, day, alternative, price, price_source, promo),
+        info.* exclude (price, price_source, promo),
         case when alternative = chosen_alternative then quantity end as quantity,
         case when alternative = chosen_alternative then spend end as spend,
         list_contains(previous_alternatives, alternative) as previous_choice,

@@ -30,8 +30,14 @@ occasion_rows as (
     select
         * exclude (alternatives, alternative_info),
         unnest(alternatives) as alternative,
-        -- the same positions of the looked-up rows ('none' has no row: null)
-        unnest(list_transform(alternatives, lambda a: alternative_info[a])) as info,
+        -- the same positions of the looked-up rows ('none' has no row: null); most occasions
+        -- offer exactly their store-day's priced alternatives, whose rows need no lookup
+        unnest(
+            case
+                when alternatives = map_keys(alternative_info) then map_values(alternative_info)
+                else list_transform(alternatives, lambda a: alternative_info[a])
+            end
+        ) as info,
     from occasions
 ),
 

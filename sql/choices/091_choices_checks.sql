@@ -9,6 +9,8 @@
 -- of that order, and where there are any, 092 counts the repeated pairs by grouping instead.
 -- The chooser pattern is checked once per occasion, on its smallest and largest chooser: the
 -- chooser is constant within an occasion (occasion_columns_constant), so that is every row.
+-- Row checks are count_if (cheaper than filtered counts, and equally blind to nulls); the
+-- constant columns are grouping keys, so a constant occasion is one group.
 
 with
 

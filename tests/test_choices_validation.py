@@ -101,6 +101,26 @@ def test_the_sorted_steps_write_in_order_however_many_rows():
         assert "Batch Create Table As" in plan, name
 
 
+def test_the_store_day_maps_carry_no_key_columns_per_alternative():
+    # 090 copies each occasion's map entries into its rows: the store, day and alternative are
+    # the occasion's own or the map's key, so repeating them per entry only costs copies
+    world = ChoiceWorld()
+    world.product("a1", "A", 1)
+    world.store("S1")
+    world.visit("S1", datetime(2024, 1, 15, 9), "card1", [("a1", 1, 2.0)])
+    con = duckdb.connect()
+    world.write(con)
+    ctx = BuildContext(con=con, config=make_config())
+    for stage in CHOICE_STAGES[:-1]:
+        run_stage(stage, ctx)
+    entry = con.execute(
+        "select map_values(alternative_info)[1] from choice_store_day_info"
+    ).fetchone()[0]
+    assert not {"store", "day", "alternative"} & set(entry)
+    assert {"price", "price_source", "promo", "firm", "nest", "strength"} <= set(entry)
+    assert entry["price"] == 2.0
+
+
 def test_every_check_of_the_model_has_its_sql_twin():
     # the SQL must enforce each check pandera would, or the sample alone would guard it
     assert model_checks() <= sql_check_names()

@@ -30,8 +30,14 @@ occasion_rows as (
     select
         * exclude (alternatives, alternative_info),
         unnest(alternatives) as alternative,
-        -- the same positions of the looked-up rows ('none' has no row: null)
-        unnest(list_transform(alternatives, lambda a: alternative_info[a])) as info,
+        -- the same positions of the looked-up rows ('none' has no row: null); most occasions
+        -- offer exactly their store-day's priced alternatives, whose rows need no lookup
+        unnest(
+            case
+                when alternatives = map_keys(alternative_info) then map_values(alternative_info)
+                else list_transform(alternatives, lambda a: alternative_info[a])
+            end
+        ) as info,
     from occasions
 ),
 
@@ -52,7 +58,7 @@ final as (
             as price_source,
         info.promo,
         -- extra shelf-price columns (e.g. display), then firm, nest and characteristics
-        info.* exclude (store, day, alternative, price, price_source, promo),
+        info.* exclude (price, price_source, promo),
         case when alternative = chosen_alternative then quantity end as quantity,
         case when alternative = chosen_alternative then spend end as spend,
         list_contains(previous_alternatives, alternative) as previous_choice,

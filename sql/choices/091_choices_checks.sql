@@ -9,101 +9,96 @@
 -- of that order, and where there are any, 092 counts the repeated pairs by grouping instead.
 -- The chooser pattern is checked once per occasion, on its smallest and largest chooser: the
 -- chooser is constant within an occasion (occasion_columns_constant), so that is every row.
+-- Row checks are count_if (cheaper than filtered counts, and equally blind to nulls); the
+-- constant columns are grouping keys, so a constant occasion is one group.
 
 with
 
 row_checks as (
     select
         count(*) as row_count,
-        count(*) filter (where occasion is null) as occasion__not_nullable,
-        count(*) filter (where chooser is null) as chooser__not_nullable,
-        count(*) filter (where store is null) as store__not_nullable,
-        count(*) filter (where occasion_at is null) as occasion_at__not_nullable,
-        count(*) filter (where alternative is null) as alternative__not_nullable,
-        count(*) filter (where chosen is null) as chosen__not_nullable,
-        count(*) filter (where added_to_set is null) as added_to_set__not_nullable,
-        count(*) filter (where choice_set_size is null) as choice_set_size__not_nullable,
-        count(*) filter (where sampled is null) as sampled__not_nullable,
-        count(*) filter (where price_source is null) as price_source__not_nullable,
-        count(*) filter (where previous_choice is null) as previous_choice__not_nullable,
-        count(*) filter (where burn_in is null) as burn_in__not_nullable,
-        count(*) filter (where purchase_count is null) as purchase_count__not_nullable,
-        count(*) filter (where holdout is null) as holdout__not_nullable,
-        count(*) filter (where household_known is null) as household_known__not_nullable,
-        count(*) filter (where not choice_set_size >= 1)
+        count_if(occasion is null) as occasion__not_nullable,
+        count_if(chooser is null) as chooser__not_nullable,
+        count_if(store is null) as store__not_nullable,
+        count_if(occasion_at is null) as occasion_at__not_nullable,
+        count_if(alternative is null) as alternative__not_nullable,
+        count_if(chosen is null) as chosen__not_nullable,
+        count_if(added_to_set is null) as added_to_set__not_nullable,
+        count_if(choice_set_size is null) as choice_set_size__not_nullable,
+        count_if(sampled is null) as sampled__not_nullable,
+        count_if(price_source is null) as price_source__not_nullable,
+        count_if(previous_choice is null) as previous_choice__not_nullable,
+        count_if(burn_in is null) as burn_in__not_nullable,
+        count_if(purchase_count is null) as purchase_count__not_nullable,
+        count_if(holdout is null) as holdout__not_nullable,
+        count_if(household_known is null) as household_known__not_nullable,
+        count_if(not choice_set_size >= 1)
             as choice_set_size__greater_than_or_equal_to,
-        count(*) filter (where not price >= 0) as price__greater_than_or_equal_to,
-        count(*) filter (where not list_contains($price_sources, price_source))
+        count_if(not price >= 0) as price__greater_than_or_equal_to,
+        count_if(not list_contains($price_sources, price_source))
             as price_source__isin,
-        count(*) filter (where not loyalty >= 0) as loyalty__greater_than_or_equal_to,
-        count(*) filter (where not loyalty <= $loyalty_max) as loyalty__less_than_or_equal_to,
-        count(*) filter (where not days_since_last_purchase >= 0)
+        count_if(not loyalty >= 0) as loyalty__greater_than_or_equal_to,
+        count_if(not loyalty <= $loyalty_max) as loyalty__less_than_or_equal_to,
+        count_if(not days_since_last_purchase >= 0)
             as days_since_last_purchase__greater_than_or_equal_to,
-        count(*) filter (where not purchase_count >= 0)
+        count_if(not purchase_count >= 0)
             as purchase_count__greater_than_or_equal_to,
-        count(*) filter (
-            where (price is null) <> list_contains($unpriced_sources, price_source)
-        ) as price_null_has_source,
-        count(*) filter (
-            where promo is null and not list_contains($unpriced_sources, price_source)
-        ) as promo_null_has_source,
-        count(*) filter (
-            where (price_source = 'outside') <> (alternative = $outside)
-        ) as outside_source_on_none,
-        count(*) filter (
-            where firm is null and alternative not in ($fringe, $outside)
-        ) as firm_null_has_reason,
-        count(*) filter (
-            where (quantity is not null) <> (chosen and alternative <> $outside)
-            or (spend is not null) <> (chosen and alternative <> $outside)
-        ) as purchase_on_chosen_row,
-        count(*) filter (where added_to_set and not chosen) as added_only_if_chosen,
-        count(*) filter (where (loyalty is null) <> burn_in) as loyalty_null_in_burn_in,
-        count(*) filter (
-            where (days_since_last_purchase is null) <> (purchase_count = 0)
-        ) as days_since_null_without_purchase,
-        count(*) filter (where alternative = $outside and previous_choice)
+        count_if((price is null) <> list_contains($unpriced_sources, price_source)) as price_null_has_source,
+        count_if(promo is null and not list_contains($unpriced_sources, price_source)) as promo_null_has_source,
+        count_if((price_source = 'outside') <> (alternative = $outside)) as outside_source_on_none,
+        count_if(firm is null and alternative not in ($fringe, $outside)) as firm_null_has_reason,
+        count_if((quantity is not null) <> (chosen and alternative <> $outside)
+            or (spend is not null) <> (chosen and alternative <> $outside)) as purchase_on_chosen_row,
+        count_if(added_to_set and not chosen) as added_only_if_chosen,
+        count_if((loyalty is null) <> burn_in) as loyalty_null_in_burn_in,
+        count_if((days_since_last_purchase is null) <> (purchase_count = 0)) as days_since_null_without_purchase,
+        count_if(alternative = $outside and previous_choice)
             as previous_choice_inside,
     from choices
+),
+
+occasion_values as (
+    -- one row per occasion and combination of its per-occasion columns (nulls group together):
+    -- an occasion whose columns are constant has one such row
+    select
+        occasion,
+        chooser,
+        store,
+        occasion_at,
+        choice_set_size,
+        holdout,
+        burn_in,
+        count(*) as row_count,
+        count_if(chosen) as chosen_rows,
+        count_if(not sampled) as unsampled_rows,
+    from choices
+    group by all
 ),
 
 occasions as (
     select
         occasion,
-        count(*) as row_count,
-        count(*) filter (where chosen) as chosen_rows,
+        sum(row_count) as row_count,
+        sum(chosen_rows) as chosen_rows,
         min(choice_set_size) as smallest_set_size,
-        min(choice_set_size) filter (where not sampled) as smallest_unsampled_set_size,
-        max(choice_set_size) filter (where not sampled) as largest_unsampled_set_size,
+        min(choice_set_size) filter (where unsampled_rows > 0) as smallest_unsampled_set_size,
+        max(choice_set_size) filter (where unsampled_rows > 0) as largest_unsampled_set_size,
         min(chooser) as smallest_chooser,
         max(chooser) as largest_chooser,
-        -- one value (or only nulls) per column: n_unique over the occasion is 1
-        count(chooser) in (0, count(*)) and min(chooser) is not distinct from max(chooser)
-        and count(store) in (0, count(*)) and min(store) is not distinct from max(store)
-        and count(occasion_at) in (0, count(*))
-        and min(occasion_at) is not distinct from max(occasion_at)
-        and count(choice_set_size) in (0, count(*))
-        and min(choice_set_size) is not distinct from max(choice_set_size)
-        and count(holdout) in (0, count(*)) and min(holdout) is not distinct from max(holdout)
-        and count(burn_in) in (0, count(*)) and min(burn_in) is not distinct from max(burn_in)
-            as constant_columns,
-    from choices
+        count(*) = 1 as constant_columns,
+    from occasion_values
     group by occasion
 ),
 
 occasion_checks as (
     select
-        count(*) filter (where chosen_rows <> 1) as one_chosen_per_occasion,
-        count(*) filter (
-            where row_count > smallest_set_size
+        count_if(chosen_rows <> 1) as one_chosen_per_occasion,
+        count_if(row_count > smallest_set_size
             or row_count <> smallest_unsampled_set_size
-            or row_count <> largest_unsampled_set_size
-        ) as rows_match_set_size,
-        count(*) filter (where not constant_columns) as occasion_columns_constant,
-        count(*) filter (
-            where not regexp_matches(smallest_chooser, $pseudonym_pattern)
-            or not regexp_matches(largest_chooser, $pseudonym_pattern)
-        ) as chooser__str_matches,
+            or row_count <> largest_unsampled_set_size) as rows_match_set_size,
+        count_if(not constant_columns) as occasion_columns_constant,
+        count_if(not regexp_matches(smallest_chooser, $pseudonym_pattern)
+            or not regexp_matches(largest_chooser, $pseudonym_pattern)) as chooser__str_matches,
     from occasions
 ),
 
@@ -119,16 +114,12 @@ stored_keys as (
 
 order_checks as (
     select
-        count(*) filter (
-            where occasion = previous_occasion and alternative = previous_alternative
-        ) as alternative_once_per_occasion,
-        count(*) filter (
-            where position > 1
+        count_if(occasion = previous_occasion and alternative = previous_alternative) as alternative_once_per_occasion,
+        count_if(position > 1
             and (
                 occasion > previous_occasion
                 or (occasion = previous_occasion and alternative >= previous_alternative)
-            ) is not true
-        ) as rows_out_of_key_order,
+            ) is not true) as rows_out_of_key_order,
     from stored_keys
 ),
 

@@ -102,9 +102,14 @@ def test_file_replaced_by_a_new_one_of_same_size_and_mtime_is_read_again(
     assert statuses["stores.csv"] == "changed"
 
 
-def test_racy_record_is_not_trusted(tmp_path: Path, hashed: list[str]) -> None:
-    # the real clock: the fixture was copied (ctime) moments before the records were taken
+def test_racy_record_is_not_trusted(
+    tmp_path: Path, hashed: list[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
     config = faults_config(tmp_path)
+    written = [path for path in config.config_path.parent.rglob("*") if path.is_file()]
+    last_write = max(max(p.stat().st_mtime_ns, p.stat().st_ctime_ns) for p in written)
+    # the records are taken one second after the fixture was copied: within the margin
+    monkeypatch.setattr(files_module, "now_ns", lambda: last_write + 1_000_000_000)
     with open_warehouse(config.warehouse) as con:
         first = [f.path.name for f in discover_files(con, config)]
         hashed.clear()

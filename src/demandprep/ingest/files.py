@@ -8,7 +8,7 @@ path whose latest ledger row is `refused` stays out until its checksum or settin
 that is `withdrawn` stays out until its checksum changes (or an explicit reload).
 
 The sha256 is taken from `file_stamps` instead of the file when the file's stat (size, mtime,
-ctime, inode, device) is the one recorded beside that sha256 and its mtime and ctime lay well
+ctime, inode, device) is the one recorded beside that sha256 and its mtime and ctime lie well
 before the record was taken (git's index does the same); any other file is read and recorded.
 """
 
@@ -145,9 +145,7 @@ def now_ns() -> int:
 def stamp_records(con: duckdb.DuckDBPyConnection) -> dict[str, StampRecord]:
     """path -> its recorded stamp and sha256."""
     rows = run_sql(con, "ingest/067_file_stamps.sql").fetchall()
-    return {
-        row[0]: StampRecord(FileStamp(*row[1:6]), row[6], row[7]) for row in rows
-    }
+    return {row[0]: StampRecord(FileStamp(*row[1:6]), row[6], row[7]) for row in rows}
 
 
 def record_stamps(con: duckdb.DuckDBPyConnection, found: list[DiscoveredFile]) -> None:

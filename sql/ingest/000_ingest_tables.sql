@@ -61,3 +61,16 @@ create table if not exists ingest_runs (
     seconds double not null,
     run_seconds double not null,
 );
+
+-- per input path, its stat and the sha256 its bytes had (ingest/files.py): a file whose stat
+-- is unchanged since is not read again for its checksum; a stale row only costs a read
+create table if not exists file_stamps (
+    path varchar not null,
+    bytes bigint not null,
+    mtime_ns bigint not null,
+    ctime_ns bigint not null,
+    inode ubigint not null,
+    device ubigint not null,
+    sha256 varchar not null,
+    recorded_at_ns bigint not null,
+);

@@ -6,11 +6,16 @@ what was last ingested from it: a file is changed when its checksum or its sourc
 settings differ (a null fingerprint, from before they were recorded, counts as the same). A
 path whose latest ledger row is `refused` stays out until its checksum or settings change; one
 that is `withdrawn` stays out until its checksum changes (or an explicit reload).
+
+The sha256 is taken from `file_stamps` instead of the file when the file's stat (size, mtime,
+ctime, inode, device) is the one recorded beside that sha256 and its mtime and ctime lie well
+before the record was taken (git's index does the same); any other file is read and recorded.
 """
 
 from __future__ import annotations
 
 import hashlib
+import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from fnmatch import fnmatch
@@ -21,6 +26,7 @@ import duckdb
 
 from demandprep.config import FileSource, ProjectConfig, no_files_error
 from demandprep.errors import UserError
+from demandprep.sqlfiles import run_sql
 
 # references first: receipts are checked against the stores and the catalogue
 SOURCE_ORDER = (
@@ -33,8 +39,42 @@ SOURCE_ORDER = (
     "receipts",
 )
 HASH_CHUNK_BYTES = 1 << 20
+# a file changed this close before its record may change again within the same clock tick of
+# a coarse file system without moving its mtime or ctime (git's "racy" check)
+RACY_MARGIN_NS = 2_000_000_000  # common practice, no source: 2 s covers FAT's mtime steps
 
 Status = Literal["new", "unchanged", "changed"]
+
+
+@dataclass(frozen=True)
+class FileStamp:
+    """What stat says of a file; any write to it moves one of these."""
+
+    bytes: int
+    mtime_ns: int
+    ctime_ns: int
+    inode: int
+    device: int
+
+    @classmethod
+    def of(cls, path: Path) -> FileStamp:
+        """The stamp of the file at `path` now."""
+        found = path.stat()
+        return cls(found.st_size, found.st_mtime_ns, found.st_ctime_ns, found.st_ino, found.st_dev)
+
+
+@dataclass(frozen=True)
+class StampRecord:
+    """A file's stamp and the sha256 its bytes had, taken at `recorded_at_ns` (stat first)."""
+
+    stamp: FileStamp
+    sha256: str
+    recorded_at_ns: int
+
+    def vouches_for(self, stamp: FileStamp) -> bool:
+        """True when the file still has this stamp and was last written well before the record."""
+        settled = max(stamp.mtime_ns, stamp.ctime_ns) < self.recorded_at_ns - RACY_MARGIN_NS
+        return settled and stamp == self.stamp
 
 
 @dataclass(frozen=True)
@@ -55,6 +95,8 @@ class DiscoveredFile:
     rebuilds_source: bool = False
     # 'refused' or 'withdrawn' when that ledger row is why an unchanged file stays out
     held_back: str | None = None
+    # the file's stamp and the sha256 just read from it, to record (None: taken from a record)
+    new_record: StampRecord | None = None
 
 
 @dataclass(frozen=True)
@@ -95,6 +137,40 @@ def checksums(paths: list[Path], workers: int) -> list[str]:
         return list(pool.map(file_sha256, paths))
 
 
+def now_ns() -> int:
+    """The wall clock in nanoseconds, the time a stamp record is taken."""
+    return time.time_ns()
+
+
+def stamp_records(con: duckdb.DuckDBPyConnection) -> dict[str, StampRecord]:
+    """path -> its recorded stamp and sha256."""
+    rows = run_sql(con, "ingest/067_file_stamps.sql").fetchall()
+    return {row[0]: StampRecord(FileStamp(*row[1:6]), row[6], row[7]) for row in rows}
+
+
+def record_stamps(con: duckdb.DuckDBPyConnection, found: list[DiscoveredFile]) -> None:
+    """Record the stamp and sha256 of every file just read for its checksum.
+
+    Not tied to the ledger: a record states what a file's bytes were, and one that is stale or
+    lost by a crash only makes the next run read the file again.
+    """
+    records = [(str(item.path), item.new_record) for item in found if item.new_record]
+    if not records:
+        return
+    columns = {
+        "paths": [path for path, _ in records],
+        "bytes": [record.stamp.bytes for _, record in records],
+        "mtimes": [record.stamp.mtime_ns for _, record in records],
+        "ctimes": [record.stamp.ctime_ns for _, record in records],
+        "inodes": [record.stamp.inode for _, record in records],
+        "devices": [record.stamp.device for _, record in records],
+        "sha256s": [record.sha256 for _, record in records],
+        "recorded_at": [record.recorded_at_ns for _, record in records],
+    }
+    run_sql(con, "ingest/068_file_stamps_forget.sql", columns)
+    run_sql(con, "ingest/069_file_stamps_insert.sql", columns)
+
+
 def current_versions(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], KnownVersion]:
     """(source, path) -> the current (or empty) ledger row of every file."""
     # an empty file is read once: not again until its checksum or its source's settings change
@@ -124,13 +200,24 @@ def discover_source(
     held_back: dict[tuple[str, str], KnownVersion] | None = None,
     reload: frozenset[Path] = frozenset(),
     workers: int = 1,
+    records: dict[str, StampRecord] | None = None,
 ) -> list[DiscoveredFile]:
     """Checksum each file of one source and compare it with its ledger rows.
 
-    The checksums are taken in `workers` threads (hashlib releases the GIL on large reads).
+    A file its record vouches for keeps the recorded sha256 (a reload reads it all the same);
+    the others are read in `workers` threads (hashlib releases the GIL on large reads).
     """
+    recorded_at = now_ns()  # before the stat: a write after it moves the stamp or is racy
+    stamps = [FileStamp.of(path) for path in paths]
+    sums = known_checksums(paths, stamps, records or {}, reload_all, reload)
+    new_records: list[StampRecord | None] = [None] * len(paths)
+    unknown = [index for index, sha in enumerate(sums) if sha is None]
+    for index, sha in zip(unknown, checksums([paths[i] for i in unknown], workers), strict=True):
+        sums[index] = sha
+        new_records[index] = StampRecord(stamps[index], sha, recorded_at)
     found = []
-    for path, sha in zip(paths, checksums(paths, workers), strict=True):
+    for path, stamp, sha, record in zip(paths, stamps, sums, new_records, strict=True):
+        assert sha is not None  # every unknown checksum was read above
         previous = known.get((source, str(path)))
         blocked = (held_back or {}).get((source, str(path)))
         forced = reload_all or path in reload
@@ -141,16 +228,34 @@ def discover_source(
             DiscoveredFile(
                 source,
                 path,
-                path.stat().st_size,
+                stamp.bytes,
                 sha,
                 status,
                 previous_id,
                 fingerprint,
                 settings_changed,
                 held_back=blocked.status if kept_out and blocked else None,
+                new_record=record,
             )
         )
     return found
+
+
+def known_checksums(
+    paths: list[Path],
+    stamps: list[FileStamp],
+    records: dict[str, StampRecord],
+    reload_all: bool,
+    reload: frozenset[Path],
+) -> list[str | None]:
+    """The recorded sha256 of each file its record vouches for; None where it must be read."""
+    sums: list[str | None] = []
+    for path, stamp in zip(paths, stamps, strict=True):
+        record = records.get(str(path))
+        forced = reload_all or path in reload
+        trusted = record is not None and not forced and record.vouches_for(stamp)
+        sums.append(record.sha256 if trusted and record else None)
+    return sums
 
 
 def file_status(

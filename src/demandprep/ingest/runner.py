@@ -51,7 +51,9 @@ from demandprep.ingest.files import (
     current_versions,
     discover_source,
     held_back_versions,
+    record_stamps,
     reload_targets,
+    stamp_records,
 )
 from demandprep.ingest.loaders import Loader, ReceiptLoader, ReferenceLoader
 from demandprep.ingest.reader import (
@@ -113,6 +115,7 @@ def discover_files(
     known = current_versions(con)
     held_back = held_back_versions(con)
     targets = reload_targets(config, reload) if reload else {}
+    records = stamp_records(con)
     found = []
     for name, source in configured_sources(config):
         spec = REFERENCE_SPECS.get(name)
@@ -128,7 +131,9 @@ def discover_files(
             held_back=held_back,
             reload=targets.get(name, frozenset()),
             workers=config.warehouse.threads,
+            records=records,
         )
+    record_stamps(con, found)
     return mark_source_rebuilds(con, found)
 
 

@@ -1,0 +1,3 @@
+-- the older stamps of the paths about to be recorded again
+delete from file_stamps
+where path in (select unnest($paths::varchar[]))

@@ -432,3 +432,74 @@ def test_a_file_withdrawn_on_the_coordinator_stops_the_next_build_until_partitio
     shutil.rmtree(config.partitioning.root)
     rebuilt = build_partitioned(config, map_in_process(config))
     assert rebuilt.folder is not None and latest_build(config.export.root) == rebuilt.folder
+
+
+def ingest_records(config: ProjectConfig) -> tuple[list, list, list]:
+    """The warehouse's receipts ledger, quarantine counts and reasons, by path under the copy."""
+    folder = str(config.config_path.parent)
+    with open_warehouse(config.warehouse) as con:
+        ledger = con.execute(
+            "select replace(path, $folder, ''), version, status, rows_read, rows_accepted, "
+            "rows_quarantined, first_sold_at, last_sold_at, bytes, sha256 from ledger "
+            "where source = 'receipts' order by all",
+            {"folder": folder},
+        ).fetchall()
+        quarantine = con.execute(
+            "select replace(path, $folder, ''), line_no, reason, detail, original_text "
+            "from quarantine where source = 'receipts' order by all",
+            {"folder": folder},
+        ).fetchall()
+        reasons = con.execute(
+            "select replace(path, $folder, ''), ledger_reasons.reason, rows from ledger_reasons "
+            "join ledger using (file_id) where source = 'receipts' order by all",
+            {"folder": folder},
+        ).fetchall()
+    return ledger, quarantine, reasons
+
+
+def test_the_coordinator_reads_no_receipt_line_and_its_ledger_is_the_single_process_one(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    build_partitioned(config, map_in_process(config))
+    with open_warehouse(config.warehouse) as con:
+        held = con.execute("select count(*) from main.raw_lines").fetchone()[0]
+    assert held == 0
+    single = load_config(single_process_build.parents[1] / "demandprep.toml")
+    # the ledger adds up per file, and a bad line of a chain-wide file is counted once
+    assert ingest_records(config) == ingest_records(single)
+
+
+def test_a_file_the_hint_routes_wrongly_still_reaches_its_partitions(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import demandprep.partitioned.routing as routing
+
+    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
+    # the hint sends every new file to Harrowfield alone: the others learn of theirs in round two
+    monkeypatch.setattr(routing, "hinted_partitions", lambda con, config, path, names: names[:1])
+    rounds = []
+
+    def recording_map(partitions):
+        rounds.append([item.label for item in partitions])
+        return map_in_process(config)(partitions)
+
+    outcome = build_partitioned(config, recording_map)
+    assert rounds == [["Harrowfield"], ["Lindenmoor", "Saltmarsh Coast"]]
+    assert_same_tables(single_process_build, outcome.folder)
+    ingested = partition_receipts_files(config)
+    with open_warehouse(config.warehouse) as con:
+        partitions = plan_partitions(con, config)
+    receipts = config.config_path.parent / "receipts"
+    for item in partitions:
+        own = [str(path) for path in sorted((receipts / region_folder(item.key)).glob("*.csv.gz"))]
+        # Harrowfield read every file in round one; the others only their region's
+        assert set(own) <= set(ingested[item.name])
+        assert item.key == "Harrowfield" or ingested[item.name] == own
+    ledger = ingest_records(config)[0]
+    single = ingest_records(load_config(single_process_build.parents[1] / "demandprep.toml"))[0]
+    # the files differ (split by region), the lines do not: every line counted once
+    assert all(row[3] == row[4] + row[5] for row in ledger)
+    assert [sum(row[n] for row in ledger) for n in (3, 4, 5)] == [
+        sum(row[n] for row in single) for n in (3, 4, 5)
+    ]

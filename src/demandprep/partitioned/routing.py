@@ -25,53 +25,71 @@ Placement = dict[str, dict]
 
 
 def hinted_partitions(
-    con: duckdb.DuckDBPyConnection, config: ProjectConfig, path: str, names: list[str]
-) -> list[str]:
-    """The partitions (by name, among `names`) whose stores and days a scan of `path` finds."""
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig, paths: list[str], names: list[str]
+) -> dict[str, list[str]]:
+    """Per file, the partitions (by name, among `names`) whose stores and days a scan finds.
+
+    One scan reads every file; when it fails (a file it cannot read), each file is scanned
+    alone, and a file that still fails is hinted nowhere (the partitions' ingest says why).
+    """
+    try:
+        return partitions_of(config, file_keys_and_ranges(con, config, paths), names)
+    except duckdb.Error:
+        found: dict[str, list[str]] = {}
+        for path in paths:
+            try:
+                found |= partitions_of(config, file_keys_and_ranges(con, config, [path]), names)
+            except duckdb.Error:
+                continue
+        return found
+
+
+def partitions_of(
+    config: ProjectConfig, keys: list[tuple[str, str | None, int]], names: list[str]
+) -> dict[str, list[str]]:
+    """(path, value, range index) rows as each path's partition names, in `names` order."""
     from demandprep.partitioned.plan import partition_name, period_ranges
 
-    try:
-        keys = file_keys_and_ranges(con, config, path)
-    except duckdb.Error:
-        return []  # the partitions' ingest will say what is wrong with the file
     ranges = period_ranges(config)
-    found = {partition_name(key, *ranges[index]) for key, index in keys}
-    return [name for name in names if name in found]
+    found: dict[str, set[str]] = {}
+    for path, key, index in keys:
+        found.setdefault(path, set()).add(partition_name(key, *ranges[index]))
+    return {path: [name for name in names if name in held] for path, held in found.items()}
 
 
 def file_keys_and_ranges(
-    con: duckdb.DuckDBPyConnection, config: ProjectConfig, path: str
-) -> list[tuple[str | None, int]]:
-    """The (partition value, period range index) pairs of a file's lines, from two columns."""
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig, paths: list[str]
+) -> list[tuple[str, str | None, int]]:
+    """The (path, partition value, period range index) of the files' lines, from two columns."""
     receipts = config.sources.receipts
-    # the mapped names are the config's, quoted; the file and the settings are bound
+    # the mapped names are the config's, quoted; the files and the settings are bound
     store = quote_identifier(receipts.columns["store"])
     sold_at = quote_identifier(receipts.columns["sold_at"])
     column = quote_identifier(config.partitioning.by)
     if receipts.format == "parquet":
-        source = "read_parquet($path)"
+        source = "read_parquet($paths, filename = true, union_by_name = true)"
         parameters: dict = {}
     else:
         source = (
-            "read_csv($path, delim = $delimiter, header = $header, all_varchar = true, "
-            "ignore_errors = true, null_padding = true)"
+            "read_csv($paths, delim = $delimiter, header = $header, all_varchar = true, "
+            "ignore_errors = true, null_padding = true, filename = true, union_by_name = true)"
         )
         parameters = {"delimiter": receipts.delimiter, "header": receipts.header}
-    rows = con.execute(
-        f"with lines as (select distinct {store}::varchar as store, "  # noqa: S608
+    return con.execute(
+        f"with lines as (select distinct filename as path, {store}::varchar as store, "  # noqa: S608
         f"coalesce(try_strptime({sold_at}::varchar, $format), "
         f"try_cast({sold_at}::varchar as timestamp))::date as day from {source}), "
         f"keyed as (select store, {column}::varchar as key from stores) "
-        "select distinct keyed.key, len(list_filter($bounds, lambda bound: bound <= lines.day)) "
+        "select distinct lines.path, keyed.key, "
+        "len(list_filter($bounds, lambda bound: bound <= lines.day)) "
         "from lines join keyed using (store) where lines.day is not null",
         {
-            "path": path,
+            "paths": paths,
             "format": receipts.timestamp_format,
             "bounds": sorted(set(config.partitioning.period_boundaries)),
             **parameters,
         },
     ).fetchall()
-    return [(key, index) for key, index in rows]
 
 
 def placed_partitions(placements: Iterable[Placement], path: str, sha256: str) -> set[str]:
@@ -99,11 +117,15 @@ def route_files(
 ) -> dict[str, set[str]]:
     """Each partition's files: those it read before, those placed in it, those hinted to it."""
     routes = {name: set(recorded.get(name, [])) & files.keys() for name in names}
+    unplaced = sorted(
+        path for path, sha256 in files.items() if not has_placement(placements, path, sha256)
+    )
+    hints = hinted_partitions(con, config, unplaced, names) if unplaced else {}
     for path, sha256 in sorted(files.items()):
-        if has_placement(placements, path, sha256):
+        if path not in unplaced:
             targets = placed_partitions(placements, path, sha256)
         else:
-            targets = set(hinted_partitions(con, config, path, names))
+            targets = set(hints.get(path, []))
             if not targets and not any(path in routed for routed in routes.values()):
                 targets = set(names[:1])  # someone must ledger it
         for name in targets & set(names):

@@ -4,6 +4,7 @@
     .venv/bin/python benchmarks/partitioned.py --partitioned 1 2    # worker counts to compare
     .venv/bin/python benchmarks/partitioned.py --folder WORLD       # a generated world's folder
     .venv/bin/python benchmarks/partitioned.py --layout region      # files split per region
+    .venv/bin/python benchmarks/partitioned.py --skip-single        # the partitioned runs alone
 
 Each contender runs in its own child process on a fresh copy of the folder (ingest, build,
 export from an empty warehouse), with `partitioning.by = region`. `--layout daily` keeps the
@@ -165,6 +166,9 @@ def main() -> None:
     parser.add_argument("--folder", type=Path, default=SAMPLE)
     parser.add_argument("--partitioned", type=int, nargs="+", default=[1, 2])
     parser.add_argument("--layout", choices=["daily", "region"], default="daily")
+    parser.add_argument(
+        "--skip-single", action="store_true", help="leave the one-process build out"
+    )
     parser.add_argument("--child", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
@@ -172,7 +176,8 @@ def main() -> None:
         return
     print(f"folder: {args.folder} (layout: {args.layout})")
     print(f"{'contender':<16}{'wall s':>9}{'CPU s':>9}")
-    for contender in ["single", *map(str, args.partitioned)]:
+    single = [] if args.skip_single else ["single"]
+    for contender in [*single, *map(str, args.partitioned)]:
         command = [sys.executable, __file__, "--folder", str(args.folder), "--child", contender,
                    "--layout", args.layout]  # fmt: skip
         output = subprocess.run(command, check=True, capture_output=True, text=True).stdout

@@ -26,7 +26,7 @@ from demandprep.config import ProjectConfig, load_config
 from demandprep.errors import UserError
 from demandprep.export.folder import latest_build, published_builds
 from demandprep.ingest.withdraw import withdraw_files
-from demandprep.partitioned.map import build_partition
+from demandprep.partitioned.map import PartitionSummaries, build_partition
 from demandprep.partitioned.plan import plan_partitions, summary_path
 from demandprep.partitioned.runner import build_partitioned, map_in_process
 from demandprep.warehouse import open_warehouse
@@ -578,3 +578,27 @@ def test_a_file_the_hint_routes_wrongly_still_reaches_its_partitions(
     assert [sum(row[n] for row in ledger) for n in (3, 4, 5)] == [
         sum(row[n] for row in single) for n in (3, 4, 5)
     ]
+
+
+def test_a_partition_mapped_in_both_rounds_reports_what_both_rebuilt() -> None:
+    from demandprep.partitioned.plan import Partition
+    from demandprep.partitioned.runner import mapped_twice
+
+    partition = Partition("Lindenmoor", ("S05",))
+    first = PartitionSummaries(
+        partition,
+        {},
+        {},
+        {"build_mode": "full", "periods_rebuilt": ["2024-01-01"], "full_build_reason": "new"},
+    )
+    second = PartitionSummaries(
+        partition,
+        {},
+        {},
+        {"build_mode": "incremental", "periods_rebuilt": ["2024-02-12"], "full_build_reason": None},
+    )
+    assert mapped_twice(first, second).build_scope == {
+        "build_mode": "full",
+        "periods_rebuilt": ["2024-01-01", "2024-02-12"],
+        "full_build_reason": "new",
+    }

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 from collections import Counter
 from collections.abc import Callable
+from dataclasses import replace
 
 import duckdb
 
@@ -138,12 +139,30 @@ def map_routed_partitions(
             if (force and item.name not in mapped) or not partition_is_current(config, item)
         ]
         results = map_partitions(changed) if changed else []
-        mapped |= {item.partition.name: item for item in results}
+        for item in results:
+            earlier = mapped.get(item.partition.name)
+            mapped[item.partition.name] = item if earlier is None else mapped_twice(earlier, item)
         missing = misrouted(routes, [item.placement for item in results], files)
         if not missing:
             return [mapped.get(item.name) or kept_summaries(config, item) for item in planned]
         for name, paths in missing.items():
             routes[name] |= paths
+
+
+def mapped_twice(earlier: PartitionSummaries, later: PartitionSummaries) -> PartitionSummaries:
+    """A partition mapped in both rounds: the later summaries, with what both rounds rebuilt."""
+    scopes = [earlier.build_scope, later.build_scope]
+    reasons = [scope.get("full_build_reason") for scope in scopes if scope.get("full_build_reason")]
+    scope = {
+        "build_mode": "full"
+        if any(s.get("build_mode") == "full" for s in scopes)
+        else "incremental",
+        "periods_rebuilt": sorted(
+            {period for s in scopes for period in s.get("periods_rebuilt", [])}
+        ),
+        "full_build_reason": reasons[0] if reasons else None,
+    }
+    return replace(later, build_scope=scope)
 
 
 def check_lines_add_up(

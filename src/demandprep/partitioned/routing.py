@@ -27,21 +27,25 @@ Placement = dict[str, dict]
 def hinted_partitions(
     con: duckdb.DuckDBPyConnection, config: ProjectConfig, paths: list[str], names: list[str]
 ) -> dict[str, list[str]]:
-    """Per file, the partitions (by name, among `names`) whose stores and days a scan finds.
+    """Per file, the partitions (by name, among `names`) whose stores and days a scan finds."""
+    return partitions_of(config, scanned_keys(con, config, paths), names)
 
-    One scan reads every file; when it fails (a file it cannot read), each file is scanned
-    alone, and a file that still fails is hinted nowhere (the partitions' ingest says why).
+
+def scanned_keys(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig, paths: list[str]
+) -> list[tuple[str, str | None, int]]:
+    """The files' (path, value, range index) rows: one scan for all, halved where one fails.
+
+    A file the scan cannot read (empty, another header) fails the scan of its half; halving
+    finds it in a few scans, and it is hinted nowhere (the partitions' ingest says why).
     """
     try:
-        return partitions_of(config, file_keys_and_ranges(con, config, paths), names)
+        return file_keys_and_ranges(con, config, paths)
     except duckdb.Error:
-        found: dict[str, list[str]] = {}
-        for path in paths:
-            try:
-                found |= partitions_of(config, file_keys_and_ranges(con, config, [path]), names)
-            except duckdb.Error:
-                continue
-        return found
+        if len(paths) == 1:
+            return []
+        half = len(paths) // 2
+        return scanned_keys(con, config, paths[:half]) + scanned_keys(con, config, paths[half:])
 
 
 def partitions_of(
@@ -67,12 +71,12 @@ def file_keys_and_ranges(
     sold_at = quote_identifier(receipts.columns["sold_at"])
     column = quote_identifier(config.partitioning.by)
     if receipts.format == "parquet":
-        source = "read_parquet($paths, filename = true, union_by_name = true)"
+        source = "read_parquet($paths, filename = true)"
         parameters: dict = {}
     else:
         source = (
             "read_csv($paths, delim = $delimiter, header = $header, all_varchar = true, "
-            "ignore_errors = true, null_padding = true, filename = true, union_by_name = true)"
+            "ignore_errors = true, filename = true)"
         )
         parameters = {"delimiter": receipts.delimiter, "header": receipts.header}
     return con.execute(

@@ -1,7 +1,9 @@
 """The partitioned build as a Prefect flow: one task per partition on a Dask cluster.
 
-The coordinator (this flow's process) ingests into the configured warehouse, submits each
-partition's map step (`partitioned/map.py`) to the Dask task runner, waits for every one, then
+The coordinator (this flow's process) ingests the reference files into the configured
+warehouse, routes the receipts files, submits each partition's map step (`partitioned/map.py`:
+its ingest and summaries) to the Dask task runner, waits for every one (a second round when a
+file's lines turned up in a partition that did not read it), then ledgers the receipts files,
 reduces and publishes in its own thread. A partition task that fails is retried
 (`partitioning.partition_retries`); a worker that dies mid-partition has its task rerun by Dask
 on another worker. Rerunning a partition is safe: its ingest and its summaries are atomic and

@@ -6,6 +6,7 @@ import atexit
 import os
 import shutil
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 
 # Prefect reads its settings at import: give the session its own home, no telemetry, no network.
@@ -28,6 +29,7 @@ from demo_worlds import (  # noqa: E402
 )
 
 REPO = Path(__file__).resolve().parents[1]
+HARNESS_START_TIMEOUT_SECONDS = 180
 TEMPLATES = REPO / "src" / "demandprep" / "templates"
 COFFEE_SAMPLE = REPO / "data_samples" / "coffee_sample"
 
@@ -36,6 +38,15 @@ COFFEE_SAMPLE = REPO / "data_samples" / "coffee_sample"
 def repo_root() -> Path:
     """The repository's root folder."""
     return REPO
+
+
+@pytest.fixture(scope="session")
+def prefect_server() -> Iterator[None]:
+    """One Prefect test server for every flow run of the session (it takes ~20 s to start)."""
+    from prefect.testing.utilities import prefect_test_harness
+
+    with prefect_test_harness(server_startup_timeout=HARNESS_START_TIMEOUT_SECONDS):
+        yield
 
 
 # ---------- demo worlds: generated once per session; copy one before writing into it ----------
@@ -102,6 +113,20 @@ def one_line_report(monkeypatch: pytest.MonkeyPatch) -> None:
 def coffee_sample() -> Path:
     """The committed sample folder (data_samples/coffee_sample); copy it before running on it."""
     return COFFEE_SAMPLE
+
+
+@pytest.fixture(scope="session")
+def single_process_build(coffee_sample: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """The sample built once by the one-process runner: the partitioned tests' reference."""
+    from demandprep.config import load_config
+    from demandprep.pipeline import run_build, run_ingest
+
+    folder = tmp_path_factory.mktemp("single") / "sample"
+    shutil.copytree(coffee_sample, folder, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    config = load_config(folder / "demandprep.toml")
+    run_ingest(config)
+    build, _ = run_build(config)
+    return build
 
 
 @pytest.fixture(scope="session")

@@ -1,4 +1,4 @@
-"""The nightly flow run under Prefect's test harness (one local test server for the module).
+"""The nightly flow run under Prefect's test harness (one local test server for the session).
 
 A first night over the committed sample's first two weeks runs once; each test restores that
 state into the same folder (the ledger holds absolute paths) and plays the next night, usually
@@ -11,7 +11,6 @@ from __future__ import annotations
 import gzip
 import hashlib
 import shutil
-from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -33,16 +32,10 @@ SAMPLE = REPO / "data_samples" / "coffee_sample"
 # two weeks keep each night short; the sample's later days are left out
 FIRST_NIGHT_UNTIL = "2024-01-14"
 NEXT_DAY = Path("receipts/2024/receipts_2024-01-15.csv.gz")
-HARNESS_START_TIMEOUT_SECONDS = 180
 
 
-@pytest.fixture(scope="module", autouse=True)
-def prefect_server() -> Iterator[None]:
-    """One Prefect test server for every flow run of this module (it takes ~20 s to start)."""
-    from prefect.testing.utilities import prefect_test_harness
-
-    with prefect_test_harness(server_startup_timeout=HARNESS_START_TIMEOUT_SECONDS):
-        yield
+# one Prefect test server for the session (conftest), started by the first module that needs it
+pytestmark = pytest.mark.usefixtures("prefect_server")
 
 
 @dataclass(frozen=True)

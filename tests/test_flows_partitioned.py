@@ -18,39 +18,24 @@ from test_partitioned_build import PARTITIONING, assert_same_tables, sample_copy
 
 from demandprep.export.folder import latest_build
 from demandprep.flows.partitioned import partitioned_night, run_partitioned
-from demandprep.pipeline import run_build, run_ingest
 
-pytestmark = pytest.mark.slow
-
-HARNESS_START_TIMEOUT_SECONDS = 180
 WAIT_SECONDS = 600
 
 
-@pytest.fixture(scope="module", autouse=True)
-def prefect_server() -> Iterator[None]:
-    """One Prefect test server for the module (it takes ~20 s to start)."""
-    from prefect.testing.utilities import prefect_test_harness
-
-    with prefect_test_harness(server_startup_timeout=HARNESS_START_TIMEOUT_SECONDS):
-        yield
+# one Prefect test server for the session (conftest), started by the first module that needs it
+pytestmark = [pytest.mark.slow, pytest.mark.usefixtures("prefect_server")]
 
 
-@pytest.fixture()
+@pytest.fixture(scope="module")
 def cluster() -> Iterator[LocalCluster]:
-    """Two worker processes of one thread each, as the issue asks."""
+    """Two worker processes of one thread each, as the issue asks, shared by the module.
+
+    The killed worker's nanny starts a new process, so a later test still has two workers.
+    """
     with LocalCluster(
         n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None
     ) as local:
         yield local
-
-
-@pytest.fixture(scope="module")
-def single_process_build(coffee_sample: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """The sample built by the one-process runner (the reference)."""
-    config = sample_copy(coffee_sample, tmp_path_factory.mktemp("single") / "sample")
-    run_ingest(config)
-    folder, _ = run_build(config)
-    return folder
 
 
 def on_cluster(address: str) -> str:

@@ -1,6 +1,9 @@
 """A partitioned build (one warehouse per region, then a reduce) against the one-process build.
 
 The map runs in this process here; tests/test_flows_partitioned.py runs it on a Dask cluster.
+Builds are the slow part, so two module fixtures each run a sequence of nights on one copy
+(chain-wide daily files; files split by region) and record what each night gave; the tests
+assert on those records, each on one behaviour.
 """
 
 from __future__ import annotations
@@ -8,21 +11,24 @@ from __future__ import annotations
 import csv
 import gzip
 import shutil
+from dataclasses import dataclass, field
 from datetime import date
 from pathlib import Path
+from typing import Any
 
 import duckdb
 import polars as pl
 import pytest
 from polars.testing import assert_frame_equal
 
+import demandprep.partitioned.map as partition_map
 from demandprep.config import ProjectConfig, load_config
 from demandprep.errors import UserError
 from demandprep.export.folder import latest_build, published_builds
-from demandprep.partitioned.map import build_partition
-from demandprep.partitioned.plan import plan_partitions
+from demandprep.ingest.withdraw import withdraw_files
+from demandprep.partitioned.map import PartitionSummaries, build_partition
+from demandprep.partitioned.plan import plan_partitions, summary_path
 from demandprep.partitioned.runner import build_partitioned, map_in_process
-from demandprep.pipeline import run_build, run_ingest
 from demandprep.warehouse import open_warehouse
 
 INGEST_RECORDS = ("ledger", "quarantine")
@@ -30,6 +36,7 @@ LAST_DAY = Path("receipts/2024/receipts_2024-02-18.csv.gz")
 PARTITIONING = '\n[partitioning]\nby = "region"\n'
 # two period ranges: the sample's first three weeks, and the four after them
 PERIOD_RANGES = PARTITIONING + 'period_boundaries = ["2024-01-22"]\n'
+KEEP_PARTITION_LINES = partition_map.keep_partition_lines
 
 
 def sample_copy(sample: Path, folder: Path, partitioning: str = "") -> ProjectConfig:
@@ -112,54 +119,312 @@ def assert_same_tables(expected: Path, actual: Path) -> None:
 
 
 @pytest.fixture(scope="module")
-def single_process_build(coffee_sample: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """The sample built by the one-process runner (the reference)."""
-    config = sample_copy(coffee_sample, tmp_path_factory.mktemp("single") / "sample")
-    run_ingest(config)
-    folder, _ = run_build(config)
-    return folder
+def single_process_records(single_process_build: Path) -> tuple[list, list, list]:
+    """The one-process build's receipts ledger, quarantine and reasons (ingest_records)."""
+    return ingest_records(load_config(single_process_build.parents[1] / "demandprep.toml"))
+
+
+@dataclass
+class Nights:
+    """What a sequence of nights on one copy gave: outcomes, errors and facts, by name."""
+
+    config: ProjectConfig
+    outcomes: dict[str, Any] = field(default_factory=dict)
+    errors: dict[str, BaseException] = field(default_factory=dict)
+    facts: dict[str, Any] = field(default_factory=dict)
+
+
+def failing(config: ProjectConfig, error: BaseException):
+    """A map that builds the first partition, then fails (a partition lost after its retries)."""
+
+    def second_partition_fails(partitions):
+        build_partition(config, partitions[0])
+        raise error
+
+    return second_partition_fails
+
+
+def recording(config: ProjectConfig, mapped: list):
+    """The in-process map, recording the labels of the partitions of each round it is given."""
+
+    def recording_map(partitions):
+        mapped.append([item.label for item in partitions])
+        return map_in_process(config)(partitions)
+
+    return recording_map
+
+
+@pytest.fixture(scope="module")
+def daily_nights(
+    coffee_sample: Path, single_process_build: Path, tmp_path_factory: pytest.TempPathFactory
+) -> Nights:
+    """The sample's chain-wide daily files, partitioned by region, over five nights.
+
+    1 `held_back`: the last day's file held back; 2 `one_more_day`: it arrives; 3 `no_new_files`;
+    4 `failed_partition`: forced, the second partition fails; 5 `lost_line`: forced, each
+    partition loses a line of the first day's file.
+    """
+    folder = tmp_path_factory.mktemp("daily")
+    nights = Nights(sample_copy(coffee_sample, folder / "sample", PARTITIONING))
+    config = nights.config
+    last_day = config.config_path.parent / LAST_DAY
+    held_back = folder / last_day.name
+    shutil.move(last_day, held_back)
+    nights.outcomes["held_back"] = build_partitioned(config, map_in_process(config))
+    shutil.move(held_back, last_day)
+    nights.outcomes["one_more_day"] = build_partitioned(config, map_in_process(config))
+    nights.facts["records"] = ingest_records(config)
+    with open_warehouse(config.warehouse) as con:
+        nights.facts["coordinator_lines"] = con.execute(
+            "select count(*) from main.raw_lines"
+        ).fetchone()[0]
+        nights.facts["partitions"] = plan_partitions(con, config)
+
+    def no_partition_may_run(partitions):
+        raise AssertionError("a night without new files mapped partitions")
+
+    nights.outcomes["no_new_files"] = build_partitioned(config, no_partition_may_run)
+    nights.facts["published_before_failure"] = published_builds(config.export.root)
+    try:
+        build_partitioned(config, failing(config, RuntimeError("worker lost")), force=True)
+    except RuntimeError as error:
+        nights.errors["failed_partition"] = error
+    nights.facts["published_after_failure"] = published_builds(config.export.root)
+    nights.facts["latest_after_failure"] = latest_build(config.export.root)
+    nights.facts["staging_after_failure"] = list((config.export.root / ".staging").glob("*"))
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(partition_map, "keep_partition_lines", keep_and_lose_the_first_line)
+        try:
+            build_partitioned(config, map_in_process(config), force=True)
+        except UserError as error:
+            nights.errors["lost_line"] = error
+    nights.facts["latest_after_lost_line"] = latest_build(config.export.root)
+    return nights
+
+
+def keep_and_lose_the_first_line(con, partition) -> None:
+    """The map's own line keeping, then each partition loses its first line of the first day."""
+    KEEP_PARTITION_LINES(con, partition)
+    con.execute(
+        "with first_file as (select file_id from ledger where path like '%2024-01-01.csv.gz'), "
+        "first_line as (select file_id, min(line_no) as line_no from raw_lines "
+        "semi join first_file using (file_id) group by all) "
+        "delete from raw_lines using first_line "
+        "where raw_lines.file_id = first_line.file_id "
+        "and raw_lines.line_no = first_line.line_no"
+    )
 
 
 def test_partitioned_build_gives_the_single_process_tables(
-    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+    single_process_build: Path, daily_nights: Nights
 ) -> None:
-    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
-    outcome = build_partitioned(config, map_in_process(config))
-    assert outcome.folder is not None and latest_build(config.export.root) == outcome.folder
+    outcome = daily_nights.outcomes["one_more_day"]
+    assert outcome.folder is not None
+    assert daily_nights.facts["published_before_failure"][-1] == outcome.folder
     assert_same_tables(single_process_build, outcome.folder)
 
 
-def test_partitions_are_the_regions_and_hold_only_their_stores(
-    coffee_sample: Path, tmp_path: Path
+def test_the_coordinator_reads_no_receipt_line_and_its_ledger_is_the_single_process_one(
+    daily_nights: Nights, single_process_records: tuple[list, list, list]
 ) -> None:
-    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
-    run_ingest(config)
-    with open_warehouse(config.warehouse) as con:
-        partitions = plan_partitions(con, config)
+    assert daily_nights.facts["coordinator_lines"] == 0
+    # the ledger adds up per file, and a bad line of a chain-wide file is counted once
+    assert daily_nights.facts["records"] == single_process_records
+
+
+def test_partitions_are_the_regions_and_hold_only_their_stores(
+    daily_nights: Nights, single_process_build: Path
+) -> None:
+    partitions = daily_nights.facts["partitions"]
+    single = load_config(single_process_build.parents[1] / "demandprep.toml")
+    with open_warehouse(single.warehouse) as con:
         regions = con.execute("select distinct region from stores order by 1").fetchall()
         visits = con.execute("select count(distinct store) from raw_lines").fetchone()[0]
     assert [item.key for item in partitions] == [row[0] for row in regions]
     assert sum(len(item.stores) for item in partitions) == visits
-    summaries = build_partition(config, partitions[0])
-    stores = pl.read_parquet(summaries.files["market_store_visits"])["store"].unique().sort()
+    path = summary_path(daily_nights.config, partitions[0], "market_store_visits")
+    stores = pl.read_parquet(path)["store"].unique().sort()
     assert stores.to_list() == sorted(partitions[0].stores)
 
 
-def test_a_failed_partition_publishes_nothing_and_keeps_latest(
-    coffee_sample: Path, tmp_path: Path
+def test_a_failed_partition_publishes_nothing_and_keeps_latest(daily_nights: Nights) -> None:
+    assert str(daily_nights.errors["failed_partition"]) == "worker lost"
+    assert (
+        daily_nights.facts["latest_after_failure"] == daily_nights.outcomes["one_more_day"].folder
+    )
+    published = daily_nights.facts["published_after_failure"]
+    assert published == daily_nights.facts["published_before_failure"]
+    assert daily_nights.facts["staging_after_failure"] == []
+
+
+def test_a_night_with_one_more_day_recomputes_only_its_week_in_each_partition(
+    daily_nights: Nights,
 ) -> None:
-    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
-    first = build_partitioned(config, map_in_process(config)).folder
+    first = daily_nights.outcomes["held_back"]
+    assert first.ctx.facts["build_scope"]["build_mode"] == "full"
+    scope = daily_nights.outcomes["one_more_day"].ctx.facts["build_scope"]
+    # the day's file holds lines of every region, so every partition recomputes its week
+    assert scope["build_mode"] == "incremental"
+    assert scope["periods_rebuilt"] == ["2024-02-12"]
+    assert scope["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor", "Saltmarsh Coast"]
 
-    def second_partition_fails(partitions):
-        build_partition(config, partitions[0])
-        raise RuntimeError("worker lost")
 
-    with pytest.raises(RuntimeError, match="worker lost"):
-        build_partitioned(config, second_partition_fails, force=True)
-    assert latest_build(config.export.root) == first
-    assert published_builds(config.export.root) == [first]
-    assert not list((config.export.root / ".staging").glob("*"))
+def test_a_night_without_new_files_keeps_latest(daily_nights: Nights) -> None:
+    again = daily_nights.outcomes["no_new_files"]
+    assert again.skipped and again.kept == daily_nights.outcomes["one_more_day"].folder
+
+
+def test_a_line_lost_between_partitions_fails_the_build_before_publishing(
+    daily_nights: Nights, single_process_records: tuple[list, list, list]
+) -> None:
+    config = daily_nights.config
+    first_file = config.config_path.parent / "receipts" / "2024" / "receipts_2024-01-01.csv.gz"
+    relative = str(first_file).replace(str(config.config_path.parent), "")
+    (accepted,) = [row[4] for row in single_process_records[0] if row[0] == relative]
+    # every accepted line of a file that feeds several partitions is in exactly one of them
+    assert daily_nights.errors["lost_line"].one_line() == (
+        f"{first_file}: the coordinator accepted {accepted} lines of this receipts file, but "
+        f"the partitions hold {accepted - 3}. Hint: remove the partitions' folders under "
+        f"{config.partitioning.root} to rebuild them from their files."
+    )
+    assert (
+        daily_nights.facts["latest_after_lost_line"] == daily_nights.outcomes["one_more_day"].folder
+    )
+
+
+@pytest.fixture(scope="module")
+def region_nights(
+    coffee_sample: Path, single_process_build: Path, tmp_path_factory: pytest.TempPathFactory
+) -> Nights:
+    """The sample's files split by region, over five nights.
+
+    1 `held_back`: Lindenmoor's last day held back; 2 `one_more_day`: it arrives; 3 `corrected`:
+    that file corrected, its lines now Harrowfield store S01's; 4 `withdrawn`: the corrected
+    file withdrawn on the coordinator; 5 `rebuilt`: the partitions' folders removed, built again.
+    """
+    folder = tmp_path_factory.mktemp("region")
+    nights = Nights(region_layout(sample_copy(coffee_sample, folder / "sample", PARTITIONING)))
+    config = nights.config
+    last_day = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    held_back = folder / last_day.name
+    shutil.move(last_day, held_back)
+    nights.outcomes["held_back"] = build_partitioned(config, map_in_process(config))
+    shutil.move(held_back, last_day)
+    nights.facts["mapped"] = []
+    nights.outcomes["one_more_day"] = build_partitioned(
+        config, recording(config, nights.facts["mapped"])
+    )
+    nights.facts["ingested"] = partition_receipts_files(config)
+    with open_warehouse(config.warehouse) as con:
+        nights.facts["partitions"] = plan_partitions(con, config)
+    move_lines_to_store(last_day, "S01")
+    nights.outcomes["corrected"] = build_partitioned(config, map_in_process(config))
+    with open_warehouse(config.warehouse) as con:
+        nights.facts["partitions_corrected"] = plan_partitions(con, config)
+    lindenmoor = next(
+        item for item in nights.facts["partitions_corrected"] if item.key == "Lindenmoor"
+    )
+    warehouse = config.partitioning.root / lindenmoor.name / "warehouse.duckdb"
+    con = duckdb.connect(str(warehouse), read_only=True)
+    nights.facts["lindenmoor_last_day_stores"] = con.execute(
+        "select distinct store from raw_lines where sold_at >= '2024-02-18' order by 1"
+    ).fetchall()
+    con.close()
+    with open_warehouse(config.warehouse) as con:
+        withdraw_files(con, config, str(last_day), "recalled by the store")
+    try:
+        build_partitioned(config, map_in_process(config))
+    except UserError as error:
+        nights.errors["withdrawn"] = error
+    shutil.rmtree(config.partitioning.root)
+    nights.outcomes["rebuilt"] = build_partitioned(config, map_in_process(config))
+    return nights
+
+
+def move_lines_to_store(path: Path, store: str) -> None:
+    """Rewrite a gzip CSV receipts file with every line's store replaced (a corrected file)."""
+    header, *lines = gzip.decompress(path.read_bytes()).decode().split("\n")
+    store_at = header.split(",").index("shop_id")
+    moved = [line.split(",") for line in filter(None, lines)]
+    for fields in moved:
+        fields[store_at] = store if len(fields) > store_at else fields[store_at]
+    text = "\n".join([header, *(",".join(fields) for fields in moved), ""])
+    path.write_bytes(gzip.compress(text.encode()))
+
+
+def test_per_region_files_feed_only_their_partition_and_give_the_same_tables(
+    single_process_build: Path, region_nights: Nights
+) -> None:
+    partitions = region_nights.facts["partitions"]
+    ingested = region_nights.facts["ingested"]
+    assert sorted(ingested) == sorted(item.name for item in partitions)
+    receipts = region_nights.config.config_path.parent / "receipts"
+    for item in partitions:
+        # a partition reads its region's 49 daily files and no other region's (nor unplaced)
+        assert ingested[item.name] == [
+            str(path) for path in sorted((receipts / region_folder(item.key)).glob("*.csv.gz"))
+        ]
+    assert_same_tables(single_process_build, region_nights.outcomes["one_more_day"].folder)
+
+
+def test_a_new_file_of_one_region_maps_only_that_regions_partition(region_nights: Nights) -> None:
+    assert region_nights.facts["mapped"] == [["Lindenmoor"]]
+    scope = region_nights.outcomes["one_more_day"].ctx.facts["build_scope"]
+    assert (scope["build_mode"], scope["periods_rebuilt"]) == ("incremental", ["2024-02-12"])
+    assert scope["partitions_rebuilt"] == ["Lindenmoor"]
+
+
+def test_a_corrected_file_leaving_a_partition_takes_its_old_lines_out_of_it(
+    region_nights: Nights,
+) -> None:
+    scope = region_nights.outcomes["corrected"].ctx.facts["build_scope"]
+    assert scope["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor"]
+    # the corrected version replaced the old one there, and its lines are not Lindenmoor's
+    assert region_nights.facts["lindenmoor_last_day_stores"] == []
+    corrected = region_nights.config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    lindenmoor = next(
+        item for item in region_nights.facts["partitions_corrected"] if item.key == "Lindenmoor"
+    )
+    assert str(corrected) in lindenmoor.files
+
+
+def test_a_file_withdrawn_on_the_coordinator_stops_the_next_build_until_partitions_rebuild(
+    region_nights: Nights,
+) -> None:
+    withdrawn = region_nights.config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+    assert (
+        region_nights.errors["withdrawn"]
+        .one_line()
+        .startswith(
+            f"{withdrawn}: the coordinator accepted 0 lines of this receipts file, but the "
+            "partitions hold "
+        )
+    )
+    rebuilt = region_nights.outcomes["rebuilt"]
+    assert rebuilt.folder is not None
+    assert latest_build(region_nights.config.export.root) == rebuilt.folder
+
+
+def test_period_ranges_split_each_region_and_give_the_same_tables(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PERIOD_RANGES)
+    outcome = build_partitioned(config, map_in_process(config))
+    with open_warehouse(config.warehouse) as con:
+        partitions = plan_partitions(con, config)
+    boundary = date(2024, 1, 22)
+    assert [(item.key, item.first_day, item.after_last_day) for item in partitions] == [
+        (region, first, after)
+        for region in ("Harrowfield", "Lindenmoor", "Saltmarsh Coast")
+        for first, after in ((None, boundary), (boundary, None))
+    ]
+    ingested = partition_receipts_files(config)
+    for item in partitions:
+        # the daily files are named by their day: a partition reads only its range's days
+        days = {date.fromisoformat(path[-17:-7]) for path in ingested[item.name]}
+        in_range = {day for day in days if (day < boundary) == (item.after_last_day == boundary)}
+        assert days == in_range and len(days) == (21 if item.first_day is None else 28)
+    assert_same_tables(single_process_build, outcome.folder)
 
 
 def test_partitioning_by_a_column_stores_lack_is_one_line(
@@ -173,36 +438,6 @@ def test_partitioning_by_a_column_stores_lack_is_one_line(
         "stores column. Hint: use one of: store, region, chain, population."
     )
     assert latest_build(config.export.root) is None
-
-
-def test_a_night_with_one_more_day_recomputes_only_its_week_in_each_partition(
-    single_process_build: Path, coffee_sample: Path, tmp_path: Path
-) -> None:
-    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
-    last_day = config.config_path.parent / LAST_DAY
-    held_back = tmp_path / last_day.name
-    shutil.move(last_day, held_back)
-    first = build_partitioned(config, map_in_process(config))
-    assert first.ctx.facts["build_scope"]["build_mode"] == "full"
-    shutil.move(held_back, last_day)
-    second = build_partitioned(config, map_in_process(config))
-    scope = second.ctx.facts["build_scope"]
-    # the day's file holds lines of every region, so every partition recomputes its week
-    assert scope["build_mode"] == "incremental"
-    assert scope["periods_rebuilt"] == ["2024-02-12"]
-    assert scope["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor", "Saltmarsh Coast"]
-    assert_same_tables(single_process_build, second.folder)
-
-
-def test_a_night_without_new_files_keeps_latest(coffee_sample: Path, tmp_path: Path) -> None:
-    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
-    first = build_partitioned(config, map_in_process(config))
-
-    def no_partition_may_run(partitions):
-        raise AssertionError("a night without new files mapped partitions")
-
-    again = build_partitioned(config, no_partition_may_run)
-    assert again.skipped and again.kept == first.folder
 
 
 def test_the_partitioned_command_without_a_partition_key_is_one_line(
@@ -247,99 +482,6 @@ def test_receipt_ids_unique_in_the_chain_refuse_partitioning(
     assert not config.warehouse.path.exists() and not config.partitioning.root.exists()
 
 
-def test_per_region_files_feed_only_their_partition_and_give_the_same_tables(
-    single_process_build: Path, coffee_sample: Path, tmp_path: Path
-) -> None:
-    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
-    outcome = build_partitioned(config, map_in_process(config))
-    with open_warehouse(config.warehouse) as con:
-        partitions = plan_partitions(con, config)
-    ingested = partition_receipts_files(config)
-    assert sorted(ingested) == sorted(item.name for item in partitions)
-    receipts = config.config_path.parent / "receipts"
-    for item in partitions:
-        # a partition reads its region's 49 daily files and no other region's (nor unplaced)
-        assert ingested[item.name] == [
-            str(path) for path in sorted((receipts / region_folder(item.key)).glob("*.csv.gz"))
-        ]
-    assert_same_tables(single_process_build, outcome.folder)
-
-
-def test_a_new_file_of_one_region_maps_only_that_regions_partition(
-    single_process_build: Path, coffee_sample: Path, tmp_path: Path
-) -> None:
-    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
-    last_day = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
-    held_back = tmp_path / last_day.name
-    shutil.move(last_day, held_back)
-    build_partitioned(config, map_in_process(config))
-    shutil.move(held_back, last_day)
-    mapped = []
-
-    def recording_map(partitions):
-        mapped.extend(item.label for item in partitions)
-        return map_in_process(config)(partitions)
-
-    second = build_partitioned(config, recording_map)
-    assert mapped == ["Lindenmoor"]
-    scope = second.ctx.facts["build_scope"]
-    assert (scope["build_mode"], scope["periods_rebuilt"]) == ("incremental", ["2024-02-12"])
-    assert scope["partitions_rebuilt"] == ["Lindenmoor"]
-    assert_same_tables(single_process_build, second.folder)
-
-
-def test_a_corrected_file_leaving_a_partition_takes_its_old_lines_out_of_it(
-    coffee_sample: Path, tmp_path: Path
-) -> None:
-    config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
-    corrected = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
-    build_partitioned(config, map_in_process(config))
-    # the Lindenmoor file is corrected: its lines were Harrowfield's store S01's
-    header, *lines = gzip.decompress(corrected.read_bytes()).decode().split("\n")
-    store_at = header.split(",").index("shop_id")
-    moved = [line.split(",") for line in filter(None, lines)]
-    for fields in moved:
-        fields[store_at] = "S01" if len(fields) > store_at else fields[store_at]
-    text = "\n".join([header, *(",".join(fields) for fields in moved), ""])
-    corrected.write_bytes(gzip.compress(text.encode()))
-    second = build_partitioned(config, map_in_process(config))
-    assert second.ctx.facts["build_scope"]["partitions_rebuilt"] == ["Harrowfield", "Lindenmoor"]
-    with open_warehouse(config.warehouse) as con:
-        partitions = {item.label: item for item in plan_partitions(con, config)}
-    lindenmoor = partitions["Lindenmoor"]
-    warehouse = config.partitioning.root / lindenmoor.name / "warehouse.duckdb"
-    con = duckdb.connect(str(warehouse), read_only=True)
-    stores = con.execute(
-        "select distinct store from raw_lines where sold_at >= '2024-02-18' order by 1"
-    ).fetchall()
-    con.close()
-    # the corrected version replaced the old one there, and its lines are not Lindenmoor's
-    assert stores == []
-    assert str(corrected) in lindenmoor.files
-
-
-def test_period_ranges_split_each_region_and_give_the_same_tables(
-    single_process_build: Path, coffee_sample: Path, tmp_path: Path
-) -> None:
-    config = sample_copy(coffee_sample, tmp_path / "sample", PERIOD_RANGES)
-    outcome = build_partitioned(config, map_in_process(config))
-    with open_warehouse(config.warehouse) as con:
-        partitions = plan_partitions(con, config)
-    boundary = date(2024, 1, 22)
-    assert [(item.key, item.first_day, item.after_last_day) for item in partitions] == [
-        (region, first, after)
-        for region in ("Harrowfield", "Lindenmoor", "Saltmarsh Coast")
-        for first, after in ((None, boundary), (boundary, None))
-    ]
-    ingested = partition_receipts_files(config)
-    for item in partitions:
-        # the daily files are named by their day: a partition reads only its range's days
-        days = {date.fromisoformat(path[-17:-7]) for path in ingested[item.name]}
-        in_range = {day for day in days if (day < boundary) == (item.after_last_day == boundary)}
-        assert days == in_range and len(days) == (21 if item.first_day is None else 28)
-    assert_same_tables(single_process_build, outcome.folder)
-
-
 def test_a_period_boundary_inside_a_week_is_one_line(coffee_sample: Path, tmp_path: Path) -> None:
     ranges = PARTITIONING + 'period_boundaries = ["2024-01-24"]\n'
     config = sample_copy(coffee_sample, tmp_path / "sample", ranges)
@@ -376,59 +518,87 @@ def test_period_ranges_need_receipt_ids_unique_per_store_day(
     assert not config.warehouse.path.exists()
 
 
-def test_a_line_lost_between_partitions_fails_the_build_before_publishing(
-    coffee_sample: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
-) -> None:
-    import demandprep.partitioned.map as partition_map
-
-    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
-    keep = partition_map.keep_partition_lines
-
-    def keep_and_lose_the_first_line(con, partition):
-        # each partition loses its first line of the first day's file
-        keep(con, partition)
-        con.execute(
-            "with first_file as (select file_id from ledger where path like '%2024-01-01.csv.gz'), "
-            "first_line as (select file_id, min(line_no) as line_no from raw_lines "
-            "semi join first_file using (file_id) group by all) "
-            "delete from raw_lines using first_line "
-            "where raw_lines.file_id = first_line.file_id "
-            "and raw_lines.line_no = first_line.line_no"
-        )
-
-    monkeypatch.setattr(partition_map, "keep_partition_lines", keep_and_lose_the_first_line)
-    with pytest.raises(UserError) as raised:
-        build_partitioned(config, map_in_process(config))
-    first_file = config.config_path.parent / "receipts" / "2024" / "receipts_2024-01-01.csv.gz"
+def ingest_records(config: ProjectConfig) -> tuple[list, list, list]:
+    """The warehouse's receipts ledger, quarantine counts and reasons, by path under the copy."""
+    folder = str(config.config_path.parent)
     with open_warehouse(config.warehouse) as con:
-        accepted = con.execute(
-            "select rows_accepted from ledger where path = $path", {"path": str(first_file)}
-        ).fetchone()[0]
-    # every accepted line of a file that feeds several partitions is in exactly one of them
-    assert raised.value.one_line() == (
-        f"{first_file}: the coordinator accepted {accepted} lines of this receipts file, but "
-        f"the partitions hold {accepted - 3}. Hint: remove the partitions' folders under "
-        f"{config.partitioning.root} to rebuild them from their files."
-    )
-    assert latest_build(config.export.root) is None
+        ledger = con.execute(
+            "select replace(path, $folder, ''), version, status, rows_read, rows_accepted, "
+            "rows_quarantined, first_sold_at, last_sold_at, bytes, sha256 from ledger "
+            "where source = 'receipts' order by all",
+            {"folder": folder},
+        ).fetchall()
+        quarantine = con.execute(
+            "select replace(path, $folder, ''), line_no, reason, detail, original_text "
+            "from quarantine where source = 'receipts' order by all",
+            {"folder": folder},
+        ).fetchall()
+        reasons = con.execute(
+            "select replace(path, $folder, ''), ledger_reasons.reason, rows from ledger_reasons "
+            "join ledger using (file_id) where source = 'receipts' order by all",
+            {"folder": folder},
+        ).fetchall()
+    return ledger, quarantine, reasons
 
 
-def test_a_file_withdrawn_on_the_coordinator_stops_the_next_build_until_partitions_rebuild(
-    coffee_sample: Path, tmp_path: Path
+def test_a_file_the_hint_routes_wrongly_still_reaches_its_partitions(
+    single_process_build: Path, coffee_sample: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    from demandprep.ingest.withdraw import withdraw_files
+    import demandprep.partitioned.routing as routing
 
     config = region_layout(sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING))
-    build_partitioned(config, map_in_process(config))
-    withdrawn = config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
+
+    # the hint sends every new file to Harrowfield alone: the others learn of theirs in round two
+    def first_partition_only(con, config, paths, names):
+        return dict.fromkeys(paths, names[:1])
+
+    monkeypatch.setattr(routing, "hinted_partitions", first_partition_only)
+    rounds = []
+
+    def recording_map(partitions):
+        rounds.append([item.label for item in partitions])
+        return map_in_process(config)(partitions)
+
+    outcome = build_partitioned(config, recording_map)
+    assert rounds == [["Harrowfield"], ["Lindenmoor", "Saltmarsh Coast"]]
+    assert_same_tables(single_process_build, outcome.folder)
+    ingested = partition_receipts_files(config)
     with open_warehouse(config.warehouse) as con:
-        withdraw_files(con, config, str(withdrawn), "recalled by the store")
-    with pytest.raises(UserError) as raised:
-        build_partitioned(config, map_in_process(config))
-    assert raised.value.one_line().startswith(
-        f"{withdrawn}: the coordinator accepted 0 lines of this receipts file, but the "
-        "partitions hold "
+        partitions = plan_partitions(con, config)
+    receipts = config.config_path.parent / "receipts"
+    for item in partitions:
+        own = [str(path) for path in sorted((receipts / region_folder(item.key)).glob("*.csv.gz"))]
+        # Harrowfield read every file in round one; the others only their region's
+        assert set(own) <= set(ingested[item.name])
+        assert item.key == "Harrowfield" or ingested[item.name] == own
+    ledger = ingest_records(config)[0]
+    single = ingest_records(load_config(single_process_build.parents[1] / "demandprep.toml"))[0]
+    # the files differ (split by region), the lines do not: every line counted once
+    assert all(row[3] == row[4] + row[5] for row in ledger)
+    assert [sum(row[n] for row in ledger) for n in (3, 4, 5)] == [
+        sum(row[n] for row in single) for n in (3, 4, 5)
+    ]
+
+
+def test_a_partition_mapped_in_both_rounds_reports_what_both_rebuilt() -> None:
+    from demandprep.partitioned.plan import Partition
+    from demandprep.partitioned.runner import mapped_twice
+
+    partition = Partition("Lindenmoor", ("S05",))
+    first = PartitionSummaries(
+        partition,
+        {},
+        {},
+        {"build_mode": "full", "periods_rebuilt": ["2024-01-01"], "full_build_reason": "new"},
     )
-    shutil.rmtree(config.partitioning.root)
-    rebuilt = build_partitioned(config, map_in_process(config))
-    assert rebuilt.folder is not None and latest_build(config.export.root) == rebuilt.folder
+    second = PartitionSummaries(
+        partition,
+        {},
+        {},
+        {"build_mode": "incremental", "periods_rebuilt": ["2024-02-12"], "full_build_reason": None},
+    )
+    assert mapped_twice(first, second).build_scope == {
+        "build_mode": "full",
+        "periods_rebuilt": ["2024-01-01", "2024-02-12"],
+        "full_build_reason": "new",
+    }

@@ -6,13 +6,18 @@ Design choices, written down once (docs/scaling.md has the numbers):
   (`partitioning.period_boundaries`, each a period start); the markets' geography must lie
   within one partition (checked), and receipt ids must be unique per store or store-day (per
   store-day with period ranges) so that a visit never spans partitions;
-- files are routed: each partition ingests, through the ordinary ingest into its own warehouse
-  (`<partitioning.root>/<name>/`), only the receipts files holding lines of its stores and days
-  (and those it read before), then keeps only its own lines; so a partition is exactly the
-  lines of its stores and days, whatever the file layout, and reads a file only if it holds them;
-- the coordinator ingests every file once: the ledger and the quarantine are its own (a line is
-  counted there once), and the reduce checks that each file's accepted lines are in exactly
-  one partition;
+- the coordinator reads no receipt line: it ingests the reference files only, and routes each
+  receipts file (`routing.py`) to the partitions it fed before, those the partitions' reports
+  place its lines in, and, for a version no partition has read, those a scan of its store and
+  sale-time columns names; each partition ingests its routed files through the ordinary ingest
+  into its own warehouse (`<partitioning.root>/<name>/`), reports per file the accepted lines
+  of every partition, then keeps only its own; a file whose lines a report places in a
+  partition that did not read it is routed there in a second round (a wrong hint costs time,
+  never lines);
+- the coordinator's receipts ledger and quarantine are assembled from the partitions'
+  (`receipts_ledger.py`: accepted = the sum of the lines each kept, quarantined = the union by
+  line, so a line is counted once), and the reduce checks that each file's accepted lines are
+  in exactly one partition;
 - the map step (`map.py`) runs the single-process build's own stages up to the two period
   summaries (`050`/`060`), incremental per partition as on one machine, and writes the
   summaries as Parquet beside its warehouse on storage every worker sees;
@@ -21,6 +26,7 @@ Design choices, written down once (docs/scaling.md has the numbers):
 - the reduce (`reduce.py`) runs on the coordinator warehouse (the configured one):
   it loads the partitions' summaries in place of the scans, then runs every later stage
   unchanged (product universe, Hausman means, spreads, sizes, instruments) and the choice build,
-  whose chooser histories cross partitions;
+  whose chooser histories cross partitions: it reads the partitions' lines in place, their
+  warehouses attached read-only behind a temporary `raw_lines` view (`attached.py`);
 - nothing is published unless every partition finished: the export runs after the reduce.
 """

@@ -19,18 +19,21 @@ import pyarrow.parquet as pq
 
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
-from demandprep.ingest.runner import ingest_all
+from demandprep.ingest.runner import ensure_tables, ingest_all
 from demandprep.market.stages import MARKET_STAGES
 from demandprep.memory import memory_shared_with_batches
 from demandprep.partitioned.plan import (
     SUMMARY_FILES,
     Partition,
     partition_config,
+    partition_name,
+    period_ranges,
     read_routing_record,
     routed_config,
     summary_path,
     write_routing_record,
 )
+from demandprep.sqlfiles import quote_identifier
 from demandprep.stage import Stage, run_stage
 from demandprep.warehouse import open_warehouse
 
@@ -49,6 +52,8 @@ class PartitionSummaries:
     build_scope: dict[str, Any] = field(default_factory=dict)
     # the partition's accepted lines per receipts file (path): the reduce checks they add up
     lines: dict[str, int] = field(default_factory=dict)
+    # per receipts file it read: checksum and accepted lines per partition (routing.py)
+    placement: dict[str, dict] = field(default_factory=dict)
 
 
 def map_stages() -> tuple[Stage, ...]:
@@ -61,7 +66,10 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
     """Ingest the partition's files, keep its stores' lines, build and write its summaries."""
     own = partition_config(config, partition)
     with open_warehouse(own.warehouse) as con:
+        ensure_tables(con)
+        last_file_id = last_ingested_file_id(con)
         ingest_all(con, routed_config(own, partition))
+        placement = placement_of_files_since(con, config, last_file_id)
         keep_partition_lines(con, partition)
         lines = lines_per_file(con)
         # the stages see the project's receipts globs, not tonight's routed list: the config's
@@ -71,16 +79,56 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
             run_stage(stage, ctx)
         files = {name: summary_path(config, partition, name) for name in SUMMARY_FILES}
         rows = {name: write_summary(con, name, path) for name, path in files.items()}
-    write_routing_record(config, partition, lines)
-    return PartitionSummaries(partition, files, rows, ctx.facts.get("build_scope", {}), lines)
+    # a file's placement is kept while the partition reads the same version of it
+    recorded = read_routing_record(config, partition).get("placement", {})
+    placement = {path: recorded[path] for path in partition.files if path in recorded} | placement
+    write_routing_record(config, partition, lines, placement)
+    scope = ctx.facts.get("build_scope", {})
+    return PartitionSummaries(partition, files, rows, scope, lines, placement)
 
 
 def kept_summaries(config: ProjectConfig, partition: Partition) -> PartitionSummaries:
     """The summaries of a partition whose inputs did not change, as its last map wrote them."""
     files = {name: summary_path(config, partition, name) for name in SUMMARY_FILES}
     rows = {name: pq.read_metadata(path).num_rows for name, path in files.items()}
-    lines = read_routing_record(config, partition).get("lines", {})
-    return PartitionSummaries(partition, files, rows, lines=lines)
+    record = read_routing_record(config, partition)
+    return PartitionSummaries(
+        partition, files, rows, lines=record.get("lines", {}), placement=record.get("placement", {})
+    )
+
+
+def last_ingested_file_id(con: duckdb.DuckDBPyConnection) -> str:
+    """The highest file id of the ledger ('' when empty): later ids are this run's files."""
+    return con.execute("select coalesce(max(file_id), '') from ledger").fetchone()[0]
+
+
+def placement_of_files_since(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig, last_file_id: str
+) -> dict[str, dict]:
+    """Per receipts file read in this run: its checksum and accepted lines per partition name.
+
+    Counted before the partition deletes other partitions' lines, from the stores file and the
+    period ranges, so the coordinator learns every partition a file feeds (routing.py).
+    """
+    files = con.execute(
+        "select path, sha256 from ledger where source = 'receipts' and file_id > $last",
+        {"last": last_file_id},
+    ).fetchall()
+    placement: dict[str, dict] = {path: {"sha256": sha, "lines": {}} for path, sha in files}
+    ranges = period_ranges(config)
+    # the column was checked against the stores table's real columns by the coordinator
+    column = quote_identifier(config.partitioning.by)
+    rows = con.execute(
+        f"with keyed as (select store, {column}::varchar as key from stores) "  # noqa: S608
+        "select ledger.path, keyed.key, "
+        "len(list_filter($bounds, lambda bound: bound <= raw_lines.sold_at::date)), count(*) "
+        "from raw_lines join ledger using (file_id) join keyed using (store) "
+        "where ledger.file_id > $last and ledger.status = 'current' group by all",
+        {"last": last_file_id, "bounds": sorted(set(config.partitioning.period_boundaries))},
+    ).fetchall()
+    for path, key, index, count in rows:
+        placement[path]["lines"][partition_name(key, *ranges[index])] = count
+    return placement
 
 
 def lines_per_file(con: duckdb.DuckDBPyConnection) -> dict[str, int]:

@@ -2,9 +2,9 @@
 
 Partitions come from the stores reference file (one per value of `partitioning.by`, plus one for
 stores without a value); a line of a store missing from that file is quarantined by the ingest,
-so it belongs to no partition. Each receipts file is routed to the partitions whose stores it
-holds (the coordinator's own lines say which), and to every partition it fed before, so a
-corrected file that no longer holds a partition's stores still replaces its old lines there.
+so it belongs to no partition. Each receipts file is routed (`routing.py`) to the partitions
+whose stores and days it holds, and to every partition it fed before, so a corrected file that
+no longer holds a partition's stores still replaces its old lines there.
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ import glob
 import hashlib
 import json
 import os
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import date, timedelta
 from pathlib import Path
 
@@ -89,25 +89,45 @@ def partition_config(config: ProjectConfig, partition: Partition) -> ProjectConf
     return config.model_copy(update={"warehouse": warehouse})
 
 
-def plan_partitions(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[Partition]:
-    """The partitions that have receipts files, from the stores file, each with its files."""
+def plan_partitions(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    routes: dict[str, set[str]] | None = None,
+    files: dict[str, str] | None = None,
+) -> list[Partition]:
+    """The partitions that have receipts files, each with its files and inputs digest.
+
+    `routes`: partition name to its files (`routing.route_files`), else what each read last
+    time; `files`: the receipts files (path to sha256), else the coordinator's current ones.
+    """
     require_partition_key(config)
     check_partitioning(con, config)
-    current = current_receipts_files(con)
+    files = current_receipts_files(con) if files is None else files
     references = reference_inputs(con)
-    holding = files_by_key_and_range(con, config)
-    partitions = []
-    for key, stores in stores_by_key(con, config):
-        for index, (first, after) in enumerate(period_ranges(config)):
-            partition = Partition(key, tuple(stores), first_day=first, after_last_day=after)
-            routed = set(holding.get((key, index), [])) | set(recorded_files(config, partition))
-            files = tuple(sorted(routed & current.keys()))
-            if files:
-                inputs = inputs_digest(
-                    config, [(path, current[path]) for path in files], references
-                )
-                partitions.append(Partition(key, tuple(stores), files, inputs, first, after))
-    return partitions
+    candidates = candidate_partitions(con, config)
+    if routes is None:
+        routes = {item.name: set(recorded_files(config, item)) for item in candidates}
+    planned = []
+    for item in candidates:
+        routed = tuple(sorted(routes.get(item.name, set()) & files.keys()))
+        if routed:
+            inputs = inputs_digest(config, [(path, files[path]) for path in routed], references)
+            planned.append(replace(item, files=routed, inputs=inputs))
+    return planned
+
+
+def candidate_partitions(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[Partition]:
+    """Every partition the stores file and the period ranges give, files or not, in order."""
+    return [
+        Partition(key, tuple(stores), first_day=first, after_last_day=after)
+        for key, stores in stores_by_key(con, config)
+        for first, after in period_ranges(config)
+    ]
+
+
+def partition_name(key: str | None, first_day: date | None, after_last_day: date | None) -> str:
+    """The folder name of the partition of this value and period range."""
+    return Partition(key, (), first_day=first_day, after_last_day=after_last_day).name
 
 
 def period_ranges(config: ProjectConfig) -> list[tuple[date | None, date | None]]:
@@ -126,23 +146,6 @@ def stores_by_key(
         f"select {column}::varchar as key, list(store order by store) from stores "  # noqa: S608
         "group by all order by 1"
     ).fetchall()
-
-
-def files_by_key_and_range(
-    con: duckdb.DuckDBPyConnection, config: ProjectConfig
-) -> dict[tuple[str | None, int], list[str]]:
-    """The current receipts files holding lines of each (value, period range index)."""
-    column = quote_identifier(config.partitioning.by)
-    rows = con.execute(
-        "with file_days as (select distinct file_id, store, sold_at::date as day from raw_lines), "
-        f"keyed as (select store, {column}::varchar as key from stores) "  # noqa: S608
-        "select keyed.key, len(list_filter($bounds, lambda bound: bound <= file_days.day)), "
-        "list(distinct ledger.path order by ledger.path) from file_days "
-        "join ledger using (file_id) join keyed using (store) "
-        "where ledger.status = 'current' group by all",
-        {"bounds": sorted(set(config.partitioning.period_boundaries))},
-    ).fetchall()
-    return {(key, index): paths for key, index, paths in rows}
 
 
 def current_receipts_files(con: duckdb.DuckDBPyConnection) -> dict[str, str]:
@@ -184,9 +187,9 @@ def read_routing_record(config: ProjectConfig, partition: Partition) -> dict:
 
 
 def write_routing_record(
-    config: ProjectConfig, partition: Partition, lines: dict[str, int]
+    config: ProjectConfig, partition: Partition, lines: dict[str, int], placement: dict[str, dict]
 ) -> None:
-    """Record what a finished partition was built from and its lines per file (atomically)."""
+    """Record what a finished partition was built from, its lines and placements (atomically)."""
     path = partition_folder(config, partition) / ROUTING_RECORD
     temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
     record = {
@@ -194,6 +197,7 @@ def write_routing_record(
         "inputs": partition.inputs,
         "files": partition.files,
         "lines": lines,
+        "placement": placement,
     }
     temporary.write_text(json.dumps(record, indent=1, sort_keys=True), encoding="utf-8")
     os.replace(temporary, path)

@@ -1,6 +1,9 @@
-"""Guard a warehouse table with its pandera model, in batches so large tables stay out of core."""
+"""Guard a warehouse table (or a query's rows) with its pandera model, in batches so large tables
+stay out of core."""
 
 from __future__ import annotations
+
+from typing import Any
 
 import duckdb
 import pandera.errors
@@ -26,19 +29,33 @@ def validate_table(
     """Validate every row of `table` against `model`; returns the row count, raises on failure.
 
     A failure names `shown_as` (the table the rows are bound for), else `table`."""
+    sql = f"select * from {table}"  # noqa: S608 (our table names)
+    return validate_query(con, sql, {}, model, shown_as or table, batch_rows, empty_too=True)
+
+
+def validate_query(
+    con: duckdb.DuckDBPyConnection,
+    sql: str,
+    params: dict[str, Any],
+    model: type[pa.DataFrameModel],
+    table: str,
+    batch_rows: int = BATCH_ROWS,
+    empty_too: bool = False,
+) -> int:
+    """Validate every row `sql` returns against `model`, batch by batch (never a whole table);
+    returns the row count. `empty_too` checks the columns of an empty result as well."""
     rows = 0
-    name = shown_as or table
     with memory_shared_with_batches(con):
-        reader = con.sql(f"select * from {table}").to_arrow_reader(batch_rows)  # noqa: S608
+        reader = con.sql(sql, params=params or None).to_arrow_reader(batch_rows)
         # closed on failure too: an open result would refuse the caller's rollback
         try:
             for batch in reader:
                 frame = pl.from_arrow(batch)
                 assert isinstance(frame, pl.DataFrame)
-                validate_frame(frame, model, name, first_row=rows)
+                validate_frame(frame, model, table, first_row=rows)
                 rows += frame.height
-            if rows == 0:
-                validate_frame(pl.from_arrow(reader.schema.empty_table()), model, name)
+            if rows == 0 and empty_too:
+                validate_frame(pl.from_arrow(reader.schema.empty_table()), model, table)
         finally:
             reader.close()
     return rows

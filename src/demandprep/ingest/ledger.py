@@ -13,9 +13,9 @@ from datetime import datetime
 import duckdb
 
 from demandprep.ingest.files import DiscoveredFile
-from demandprep.ingest.validation import validate_query
 from demandprep.schemas.ingest import Ledger, Quarantine
 from demandprep.sqlfiles import run_sql
+from demandprep.validate import validate_query
 
 
 class LedgerMismatchError(RuntimeError):

@@ -18,9 +18,9 @@ from demandprep.ingest import receipts as receipt_rules
 from demandprep.ingest import references as refs
 from demandprep.ingest.reader import FileRefused, SourceColumn, file_columns
 from demandprep.ingest.timings import PhaseTimer
-from demandprep.ingest.validation import validate_query
 from demandprep.schemas.ingest import REFERENCE_MODELS
 from demandprep.sqlfiles import quote_identifier
+from demandprep.validate import validate_query
 
 
 class Loader(Protocol):

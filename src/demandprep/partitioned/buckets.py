@@ -14,10 +14,10 @@ warehouses read-only and runs the choice stages unchanged (`CHOICE_STAGES`, the 
   (`sql/partitioned/020`), so the visits, pseudonyms, histories, sets and the long table are
   the bucket's choosers' alone: a chooser's every visit is in one bucket, so each is exact.
 
-It writes `choices` and `choosers` as Parquet (choices as stored: in (occasion, alternative)
-order), and the store-days it built sets for, which the coordinator needs for the build's
-facts (a store-day's set serves the occasions of several buckets). Nothing it writes holds a
-card: the pseudonym key reaches it through the worker's environment, never as a task argument.
+It writes `choices` and `choosers` as Parquet, and the store-days it built sets for, which the
+coordinator needs for the build's facts (a store-day's set serves the occasions of several
+buckets). Nothing it writes holds a card: the pseudonym key reaches it through the worker's
+environment, never as a task argument.
 """
 
 from __future__ import annotations
@@ -47,7 +47,8 @@ FIRST_BUCKET_STAGE = "choice_occasions"
 STORE_DAYS_STAGE = "choice_sets"
 # what a bucket writes, and the query that writes each (table names are ours)
 BUCKET_FILES = {
-    "choices": "from choices",  # stored in (occasion, alternative) order by the stages
+    # unsorted: the coordinator sorts the union of the buckets' rows once
+    "choices": "from choices",
     "choosers": "from choosers order by chooser",
     "choice_store_days": (
         "select store, day, snapshot_date is not null as shelf_set from choice_store_days "

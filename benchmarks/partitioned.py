@@ -20,7 +20,9 @@ no region into `receipts/unplaced/`), so each partition reads only its region's 
 It prints wall time and CPU time (this process plus the workers, each worker's own count read
 before the cluster closes), and what the reduce exchanged: raw receipt lines against the rows and
 bytes of the partitions' summary files (with the map rounds and the receipts bytes the
-partitions read). No assertion: this is a measurement.
+partitions read), and what the chooser buckets exchanged: the inputs file the coordinator
+writes for them, and the rows and bytes of their choices, choosers and store-day files.
+No assertion: this is a measurement.
 """
 
 from __future__ import annotations
@@ -95,6 +97,8 @@ def run_partitioned(config, workers: int) -> dict:
     """The partitioned build on a local cluster of `workers` processes; times and sizes."""
     from distributed import Client, LocalCluster
 
+    from demandprep.partitioned.buckets import build_bucket
+    from demandprep.partitioned.choice_inputs import choice_inputs_path
     from demandprep.partitioned.map import build_partition
     from demandprep.partitioned.runner import build_partitioned
     from demandprep.warehouse import connect
@@ -130,8 +134,23 @@ def run_partitioned(config, workers: int) -> dict:
                 }
             return summaries
 
+        def map_buckets_with_client(buckets, warehouses):
+            futures = [
+                client.submit(build_bucket, config, item, warehouses, pure=False)
+                for item in buckets
+            ]
+            outputs = client.gather(futures)
+            exchanged["chooser_buckets"] = len(outputs)
+            exchanged["bucket_inputs_bytes"] = choice_inputs_path(config).stat().st_size
+            for name in ("choices", "choosers", "choice_store_days"):
+                exchanged[f"bucket_{name}"] = {
+                    "rows": sum(item.rows[name] for item in outputs),
+                    "bytes": sum(item.files[name].stat().st_size for item in outputs),
+                }
+            return outputs
+
         started, cpu = time.perf_counter(), cpu_seconds()
-        build_partitioned(config, map_with_client)
+        build_partitioned(config, map_with_client, map_buckets=map_buckets_with_client)
         wall, own_cpu = time.perf_counter() - started, cpu_seconds() - cpu
         worker_cpu = sum(client.run(cpu_seconds).values()) - worker_cpu_before
     con = connect(config.warehouse, read_only=True)

@@ -1,13 +1,15 @@
-"""The partitioned build as a Prefect flow: one task per partition on a Dask cluster.
+"""The partitioned build as a Prefect flow: one task per partition, then per chooser bucket.
 
 The coordinator (this flow's process) ingests the reference files into the configured
 warehouse, routes the receipts files, submits each partition's map step (`partitioned/map.py`:
 its ingest and summaries) to the Dask task runner, waits for every one (a second round when a
-file's lines turned up in a partition that did not read it), then ledgers the receipts files,
-reduces and publishes in its own thread. A partition task that fails is retried
-(`partitioning.partition_retries`); a worker that dies mid-partition has its task rerun by Dask
+file's lines turned up in a partition that did not read it), then ledgers the receipts files
+and reduces the market build in its own thread; then it submits one task per chooser bucket
+(`partitioned/buckets.py`: the choice stages for the bucket's choosers), waits for every one,
+loads their tables and publishes. A task that fails is retried
+(`partitioning.partition_retries`); a worker that dies mid-task has its task rerun by Dask
 on another worker. Rerunning a partition is safe: its ingest and its summaries are atomic and
-incremental, so a rerun finishes what the lost one began.
+incremental, so a rerun finishes what the lost one began; a bucket rebuilds its tables whole.
 """
 
 from __future__ import annotations
@@ -21,6 +23,7 @@ from prefect.futures import wait
 
 from demandprep.config import ProjectConfig, load_config
 from demandprep.flows.nightly import NO_RESULTS
+from demandprep.partitioned.buckets import BucketOutputs, ChooserBucket, build_bucket
 from demandprep.partitioned.map import PartitionSummaries, build_partition
 from demandprep.partitioned.plan import Partition
 from demandprep.partitioned.runner import build_partitioned
@@ -71,11 +74,47 @@ def map_on_cluster(config: ProjectConfig):
     return run
 
 
+@task(name="build chooser bucket", **NO_RESULTS)
+def bucket_task(config_path: str, index: int, count: int, warehouses: list[str]) -> BucketOutputs:
+    """The choice stages of one chooser bucket, in its own warehouse on a worker.
+
+    Plain values again (see partition_task). The pseudonym key is read from the worker's
+    environment, never passed: task arguments are recorded by Prefect.
+    """
+    return build_bucket(load_config(config_path), ChooserBucket(index, count), warehouses)
+
+
+def map_buckets_on_cluster(config: ProjectConfig):
+    """The chooser buckets as Prefect tasks on the flow's task runner; returns when all finished."""
+
+    def run(buckets: list[ChooserBucket], warehouses: list[str]) -> list[BucketOutputs]:
+        futures = [
+            bucket_task.with_options(
+                task_run_name=f"chooser bucket {item.label}",
+                retries=config.partitioning.partition_retries,
+            ).submit(str(config.config_path), item.index, item.count, warehouses)
+            for item in buckets
+        ]
+        wait(futures)  # every bucket ends before the first failure is raised
+        outputs = [future.result() for future in futures]
+        logger = get_run_logger()
+        for item in outputs:
+            logger.info(
+                f"chooser bucket {item.bucket.label}: {item.rows['choosers']} choosers, "
+                f"{item.rows['choices']} choice rows, built by process {item.process}"
+            )
+        return outputs
+
+    return run
+
+
 @flow(name="demandprep-partitioned", description="Build partition by partition on Dask.")
 def partitioned_flow(config_path: str, force_rebuild: bool = False) -> dict[str, Any]:
     """Ingest, build every partition on the cluster, reduce and publish; or keep `latest`."""
     config = load_config(config_path)
-    outcome = build_partitioned(config, map_on_cluster(config), force_rebuild)
+    outcome = build_partitioned(
+        config, map_on_cluster(config), force_rebuild, map_buckets_on_cluster(config)
+    )
     if outcome.skipped:
         message = f"nothing new since the latest build {outcome.kept}"
         get_run_logger().info(message)

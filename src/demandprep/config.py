@@ -679,6 +679,14 @@ class PartitioningSection(Section):
         ge=0,
         le=10,
     )
+    chooser_buckets: int | None = described(
+        "Chooser buckets of the choice build. Each is one task on the cluster that builds the "
+        "choices of the choosers whose pseudonym falls in it; unset: one per partition.",
+        unit="buckets",
+        default=None,
+        ge=1,
+        le=256,
+    )
 
     @field_validator("root", mode="after")
     @classmethod

@@ -194,6 +194,7 @@ STARTER_VALUES: dict[str, Any] = {
     "partitioning": {
         "by": Commented("region"),
         "cluster_address": Commented("tcp://10.0.0.5:8786"),
+        "chooser_buckets": Commented(8),
     },
 }
 STARTER_HEAD = """\

@@ -25,8 +25,12 @@ Design choices, written down once (docs/scaling.md has the numbers):
   since its last map is not mapped again: its summary files are reused;
 - the reduce (`reduce.py`) runs on the coordinator warehouse (the configured one):
   it loads the partitions' summaries in place of the scans, then runs every later stage
-  unchanged (product universe, Hausman means, spreads, sizes, instruments) and the choice build,
-  whose chooser histories cross partitions: it reads the partitions' lines in place, their
-  warehouses attached read-only behind a temporary `raw_lines` view (`attached.py`);
-- nothing is published unless every partition finished: the export runs after the reduce.
+  unchanged (product universe, Hausman means, spreads, sizes, instruments);
+- the choice build, whose chooser histories cross partitions, is a second map by chooser
+  bucket (`choice_reduce.py`, `buckets.py`): each bucket task runs the choice stages unchanged
+  in its own warehouse, reading the partitions' lines in place (attached read-only behind a
+  temporary `raw_lines` view, `attached.py`) narrowed to its choosers' visits, and the
+  coordinator loads the buckets' tables sorted by key;
+- nothing is published unless every partition and bucket finished: the export runs after the
+  reduce.
 """

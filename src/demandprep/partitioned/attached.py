@@ -24,11 +24,22 @@ def partitions_attached(
     con: duckdb.DuckDBPyConnection, config: ProjectConfig, partitions: list[Partition]
 ) -> Iterator[list[str]]:
     """Attach each partition's warehouse read-only; yields their aliases, detaches after."""
-    aliases = [f"partition_{index}" for index, _ in enumerate(partitions)]
+    with warehouses_attached(con, partition_warehouses(config, partitions)) as aliases:
+        yield aliases
+
+
+def partition_warehouses(config: ProjectConfig, partitions: list[Partition]) -> list[str]:
+    """The paths of the partitions' warehouse files, in the partitions' order."""
+    return [str(partition_config(config, item).warehouse.path) for item in partitions]
+
+
+@contextmanager
+def warehouses_attached(con: duckdb.DuckDBPyConnection, paths: list[str]) -> Iterator[list[str]]:
+    """Attach each warehouse file read-only as partition_<n>; yields the aliases, detaches after."""
+    aliases = [f"partition_{index}" for index, _ in enumerate(paths)]
     attached = []
     try:
-        for alias, item in zip(aliases, partitions, strict=True):
-            path = str(partition_config(config, item).warehouse.path)
+        for alias, path in zip(aliases, paths, strict=True):
             # the alias is ours (a counter); the path is bound
             con.execute(f"attach $path as {alias} (read_only)", {"path": path})
             attached.append(alias)
@@ -55,10 +66,13 @@ PARTITION_LINES = (
 
 
 @contextmanager
-def partition_lines_view(con: duckdb.DuckDBPyConnection, aliases: list[str]) -> Iterator[None]:
-    """`raw_lines` on this connection reads the partitions' lines while the block runs."""
-    con.execute(f"create or replace temp view raw_lines as {union_of(aliases, PARTITION_LINES)}")
+def partition_lines_view(
+    con: duckdb.DuckDBPyConnection, aliases: list[str], view: str = "raw_lines"
+) -> Iterator[None]:
+    """`view` (raw_lines) on this connection reads the partitions' lines while the block runs."""
+    # the view's name is a constant of this package, never config text
+    con.execute(f"create or replace temp view {view} as {union_of(aliases, PARTITION_LINES)}")
     try:
         yield
     finally:
-        con.execute("drop view if exists temp.raw_lines")
+        con.execute(f"drop view if exists temp.{view}")

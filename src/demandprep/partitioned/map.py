@@ -156,12 +156,17 @@ def keep_partition_lines(con: duckdb.DuckDBPyConnection, partition: Partition) -
 
 def write_summary(con: duckdb.DuckDBPyConnection, summary: str, path: Path) -> int:
     """Write one summary, sorted, to `path` (via a temporary file and a rename); returns rows."""
+    # the table names are ours (SUMMARY_FILES), never the user's
+    return write_query(con, f"from {summary} order by all", path)  # noqa: S608
+
+
+def write_query(con: duckdb.DuckDBPyConnection, query: str, path: Path) -> int:
+    """Write a query's rows to `path` as zstd Parquet (a temporary file, then a rename)."""
     temporary = path.with_name(f".{path.name}.{os.getpid()}.tmp")
     rows = 0
     # a cursor of its own: the stages' last statement may still hold the connection's result
     with con.cursor() as cursor, memory_shared_with_batches(cursor):
-        # the table names are ours (SUMMARY_FILES), never the user's
-        reader = cursor.sql(f"from {summary} order by all").to_arrow_reader(BATCH_ROWS)  # noqa: S608
+        reader = cursor.sql(query).to_arrow_reader(BATCH_ROWS)
         with pq.ParquetWriter(temporary, reader.schema, compression="zstd") as writer:
             for batch in reader:
                 writer.write_batch(batch)

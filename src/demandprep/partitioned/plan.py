@@ -68,11 +68,21 @@ class Partition:
 
 def partition_folder(config: ProjectConfig, partition: Partition) -> Path:
     """The partition's own folder under `partitioning.root`."""
+    return partitioning_root(config) / partition.name
+
+
+def buckets_folder(config: ProjectConfig) -> Path:
+    """The chooser buckets' folder under `partitioning.root` (their inputs and warehouses)."""
+    return partitioning_root(config) / "choice-buckets"
+
+
+def partitioning_root(config: ProjectConfig) -> Path:
+    """`partitioning.root`, absolute."""
     root = config.partitioning.root
     if not root.is_absolute() and config.config_path is not None:
         # the default root, when the config has no [partitioning] table to resolve it
         root = config.config_path.parent / root
-    return root / partition.name
+    return root
 
 
 def summary_path(config: ProjectConfig, partition: Partition, summary: str) -> Path:

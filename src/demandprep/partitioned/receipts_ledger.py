@@ -19,6 +19,14 @@ import duckdb
 
 from demandprep.errors import UserError
 from demandprep.partitioned.attached import union_of
+from demandprep.sqlfiles import run_sql
+
+# after 030 (the new files, numbered): the older versions superseded, then the new rows
+LEDGER_FILES = (
+    "031_supersede_partitioned_files",
+    "032_partitioned_ledger_insert",
+    "033_partitioned_quarantine_insert",
+)
 
 # a partition's latest ledger row of each receipts file version, and the lines it kept of it
 PARTITION_VERSIONS = (
@@ -94,56 +102,9 @@ def write_ledger_rows(con: duckdb.DuckDBPyConnection) -> None:
     last_number = con.execute(
         "select coalesce(max(try_cast(substr(file_id, 2) as bigint)), 0) from ledger"
     ).fetchone()[0]
-    con.execute(
-        "create or replace temp table partitioned_files as "
-        "with combined as (select path, sha256, any_value(bytes) as bytes, "
-        "any_value(status) as status, any_value(reason) as reason, "
-        "any_value(rows_read) as rows_read, coalesce(sum(lines), 0) as kept, "
-        "min(first_sold_at) as first_sold_at, max(last_sold_at) as last_sold_at, "
-        "max(ingested_at) as ingested_at, any_value(settings_fingerprint) as fingerprint, "
-        "max(rows_accepted) as rows_accepted, max(rows_quarantined) as rows_quarantined "
-        "from partitioned_versions group by all), "
-        "quarantined as (select path, sha256, count(*) as rows from partitioned_quarantine "
-        "group by all), "
-        "versions as (select path, max(version) as version from ledger "
-        "where source = 'receipts' group by all) "
-        # file ids continue the coordinator's: F + 7 digits (ingest.ledger.file_id_for)
-        "select combined.*, 'F' || lpad((row_number() over (order by combined.path) + $last)"
-        "::varchar, 7, '0') as file_id, coalesce(versions.version, 0) + 1 as version, "
-        "coalesce(quarantined.rows, 0) as quarantined "
-        "from combined left join quarantined using (path, sha256) "
-        "left join versions using (path)",
-        {"last": last_number},
-    )
-    con.execute(
-        "delete from quarantine where file_id in (select file_id from ledger "
-        "where source = 'receipts' and status in ('current', 'empty') "
-        "and path in (select path from partitioned_files))"
-    )
-    con.execute(
-        "update ledger set status = 'superseded' where source = 'receipts' "
-        "and status in ('current', 'empty') and path in (select path from partitioned_files)"
-    )
-    # a current file's counts are the partitions' together; other statuses are any partition's
-    con.execute(
-        "insert into ledger by name select file_id, 'receipts' as source, path, version, bytes, "
-        "sha256, first_sold_at, last_sold_at, rows_read, "
-        "case when status = 'current' then kept else rows_accepted end as rows_accepted, "
-        "case when status = 'current' then quarantined else rows_quarantined end "
-        "as rows_quarantined, status, ingested_at, reason, "
-        "fingerprint as settings_fingerprint from partitioned_files order by file_id"
-    )
-    con.execute(
-        "insert into quarantine by name select files.file_id, 'receipts' as source, "
-        "lines.path, lines.line_no, lines.reason, lines.detail, lines.original_text "
-        "from partitioned_quarantine as lines join partitioned_files as files "
-        "using (path, sha256) order by files.file_id, lines.line_no, lines.reason"
-    )
-    con.execute(
-        "insert into ledger_reasons by name select files.file_id, lines.reason, "
-        "count(*) as rows from partitioned_quarantine as lines "
-        "join partitioned_files as files using (path, sha256) group by all order by all"
-    )
+    run_sql(con, "partitioned/030_partitioned_files.sql", {"last": last_number})
+    for name in LEDGER_FILES:
+        run_sql(con, f"partitioned/{name}.sql")
     check_files_add_up(con)
 
 

@@ -2,16 +2,21 @@
 
 The build's own stage list is walked unchanged, except that the two scans of raw lines (and
 their planning) are replaced by loading the partitions' summary files: every later stage reads
-the summaries whole, as on one machine, so the same SQL files compute the same tables.
+the summaries whole, as on one machine, so the same SQL files compute the same tables. The
+choice stages are replaced by a second map, by chooser bucket, and its reduce
+(`choice_reduce.py`): the coordinator runs no choice stage itself.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
 
+from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.market import checks
+from demandprep.partitioned.attached import partition_warehouses
+from demandprep.partitioned.choice_reduce import MapBuckets, choice_bucket_stages
 from demandprep.partitioned.map import PartitionSummaries
 from demandprep.schemas.market import MARKET_MODELS
 from demandprep.stage import Stage
@@ -27,13 +32,25 @@ SUMMARY_CHECKS: dict[str, Check] = {
 }
 
 
-def reduce_stages(config: ProjectConfig, summaries: list[PartitionSummaries]) -> tuple[Stage, ...]:
-    """The build's stages with the planning and the scans replaced by the partitions' files."""
+def reduce_stages(
+    config: ProjectConfig, summaries: list[PartitionSummaries], map_buckets: MapBuckets
+) -> tuple[Stage, ...]:
+    """The build's stages with the scans replaced by the partitions' files, the choice stages
+    by the chooser buckets' map and reduce."""
     replaced = {
         "market_build_periods": Stage("market_build_periods", _scope_stage(summaries)),
         **{name: Stage(name, _load_stage(name, summaries)) for name in SUMMARY_CHECKS},
     }
-    return tuple(replaced.get(stage.name, stage) for stage in build_stages(config))
+    choice_names = {stage.name for stage in CHOICE_STAGES}
+    stages = tuple(
+        replaced.get(stage.name, stage)
+        for stage in build_stages(config)
+        if stage.name not in choice_names
+    )
+    if not config.choices.enabled:
+        return stages
+    warehouses = partition_warehouses(config, [item.partition for item in summaries])
+    return stages + choice_bucket_stages(config, map_buckets, warehouses)
 
 
 def _scope_stage(summaries: list[PartitionSummaries]) -> Check:

@@ -24,6 +24,7 @@ from demandprep.errors import UserError
 from demandprep.ingest.files import SOURCE_ORDER
 from demandprep.ingest.runner import discover_files, ingest_all
 from demandprep.partitioned.attached import partition_lines_view, partitions_attached
+from demandprep.partitioned.choice_reduce import MapBuckets, map_buckets_in_process
 from demandprep.partitioned.map import PartitionSummaries, build_partition, kept_summaries
 from demandprep.partitioned.plan import (
     Partition,
@@ -54,9 +55,16 @@ def map_in_process(config: ProjectConfig) -> MapPartitions:
 
 
 def build_partitioned(
-    config: ProjectConfig, map_partitions: MapPartitions, force: bool = False
+    config: ProjectConfig,
+    map_partitions: MapPartitions,
+    force: bool = False,
+    map_buckets: MapBuckets | None = None,
 ) -> BuildOutcome:
-    """Route the receipts files, map the partitions, ledger their files, reduce and publish."""
+    """Route the receipts files, map the partitions, ledger their files, reduce and publish.
+
+    The choice build is a second map, by chooser bucket (`map_buckets`, in this process when
+    None), run after the market reduce.
+    """
     from demandprep.export.folder import check_export_root, export_build, latest_build
     from demandprep.flows.incremental import latest_build_is_current
 
@@ -82,7 +90,8 @@ def build_partitioned(
             check_lines_add_up(con, config, summaries)
             ctx = BuildContext(con=con, config=config)
             with partition_lines_view(con, aliases):
-                for stage in reduce_stages(config, summaries):
+                buckets = map_buckets or map_buckets_in_process(config)
+                for stage in reduce_stages(config, summaries, buckets):
                     run_stage(stage, ctx)
                 folder = export_build(ctx)
         return BuildOutcome(folder=folder, ctx=ctx)

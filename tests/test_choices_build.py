@@ -394,3 +394,20 @@ def test_receipt_ids_unique_per_store_keep_one_visit_across_midnight():
 def session_key() -> bytes:
     """The pseudonym key the test session sets (tests/conftest.py)."""
     return os.environ["DEMANDPREP_PSEUDONYM_KEY"].encode("utf-8")
+
+
+def test_receipts_with_several_cards_count_distinct_cards_only():
+    # a receipt scanned with two cards is counted (and keeps the smaller card); one card on two
+    # lines, or a card line beside a line without a card, is one card  # common practice, no source
+    world = ChoiceWorld()
+    world.product("a1", "A", 1)
+    world.store("S1")
+    day = datetime(2024, 1, 15, 9)
+    world.visit("S1", day, "card1", [("a1", 1, 2.0)], receipt="two_cards")
+    world.visit("S1", day, "card2", [("a1", 1, 2.0)], receipt="two_cards")
+    world.visit("S1", day, "card3", [("a1", 1, 2.0), ("a1", 1, 2.0)], receipt="one_card")
+    world.visit("S1", day, "card4", [("a1", 1, 2.0)], receipt="card_and_none")
+    world.visit("S1", day, None, [("a1", 1, 2.0)], receipt="card_and_none")
+    ctx = world.build()
+    assert ctx.facts["choices"]["receipts_with_several_cards"] == 1
+    assert ctx.facts["choices"]["card_visits"] == 3

@@ -229,3 +229,40 @@ def test_an_empty_table_passes():
     fill_warehouse(con, occasions=60)
     con.execute("delete from choices")
     assert validate_choices(con) == 0
+
+
+def _choice_plans(*names: str) -> dict[str, str]:
+    """The physical plans of choice SQL files, on a small build run up to the last stage."""
+    world = ChoiceWorld()
+    world.product("a1", "A", 1)
+    world.product("b1", "B", 1)
+    world.store("S1")
+    for n in range(4):
+        world.visit("S1", datetime(2024, 1, 15, 9) + timedelta(days=n), "card1", [("a1", 1, 2.0)])
+    con = duckdb.connect()
+    world.write(con)
+    ctx = BuildContext(con=con, config=make_config())
+    for stage in CHOICE_STAGES[:-1]:
+        run_stage(stage, ctx)
+    params = load_choice_settings(con, ctx.config).params()
+    plans = {}
+    for name in names:
+        text = sql_text(f"choices/{name}.sql")
+        code = LINE_COMMENT.sub("", text)
+        used = {k: v for k, v in params.items() if f"${k}" in code}
+        plans[name] = con.execute(f"explain {text}", used).fetchall()[0][1]
+    return plans
+
+
+def test_the_visit_history_orders_each_chooser_once():
+    # every window of 045 shares one partition and order, so DuckDB sorts the visits once; a
+    # second window operator would sort them again (the chooser's first day is a grouping)
+    plan = _choice_plans("045_choice_visit_history")["045_choice_visit_history"]
+    assert plan.count("─ Window ") == 1
+
+
+def test_the_occasion_sets_take_the_previous_purchase_from_the_history():
+    # 045 carries what the previous purchase visit bought through its window, so 062 neither
+    # groups the occasions by visit nor joins them on the long visit id a second time
+    plan = _choice_plans("062_choice_occasion_sets")["062_choice_occasion_sets"]
+    assert "Group By" not in plan

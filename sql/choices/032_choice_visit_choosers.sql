@@ -6,7 +6,7 @@ create or replace table choice_visits as
 with
 
 visits as (
-    select visit, store, visit_day, receipt, occasion_at, day, card, card_count from choice_visits
+    select visit, store, visit_day, receipt, occasion_at, day, card, several_cards from choice_visits
 ),
 
 pseudonyms as (
@@ -22,9 +22,9 @@ final as (
         visits.occasion_at,
         visits.day,
         pseudonyms.chooser,
-        visits.card_count,
+        visits.several_cards,
     from visits
     join pseudonyms using (card)
 )
 
-select visit, store, visit_day, receipt, occasion_at, day, chooser, card_count from final;
+select visit, store, visit_day, receipt, occasion_at, day, chooser, several_cards from final;

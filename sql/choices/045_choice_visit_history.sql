@@ -3,6 +3,10 @@
 -- burn_in: the visit falls within $burn_in_days days of the chooser's first occasion; such
 -- purchases only initialise loyalty (046) and their own loyalty is not defined.
 -- loyalty_rank: number of earlier purchase visits after the burn-in window.
+-- previous_alternatives: what the latest earlier purchase visit bought (062 searches it with
+-- list_contains, so its order does not matter).
+-- The chooser's first day comes from a grouping (day is occasion_at's date, so the earliest
+-- occasion has the smallest day), so every window below shares one ordering: one sort.
 create or replace table choice_visit_history as
 
 with
@@ -14,36 +18,29 @@ occasion_visits as (
         min(occasion_at) as occasion_at,
         min(day) as day,
         bool_or(is_purchase) as is_purchase,
+        -- null for a visit without a purchase, so last_value skips it
+        list(chosen_alternative) filter (where is_purchase) as purchase_alternatives,
     from choice_occasions
     group by visit, chooser
 ),
 
-earlier as (
-    select
-        visit,
-        chooser,
-        occasion_at,
-        day,
-        is_purchase,
-        first_value(day) over chooser_order as first_day,
-        coalesce(count(*) filter (where is_purchase) over earlier_visits, 0) as purchase_count,
-        max(case when is_purchase then day end) over earlier_visits as last_purchase_day,
-        last_value(case when is_purchase then visit end ignore nulls) over earlier_visits
-            as last_purchase_visit,
+first_days as (
+    select chooser, min(day) as first_day
     from occasion_visits
-    window
-        chooser_order as (partition by chooser order by occasion_at, visit),
-        earlier_visits as (
-            partition by chooser order by occasion_at, visit
-            rows between unbounded preceding and 1 preceding
-        )
+    group by chooser
 ),
 
 flagged as (
     select
-        *,
-        day < first_day + cast($burn_in_days as integer) as burn_in,
-    from earlier
+        occasion_visits.visit,
+        occasion_visits.chooser,
+        occasion_visits.occasion_at,
+        occasion_visits.day,
+        occasion_visits.is_purchase,
+        occasion_visits.purchase_alternatives,
+        occasion_visits.day < first_days.first_day + cast($burn_in_days as integer) as burn_in,
+    from occasion_visits
+    join first_days using (chooser)
 ),
 
 final as (
@@ -53,17 +50,20 @@ final as (
         day,
         is_purchase,
         burn_in,
-        purchase_count,
-        day - last_purchase_day as days_since_last_purchase,
-        last_purchase_visit,
+        coalesce(count(*) filter (where is_purchase) over earlier_visits, 0) as purchase_count,
+        day - max(case when is_purchase then day end) over earlier_visits
+            as days_since_last_purchase,
+        last_value(purchase_alternatives ignore nulls) over earlier_visits
+            as previous_alternatives,
         coalesce(
-            count(*) filter (where is_purchase and not burn_in) over (
-                partition by chooser order by occasion_at, visit
-                rows between unbounded preceding and 1 preceding
-            ),
-            0
+            count(*) filter (where is_purchase and not burn_in) over earlier_visits, 0
         ) as loyalty_rank,
     from flagged
+    window
+        earlier_visits as (
+            partition by chooser order by occasion_at, visit
+            rows between unbounded preceding and 1 preceding
+        )
 )
 
 select
@@ -74,6 +74,6 @@ select
     burn_in,
     purchase_count,
     days_since_last_purchase,
-    last_purchase_visit,
+    previous_alternatives,
     loyalty_rank,
 from final;

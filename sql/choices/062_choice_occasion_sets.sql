@@ -13,14 +13,6 @@ create or replace table choice_occasion_sets as
 
 with
 
-previous_purchases as (
-    -- only ever searched with list_contains, so the order of the list does not matter
-    select visit, list(chosen_alternative) as alternatives
-    from choice_occasions
-    where is_purchase
-    group by visit
-),
-
 occasions as (
     select
         choice_occasions.occasion,
@@ -37,8 +29,9 @@ occasions as (
         choice_visit_history.burn_in,
         choice_visit_history.purchase_count,
         choice_visit_history.days_since_last_purchase,
-        coalesce(previous_purchases.alternatives, []) as previous_alternatives,
-        choice_visit_loyalty.loyalty_by_alternative,
+        coalesce(choice_visit_history.previous_alternatives, []) as previous_alternatives,
+        choice_visit_loyalty.loyalty_alternatives,
+        choice_visit_loyalty.loyalty_values,
         choice_store_days.store_day_index,
         choice_store_day_markets.market,
         choosers.holdout,
@@ -59,8 +52,6 @@ occasions as (
     left join choice_store_day_markets using (store, day)
     left join choosers using (chooser)
     join choice_visit_history using (visit)
-    left join previous_purchases
-        on previous_purchases.visit = choice_visit_history.last_purchase_visit
     left join choice_visit_loyalty
         on choice_visit_loyalty.chooser = choice_occasions.chooser
         and choice_visit_loyalty.loyalty_rank = choice_visit_history.loyalty_rank
@@ -121,7 +112,8 @@ final as (
         purchase_count,
         days_since_last_purchase,
         previous_alternatives,
-        loyalty_by_alternative,
+        loyalty_alternatives,
+        loyalty_values,
         store_day_index,
         holdout,
         household_known,
@@ -143,7 +135,8 @@ final as (
             purchase_count,
             days_since_last_purchase,
             previous_alternatives,
-            loyalty_by_alternative,
+            loyalty_alternatives,
+            loyalty_values,
             store_day_index,
             holdout,
             household_known,

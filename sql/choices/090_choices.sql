@@ -63,7 +63,8 @@ final as (
         case when alternative = chosen_alternative then spend end as spend,
         list_contains(previous_alternatives, alternative) as previous_choice,
         case
-            when not burn_in then coalesce(loyalty_by_alternative[alternative], 0.0)
+            when not burn_in
+                then coalesce(loyalty_values[list_position(loyalty_alternatives, alternative)], 0.0)
         end as loyalty,
         burn_in,
         days_since_last_purchase,
@@ -86,7 +87,8 @@ final as (
             quantity,
             spend,
             previous_alternatives,
-            loyalty_by_alternative,
+            loyalty_alternatives,
+            loyalty_values,
             burn_in,
             days_since_last_purchase,
             purchase_count,

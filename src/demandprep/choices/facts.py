@@ -23,7 +23,7 @@ def choice_facts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> dict[
         "occasion_mode": config.choices.occasions,
         "card_visits": _one(con, "select count(*) from choice_visits"),
         "receipts_with_several_cards": _one(
-            con, "select count(*) from choice_visits where card_count > 1"
+            con, "select count(*) from choice_visits where several_cards"
         ),
         "choosers": _one(con, "select count(*) from choosers"),
         "holdout_choosers": _one(con, "select count(*) from choosers where holdout"),

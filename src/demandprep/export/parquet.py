@@ -12,8 +12,10 @@ again from the sorted query. Either way the file holds the same rows in the same
 from __future__ import annotations
 
 import os
+import queue
+import threading
 from collections.abc import Iterator, Mapping, Sequence
-from contextlib import suppress
+from contextlib import contextmanager, suppress
 from dataclasses import dataclass
 from itertools import chain
 from pathlib import Path
@@ -85,21 +87,76 @@ def _write_query(
     with memory_shared_with_batches(con):
         reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
         try:
-            return _write_batches(
-                reader,
-                path,
-                row_group_rows,
-                column_docs,
-                table_metadata,
-                sort_keys,
-                sort_keys if check_order else (),
-            )
+            with read_ahead(reader) as batches:
+                return _write_batches(
+                    batches,
+                    path,
+                    row_group_rows,
+                    column_docs,
+                    table_metadata,
+                    sort_keys,
+                    sort_keys if check_order else (),
+                )
         finally:
             reader.close()  # a write that failed mid-stream must not leave the connection busy
 
 
+class _BatchesAhead:
+    """A reader's batches, fetched by a thread at most one batch ahead of the consumer."""
+
+    def __init__(self, reader: pa.RecordBatchReader) -> None:
+        self.schema = reader.schema
+        self._reader = reader
+        self._queue: queue.Queue[Any] = queue.Queue(maxsize=1)
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._fetch, name="parquet-read-ahead")
+
+    def _fetch(self) -> None:
+        try:
+            for batch in self._reader:
+                if not self._put(batch):
+                    return
+        except BaseException as error:  # noqa: BLE001 - handed to the consumer, raised there
+            self._put(error)
+            return
+        self._put(_END)
+
+    def _put(self, item: object) -> bool:
+        while not self._stop.is_set():
+            with suppress(queue.Full):
+                self._queue.put(item, timeout=0.05)
+                return True
+        return False
+
+    def __iter__(self) -> Iterator[pa.RecordBatch]:
+        while (item := self._queue.get()) is not _END:
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+
+
+_END = object()
+
+
+@contextmanager
+def read_ahead(reader: pa.RecordBatchReader) -> Iterator[_BatchesAhead]:
+    """The reader's batches, the next one fetched on a thread while the current one is written.
+
+    DuckDB and pyarrow's Parquet writer both release the GIL, so the engine fills the next batch
+    while the writer encodes this one; the order and the bytes written do not change. On exit the
+    thread is stopped and joined, so the reader is idle when its caller closes it.
+    """
+    batches = _BatchesAhead(reader)
+    batches._thread.start()
+    try:
+        yield batches
+    finally:
+        batches._stop.set()
+        batches._thread.join()
+
+
 def _write_batches(
-    reader: pa.RecordBatchReader,
+    reader: pa.RecordBatchReader | _BatchesAhead,
     path: Path,
     row_group_rows: int,
     column_docs: Mapping[str, Mapping[str, str]],
@@ -162,7 +219,7 @@ def _keys_rising(group: pa.Table, keys: Sequence[str], before: tuple | None) -> 
     return tuple(column[-1].as_py() for column in columns)
 
 
-def row_groups(reader: pa.RecordBatchReader, size: int) -> Iterator[pa.Table]:
+def row_groups(reader: pa.RecordBatchReader | _BatchesAhead, size: int) -> Iterator[pa.Table]:
     """Re-cut a stream of batches into tables of exactly `size` rows (the last may be shorter)."""
     pending: list[pa.RecordBatch] = []
     pending_rows = 0

@@ -221,7 +221,7 @@ def _read_lines(
     workers = int(con.execute("select current_setting('threads')").fetchall()[0][0])
     pieces: list[pa.Table] = []
     size = 0
-    chunks = batch_line_chunks(paths, source.encoding, workers)
+    chunks = batch_line_chunks(paths, source.encoding, workers, source.delimiter)
     try:
         while True:
             with timer.phase("read"):

@@ -152,3 +152,20 @@ def test_fuzzed_worlds_give_the_same_tables_without_the_threads_line_preparation
                 item.write(root)
             tables[thread_prep] = ingest_tables(root / "demandprep.toml", thread_prep=thread_prep)
     assert tables[True] == tables[False]
+
+
+def test_receipt_without_line_numbers_repeats_only_from_another_file_of_the_batch(
+    tmp_path: Path,
+) -> None:
+    # the duplicate rule's earlier-file test compares files (030), not the text of their paths
+    config_path = copy_faults(tmp_path)
+    receipts = config_path.parent / "receipts"
+    header = "ticket;row;branch;stamp;article;qty;value;member;disc;kind\n"
+    line = "T0801;;B01;2024-03-05 10:00:00;K100;1;6,49;;0,00;sale\n"
+    (receipts / "receipts_2024-03-05.csv").write_text(header + line + line, encoding="utf-8")
+    (receipts / "receipts_2024-03-06.csv").write_text(header + line, encoding="utf-8")
+    tables = ingest_tables(config_path)
+    kept = [row[:3] for row in tables["raw_lines"] if row[2] == "T0801"]
+    refused = [row[:4] for row in tables["quarantine"] if row[5] == line.strip()]
+    assert kept == [("F0000005", 2, "T0801"), ("F0000005", 3, "T0801")]
+    assert refused == [("F0000006", "receipts", 2, "duplicate_line")]

@@ -1,5 +1,7 @@
 -- every receipt line of one batch of files, typed, with the first rule it breaks (reason null = accepted);
--- duplicates are found afterwards among the accepted lines (030)
+-- duplicates are found afterwards among the accepted lines (030). The file is the ordinal's
+-- high bits (its position in ingest_batch_files, reader.py): a copy of its path on every line
+-- cost more than any step that needs it pays to look it up
 create temp table ingest_checked as
 with
 
@@ -14,7 +16,6 @@ store_timezones as (
 trimmed as (
     select
         ordinal,
-        path,
         line_no,
         nullif(ingest_trim(receipt), '') as receipt,
         nullif(ingest_trim(line), '') as line_text,
@@ -138,7 +139,6 @@ classified as (
 final as (
     select
         ordinal,
-        path,
         line_no,
         receipt,
         line,
@@ -198,7 +198,6 @@ final as (
 
 select
     ordinal,
-    path,
     line_no,
     receipt,
     line,

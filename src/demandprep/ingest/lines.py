@@ -1,7 +1,8 @@
 """Cut a CSV file into its physical lines, apart from any CSV parser, in Arrow chunks.
 
-A line ends at LF (byte 10). The LF is not part of the line (the arrays here may still carry
-it); the reader drops it and a CR just before it (CRLF is one terminator). A final line
+A line ends at LF (byte 10). The LF is not part of the line (the bytes of a line that is not
+valid UTF-8 may still carry it, and every line without THREAD_PREP); the reader drops it and
+a CR just before it (CRLF is one terminator). A final line
 without terminator counts; the empty rest after a final LF is no line. Lines are numbered
 from 1 (the header, when there is one). A CR anywhere else, or a quote, is the reader's
 business, not the cutter's.

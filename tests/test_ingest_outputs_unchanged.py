@@ -169,3 +169,68 @@ def test_receipt_without_line_numbers_repeats_only_from_another_file_of_the_batc
     refused = [row[:4] for row in tables["quarantine"] if row[5] == line.strip()]
     assert kept == [("F0000005", 2, "T0801"), ("F0000005", 3, "T0801")]
     assert refused == [("F0000006", "receipts", 2, "duplicate_line")]
+
+
+# 010's per-line verdict that no field needs trimming, forced off: every field goes through
+# ingest_trim as if no line had been judged
+TRIMMED_VERDICT = "as trimmed,"
+VERDICT_START = "unquoted and coalesce("
+
+
+def without_trimmed_verdict(original):
+    """sql_text with 010's `trimmed` column always false (the reference: ingest_trim on all)."""
+
+    def text(name: str) -> str:
+        found = original(name)
+        if name != "ingest/010_line_fields.sql":
+            return found
+        assert found.count(TRIMMED_VERDICT) == 1
+        head, tail = found.split(TRIMMED_VERDICT)
+        start = head.rindex(VERDICT_START)
+        return head[:start] + "false " + TRIMMED_VERDICT + tail
+
+    return text
+
+
+def test_faults_give_the_same_tables_without_the_trimmed_verdict(tmp_path: Path) -> None:
+    tables = {}
+    for verdict in (True, False):
+        config_path = copy_faults(tmp_path / str(verdict))
+        receipts = config_path.parent / "receipts"
+        # ASCII lines with spaces beside a delimiter only: no end of the line is a space
+        beside = (
+            "T0906; 2 ;B01;2024-03-05 10:05:00;K100 ;1;6,49;;0,00;sale\n"
+            "T0907;1;B01;2024-03-05 10:06:00;K100;1;6,49;; 0,00;sale\n"
+        )
+        text = PADDED + beside
+        (receipts / "receipts_2024-03-05.csv").write_text(text, encoding="utf-8")
+        (receipts / "receipts_2024-03-06.csv").write_bytes(EDGE_LINES.replace(b"\r\n", b"\n"))
+        patched = sqlfiles.sql_text if verdict else without_trimmed_verdict(sqlfiles.sql_text)
+        with mock.patch.object(sqlfiles, "sql_text", patched):
+            tables[verdict] = ingest_tables(config_path)
+    assert len(tables[True]["raw_lines"]) > 0 and len(tables[True]["quarantine"]) > 0
+    assert tables[True] == tables[False]
+
+
+@settings(
+    max_examples=8,
+    deadline=None,
+    derandomize=True,
+    database=None,
+    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
+)
+@given(files=fuzz_world())
+def test_fuzzed_worlds_give_the_same_tables_without_the_trimmed_verdict(
+    files: list[FuzzFile],
+) -> None:
+    tables = {}
+    for verdict in (True, False):
+        with tempfile.TemporaryDirectory(prefix="demandprep-verdict-") as folder:
+            root = Path(folder)
+            (root / "demandprep.toml").write_text(CONFIG, encoding="utf-8")
+            for item in files:
+                item.write(root)
+            patched = sqlfiles.sql_text if verdict else without_trimmed_verdict(sqlfiles.sql_text)
+            with mock.patch.object(sqlfiles, "sql_text", patched):
+                tables[verdict] = ingest_tables(root / "demandprep.toml")
+    assert tables[True] == tables[False]

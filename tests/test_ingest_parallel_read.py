@@ -233,3 +233,35 @@ def test_invalid_utf8_lines_keep_their_bytes_as_raw(tmp_path: Path) -> None:
     assert chunk["text"].to_pylist() == [None, None]
     assert chunk["raw"].to_pylist() == [b"a;b\n", b"\xff;c\n"]
     assert chunk["delimiters"].to_pylist() == [1, 1]
+
+
+@pytest.mark.parametrize("chunk_bytes", [1, 5, 64, 1 << 20])
+def test_lines_told_plain_have_no_field_that_trim_changes(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, chunk_bytes: int
+) -> None:
+    monkeypatch.setattr(lines_module, "CHUNK_BYTES", chunk_bytes)
+    lines = [
+        b"T1;1;S1;2024-03-05 10:00:00;K1",  # a space inside a field only: plain
+        b"T2;;S1;;",
+        b" T3;1",
+        b"T4 ;1",
+        b"T5; 1",
+        b"T6;1 ",
+        b"T7;1 \r",
+        b"T8;\xc3\xa9",
+        b"T9;a b;c",
+        b" ",
+        b"",
+        b"T10;1",  # the last line, without its LF
+    ]
+    path = tmp_path / "lines.csv"
+    path.write_bytes(b"\n".join(lines))
+    chunks = list(line_chunks(path, "utf-8", ";"))
+    plain = [flag for chunk in chunks for flag in chunk["plain"].to_pylist()]
+    # reference: Python's str.strip(" "), the one ASCII character DuckDB's trim removes
+    trimmed = [
+        line.isascii() and all(f == f.strip(b" ") for f in line.rstrip(b"\r").split(b";"))
+        for line in lines
+    ]
+    assert plain == [True, True, False, False, False, False, False, False, True, False, True, True]
+    assert all(trimmed[i] for i, flag in enumerate(plain) if flag)

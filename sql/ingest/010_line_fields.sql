@@ -19,6 +19,7 @@ lines as (
         raw,
         length,
         delimiters,
+        plain,
     from ingest_lines
 ),
 
@@ -135,6 +136,16 @@ final as (
             when 'unclosed_quote' then 'a quoted field is not closed on its line'
         end as detail,
         (text is null or text <> '') and not ($header and line_no = 1) as record,
+        -- no field of the line changes under trim (005's ingest_trim): an unquoted ASCII line
+        -- (strlen = length) with no space at its ends or beside a delimiter; one test a line
+        -- costs less than ingest_trim's three on every field (020). The reader's threads
+        -- judge most lines (`plain`, lines.py; null: judged here)
+        unquoted and coalesce(
+            plain,
+            strlen(text) = length(text)
+            and not starts_with(text, ' ') and not ends_with(text, ' ')
+            and not contains(text, ' ' || $delimiter) and not contains(text, $delimiter || ' ')
+        ) as trimmed,
     from classified
 )
 
@@ -148,4 +159,5 @@ select
     reason,
     detail,
     record,
+    trimmed,
 from final

@@ -13,20 +13,21 @@ store_timezones as (
     select store, timezone from ingest_store_timezones
 ),
 
+-- ingest_trimmed: 010 found no field of the line that trim would change (005)
 trimmed as (
     select
         ordinal,
         line_no,
-        nullif(ingest_trim(receipt), '') as receipt,
-        nullif(ingest_trim(line), '') as line_text,
-        nullif(ingest_trim(store), '') as store,
-        nullif(ingest_trim(sold_at), '') as sold_at_text,
-        nullif(ingest_trim(sku), '') as sku,
-        nullif(ingest_trim(quantity), '') as quantity_text,
-        nullif(ingest_trim(amount), '') as amount_text,
-        nullif(ingest_trim(discount), '') as discount_text,
-        nullif(ingest_trim(card), '') as card,
-        coalesce(lower(nullif(ingest_trim(line_kind), '')), 'sale') as line_kind,
+        nullif(ingest_trim_unless(receipt, ingest_trimmed), '') as receipt,
+        nullif(ingest_trim_unless(line, ingest_trimmed), '') as line_text,
+        nullif(ingest_trim_unless(store, ingest_trimmed), '') as store,
+        nullif(ingest_trim_unless(sold_at, ingest_trimmed), '') as sold_at_text,
+        nullif(ingest_trim_unless(sku, ingest_trimmed), '') as sku,
+        nullif(ingest_trim_unless(quantity, ingest_trimmed), '') as quantity_text,
+        nullif(ingest_trim_unless(amount, ingest_trimmed), '') as amount_text,
+        nullif(ingest_trim_unless(discount, ingest_trimmed), '') as discount_text,
+        nullif(ingest_trim_unless(card, ingest_trimmed), '') as card,
+        coalesce(lower(nullif(ingest_trim_unless(line_kind, ingest_trimmed), '')), 'sale') as line_kind,
     from source_lines
 ),
 

@@ -20,7 +20,9 @@ buffer, where they cost less and run beside DuckDB (THREAD_PREP; False leaves bo
 reference the tests compare against): each valid line's text comes as an Arrow string view
 without its LF (views into the chunk, no copy of the text), and each line's delimiter bytes are
 counted (only for an ASCII delimiter other than CR and LF: a byte count is then the count of
-the character, which 010 takes as the line's field count less one).
+the character, which 010 takes as the line's field count less one), and each line is told
+`plain` when it is ASCII with no space at its ends or beside a delimiter (or a CR or LF): then
+no field of it changes under trim, and 020 skips trimming its fields.
 
 A batch's files are read in threads (`batch_line_chunks`): decompressing, decoding and numpy
 release the GIL, so several files are cut at once, each numbering its own lines; the caller
@@ -46,6 +48,8 @@ MAX_LINE_BYTES = 1024 * 1024  # a receipt line is some 100 bytes; past this it i
 KEPT_BYTES = 4096  # of a too-long line, kept as its original text
 UTF8_BOM = codecs.BOM_UTF8
 LF = 10
+CR = 13
+SPACE = 32
 COMPRESSION = {".gz": "gzip", ".zst": "zstd"}
 THREAD_PREP = True  # the LF drop and delimiter count in the threads (module docstring)
 VIEW_INLINE_BYTES = 12  # Arrow string views hold values this short inline, longer ones by offset
@@ -147,7 +151,8 @@ def line_chunks(path: Path, encoding: str, delimiter: str | None = None) -> Iter
 
     `text` holds a line that is valid UTF-8 (else null, and `raw` holds its bytes, which may
     still end with its LF); with THREAD_PREP it has no LF. `length` is the line's full length in
-    bytes, without the LF; `delimiters` the count of `delimiter` in it, or null (not counted).
+    bytes, without the LF; `delimiters` the count of `delimiter` in it, and `plain` whether no
+    field of it changes under trim, or null (not looked at).
     """
     count = _countable(delimiter) if THREAD_PREP else None
     next_line = 1
@@ -178,9 +183,19 @@ def _line_table(
     else:
         if THREAD_PREP:
             text = _views_without_lf(lines)
-    counts = pa.nulls(len(lines), pa.int64()) if delimiter is None else _counts(lines, delimiter)
+    if delimiter is None:
+        counts, plain = pa.nulls(len(lines), pa.int64()), pa.nulls(len(lines), pa.bool_())
+    else:
+        counts, plain = _counts(lines, delimiter), _plain(lines, delimiter)
     return pa.table(
-        {"line_no": numbers, "text": text, "raw": raw, "length": lengths, "delimiters": counts}
+        {
+            "line_no": numbers,
+            "text": text,
+            "raw": raw,
+            "length": lengths,
+            "delimiters": counts,
+            "plain": plain,
+        }
     )
 
 
@@ -195,6 +210,28 @@ def _counts(lines: pa.Array, delimiter: int) -> pa.Array:
     offsets, data = _offsets_and_data(lines)
     hits = np.flatnonzero(np.frombuffer(data, np.uint8) == delimiter)
     return pa.array(np.diff(np.searchsorted(hits, offsets)).astype(np.int64))
+
+
+def _plain(lines: pa.Array, delimiter: int) -> pa.Array:
+    """Per line: all ASCII, and no space first, last or beside the delimiter, a CR or an LF.
+
+    A false verdict only costs 020 its trims; a true one must be right, so doubtful spaces
+    count against the line.
+    """
+    offsets, data = _offsets_and_data(lines)
+    body = np.frombuffer(data, np.uint8)
+    spaces = np.flatnonzero(body == SPACE)
+    before = body[np.maximum(spaces - 1, 0)]
+    after = body[np.minimum(spaces + 1, max(len(body) - 1, 0))]
+    edges = (CR, LF, delimiter)
+    doubtful = (
+        np.isin(before, edges)
+        | np.isin(after, edges)
+        | np.isin(spaces, offsets[:-1])  # first byte of a line
+        | np.isin(spaces + 1, offsets[1:])  # last byte of a line without LF
+    )
+    against = np.union1d(np.flatnonzero(body >= 0x80), spaces[doubtful])
+    return pa.array(np.diff(np.searchsorted(against, offsets)) == 0)
 
 
 def _views_without_lf(lines: pa.Array) -> pa.Array:

@@ -209,29 +209,33 @@ def _counts(lines: pa.Array, delimiter: int) -> pa.Array:
     """Per line, how many of its bytes are `delimiter` (numpy over the shared buffer)."""
     offsets, data = _offsets_and_data(lines)
     hits = np.flatnonzero(np.frombuffer(data, np.uint8) == delimiter)
-    return pa.array(np.diff(np.searchsorted(hits, offsets)).astype(np.int64))
+    return pa.array(_per_line(hits, offsets).astype(np.int64))
 
 
 def _plain(lines: pa.Array, delimiter: int) -> pa.Array:
     """Per line: all ASCII, and no space first, last or beside the delimiter, a CR or an LF.
 
     A false verdict only costs 020 its trims; a true one must be right, so doubtful spaces
-    count against the line.
+    count against the line. Every line of the array but its last ends with LF (_cut_lines),
+    so a line's first byte follows an LF or starts the array, and a last byte not before an LF
+    ends the array.
     """
     offsets, data = _offsets_and_data(lines)
-    body = np.frombuffer(data, np.uint8)
-    spaces = np.flatnonzero(body == SPACE)
+    first, end = int(offsets[0]), int(offsets[-1])
+    body = np.frombuffer(data, np.uint8)[:end]
+    spaces = np.flatnonzero(body[first:] == SPACE) + first
     before = body[np.maximum(spaces - 1, 0)]
-    after = body[np.minimum(spaces + 1, max(len(body) - 1, 0))]
-    edges = (CR, LF, delimiter)
-    doubtful = (
-        np.isin(before, edges)
-        | np.isin(after, edges)
-        | np.isin(spaces, offsets[:-1])  # first byte of a line
-        | np.isin(spaces + 1, offsets[1:])  # last byte of a line without LF
-    )
-    against = np.union1d(np.flatnonzero(body >= 0x80), spaces[doubtful])
-    return pa.array(np.diff(np.searchsorted(against, offsets)) == 0)
+    after = body[np.minimum(spaces + 1, max(end - 1, 0))]
+    doubtful = (spaces == first) | (spaces + 1 == end)
+    for edge in (CR, LF, delimiter):
+        doubtful |= (before == edge) | (after == edge)
+    wide = np.flatnonzero(body[first:] >= 0x80) + first
+    return pa.array((_per_line(wide, offsets) + _per_line(spaces[doubtful], offsets)) == 0)
+
+
+def _per_line(places: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """How many of the sorted byte `places` fall in each line."""
+    return np.diff(np.searchsorted(places, offsets))
 
 
 def _views_without_lf(lines: pa.Array) -> pa.Array:

@@ -192,3 +192,76 @@ def test_lines_cut_at_any_chunk_size_are_the_lines_bytes_split_finds(
     assert [text.removesuffix("\n") for text in texts] == [line.decode() for line in expected]
     assert lengths == [len(line) for line in expected]
     assert numbers == list(range(1, len(expected) + 1))
+
+
+@pytest.mark.parametrize("chunk_bytes", [1, 2, 3, 7, 64, 1 << 20])
+def test_line_texts_come_without_their_lf_and_with_their_delimiters_counted(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, chunk_bytes: int
+) -> None:
+    monkeypatch.setattr(lines_module, "CHUNK_BYTES", chunk_bytes)
+    data = (
+        b"h;x;y\n\n1;a\r\n22;bb;;\n;\n\r\r\n333;ccc;short;a much longer field here\n"
+        b"\xc3\xa9;\xe2\x82\xac;x\n4444;dddd\r"
+    )
+    path = tmp_path / "lines.csv"
+    path.write_bytes(data)
+    chunks = list(line_chunks(path, "utf-8", ";"))
+    texts = [text for chunk in chunks for text in chunk["text"].to_pylist()]
+    counts = [count for chunk in chunks for count in chunk["delimiters"].to_pylist()]
+    # reference: bytes.split at LF and bytes.count (the CR of CRLF is 010's to drop, not ours)
+    expected = data.split(b"\n")
+    assert texts == [line.decode() for line in expected]
+    assert counts == [line.count(b";") for line in expected]
+
+
+@pytest.mark.parametrize("delimiter", ["\r", "\u00a6", None])
+def test_delimiters_are_left_uncounted_when_a_byte_count_could_be_wrong(
+    tmp_path: Path, delimiter: str | None
+) -> None:
+    # a CR may be the CRLF terminator 010 drops; a non-ASCII delimiter is several bytes
+    path = tmp_path / "lines.csv"
+    path.write_bytes("a\r\u00a6b\r\n".encode())
+    (chunk,) = line_chunks(path, "utf-8", delimiter)
+    assert chunk["delimiters"].to_pylist() == [None]
+    assert chunk["text"].to_pylist() == ["a\r\u00a6b\r"]
+
+
+def test_invalid_utf8_lines_keep_their_bytes_as_raw(tmp_path: Path) -> None:
+    path = tmp_path / "lines.csv"
+    path.write_bytes(b"a;b\n\xff;c\n")
+    (chunk,) = line_chunks(path, "utf-8", ";")
+    assert chunk["text"].to_pylist() == [None, None]
+    assert chunk["raw"].to_pylist() == [b"a;b\n", b"\xff;c\n"]
+    assert chunk["delimiters"].to_pylist() == [1, 1]
+
+
+@pytest.mark.parametrize("chunk_bytes", [1, 5, 64, 1 << 20])
+def test_lines_told_plain_have_no_field_that_trim_changes(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, chunk_bytes: int
+) -> None:
+    monkeypatch.setattr(lines_module, "CHUNK_BYTES", chunk_bytes)
+    lines = [
+        b"T1;1;S1;2024-03-05 10:00:00;K1",  # a space inside a field only: plain
+        b"T2;;S1;;",
+        b" T3;1",
+        b"T4 ;1",
+        b"T5; 1",
+        b"T6;1 ",
+        b"T7;1 \r",
+        b"T8;\xc3\xa9",
+        b"T9;a b;c",
+        b" ",
+        b"",
+        b"T10;1",  # the last line, without its LF
+    ]
+    path = tmp_path / "lines.csv"
+    path.write_bytes(b"\n".join(lines))
+    chunks = list(line_chunks(path, "utf-8", ";"))
+    plain = [flag for chunk in chunks for flag in chunk["plain"].to_pylist()]
+    # reference: Python's str.strip(" "), the one ASCII character DuckDB's trim removes
+    trimmed = [
+        line.isascii() and all(f == f.strip(b" ") for f in line.rstrip(b"\r").split(b";"))
+        for line in lines
+    ]
+    assert plain == [True, True, False, False, False, False, False, False, True, False, True, True]
+    assert all(trimmed[i] for i, flag in enumerate(plain) if flag)

@@ -32,6 +32,9 @@ create or replace temp macro ingest_trim(text) as
             then trim(text)
         else text
     end;
+-- a receipt field trimmed, unless 010 found that no field of its line changes under trim
+create or replace temp macro ingest_trim_unless(text, trimmed) as
+    case when trimmed then text else ingest_trim(text) end;
 -- the fields of a line of ingest_fields (010) that the reader takes (null for one it refuses):
 -- a quoted line's list as 010 split it, any other line split at the delimiter here
 create or replace temp macro ingest_line_fields(text, fields, reason, delimiter) as

@@ -9,4 +9,5 @@ create temp table ingest_fields (
     reason varchar,
     detail varchar,
     record boolean,
+    trimmed boolean,
 )

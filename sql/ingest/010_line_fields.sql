@@ -3,8 +3,11 @@
 -- quoted field ends on its line) and, when the reader refuses the line, why. A line without
 -- quotes keeps no list of fields: it is split where its fields are read (ingest_line_fields,
 -- 005), so no copy of every field is stored; its field count is its delimiters plus one, which
--- is the length of string_split's list (tests/test_ingest_fields.py). Run once per piece of
--- lines handed over by the reader (`ingest_lines`: an Arrow table, never copied into a table)
+-- is the length of string_split's list (tests/test_ingest_fields.py), counted by the reader's
+-- threads when they can (`delimiters`, lines.py; null: counted here). Valid text comes without
+-- its LF from those threads, so the LF drop below only acts on decoded bytes (and on lines.py's
+-- reference path). Run once per piece of lines handed over by the reader (`ingest_lines`: an
+-- Arrow table, never copied into a table)
 insert into ingest_fields
 with
 
@@ -15,6 +18,8 @@ lines as (
         text as valid_text,
         raw,
         length,
+        delimiters,
+        plain,
     from ingest_lines
 ),
 
@@ -113,9 +118,10 @@ final as (
         case when reason is null then quoted_fields end as fields,
         -- stored beside the list: the width checks need not scan the lists
         case
-            when reason is null and unquoted
-                then (strlen(text) - strlen(replace(text, $delimiter, ''))) // strlen($delimiter)
-                + 1
+            when reason is null and unquoted then coalesce(
+                delimiters,
+                (strlen(text) - strlen(replace(text, $delimiter, ''))) // strlen($delimiter)
+            ) + 1
             when reason is null then len(quoted_fields)
         end as field_count,
         reason,
@@ -130,6 +136,16 @@ final as (
             when 'unclosed_quote' then 'a quoted field is not closed on its line'
         end as detail,
         (text is null or text <> '') and not ($header and line_no = 1) as record,
+        -- no field of the line changes under trim (005's ingest_trim): an unquoted ASCII line
+        -- (strlen = length) with no space at its ends or beside a delimiter; one test a line
+        -- costs less than ingest_trim's three on every field (020). The reader's threads
+        -- judge most lines (`plain`, lines.py; null: judged here)
+        unquoted and coalesce(
+            plain,
+            strlen(text) = length(text)
+            and not starts_with(text, ' ') and not ends_with(text, ' ')
+            and not contains(text, ' ' || $delimiter) and not contains(text, $delimiter || ' ')
+        ) as trimmed,
     from classified
 )
 
@@ -143,4 +159,5 @@ select
     reason,
     detail,
     record,
+    trimmed,
 from final

@@ -1,5 +1,7 @@
 -- every receipt line of one batch of files, typed, with the first rule it breaks (reason null = accepted);
--- duplicates are found afterwards among the accepted lines (030)
+-- duplicates are found afterwards among the accepted lines (030). The file is the ordinal's
+-- high bits (its position in ingest_batch_files, reader.py): a copy of its path on every line
+-- cost more than any step that needs it pays to look it up
 create temp table ingest_checked as
 with
 
@@ -11,21 +13,21 @@ store_timezones as (
     select store, timezone from ingest_store_timezones
 ),
 
+-- ingest_trimmed: 010 found no field of the line that trim would change (005)
 trimmed as (
     select
         ordinal,
-        path,
         line_no,
-        nullif(ingest_trim(receipt), '') as receipt,
-        nullif(ingest_trim(line), '') as line_text,
-        nullif(ingest_trim(store), '') as store,
-        nullif(ingest_trim(sold_at), '') as sold_at_text,
-        nullif(ingest_trim(sku), '') as sku,
-        nullif(ingest_trim(quantity), '') as quantity_text,
-        nullif(ingest_trim(amount), '') as amount_text,
-        nullif(ingest_trim(discount), '') as discount_text,
-        nullif(ingest_trim(card), '') as card,
-        coalesce(lower(nullif(ingest_trim(line_kind), '')), 'sale') as line_kind,
+        nullif(ingest_trim_unless(receipt, ingest_trimmed), '') as receipt,
+        nullif(ingest_trim_unless(line, ingest_trimmed), '') as line_text,
+        nullif(ingest_trim_unless(store, ingest_trimmed), '') as store,
+        nullif(ingest_trim_unless(sold_at, ingest_trimmed), '') as sold_at_text,
+        nullif(ingest_trim_unless(sku, ingest_trimmed), '') as sku,
+        nullif(ingest_trim_unless(quantity, ingest_trimmed), '') as quantity_text,
+        nullif(ingest_trim_unless(amount, ingest_trimmed), '') as amount_text,
+        nullif(ingest_trim_unless(discount, ingest_trimmed), '') as discount_text,
+        nullif(ingest_trim_unless(card, ingest_trimmed), '') as card,
+        coalesce(lower(nullif(ingest_trim_unless(line_kind, ingest_trimmed), '')), 'sale') as line_kind,
     from source_lines
 ),
 
@@ -138,7 +140,6 @@ classified as (
 final as (
     select
         ordinal,
-        path,
         line_no,
         receipt,
         line,
@@ -198,7 +199,6 @@ final as (
 
 select
     ordinal,
-    path,
     line_no,
     receipt,
     line,

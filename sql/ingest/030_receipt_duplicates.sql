@@ -1,15 +1,16 @@
 -- accepted lines that repeat one already accepted: the same store, sale day, receipt and line
 -- earlier in this batch (same file or an earlier file) or in raw_lines (an earlier run); a line
 -- without a line number repeats when its receipt (store, day, receipt) was already accepted
--- from another file. The CTEs read more than once are not materialized: a copy of every
--- accepted line's key strings cost more than scanning ingest_checked again
+-- from another file (files told apart by their position, the ordinal's high bits). The CTEs
+-- read more than once are not materialized: a copy of every accepted line's key strings cost
+-- more than scanning ingest_checked again
 create temp table ingest_duplicates as
 with
 
 candidates as not materialized (
     select
         ordinal,
-        path,
+        ordinal >> 40 as position,
         store,
         sold_at::date as sale_day,
         receipt,
@@ -60,10 +61,10 @@ receipt_in_earlier_file as (
         row_number() over (
             partition by store, sale_day, receipt order by ordinal
         ) as copy,
-        first_value(path) over (
+        first_value(position) over (
             partition by store, sale_day, receipt order by ordinal
-        ) as first_path,
-        path,
+        ) as first_position,
+        position,
     from candidates
     where line is null
 ),
@@ -92,7 +93,7 @@ receipt_in_earlier_run as (
 final as (
     select ordinal from repeated_in_batch
     union
-    select ordinal from receipt_in_earlier_file where path <> first_path
+    select ordinal from receipt_in_earlier_file where position <> first_position
     union
     select ordinal from line_in_earlier_run
     union

@@ -12,14 +12,16 @@ reader_rejects as (
     from ingest_rejected
 ),
 
+-- the file of a checked line is its ordinal's high bits (020 keeps no path per line)
 rule_breaks as (
     select
-        checked.path,
+        files.path,
         checked.line_no,
         checked.reason,
         checked.detail,
         rendered.original_text,
     from ingest_checked as checked
+    join ingest_batch_files as files on files.position = checked.ordinal >> 40
     left join ingest_rendered as rendered on rendered.ordinal = checked.ordinal
     where checked.reason is not null
 ),

@@ -46,6 +46,8 @@ from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier, run_sql
 
 FILE_PATH_COLUMN = "ingest_file_path"
+# per staged line: true when no field of it changes under trim (010), false for Parquet rows
+TRIMMED_COLUMN = "ingest_trimmed"
 STAGING_OBJECTS = (
     "ingest_source_lines",
     "ingest_numbered",
@@ -221,7 +223,7 @@ def _read_lines(
     workers = int(con.execute("select current_setting('threads')").fetchall()[0][0])
     pieces: list[pa.Table] = []
     size = 0
-    chunks = batch_line_chunks(paths, source.encoding, workers)
+    chunks = batch_line_chunks(paths, source.encoding, workers, source.delimiter)
     try:
         while True:
             with timer.phase("read"):
@@ -301,9 +303,10 @@ def _stage_csv(
     # each line is split once, as the stage is read (010 keeps no list for unquoted lines)
     con.execute(
         "create temp view ingest_stage as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {FILE_PATH_COLUMN}, line_no"
+        f"select ordinal, {FILE_PATH_COLUMN}, line_no, {TRIMMED_COLUMN}"
         + (f", {fields}" if fields else "")
         + f" from (select f.ordinal, b.path as {FILE_PATH_COLUMN}, f.line_no{places}, "
+        f"f.trimmed as {TRIMMED_COLUMN}, "
         "ingest_line_fields(f.text, f.fields, f.reason, l.delimiter) as line_fields "
         "from ingest_fields f join ingest_file_layouts l using (position) "
         "join ingest_batch_files b using (position) "
@@ -402,14 +405,16 @@ def _stage_parquet(con: duckdb.DuckDBPyConnection, paths: list[Path]) -> None:
     run_sql(con, "ingest/014_parquet_records.sql")
     con.execute(
         "create temp view ingest_numbered as "
-        "select * exclude (ingest_row_number), ingest_row_number as line_no from ingest_stage"
+        "select * exclude (ingest_row_number), ingest_row_number as line_no, "
+        f"false as {TRIMMED_COLUMN} from ingest_stage"
     )
 
 
 def create_source_view(
     con: duckdb.DuckDBPyConnection, mapped: dict[str, SourceColumn], names: tuple[str, ...]
 ) -> None:
-    """`ingest_source_lines`: ordinal, path, line_no, then each of `names` as text (or NULL)."""
+    """`ingest_source_lines`: ordinal, path, line_no, ingest_trimmed (010), then each of `names`
+    as text (or NULL)."""
     fields = [
         _text_expression(mapped[name]) if name in mapped else "null::varchar" for name in names
     ]
@@ -418,7 +423,8 @@ def create_source_view(
     )
     con.execute(
         "create or replace temp view ingest_source_lines as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {FILE_PATH_COLUMN} as path, line_no, {select} from ingest_numbered"
+        f"select ordinal, {FILE_PATH_COLUMN} as path, line_no, {TRIMMED_COLUMN}, {select} "
+        "from ingest_numbered"
     )
 
 

@@ -123,8 +123,10 @@ def _first_example(
     by `duplicate_field`.
     """
     row = con.execute(
+        # a staged line's ordinal is its file's position << 40 plus its line number (reader.py)
         "select q.line_no, c.ordinal, c.reason_field from quarantine q "
-        "left join ingest_checked c on c.path = q.path and c.line_no = q.line_no "
+        "join ingest_batch_files f on f.file_id = q.file_id "
+        "left join ingest_checked c on c.ordinal = (f.position::bigint << 40) + q.line_no "
         "where q.file_id = $file_id and q.reason = $reason "
         "order by q.line_no nulls last limit 1",
         {"file_id": file_id, "reason": reason},

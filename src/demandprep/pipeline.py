@@ -97,8 +97,8 @@ def build_unless_current(
 
         ctx = BuildContext(con=con, config=config)
         market_level, choice_stages = split_at_choices(build_stages(config))
-        # one commit for the market-level stages: a commit per statement cost more than their
-        # SQL on a night's build, and a failing stage now leaves the warehouse as it was
+        # one commit for the market-level stages: a failing stage leaves the warehouse as it
+        # was, and a commit per statement cost more than many of these small statements
         with ctx.atomic():
             for stage in market_level:
                 _run_reported(stage, ctx, on_stage, on_stage_done)

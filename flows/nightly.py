@@ -43,7 +43,7 @@ from demandprep.ingest.runner import (
     still_refused,
 )
 from demandprep.stage import Stage, run_stage
-from demandprep.stages import build_stages
+from demandprep.stages import build_stages, split_at_choices
 from demandprep.warehouse import open_warehouse
 
 # Reading a file can fail for a moment (a network share, a file still being copied in).
@@ -151,7 +151,11 @@ def run_night(config: ProjectConfig, force_rebuild: bool) -> dict[str, Any]:
             logger.info(message)
             return {"status": "skipped", "message": message, "ingested": [], "build": None}
         ctx = BuildContext(con=con, config=config)
-        for stage in build_stages(config):
+        market_level, choice_stages = split_at_choices(build_stages(config))
+        with ctx.atomic():  # as the direct runner: one commit for the market-level stages
+            for stage in market_level:
+                call(stage_task.with_options(name=f"stage {stage.name}"), stage, ctx)
+        for stage in choice_stages:
             call(stage_task.with_options(name=f"stage {stage.name}"), stage, ctx)
         call(validate_task, ctx)
         # one publisher at a time per export root, from the staging cleanup to the pruning

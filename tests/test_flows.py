@@ -212,6 +212,32 @@ def test_night_holds_the_warehouse_writer_lock_between_its_tasks(
         pass  # and released once the night is over
 
 
+def stored_summary_files(config: ProjectConfig) -> list[tuple[str, str]]:
+    """The receipts files each kept period summary was built from."""
+    with duckdb.connect(str(config.warehouse.path), read_only=True) as con:
+        return con.execute(
+            "select summary, file_id from market_summary_files order by all"
+        ).fetchall()
+
+
+def test_a_stage_failing_after_the_summaries_leaves_them_as_they_were(
+    night_one: NightOne, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    config = night_one.restore()
+    before = stored_summary_files(config)
+    add_next_day(night_one)
+    stages = nightly.build_stages(config)
+    reason = "forced failure in stage share_table"
+    monkeypatch.setattr(
+        nightly, "build_stages", lambda cfg: fail_stage(stages, "share_table", reason)
+    )
+
+    state = run_night(night_one.config_path)
+
+    assert state.is_failed() and reason in state.message
+    assert stored_summary_files(config) == before
+
+
 @pytest.mark.slow
 def test_night_after_a_failure_rebuilds_without_new_files(
     night_one: NightOne, monkeypatch: pytest.MonkeyPatch

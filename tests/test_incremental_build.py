@@ -334,6 +334,41 @@ def test_crash_while_storing_summaries_keeps_the_old_ones_and_the_next_build_is_
     assert_same_parquet(recovered, full_rebuild(world))
 
 
+def stored_state(world: Path) -> dict[str, list[tuple]]:
+    """What a build keeps between nights: summaries' files and the stored instrument inputs."""
+    config = load_config(world / "demandprep.toml")
+    con = duckdb.connect(str(config.warehouse.path), read_only=True)
+    try:
+        return {
+            table: con.execute(f"select * from {table} order by all").fetchall()  # noqa: S608
+            for table in ("market_summary_files", "market_sku_sales", "iv_stored_products")
+        }
+    finally:
+        con.close()
+
+
+def test_a_stage_failing_late_leaves_the_stored_periods_as_they_were(world, tmp_path, monkeypatch):
+    from demandprep.instruments import assemble
+
+    build(world)
+    before = stored_state(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+
+    def crash(*_args, **_kwargs):
+        raise RuntimeError("power cut")
+
+    # share_table comes after the summaries and the instrument values were stored
+    with monkeypatch.context() as patch:
+        patch.setattr(assemble, "require_table", crash)
+        with pytest.raises(RuntimeError, match="power cut"):
+            build(world)
+    assert stored_state(world) == before
+    recovered, manifest = build(world)
+    assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert instrument_scope(manifest)["periods_rebuilt"] == ["2024-02-12"]
+    assert_same_parquet(recovered, full_rebuild(world))
+
+
 def test_run_opens_the_warehouse_once_for_ingest_and_build(world, monkeypatch):
     from typer.testing import CliRunner
 

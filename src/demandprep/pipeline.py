@@ -93,13 +93,28 @@ def build_unless_current(
         # the stage list and the export import every step (pandas, pandera): a skipped night
         # and `ingest` need none of them
         from demandprep.export.folder import export_build
-        from demandprep.stages import build_stages
+        from demandprep.stages import build_stages, split_at_choices
 
         ctx = BuildContext(con=con, config=config)
-        for stage in build_stages(config):
-            if on_stage is not None:
-                on_stage(stage)
-            run_stage(stage, ctx)
-            if on_stage_done is not None:
-                on_stage_done(stage, ctx.timings[stage.name])
+        market_level, choice_stages = split_at_choices(build_stages(config))
+        # one commit for the market-level stages: a failing stage leaves the warehouse as it
+        # was, and a commit per statement cost more than many of these small statements
+        with ctx.atomic():
+            for stage in market_level:
+                _run_reported(stage, ctx, on_stage, on_stage_done)
+        for stage in choice_stages:
+            _run_reported(stage, ctx, on_stage, on_stage_done)
         return BuildOutcome(folder=export_build(ctx), ctx=ctx)
+
+
+def _run_reported(
+    stage: Stage,
+    ctx: BuildContext,
+    on_stage: Callable[[Stage], None] | None,
+    on_stage_done: StageDone | None,
+) -> None:
+    if on_stage is not None:
+        on_stage(stage)
+    run_stage(stage, ctx)
+    if on_stage_done is not None:
+        on_stage_done(stage, ctx.timings[stage.name])

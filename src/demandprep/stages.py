@@ -27,6 +27,13 @@ def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
     return stages
 
 
+def split_at_choices(stages: tuple[Stage, ...]) -> tuple[tuple[Stage, ...], tuple[Stage, ...]]:
+    """The stages before the choice build (small tables: the direct runner commits them once)
+    and the choice stages (hundreds of millions of rows, committed stage by stage)."""
+    before = tuple(stage for stage in stages if stage not in CHOICE_STAGES)
+    return before, tuple(stage for stage in stages if stage in CHOICE_STAGES)
+
+
 def run_build_stages(ctx: BuildContext, on_stage: Callable[[Stage], None] | None = None) -> None:
     """Run every stage in order; `on_stage` is told before each one (for progress display)."""
     for stage in build_stages(ctx.config):

@@ -72,6 +72,18 @@ def open_warehouse(settings: WarehouseSection) -> Iterator[duckdb.DuckDBPyConnec
 
 
 @contextmanager
+def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
+    """The block in one transaction: committed when it ends, rolled back when it raises."""
+    con.execute("begin transaction")
+    try:
+        yield
+    except BaseException:
+        con.execute("rollback")
+        raise
+    con.execute("commit")
+
+
+@contextmanager
 def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
     """Within the block, DuckDB stores and scans rows in the order they were written."""
     before = con.execute("select current_setting('preserve_insertion_order')").fetchone()[0]

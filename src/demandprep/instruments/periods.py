@@ -197,8 +197,7 @@ def spread_moved(ctx: BuildContext) -> bool:
 def store_instrument_values(ctx: BuildContext) -> None:
     """Merge this build's rows into the stored values and store their inputs, atomically."""
     con = ctx.con
-    con.execute("begin transaction")
-    try:
+    with ctx.atomic():
         for stored, fresh, column in (
             ("iv_stored_values", "instrument_values", "instrument"),
             ("iv_stored_flags", "instrument_flags", "flag"),
@@ -206,10 +205,6 @@ def store_instrument_values(ctx: BuildContext) -> None:
             _replace_rows(con, stored, fresh, column, is_full_build(ctx))
         _store_inputs(con, ctx.config.instruments.differentiation)
         store_instrument_state(con, current_fingerprint(ctx))
-        con.execute("commit")
-    except BaseException:
-        con.execute("rollback")
-        raise
 
 
 def store_instrument_state(

@@ -217,8 +217,7 @@ def store_summary(ctx: BuildContext, summary: str, model: type[pa.DataFrameModel
     its state, atomically; returns the summary's rows."""
     con = ctx.con
     full = is_full_build(con, summary)
-    con.execute("begin transaction")
-    try:
+    with ctx.atomic():
         # the kept periods' rows passed this model when they were stored (same fingerprint):
         # only the recomputed rows are read into Python, the key is checked whole in SQL
         validate_table(con, f"{summary}_slice", model, shown_as=summary)
@@ -231,10 +230,6 @@ def store_summary(ctx: BuildContext, summary: str, model: type[pa.DataFrameModel
         require_unique_key(con, summary, model)
         rows = con.execute(f"select count(*) from {summary}").fetchone()[0]  # noqa: S608
         store_summary_state(con, summary, current_fingerprint(con, ctx.config))
-        con.execute("commit")
-    except BaseException:
-        con.execute("rollback")
-        raise
     return rows
 
 

@@ -300,7 +300,8 @@ def region_nights(
 
     1 `held_back`: Lindenmoor's last day held back; 2 `one_more_day`: it arrives; 3 `corrected`:
     that file corrected, its lines now Harrowfield store S01's; 4 `withdrawn`: the corrected
-    file withdrawn on the coordinator; 5 `rebuilt`: the partitions' folders removed, built again.
+    file withdrawn on the coordinator; 5 `rebuilt`: the partitions' folders removed, every
+    partition built again from its files (the file stays withdrawn: what night 4 must give).
     """
     folder = tmp_path_factory.mktemp("region")
     nights = Nights(region_layout(sample_copy(coffee_sample, folder / "sample", PARTITIONING)))
@@ -332,13 +333,32 @@ def region_nights(
     con.close()
     with open_warehouse(config.warehouse) as con:
         withdraw_files(con, config, str(last_day), "recalled by the store")
-    try:
-        build_partitioned(config, map_in_process(config))
-    except UserError as error:
-        nights.errors["withdrawn"] = error
+    nights.facts["mapped_withdrawn"] = []
+    nights.outcomes["withdrawn"] = build_partitioned(
+        config, recording(config, nights.facts["mapped_withdrawn"])
+    )
+    nights.facts["withdrawn_in_partitions"] = partition_ledger_rows(config, str(last_day))
     shutil.rmtree(config.partitioning.root)
-    nights.outcomes["rebuilt"] = build_partitioned(config, map_in_process(config))
+    # forced: nothing changed since night 4, whose build is current
+    nights.outcomes["rebuilt"] = build_partitioned(config, map_in_process(config), force=True)
     return nights
+
+
+def partition_ledger_rows(config: ProjectConfig, path: str) -> dict[str, tuple]:
+    """Per partition warehouse: the file's ledger status and the lines of it still held."""
+    rows = {}
+    for warehouse in sorted(config.partitioning.root.glob("partition-*/warehouse.duckdb")):
+        con = duckdb.connect(str(warehouse), read_only=True)
+        statuses = con.execute(
+            "select list(status order by file_id) from ledger where path = $path", {"path": path}
+        ).fetchone()[0]
+        held = con.execute(
+            "select count(*) from raw_lines join ledger using (file_id) where path = $path",
+            {"path": path},
+        ).fetchone()[0]
+        con.close()
+        rows[warehouse.parent.name] = (statuses, held)
+    return rows
 
 
 def move_lines_to_store(path: Path, store: str) -> None:
@@ -388,20 +408,23 @@ def test_a_corrected_file_leaving_a_partition_takes_its_old_lines_out_of_it(
     assert str(corrected) in lindenmoor.files
 
 
-def test_a_file_withdrawn_on_the_coordinator_stops_the_next_build_until_partitions_rebuild(
+def test_a_file_withdrawn_on_the_coordinator_leaves_the_partitions_that_read_it(
     region_nights: Nights,
 ) -> None:
-    withdrawn = region_nights.config.config_path.parent / "receipts" / "lindenmoor" / LAST_DAY.name
-    assert (
-        region_nights.errors["withdrawn"]
-        .one_line()
-        .startswith(
-            f"{withdrawn}: the coordinator accepted 0 lines of this receipts file, but the "
-            "partitions hold "
-        )
-    )
+    # both partitions that read the corrected file are mapped again, and withdraw it too
+    assert region_nights.facts["mapped_withdrawn"] == [["Harrowfield", "Lindenmoor"]]
+    held = region_nights.facts["withdrawn_in_partitions"]
+    read_it = {name: rows for name, rows in held.items() if rows[0]}
+    assert len(read_it) == 2
+    for statuses, lines in read_it.values():
+        assert (statuses[-1], lines) == ("withdrawn", 0)
+    # the same tables as partitions built afresh from the files that stay
+    withdrawn = region_nights.outcomes["withdrawn"]
+    scope = withdrawn.ctx.facts["build_scope"]
+    # Lindenmoor held none of the corrected file's lines (they are S01's): no period to redo
+    assert scope["partitions_rebuilt"] == ["Harrowfield"]
+    assert_same_tables(region_nights.outcomes["rebuilt"].folder, withdrawn.folder)
     rebuilt = region_nights.outcomes["rebuilt"]
-    assert rebuilt.folder is not None
     assert latest_build(region_nights.config.export.root) == rebuilt.folder
 
 

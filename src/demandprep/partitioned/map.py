@@ -9,6 +9,7 @@ partition that recomputed nothing writes the same bytes again).
 
 from __future__ import annotations
 
+import glob
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -20,6 +21,7 @@ import pyarrow.parquet as pq
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.ingest.runner import ensure_tables, ingest_all
+from demandprep.ingest.withdraw import withdraw_files
 from demandprep.market.stages import MARKET_STAGES
 from demandprep.memory import memory_shared_with_batches
 from demandprep.partitioned.plan import (
@@ -37,6 +39,8 @@ from demandprep.sqlfiles import quote_identifier
 from demandprep.stage import Stage, run_stage
 from demandprep.warehouse import open_warehouse
 
+# the partition's ledger reason for a file withdrawn on the coordinator
+UNROUTED_REASON = "withdrawn on the coordinator"
 # the stages a partition runs: the market build up to its last scan of raw lines
 LAST_MAP_STAGE = "market_sku_sales"
 BATCH_ROWS = 65_536
@@ -67,6 +71,7 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
     own = partition_config(config, partition)
     with open_warehouse(own.warehouse) as con:
         ensure_tables(con)
+        withdraw_unrouted_files(con, own, partition)
         last_file_id = last_ingested_file_id(con)
         ingest_all(con, routed_config(own, partition))
         placement = placement_of_files_since(con, config, last_file_id)
@@ -85,6 +90,26 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
     write_routing_record(config, partition, lines, placement)
     scope = ctx.facts.get("build_scope", {})
     return PartitionSummaries(partition, files, rows, scope, lines, placement)
+
+
+def withdraw_unrouted_files(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig, partition: Partition
+) -> None:
+    """Withdraw the receipts files the partition holds but the coordinator no longer builds from.
+
+    A partition is routed every current file it read before (routing.py), so a file it holds
+    that is not routed left the coordinator's current files: withdrawn there. Its lines leave
+    the partition the same way (and its periods are recomputed, as for a file withdrawn in one
+    process).
+    """
+    routed = set(partition.files)
+    held = con.execute(
+        "select path from ledger where source = 'receipts' and status = 'current' order by path"
+    ).fetchall()
+    for (path,) in held:
+        if path not in routed:
+            # escaped: the path is matched as written, whatever glob characters it holds
+            withdraw_files(con, config, glob.escape(path), UNROUTED_REASON)
 
 
 def kept_summaries(config: ProjectConfig, partition: Partition) -> PartitionSummaries:

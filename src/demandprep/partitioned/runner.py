@@ -180,8 +180,8 @@ def check_lines_add_up(
     """Refuse to reduce unless each receipts file's accepted lines are in the partitions once.
 
     The coordinator's ledger counts each file's lines once (receipts_ledger.py); every
-    accepted line must sit in exactly one partition (a withdrawn file's lines, for one, stay in
-    the partitions until their folders are removed).
+    accepted line must sit in exactly one partition (a file withdrawn on the coordinator leaves
+    the partitions that read it when they are mapped again: map.withdraw_unrouted_files).
     """
     held: Counter[str] = Counter()
     for item in summaries:

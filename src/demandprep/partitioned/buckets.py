@@ -36,7 +36,7 @@ from demandprep.context import BuildContext
 from demandprep.partitioned.attached import partition_lines_view, warehouses_attached
 from demandprep.partitioned.choice_inputs import copy_choice_inputs
 from demandprep.partitioned.map import write_query
-from demandprep.partitioned.plan import buckets_folder
+from demandprep.partitioned.plan import buckets_folder, config_with_warehouse_in
 from demandprep.sqlfiles import run_sql
 from demandprep.stage import run_stage
 from demandprep.warehouse import open_warehouse
@@ -99,11 +99,7 @@ def bucket_folder(config: ProjectConfig, bucket: ChooserBucket) -> Path:
 
 def bucket_config(config: ProjectConfig, bucket: ChooserBucket) -> ProjectConfig:
     """The project's config with the warehouse moved into the bucket's folder."""
-    folder = bucket_folder(config, bucket)
-    warehouse = config.warehouse.model_copy(
-        update={"path": folder / "warehouse.duckdb", "temp_directory": folder / "tmp"}
-    )
-    return config.model_copy(update={"warehouse": warehouse})
+    return config_with_warehouse_in(config, bucket_folder(config, bucket))
 
 
 def build_bucket(

@@ -92,7 +92,11 @@ def summary_path(config: ProjectConfig, partition: Partition, summary: str) -> P
 
 def partition_config(config: ProjectConfig, partition: Partition) -> ProjectConfig:
     """The project's config with the warehouse moved into the partition's folder."""
-    folder = partition_folder(config, partition)
+    return config_with_warehouse_in(config, partition_folder(config, partition))
+
+
+def config_with_warehouse_in(config: ProjectConfig, folder: Path) -> ProjectConfig:
+    """The project's config with its warehouse (and spill folder) in `folder`."""
     warehouse = config.warehouse.model_copy(
         update={"path": folder / "warehouse.duckdb", "temp_directory": folder / "tmp"}
     )

@@ -12,7 +12,7 @@ import pytest
 
 from demandprep.config import WarehouseSection
 from demandprep.errors import UserError
-from demandprep.warehouse import open_warehouse
+from demandprep.warehouse import one_thread, open_warehouse
 
 
 def settings(tmp_path: Path, timeout: float = 0.5) -> WarehouseSection:
@@ -42,7 +42,7 @@ HOLDER = textwrap.dedent(
     import sys, time
     from pathlib import Path
     from demandprep.config import WarehouseSection
-    from demandprep.warehouse import open_warehouse
+    from demandprep.warehouse import one_thread, open_warehouse
     root = Path(sys.argv[1])
     cfg = WarehouseSection(path=root / "w.duckdb", temp_directory=root / "spill")
     with open_warehouse(cfg):
@@ -61,6 +61,15 @@ def start_holder(tmp_path: Path, seconds: float) -> subprocess.Popen:
         assert time.monotonic() < deadline, "lock holder never started"
         time.sleep(0.05)
     return process
+
+
+def test_one_thread_sets_the_threads_back_even_when_the_block_fails(tmp_path: Path) -> None:
+    with open_warehouse(settings(tmp_path).model_copy(update={"threads": 2})) as con:
+        threads = "select current_setting('threads')"
+        with pytest.raises(RuntimeError), one_thread(con):
+            assert con.execute(threads).fetchone()[0] == 1
+            raise RuntimeError("a failing statement")
+        assert con.execute(threads).fetchone()[0] == 2
 
 
 def test_second_writer_stops_with_a_clear_message(tmp_path: Path) -> None:

@@ -2,28 +2,24 @@
 -- with the alternative's price, promo flag and attributes at the occasion, the chosen row's
 -- quantity and spend, the chooser's history from earlier occasions, holdout flag and
 -- demographics. Each occasion's row is unnested into its rows, its alternatives looked up in
--- its store-day's map (078), which sits at position store_day_index of one list of them all.
--- No join: choice_occasion_sets is stored in occasion order with sorted sets, and with the
--- stage keeping insertion order the rows are written in (occasion, alternative) order, which
--- the validation and the export rely on to skip a sort. A hash join here would let DuckDB write
--- them out of order (its plan would show "Create Table As", not "Batch Create Table As").
+-- its store-day's map (078), joined by store_day_index. choice_occasion_sets is stored in
+-- occasion order with sorted sets, and the stage runs this statement on one DuckDB thread
+-- keeping insertion order (choices/build.py), so the join streams the occasions in their
+-- stored order and the rows are written in (occasion, alternative) order, which lets the
+-- validation and the export skip a sort (both check the order and sort when it is not kept).
+-- One list of every store-day's map, indexed per occasion, kept the order on two threads, but
+-- each batch of occasions copied the whole list: the cost per row grew with the store-days
+-- (on the 10M-occasion benchmark, 72,800 store-days, this statement took 407 CPU seconds).
 create or replace table choices as
 
 with
 
-store_day_maps as (
-    -- one row: every store-day's map at its position (store_day_index runs 1, 2, ...)
-    select list(alternative_info order by store_day_index) as alternative_infos
-    from choice_store_day_info
-),
-
 occasions as (
     select
         choice_occasion_sets.* exclude (day, store_day_index),
-        store_day_maps.alternative_infos[choice_occasion_sets.store_day_index]
-            as alternative_info,
-    -- a product with the one row, not a join: it keeps the occasions' order
-    from choice_occasion_sets, store_day_maps
+        choice_store_day_info.alternative_info,
+    from choice_occasion_sets
+    left join choice_store_day_info using (store_day_index)
 ),
 
 occasion_rows as (

@@ -84,6 +84,20 @@ def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
 
 
 @contextmanager
+def one_thread(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
+    """Within the block, DuckDB runs each statement on one thread (then the threads set before).
+
+    With insertion order kept, one thread writes rows in the order its plan streams them, also
+    through a join whose probe does not keep order on several threads."""
+    before = con.execute("select current_setting('threads')").fetchone()[0]
+    con.execute("set threads = 1")
+    try:
+        yield
+    finally:
+        con.execute(f"set threads = {int(before)}")
+
+
+@contextmanager
 def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
     """Within the block, DuckDB stores and scans rows in the order they were written."""
     before = con.execute("select current_setting('preserve_insertion_order')").fetchone()[0]

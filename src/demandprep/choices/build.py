@@ -25,7 +25,7 @@ from demandprep.errors import UserError
 from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
-from demandprep.warehouse import insertion_order_kept
+from demandprep.warehouse import insertion_order_kept, one_thread
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
@@ -191,15 +191,19 @@ def build_choosers(ctx: BuildContext) -> None:
 
 def build_choices(ctx: BuildContext) -> None:
     """The long choices table, validated on every row; records facts and cleans up."""
-    settings = _settings(ctx)
-    # rows leave the unnest in (occasion, alternative) order; keep that order on disk
-    with insertion_order_kept(ctx.con):
-        _run(ctx, settings, "090_choices")
+    write_choices_table(ctx, _settings(ctx))
     validate_choices(ctx.con)
     facts = choice_facts(ctx.con, ctx.config)
     ctx.facts["choices"] = facts
     warn_on_facts(ctx, facts)
     drop_intermediate_tables(ctx)
+
+
+def write_choices_table(ctx: BuildContext, settings: ChoiceSettings) -> None:
+    """090's `choices`, stored in (occasion, alternative) order: the rows leave the unnest in
+    that order, and one thread keeps it through the join with the store-day maps (see 090)."""
+    with insertion_order_kept(ctx.con), one_thread(ctx.con):
+        _run(ctx, settings, "090_choices")
 
 
 def drop_intermediate_tables(ctx: BuildContext) -> None:

@@ -7,7 +7,7 @@ on an advisory lock file beside the database, then stops with a clear message.
 from __future__ import annotations
 
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import AbstractContextManager, contextmanager
 from pathlib import Path
 
 import duckdb
@@ -83,26 +83,29 @@ def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
     con.execute("commit")
 
 
-@contextmanager
-def one_thread(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
+def one_thread(con: duckdb.DuckDBPyConnection) -> AbstractContextManager[None]:
     """Within the block, DuckDB runs each statement on one thread (then the threads set before).
 
     With insertion order kept, one thread writes rows in the order its plan streams them, also
     through a join whose probe does not keep order on several threads."""
-    before = con.execute("select current_setting('threads')").fetchone()[0]
-    con.execute("set threads = 1")
-    try:
-        yield
-    finally:
-        con.execute(f"set threads = {int(before)}")
+    return _setting_within(con, "threads", 1)
+
+
+def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> AbstractContextManager[None]:
+    """Within the block, DuckDB stores and scans rows in the order they were written."""
+    return _setting_within(con, "preserve_insertion_order", True)
 
 
 @contextmanager
-def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
-    """Within the block, DuckDB stores and scans rows in the order they were written."""
-    before = con.execute("select current_setting('preserve_insertion_order')").fetchone()[0]
-    con.execute("set preserve_insertion_order = true")
+def _setting_within(con: duckdb.DuckDBPyConnection, name: str, value: bool | int) -> Iterator[None]:
+    """DuckDB setting `name` (one of ours, never user text) at `value` within the block."""
+    before = con.execute("select current_setting($name)", {"name": name}).fetchone()[0]
+    con.execute(f"set {name} = {_setting_literal(value)}")
     try:
         yield
     finally:
-        con.execute(f"set preserve_insertion_order = {'true' if before else 'false'}")
+        con.execute(f"set {name} = {_setting_literal(before)}")
+
+
+def _setting_literal(value: bool | int) -> str:
+    return ("true" if value else "false") if isinstance(value, bool) else str(int(value))

@@ -42,7 +42,7 @@ HOLDER = textwrap.dedent(
     import sys, time
     from pathlib import Path
     from demandprep.config import WarehouseSection
-    from demandprep.warehouse import one_thread, open_warehouse
+    from demandprep.warehouse import open_warehouse
     root = Path(sys.argv[1])
     cfg = WarehouseSection(path=root / "w.duckdb", temp_directory=root / "spill")
     with open_warehouse(cfg):

@@ -1,26 +1,17 @@
 -- The long chooser-alternative table: one row per occasion and alternative of its (sampled) set,
 -- with the alternative's price, promo flag and attributes at the occasion, the chosen row's
 -- quantity and spend, the chooser's history from earlier occasions, holdout flag and
--- demographics. Each occasion's row is unnested into its rows, its alternatives looked up in
--- its store-day's map (078), joined by store_day_index. choice_occasion_sets is stored in
--- occasion order with sorted sets, and the stage runs this statement on one DuckDB thread
--- keeping insertion order (choices/build.py), so the join streams the occasions in their
--- stored order and the rows are written in (occasion, alternative) order, which lets the
+-- demographics. Each occasion's row (with its store-day's map: choice_occasion_maps, 085 or
+-- 086) is unnested into its rows, its alternatives looked up in that map.
+-- choice_occasion_sets is stored in occasion order with sorted sets and the stage keeps
+-- insertion order, so the rows are written in (occasion, alternative) order, which lets the
 -- validation and the export skip a sort (both check the order and sort when it is not kept).
--- One list of every store-day's map, indexed per occasion, kept the order on two threads, but
--- each batch of occasions copied the whole list: the cost per row grew with the store-days
--- (on the 10M-occasion benchmark, 72,800 store-days, this statement took 407 CPU seconds on
--- two threads; joined on one thread, 193).
 create or replace table choices as
 
 with
 
 occasions as (
-    select
-        choice_occasion_sets.* exclude (day, store_day_index),
-        choice_store_day_info.alternative_info,
-    from choice_occasion_sets
-    left join choice_store_day_info using (store_day_index)
+    select * from choice_occasion_maps
 ),
 
 occasion_rows as (

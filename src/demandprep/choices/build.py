@@ -5,11 +5,14 @@ multiple-purchase policy) -> history (previous purchase, loyalty) -> choosers ->
 (availability, sampling, prices, attributes) -> choices (assembled, validated, counted).
 Nothing long-table-sized is sorted: the per-occasion table choice_occasion_sets is joined to
 everything its rows need (choosers included) and sorted by occasion, and `choices` unnests it
-without a join, so its rows are stored in (occasion, alternative) order, the export's order.
+with its store-day's map (`write_choices_table`), so its rows are stored in (occasion,
+alternative) order, the export's order.
 Intermediate tables are named choice_*; the last stage drops them, the card -> chooser map first.
 """
 
 from __future__ import annotations
+
+from contextlib import nullcontext
 
 from demandprep.choices.facts import choice_facts, warn_on_facts
 from demandprep.choices.inputs import create_input_views, drop_input_views
@@ -26,6 +29,14 @@ from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
 from demandprep.warehouse import insertion_order_kept, one_thread
+
+# 090 joins the store-day maps from this many store-days on (086, on one thread) and indexes
+# one list of them below it (085, on every thread): a value between two measurements, not a
+# measured crossover (benchmarks/choices_scale.py, 4GB, 2 cores, 2026-12-03). At 21,840
+# store-days (3M occasions) the `choices` stage took 37 s (70 CPU s) with the list against 66 s
+# (70) joined; at 72,800 (10M occasions) the 090 statement took 208 s (407 CPU s) with the list
+# against 194 s (193) joined.
+STORE_DAYS_JOINED = 50_000
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
@@ -199,11 +210,19 @@ def build_choices(ctx: BuildContext) -> None:
     drop_intermediate_tables(ctx)
 
 
-def write_choices_table(ctx: BuildContext, settings: ChoiceSettings) -> None:
-    """090's `choices`, stored in (occasion, alternative) order: the rows leave the unnest in
-    that order, and one thread keeps it through the join with the store-day maps (see 090)."""
-    with insertion_order_kept(ctx.con), one_thread(ctx.con):
-        _run(ctx, settings, "090_choices")
+def write_choices_table(
+    ctx: BuildContext, settings: ChoiceSettings, join_from: int = STORE_DAYS_JOINED
+) -> None:
+    """090's `choices`, stored in (occasion, alternative) order, each occasion with its
+    store-day's map: from one list of them all on every thread below `join_from` store-days
+    (085), by a join on one thread from there (086), whose cost per row does not grow with them.
+    """
+    store_days = ctx.con.execute("select count(*) from choice_store_day_info").fetchone()[0]
+    joined = store_days >= join_from
+    maps = "086_choice_occasion_maps_joined" if joined else "085_choice_occasion_maps_listed"
+    with insertion_order_kept(ctx.con), one_thread(ctx.con) if joined else nullcontext():
+        _run(ctx, settings, maps, "090_choices")
+    ctx.con.execute("drop view choice_occasion_maps")
 
 
 def drop_intermediate_tables(ctx: BuildContext) -> None:

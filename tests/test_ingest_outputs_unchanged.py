@@ -80,13 +80,17 @@ def test_faults_give_the_same_tables_with_plain_trim(tmp_path: Path) -> None:
     assert tables[False] == tables[True]
 
 
-@settings(
+# eight fixed examples per fuzzed comparison: each ingests its world twice
+FUZZED = settings(
     max_examples=8,
     deadline=None,
     derandomize=True,
     database=None,
     suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
 )
+
+
+@FUZZED
 @given(files=fuzz_world())
 def test_fuzzed_worlds_give_the_same_tables_with_plain_trim(files: list[FuzzFile]) -> None:
     tables = {}
@@ -132,26 +136,28 @@ def test_faults_give_the_same_tables_without_the_threads_line_preparation(
     assert tables[True] == tables[False]
 
 
-@settings(
-    max_examples=8,
-    deadline=None,
-    derandomize=True,
-    database=None,
-    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
-)
+@FUZZED
 @given(files=fuzz_world())
 def test_fuzzed_worlds_give_the_same_tables_without_the_threads_line_preparation(
     files: list[FuzzFile],
 ) -> None:
-    tables = {}
-    for thread_prep in (True, False):
-        with tempfile.TemporaryDirectory(prefix="demandprep-prep-") as folder:
-            root = Path(folder)
-            (root / "demandprep.toml").write_text(CONFIG, encoding="utf-8")
-            for item in files:
-                item.write(root)
-            tables[thread_prep] = ingest_tables(root / "demandprep.toml", thread_prep=thread_prep)
+    tables = {
+        thread_prep: fuzzed_world_tables(
+            files, lambda config_path, on=thread_prep: ingest_tables(config_path, thread_prep=on)
+        )
+        for thread_prep in (True, False)
+    }
     assert tables[True] == tables[False]
+
+
+def fuzzed_world_tables(files: list[FuzzFile], ingest) -> dict:
+    """The ingest tables of a fuzzed world written to a temporary folder, by `ingest(config)`."""
+    with tempfile.TemporaryDirectory(prefix="demandprep-fuzzed-") as folder:
+        root = Path(folder)
+        (root / "demandprep.toml").write_text(CONFIG, encoding="utf-8")
+        for item in files:
+            item.write(root)
+        return ingest(root / "demandprep.toml")
 
 
 def test_receipt_without_line_numbers_repeats_only_from_another_file_of_the_batch(
@@ -212,25 +218,14 @@ def test_faults_give_the_same_tables_without_the_trimmed_verdict(tmp_path: Path)
     assert tables[True] == tables[False]
 
 
-@settings(
-    max_examples=8,
-    deadline=None,
-    derandomize=True,
-    database=None,
-    suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large],
-)
+@FUZZED
 @given(files=fuzz_world())
 def test_fuzzed_worlds_give_the_same_tables_without_the_trimmed_verdict(
     files: list[FuzzFile],
 ) -> None:
     tables = {}
     for verdict in (True, False):
-        with tempfile.TemporaryDirectory(prefix="demandprep-verdict-") as folder:
-            root = Path(folder)
-            (root / "demandprep.toml").write_text(CONFIG, encoding="utf-8")
-            for item in files:
-                item.write(root)
-            patched = sqlfiles.sql_text if verdict else without_trimmed_verdict(sqlfiles.sql_text)
-            with mock.patch.object(sqlfiles, "sql_text", patched):
-                tables[verdict] = ingest_tables(root / "demandprep.toml")
+        patched = sqlfiles.sql_text if verdict else without_trimmed_verdict(sqlfiles.sql_text)
+        with mock.patch.object(sqlfiles, "sql_text", patched):
+            tables[verdict] = fuzzed_world_tables(files, ingest_tables)
     assert tables[True] == tables[False]

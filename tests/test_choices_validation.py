@@ -107,26 +107,28 @@ def test_the_occasion_sets_are_written_in_order_however_many_rows():
     assert "Batch Create Table As" in plan
 
 
-@pytest.mark.parametrize("join_from", [0, 2], ids=["joined on one thread", "listed"])
-def test_the_choices_rows_are_written_in_key_order_beyond_one_row_group(join_from):
-    # 090 takes each occasion's store-day map from one list of them all (085: a product with a
-    # one-row table, order kept on every thread) or from a join (086), whose probe keeps the
-    # occasions' stored order on one thread only. 1,200,000 occasions of one alternative fill
-    # ten of DuckDB's row groups (122,880 rows); with the join on two threads this test failed
-    # (the rows came out of order), at 300,000 rows it still passed by luck
+@pytest.mark.parametrize("threads", [1, 2])
+def test_the_choices_rows_are_written_in_key_order_beyond_one_row_group(threads):
+    # 090 joins each occasion to its store-day's map (086), and the join's probe keeps the
+    # occasions' stored order on one thread only: the table is written in key ranges of the
+    # occasions, one per thread, each on one thread, committed in key order (choices/parts.py).
+    # 1,200,000 occasions of one alternative fill ten of DuckDB's row groups (122,880 rows);
+    # with the join on two threads this test failed (the rows came out of order), at 300,000
+    # rows it still passed by luck
     ctx = _one_visit_world_before_choices()
+    ctx.con.execute(f"set threads = {threads}")
     with insertion_order_kept(ctx.con):
         ctx.con.execute(
             "create or replace table choice_occasion_sets as "
             "select * replace (occasion || '-' || lpad(copy::varchar, 7, '0') as occasion) "
             "from choice_occasion_sets, range(1200000) as copies(copy) order by occasion"
         )
-    write_choices_table(ctx, load_choice_settings(ctx.con, ctx.config), join_from=join_from)
+    write_choices_table(ctx, load_choice_settings(ctx.con, ctx.config))
     with insertion_order_kept(ctx.con):
         stored = ctx.con.execute("select occasion, alternative from choices").fetchall()
     assert len(set(stored)) == len(stored) == 1_200_000
     assert stored == sorted(stored)
-    assert ctx.con.execute("select current_setting('threads')").fetchone()[0] == 2
+    assert ctx.con.execute("select current_setting('threads')").fetchone()[0] == threads
 
 
 def test_the_store_day_maps_carry_no_key_columns_per_alternative():

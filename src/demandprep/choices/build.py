@@ -12,10 +12,11 @@ Intermediate tables are named choice_*; the last stage drops them, the card -> c
 
 from __future__ import annotations
 
-from contextlib import nullcontext
+import duckdb
 
 from demandprep.choices.facts import choice_facts, warn_on_facts
 from demandprep.choices.inputs import create_input_views, drop_input_views
+from demandprep.choices.parts import occasion_bounds, write_in_parts
 from demandprep.choices.pseudonyms import (
     build_pseudonym_table,
     occasion_hash_parameters,
@@ -29,14 +30,6 @@ from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
 from demandprep.warehouse import insertion_order_kept, one_thread
-
-# 090 joins the store-day maps from this many store-days on (086, on one thread) and indexes
-# one list of them below it (085, on every thread): a value between two measurements, not a
-# measured crossover (benchmarks/choices_scale.py, 4GB, 2 cores, 2026-12-03). At 21,840
-# store-days (3M occasions) the `choices` stage took 37 s (70 CPU s) with the list against 66 s
-# (70) joined; at 72,800 (10M occasions) the 090 statement took 208 s (407 CPU s) with the list
-# against 194 s (193) joined.
-STORE_DAYS_JOINED = 50_000
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
@@ -74,9 +67,12 @@ def _settings(ctx: BuildContext) -> ChoiceSettings:
 
 
 def _run(ctx: BuildContext, settings: ChoiceSettings, *names: str) -> None:
-    params = settings.params()
+    _run_on(ctx.con, settings.params(), *names)
+
+
+def _run_on(con: duckdb.DuckDBPyConnection, params: dict[str, object], *names: str) -> None:
     for name in names:
-        run_sql(ctx.con, f"choices/{name}.sql", params)
+        run_sql(con, f"choices/{name}.sql", params)
 
 
 def prepare_choice_inputs(ctx: BuildContext) -> None:
@@ -210,19 +206,34 @@ def build_choices(ctx: BuildContext) -> None:
     drop_intermediate_tables(ctx)
 
 
-def write_choices_table(
-    ctx: BuildContext, settings: ChoiceSettings, join_from: int = STORE_DAYS_JOINED
-) -> None:
-    """090's `choices`, stored in (occasion, alternative) order, each occasion with its
-    store-day's map: from one list of them all on every thread below `join_from` store-days
-    (085), by a join on one thread from there (086), whose cost per row does not grow with them.
+def write_choices_table(ctx: BuildContext, settings: ChoiceSettings) -> None:
+    """090's `choices`, stored in (occasion, alternative) order: each occasion joined to its
+    store-day's map (086), in as many parts of the occasions as DuckDB has threads, each part
+    on one thread and all at once (`parts.py`).
+
+    The join's cost per row does not grow with the store-days: the list of every store-day's
+    map that 090 indexed before (a product with a one-row table, order kept on every thread)
+    was copied by DuckDB for each batch of occasions. At 3M occasions (21,840 store-days,
+    benchmarks/choices_scale.py, 4GB, 2 cores, 2026-12-03) the `choices` stage took 34.7 s
+    (65.5 CPU s) with that list and 33.1 s (61.2) in two joined parts; at 10M (72,800
+    store-days) the list cost twice the CPU of one join.
     """
-    store_days = ctx.con.execute("select count(*) from choice_store_day_info").fetchone()[0]
-    joined = store_days >= join_from
-    maps = "086_choice_occasion_maps_joined" if joined else "085_choice_occasion_maps_listed"
-    with insertion_order_kept(ctx.con), one_thread(ctx.con) if joined else nullcontext():
-        _run(ctx, settings, maps, "090_choices")
-    ctx.con.execute("drop view choice_occasion_maps")
+    params = settings.params()
+    _run(ctx, settings, "086_choice_occasion_maps_joined", "087_choice_rows", "088_choices_table")
+
+    def write_part(con: duckdb.DuckDBPyConnection, first: str, after: str | None) -> None:
+        # the macros are TEMP: every connection defines its own
+        _run_on(con, params, "086_choice_occasion_maps_joined", "087_choice_rows")
+        part = {**params, "first_occasion": first, "after_occasion": after}
+        _run_on(con, part, "090_choices")
+
+    threads = int(ctx.con.execute("select current_setting('threads')").fetchone()[0])
+    with insertion_order_kept(ctx.con):
+        bounds = occasion_bounds(ctx.con, threads)
+        with one_thread(ctx.con):
+            write_in_parts(ctx.con, bounds, write_part)
+    for macro in ("choice_rows", "choice_occasion_maps"):
+        ctx.con.execute(f"drop macro table if exists {macro}")
 
 
 def drop_intermediate_tables(ctx: BuildContext) -> None:

@@ -223,6 +223,31 @@ def test_loyalty_starts_from_burn_in_shares_and_follows_the_recursion():
     assert first_after["days_since_last_purchase"].to_list() == [5, 5, 5]
 
 
+def test_each_chooser_has_a_loyalty_of_their_own():
+    # the history tables key choosers by a number (044): two choosers buying the same days
+    # must each follow their own recursion, L(n) = lambda L(n-1) + (1 - lambda) x(n) with
+    # lambda = 0.5 (Guadagni & Little 1983), L(0) = 0 without a burn-in window
+    world = ChoiceWorld()
+    three_products(world)
+    bought = {"card1": ["a1", "b1", "a1", "a1"], "card2": ["b1", "b1", "c1", "b1"]}
+    for card, skus in bought.items():
+        for n, sku in enumerate(skus):
+            world.visit(
+                "S1", at(MONDAY + timedelta(days=2 * n), 10 + int(card[-1])), card, [(sku, 1, 1.0)]
+            )
+    frame = choices_frame(world.build()).sort("occasion_at")
+    for hour, skus in ((11, bought["card1"]), (12, bought["card2"])):
+        own = frame.filter(pl.col("occasion_at").dt.hour() == hour)
+        level = dict.fromkeys("ABC", 0.0)
+        for n, sku in enumerate(skus):
+            rows = own.filter(pl.col("occasion_at").dt.day() == MONDAY.day + 2 * n)
+            got = dict(zip(rows["alternative"], rows["loyalty"], strict=True))
+            assert got == pytest.approx(level, abs=1e-12), (hour, n)
+            level = {
+                alt: 0.5 * value + 0.5 * (alt == sku[0].upper()) for alt, value in level.items()
+            }
+
+
 def test_loyalty_closed_form_matches_the_recursion_across_blocks():
     # lambda = 0.5 gives blocks of 865 purchases: 2000 purchases cross two block boundaries
     world = ChoiceWorld(shelf=None)

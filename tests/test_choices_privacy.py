@@ -75,6 +75,7 @@ def test_no_raw_card_id_appears_in_any_output():
         r[0] for r in ctx.con.execute("select table_name from information_schema.tables").fetchall()
     }
     assert "choice_pseudonyms" not in tables
+    assert "choice_chooser_numbers" not in tables
     assert tables >= {"choices", "choosers"}
 
 

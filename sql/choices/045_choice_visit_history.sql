@@ -5,8 +5,9 @@
 -- loyalty_rank: number of earlier purchase visits after the burn-in window.
 -- previous_alternatives: what the latest earlier purchase visit bought (062 searches it with
 -- list_contains, so its order does not matter).
--- The chooser's first day comes from a grouping (day is occasion_at's date, so the earliest
--- occasion has the smallest day), so every window below shares one ordering: one sort.
+-- Choosers go by their number (044), the key of the tables up to 049. The chooser's first day
+-- comes from a grouping (day is occasion_at's date, so the earliest occasion has the smallest
+-- day), so every window below shares one ordering: one sort.
 create or replace table choice_visit_history as
 
 with
@@ -30,23 +31,30 @@ first_days as (
     group by chooser
 ),
 
+chooser_firsts as (
+    select first_days.chooser, first_days.first_day, choice_chooser_numbers.chooser_number,
+    from first_days
+    join choice_chooser_numbers using (chooser)
+),
+
 flagged as (
     select
         occasion_visits.visit,
-        occasion_visits.chooser,
+        chooser_firsts.chooser_number,
         occasion_visits.occasion_at,
         occasion_visits.day,
         occasion_visits.is_purchase,
         occasion_visits.purchase_alternatives,
-        occasion_visits.day < first_days.first_day + cast($burn_in_days as integer) as burn_in,
+        occasion_visits.day < chooser_firsts.first_day + cast($burn_in_days as integer)
+            as burn_in,
     from occasion_visits
-    join first_days using (chooser)
+    join chooser_firsts using (chooser)
 ),
 
 final as (
     select
         visit,
-        chooser,
+        chooser_number,
         day,
         is_purchase,
         burn_in,
@@ -61,14 +69,14 @@ final as (
     from flagged
     window
         earlier_visits as (
-            partition by chooser order by occasion_at, visit
+            partition by chooser_number order by occasion_at, visit
             rows between unbounded preceding and 1 preceding
         )
 )
 
 select
     visit,
-    chooser,
+    chooser_number,
     day,
     is_purchase,
     burn_in,

@@ -6,32 +6,32 @@ create or replace table choice_loyalty_start as
 with
 
 burn_in_purchases as (
-    select visit, chooser
+    select visit, chooser_number
     from choice_visit_history
     where is_purchase and burn_in
 ),
 
 purchase_counts as (
-    select chooser, count(*) as purchases from burn_in_purchases group by chooser
+    select chooser_number, count(*) as purchases from burn_in_purchases group by chooser_number
 ),
 
 weights as (
     select
-        burn_in_purchases.chooser,
+        burn_in_purchases.chooser_number,
         choice_occasions.chosen_alternative as alternative,
         sum(choice_occasions.history_weight) as weight,
     from burn_in_purchases
     join choice_occasions using (visit)
-    group by burn_in_purchases.chooser, choice_occasions.chosen_alternative
+    group by burn_in_purchases.chooser_number, choice_occasions.chosen_alternative
 ),
 
 final as (
     select
-        weights.chooser,
+        weights.chooser_number,
         weights.alternative,
         weights.weight / purchase_counts.purchases as start_loyalty,
     from weights
-    join purchase_counts using (chooser)
+    join purchase_counts using (chooser_number)
 )
 
-select chooser, alternative, start_loyalty from final;
+select chooser_number, alternative, start_loyalty from final;

@@ -11,14 +11,14 @@ create or replace table choice_loyalty_events as
 with
 
 purchase_visits as (
-    select visit, chooser, loyalty_rank + 1 as purchase_rank
+    select visit, chooser_number, loyalty_rank + 1 as purchase_rank
     from choice_visit_history
     where is_purchase and not burn_in
 ),
 
 events as (
     select
-        purchase_visits.chooser,
+        purchase_visits.chooser_number,
         choice_occasions.chosen_alternative as alternative,
         purchase_visits.purchase_rank,
         sum(choice_occasions.history_weight) as weight,
@@ -39,7 +39,7 @@ summed as (
     select
         *,
         sum(weight * pow($smoothing, -block_position)) over (
-            partition by chooser, alternative, block order by purchase_rank
+            partition by chooser_number, alternative, block order by purchase_rank
             rows between unbounded preceding and current row
         ) as block_sum,
     from blocked
@@ -47,17 +47,17 @@ summed as (
 
 block_totals as (
     select
-        chooser,
+        chooser_number,
         alternative,
         block,
         max_by(block_sum, purchase_rank) as block_total,
     from summed
-    group by chooser, alternative, block
+    group by chooser_number, alternative, block
 ),
 
 final as (
     select
-        summed.chooser,
+        summed.chooser_number,
         summed.alternative,
         summed.purchase_rank,
         summed.block,
@@ -65,9 +65,11 @@ final as (
         coalesce(block_totals.block_total, 0.0) as previous_block_total,
     from summed
     left join block_totals
-        on block_totals.chooser = summed.chooser
+        on block_totals.chooser_number = summed.chooser_number
         and block_totals.alternative = summed.alternative
         and block_totals.block = summed.block - 1
 )
 
-select chooser, alternative, purchase_rank, block, block_sum, previous_block_total from final;
+select
+    chooser_number, alternative, purchase_rank, block, block_sum, previous_block_total,
+from final;

@@ -12,21 +12,21 @@ create or replace table choice_loyalty_values as
 with
 
 chooser_ranks as (
-    select chooser, max(loyalty_rank) as last_rank
+    select chooser_number, max(loyalty_rank) as last_rank
     from choice_visit_history
     where not burn_in
-    group by chooser
+    group by chooser_number
 ),
 
 first_purchases as (
-    select chooser, alternative, min(purchase_rank) as first_rank
+    select chooser_number, alternative, min(purchase_rank) as first_rank
     from choice_loyalty_events
-    group by chooser, alternative
+    group by chooser_number, alternative
 ),
 
 start_stretches as (
     select
-        choice_loyalty_start.chooser,
+        choice_loyalty_start.chooser_number,
         choice_loyalty_start.alternative,
         0 as from_rank,
         coalesce(first_purchases.first_rank - 1, chooser_ranks.last_rank) as to_rank,
@@ -34,19 +34,21 @@ start_stretches as (
         0.0 as block_sum,
         0.0 as previous_block_total,
     from choice_loyalty_start
-    join chooser_ranks using (chooser)
-    left join first_purchases using (chooser, alternative)
+    join chooser_ranks using (chooser_number)
+    left join first_purchases using (chooser_number, alternative)
 ),
 
 purchase_stretches as (
     select
-        choice_loyalty_events.chooser,
+        choice_loyalty_events.chooser_number,
         choice_loyalty_events.alternative,
         choice_loyalty_events.purchase_rank as from_rank,
         least(
             coalesce(
                 lead(choice_loyalty_events.purchase_rank) over (
-                    partition by choice_loyalty_events.chooser, choice_loyalty_events.alternative
+                    partition by
+                        choice_loyalty_events.chooser_number,
+                        choice_loyalty_events.alternative
                     order by choice_loyalty_events.purchase_rank
                 ) - 1,
                 chooser_ranks.last_rank
@@ -57,7 +59,7 @@ purchase_stretches as (
         choice_loyalty_events.block_sum,
         choice_loyalty_events.previous_block_total,
     from choice_loyalty_events
-    join chooser_ranks using (chooser)
+    join chooser_ranks using (chooser_number)
 ),
 
 stretches as (
@@ -68,7 +70,7 @@ stretches as (
 
 ranks as (
     select
-        chooser,
+        chooser_number,
         alternative,
         event_block,
         block_sum,
@@ -80,7 +82,7 @@ ranks as (
 
 valued as (
     select
-        ranks.chooser,
+        ranks.chooser_number,
         ranks.loyalty_rank,
         ranks.alternative,
         pow($smoothing, ranks.loyalty_rank) * coalesce(choice_loyalty_start.start_loyalty, 0.0)
@@ -103,7 +105,7 @@ valued as (
             )
         end as loyalty,
     from ranks
-    left join choice_loyalty_start using (chooser, alternative)
+    left join choice_loyalty_start using (chooser_number, alternative)
 )
 
-select chooser, loyalty_rank, alternative, loyalty from valued;
+select chooser_number, loyalty_rank, alternative, loyalty from valued;

@@ -12,20 +12,20 @@ with
 
 entries as (
     select
-        chooser,
+        chooser_number,
         loyalty_rank,
         list({'alternative': alternative, 'loyalty': loyalty}) as entries,
     from choice_loyalty_values
-    group by chooser, loyalty_rank
+    group by chooser_number, loyalty_rank
 ),
 
 final as (
     select
-        chooser,
+        chooser_number,
         loyalty_rank,
         list_transform(entries, lambda entry: entry.alternative) as loyalty_alternatives,
         list_transform(entries, lambda entry: entry.loyalty) as loyalty_values,
     from entries
 )
 
-select chooser, loyalty_rank, loyalty_alternatives, loyalty_values from final;
+select chooser_number, loyalty_rank, loyalty_alternatives, loyalty_values from final;

@@ -53,7 +53,7 @@ occasions as (
     left join choosers using (chooser)
     join choice_visit_history using (visit)
     left join choice_visit_loyalty
-        on choice_visit_loyalty.chooser = choice_occasions.chooser
+        on choice_visit_loyalty.chooser_number = choice_visit_history.chooser_number
         and choice_visit_loyalty.loyalty_rank = choice_visit_history.loyalty_rank
 ),
 

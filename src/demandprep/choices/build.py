@@ -43,6 +43,7 @@ INTERMEDIATE_TABLES = (
     "choice_visits",
     "choice_visit_purchases",
     "choice_occasions",
+    "choice_chooser_numbers",
     "choice_visit_history",
     "choice_loyalty_start",
     "choice_loyalty_events",
@@ -155,6 +156,7 @@ def build_choice_history(ctx: BuildContext) -> None:
     _run(
         ctx,
         settings,
+        "044_choice_chooser_numbers",
         "045_choice_visit_history",
         "046_choice_loyalty_start",
         "047_choice_loyalty_events",

@@ -286,6 +286,24 @@ def test_previous_choice_and_days_since_come_from_earlier_visits_only():
     assert row(frame, second, "C")["days_since_last_purchase"] == 3
 
 
+def test_visits_at_the_same_time_follow_their_visit_ids():
+    # two receipts of one card in the same minute: the history orders them by visit id, so the
+    # one with the larger id sees the other as its previous purchase, and never the reverse
+    world = ChoiceWorld()
+    three_products(world)
+    visits = {
+        world.visit("S1", at(MONDAY), "card1", [("a1", 1, 2.0)]): "A",
+        world.visit("S1", at(MONDAY), "card1", [("b1", 1, 3.0)]): "B",
+    }
+    first, second = sorted(visits)
+    frame = choices_frame(world.build())
+    assert [row(frame, first, alt)["previous_choice"] for alt in "ABC"] == [False] * 3
+    previous = [row(frame, second, alt)["previous_choice"] for alt in "ABC"]
+    assert previous == [alt == visits[first] for alt in "ABC"]
+    assert row(frame, second, "A")["purchase_count"] == 1
+    assert row(frame, first, "A")["purchase_count"] == 0
+
+
 def test_products_outside_the_universe_become_fringe_or_outside():
     world = ChoiceWorld()
     three_products(world)

@@ -1,4 +1,5 @@
--- Category purchases of card visits: net quantity and spend per visit and alternative.
+-- Category purchases of card visits: net quantity and spend per visit (by its number, 032) and
+-- alternative.
 -- alternative is null for products outside the universe when products.universe.rest = 'outside'.
 create or replace table choice_visit_purchases as
 
@@ -6,7 +7,7 @@ with
 
 visit_lines as (
     select
-        choice_visits.visit,
+        choice_visits.visit_number,
         choice_sales.alternative,
         choice_sales.quantity,
         choice_sales.net_amount,
@@ -20,14 +21,14 @@ visit_lines as (
 
 final as (
     select
-        visit,
+        visit_number,
         alternative,
         sum(quantity) as quantity,
         sum(net_amount) as spend,
     from visit_lines
-    group by visit, alternative
+    group by visit_number, alternative
     -- a voided re-scan nets to zero; keep what was actually bought
     having sum(quantity) > 1e-9
 )
 
-select visit, alternative, quantity, spend from final;
+select visit_number, alternative, quantity, spend from final;

@@ -3,6 +3,7 @@
 -- multiple-purchase policy: 'largest_spend' keeps the largest spend (ties: larger quantity,
 -- then alternative id), 'split' makes one occasion per alternative, 'drop' drops the visit.
 -- history_weight is the visit's share in the loyalty recursion: 1, or 1/n for n split products.
+-- Visits go by their number (032) up to 062; the occasion id starts with the visit id.
 create or replace table choice_occasions as
 
 with
@@ -10,6 +11,7 @@ with
 visits as (
     select
         choice_visits.visit,
+        choice_visits.visit_number,
         choice_visits.store,
         choice_visits.occasion_at,
         choice_visits.day,
@@ -18,32 +20,32 @@ visits as (
 ),
 
 purchases as (
-    select visit, alternative, quantity, spend
+    select visit_number, alternative, quantity, spend
     from choice_visit_purchases
     where alternative is not null
 ),
 
 ranked_purchases as (
     select
-        visit,
+        visit_number,
         alternative,
         quantity,
         spend,
-        count(*) over (partition by visit) as visit_products,
+        count(*) over (partition by visit_number) as visit_products,
         row_number() over (
-            partition by visit order by spend desc, quantity desc, alternative
+            partition by visit_number order by spend desc, quantity desc, alternative
         ) as spend_rank,
     from purchases
 ),
 
 kept_purchases as (
     select
-        visit,
+        visit_number,
+        -- the occasion id: the visit id, with the product's spend rank after a split
         case
-            when visit_products > 1 and $multiple_purchases = 'split'
-                then visit || '/' || spend_rank
-            else visit
-        end as occasion,
+            when visit_products > 1 and $multiple_purchases = 'split' then '/' || spend_rank
+            else ''
+        end as occasion_suffix,
         alternative,
         quantity,
         spend,
@@ -59,27 +61,29 @@ kept_purchases as (
 
 outside_visits as (
     select
-        visit,
-        visit as occasion,
+        visit_number,
+        '' as occasion_suffix,
         $outside as alternative,
         cast(null as double) as quantity,
         cast(null as double) as spend,
         0.0 as history_weight,
     from visits
-    anti join purchases using (visit)
+    anti join purchases using (visit_number)
     where $occasion_mode = 'all_visits'
 ),
 
 all_occasions as (
-    select visit, occasion, alternative, quantity, spend, history_weight from kept_purchases
+    select visit_number, occasion_suffix, alternative, quantity, spend, history_weight
+    from kept_purchases
     union all
-    select visit, occasion, alternative, quantity, spend, history_weight from outside_visits
+    select visit_number, occasion_suffix, alternative, quantity, spend, history_weight
+    from outside_visits
 ),
 
 final as (
     select
-        all_occasions.occasion,
-        all_occasions.visit,
+        visits.visit || all_occasions.occasion_suffix as occasion,
+        visits.visit_number,
         visits.chooser,
         visits.store,
         visits.occasion_at,
@@ -91,13 +95,13 @@ final as (
         all_occasions.spend,
         all_occasions.history_weight,
     from all_occasions
-    join visits using (visit)
+    join visits using (visit_number)
     join choice_calendar using (day)
 )
 
 select
     occasion,
-    visit,
+    visit_number,
     chooser,
     store,
     occasion_at,

@@ -1,5 +1,6 @@
 -- Each occasion visit's history, from the chooser's earlier occasion visits only (no look-ahead).
--- Visits are ordered by time, then visit id; the occasions of one split visit share its history.
+-- Visits are ordered by time, then visit id (their numbers, 032, follow the ids); the occasions
+-- of one split visit share its history.
 -- burn_in: the visit falls within $burn_in_days days of the chooser's first occasion; such
 -- purchases only initialise loyalty (046) and their own loyalty is not defined.
 -- loyalty_rank: number of earlier purchase visits after the burn-in window.
@@ -14,7 +15,7 @@ with
 
 occasion_visits as (
     select
-        visit,
+        visit_number,
         chooser,
         min(occasion_at) as occasion_at,
         min(day) as day,
@@ -22,7 +23,7 @@ occasion_visits as (
         -- null for a visit without a purchase, so last_value skips it
         list(chosen_alternative) filter (where is_purchase) as purchase_alternatives,
     from choice_occasions
-    group by visit, chooser
+    group by visit_number, chooser
 ),
 
 first_days as (
@@ -39,7 +40,7 @@ chooser_firsts as (
 
 flagged as (
     select
-        occasion_visits.visit,
+        occasion_visits.visit_number,
         chooser_firsts.chooser_number,
         occasion_visits.occasion_at,
         occasion_visits.day,
@@ -53,7 +54,7 @@ flagged as (
 
 final as (
     select
-        visit,
+        visit_number,
         chooser_number,
         day,
         is_purchase,
@@ -69,13 +70,13 @@ final as (
     from flagged
     window
         earlier_visits as (
-            partition by chooser_number order by occasion_at, visit
+            partition by chooser_number order by occasion_at, visit_number
             rows between unbounded preceding and 1 preceding
         )
 )
 
 select
-    visit,
+    visit_number,
     chooser_number,
     day,
     is_purchase,

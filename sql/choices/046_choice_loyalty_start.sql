@@ -6,7 +6,7 @@ create or replace table choice_loyalty_start as
 with
 
 burn_in_purchases as (
-    select visit, chooser_number
+    select visit_number, chooser_number
     from choice_visit_history
     where is_purchase and burn_in
 ),
@@ -21,7 +21,7 @@ weights as (
         choice_occasions.chosen_alternative as alternative,
         sum(choice_occasions.history_weight) as weight,
     from burn_in_purchases
-    join choice_occasions using (visit)
+    join choice_occasions using (visit_number)
     group by burn_in_purchases.chooser_number, choice_occasions.chosen_alternative
 ),
 

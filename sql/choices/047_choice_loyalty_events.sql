@@ -11,7 +11,7 @@ create or replace table choice_loyalty_events as
 with
 
 purchase_visits as (
-    select visit, chooser_number, loyalty_rank + 1 as purchase_rank
+    select visit_number, chooser_number, loyalty_rank + 1 as purchase_rank
     from choice_visit_history
     where is_purchase and not burn_in
 ),
@@ -23,7 +23,7 @@ events as (
         purchase_visits.purchase_rank,
         sum(choice_occasions.history_weight) as weight,
     from purchase_visits
-    join choice_occasions using (visit)
+    join choice_occasions using (visit_number)
     group by all
 ),
 

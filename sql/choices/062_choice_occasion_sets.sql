@@ -16,7 +16,6 @@ with
 occasions as (
     select
         choice_occasions.occasion,
-        choice_occasions.visit,
         choice_occasions.chooser,
         choice_occasions.store,
         choice_occasions.occasion_at,
@@ -51,7 +50,7 @@ occasions as (
     left join choice_store_days using (store, day)
     left join choice_store_day_markets using (store, day)
     left join choosers using (chooser)
-    join choice_visit_history using (visit)
+    join choice_visit_history using (visit_number)
     left join choice_visit_loyalty
         on choice_visit_loyalty.chooser_number = choice_visit_history.chooser_number
         and choice_visit_loyalty.loyalty_rank = choice_visit_history.loyalty_rank
@@ -120,7 +119,6 @@ final as (
         -- the configured demographics: every column not named above
         sampled_sets.* exclude (
             occasion,
-            visit,
             chooser,
             store,
             market,

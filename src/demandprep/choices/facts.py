@@ -36,7 +36,7 @@ def choice_facts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> dict[
         ),
         "burn_in_occasions": _one(
             con,
-            "select count(*) from choice_occasions join choice_visit_history using (visit) "
+            "select count(*) from choice_occasions join choice_visit_history using (visit_number) "
             "where burn_in",
         ),
         "rows": _one(con, "select count(*) from choices"),
@@ -53,7 +53,8 @@ def choice_facts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> dict[
         "multiple_purchases": multiple_purchase_facts(con, config),
         "outside_universe_purchase_visits": _one(
             con,
-            "select count(distinct visit) from choice_visit_purchases where alternative is null",
+            "select count(distinct visit_number) from choice_visit_purchases "
+            "where alternative is null",
         ),
         "price_sources": dict(
             con.execute(
@@ -69,8 +70,8 @@ def multiple_purchase_facts(con: duckdb.DuckDBPyConnection, config: ProjectConfi
     policy = config.choices.multiple_purchases
     visits, products = con.execute(
         "select count(*), coalesce(sum(products), 0) from ("
-        "select visit, count(*) as products from choice_visit_purchases "
-        "where alternative is not null group by visit having count(*) > 1)"
+        "select visit_number, count(*) as products from choice_visit_purchases "
+        "where alternative is not null group by visit_number having count(*) > 1)"
     ).fetchone()
     effect = {
         "largest_spend": {"purchases_not_kept": products - visits},

@@ -9,8 +9,7 @@
 -- of that order, and where there are any, 092 counts the repeated pairs by grouping instead.
 -- The chooser pattern is checked once per occasion, on its smallest and largest chooser: the
 -- chooser is constant within an occasion (occasion_columns_constant), so that is every row.
--- Row checks are count_if (cheaper than filtered counts, and equally blind to nulls); the
--- constant columns are grouping keys, so a constant occasion is one group.
+-- Row checks are count_if (cheaper than filtered counts, and equally blind to nulls).
 
 with
 
@@ -57,36 +56,29 @@ row_checks as (
     from choices
 ),
 
-occasion_values as (
-    -- one row per occasion and combination of its per-occasion columns (nulls group together):
-    -- an occasion whose columns are constant has one such row
+occasions as (
+    -- one group per occasion; a per-occasion column is constant when its smallest and largest
+    -- values agree and it is null on all rows or on none (as a grouping by all of them would
+    -- have it: nulls group together), which costs a third less than that grouping
     select
         occasion,
-        chooser,
-        store,
-        occasion_at,
-        choice_set_size,
-        holdout,
-        burn_in,
         count(*) as row_count,
         count_if(chosen) as chosen_rows,
-        count_if(not sampled) as unsampled_rows,
-    from choices
-    group by all
-),
-
-occasions as (
-    select
-        occasion,
-        sum(row_count) as row_count,
-        sum(chosen_rows) as chosen_rows,
         min(choice_set_size) as smallest_set_size,
-        min(choice_set_size) filter (where unsampled_rows > 0) as smallest_unsampled_set_size,
-        max(choice_set_size) filter (where unsampled_rows > 0) as largest_unsampled_set_size,
+        min(choice_set_size) filter (where not sampled) as smallest_unsampled_set_size,
+        max(choice_set_size) filter (where not sampled) as largest_unsampled_set_size,
         min(chooser) as smallest_chooser,
         max(chooser) as largest_chooser,
-        count(*) = 1 as constant_columns,
-    from occasion_values
+        min(chooser) is not distinct from max(chooser) and count(chooser) in (0, count(*))
+        and min(store) is not distinct from max(store) and count(store) in (0, count(*))
+        and min(occasion_at) is not distinct from max(occasion_at)
+        and count(occasion_at) in (0, count(*))
+        and min(choice_set_size) is not distinct from max(choice_set_size)
+        and count(choice_set_size) in (0, count(*))
+        and min(holdout) is not distinct from max(holdout) and count(holdout) in (0, count(*))
+        and min(burn_in) is not distinct from max(burn_in) and count(burn_in) in (0, count(*))
+            as constant_columns,
+    from choices
     group by occasion
 ),
 

@@ -1,9 +1,12 @@
-"""The export reads the next batch from DuckDB on a thread while pyarrow writes the current one:
-same batches, same order, errors reach the writer, and an early stop ends the thread."""
+"""The export makes the next row group on a thread (DuckDB's batches fetched, cut and their key
+order checked) while pyarrow writes the current one: same items, same order, same bytes, errors
+reach the writer, and an early stop ends the thread."""
 
 from __future__ import annotations
 
 import threading
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import duckdb
@@ -31,7 +34,6 @@ def _reader(batches: int, fetched_on: list[str], fail_at: int | None = None):
 def test_batches_are_fetched_on_another_thread_in_order():
     fetched_on: list[str] = []
     with read_ahead(_reader(5, fetched_on)) as batches:
-        assert batches.schema == SCHEMA
         values = [batch.column(0).to_pylist() for batch in batches]
     assert values == [[n, n] for n in range(5)]
     assert threading.current_thread().name not in fetched_on
@@ -53,12 +55,46 @@ def test_an_early_stop_ends_the_fetching_thread():
     assert threading.active_count() == before
 
 
-def test_the_written_file_is_the_one_written_without_read_ahead(tmp_path: Path):
+@contextmanager
+def _in_line(items: Iterable) -> Iterator[Iterable]:
+    # the items made on the consumer's own thread, one by one
+    yield items
+
+
+@pytest.mark.parametrize("stored_order", [False, True])
+def test_the_written_file_is_the_one_written_without_read_ahead(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, stored_order: bool
+):
     con = duckdb.connect()
     con.execute("create table t as select range as k, 'x' || range as v from range(300000)")
     sql = "select k, v from t order by k"
-    written = write_query_parquet(con, sql, {}, tmp_path / "a.parquet", 131072, {}, {}, ("k",))
-    direct = con.sql(sql).to_arrow_reader(131072)
-    parquet._write_batches(direct, tmp_path / "b.parquet", 131072, {}, {}, ("k",))
-    assert written.path.read_bytes() == (tmp_path / "b.parquet").read_bytes()
-    assert pq.read_table(written.path).column("k").to_pylist() == list(range(300000))
+    stored = "select k, v from t" if stored_order else None
+
+    def write(name: str) -> bytes:
+        path = tmp_path / name
+        write_query_parquet(con, sql, {}, path, 131072, {}, {}, ("k",), stored_order_sql=stored)
+        return path.read_bytes()
+
+    ahead = write("ahead.parquet")
+    monkeypatch.setattr(parquet, "read_ahead", _in_line)
+    assert write("in_line.parquet") == ahead
+    assert pq.read_table(tmp_path / "ahead.parquet").column("k").to_pylist() == list(range(300000))
+
+
+def test_row_groups_are_cut_and_checked_on_the_other_thread(monkeypatch: pytest.MonkeyPatch):
+    checked_on: list[str] = []
+    keys_rising = parquet._keys_rising
+
+    def watched(*args):  # noqa: ANN002, ANN202 - passes through to the real check
+        checked_on.append(threading.current_thread().name)
+        return keys_rising(*args)
+
+    monkeypatch.setattr(parquet, "_keys_rising", watched)
+    con = duckdb.connect()
+    con.execute("create table t as select range as k from range(1000)")
+    reader = con.sql("select k from t").to_arrow_reader(100)
+    groups = parquet.checked_row_groups(reader, 300, ("k",))
+    with read_ahead(groups) as ahead:
+        sizes = [group.num_rows for group in ahead]
+    assert sizes == [300, 300, 300, 100]
+    assert checked_on and threading.current_thread().name not in checked_on

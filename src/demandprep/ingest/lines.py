@@ -7,13 +7,13 @@ without terminator counts; the empty rest after a final LF is no line. Lines are
 from 1 (the header, when there is one). A CR anywhere else, or a quote, is the reader's
 business, not the cutter's.
 
-The file is decompressed (`.gz`, `.zst`) and decoded to UTF-8 (latin-1, utf-16; a UTF-8 byte
-order mark is dropped) by chunks of CHUNK_BYTES; numpy finds each chunk's LF bytes and the
-lines become an Arrow array over the chunk's own buffer, so memory stays bounded and no Python
-code runs per line. A line that spans chunks is joined in Python; past MAX_LINE_BYTES it keeps
-only its first KEPT_BYTES (its full length travels with it), so one huge line costs no more
-memory than a chunk. Invalid UTF-8 is not refused here: such a line reaches the reader as bytes
-and is quarantined there.
+The file is decompressed (`.gz` by ISA-L, `.zst` by pyarrow) and decoded to UTF-8 (latin-1,
+utf-16; a UTF-8 byte order mark is dropped) by chunks of CHUNK_BYTES; numpy finds each chunk's
+LF bytes and the lines become an Arrow array over the chunk's own buffer, so memory stays
+bounded and no Python code runs per line. A line that spans chunks is joined in Python; past
+MAX_LINE_BYTES it keeps only its first KEPT_BYTES (its full length travels with it), so one
+huge line costs no more memory than a chunk. Invalid UTF-8 is not refused here: such a line
+reaches the reader as bytes and is quarantined there.
 
 The threads also do two per-line jobs of the reader's SQL (010) with numpy over the same
 buffer, where they cost less and run beside DuckDB (THREAD_PREP; False leaves both to 010, the
@@ -39,9 +39,11 @@ from collections import deque
 from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 import pyarrow as pa
+from isal import igzip, isal_zlib
 
 CHUNK_BYTES = 8 * 1024 * 1024
 MAX_LINE_BYTES = 1024 * 1024  # a receipt line is some 100 bytes; past this it is a fault
@@ -50,7 +52,9 @@ UTF8_BOM = codecs.BOM_UTF8
 LF = 10
 CR = 13
 SPACE = 32
-COMPRESSION = {".gz": "gzip", ".zst": "zstd"}
+# by pyarrow's streams; gzip goes through ISA-L (`_open_bytes`)
+COMPRESSION = {".zst": "zstd"}
+GZIP_SUFFIX = ".gz"
 THREAD_PREP = True  # the LF drop and delimiter count in the threads (module docstring)
 VIEW_INLINE_BYTES = 12  # Arrow string views hold values this short inline, longer ones by offset
 QUEUED_CHUNKS = 2  # chunks a reader thread may hold ahead of the caller, per file
@@ -264,12 +268,20 @@ def _views_without_lf(lines: pa.Array) -> pa.Array:
     return pa.Array.from_buffers(pa.string_view(), len(lines), [None, pa.py_buffer(views), data])
 
 
+def _open_bytes(path: Path) -> BinaryIO | pa.NativeFile:
+    """The file's decompressed bytes as a stream. Gzip is read by ISA-L's igzip, a drop-in for
+    Python's gzip module (members in a row, trailing zero bytes ignored) that decompresses some
+    three times faster than zlib and, like numpy, releases the GIL for the reader threads."""
+    if path.suffix.lower() == GZIP_SUFFIX:
+        return igzip.open(path, "rb")
+    return pa.input_stream(str(path), compression=COMPRESSION.get(path.suffix.lower()))
+
+
 def _utf8_chunks(path: Path, encoding: str) -> Iterator[bytes]:
-    compression = COMPRESSION.get(path.suffix.lower())
     decoder = None if encoding == "utf-8" else codecs.getincrementaldecoder(encoding)()
     first = True
     try:
-        with pa.input_stream(str(path), compression=compression) as stream:
+        with _open_bytes(path) as stream:
             while True:
                 read = stream.read(CHUNK_BYTES)
                 chunk = read
@@ -282,7 +294,7 @@ def _utf8_chunks(path: Path, encoding: str) -> Iterator[bytes]:
                     yield chunk
                 if not read:
                     return
-    except (OSError, pa.ArrowException, UnicodeDecodeError) as error:
+    except (OSError, EOFError, isal_zlib.error, pa.ArrowException, UnicodeDecodeError) as error:
         message = str(error).strip().splitlines()[0] if str(error).strip() else type(error).__name__
         raise LinesUnreadable(message) from None
 

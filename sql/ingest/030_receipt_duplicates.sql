@@ -69,15 +69,28 @@ receipt_in_earlier_file as (
     where line is null
 ),
 
+-- against the lines stored before, likewise: the one hashed key first (a probe of every
+-- accepted line on four columns cost more than the rest of this file), the exact key after
+hashes_stored_before as (
+    select distinct hash(store, sale_day, receipt, line) as key_hash
+    from accepted_before
+    where line is not null
+),
+
+hash_stored_before as (
+    select *
+    from keyed
+    semi join hashes_stored_before using (key_hash)
+),
+
 line_in_earlier_run as (
-    select candidates.ordinal
-    from candidates
+    select hash_stored_before.ordinal
+    from hash_stored_before
     semi join accepted_before
-        on accepted_before.store = candidates.store
-        and accepted_before.sale_day = candidates.sale_day
-        and accepted_before.receipt = candidates.receipt
-        and accepted_before.line = candidates.line
-    where candidates.line is not null
+        on accepted_before.store = hash_stored_before.store
+        and accepted_before.sale_day = hash_stored_before.sale_day
+        and accepted_before.receipt = hash_stored_before.receipt
+        and accepted_before.line = hash_stored_before.line
 ),
 
 receipt_in_earlier_run as (

@@ -1,6 +1,6 @@
 """Benchmark: `demandprep ingest` against a bare DuckDB persist of the same files, with phases.
 
-    .venv/bin/python benchmarks/ingest_phases.py --lines 1000000
+    .venv/bin/python benchmarks/ingest_phases.py --lines 1000000 [--runs 3]
 
 Reuses (or generates) side_by_side.py's demo world for --lines and --seed in --workdir, then
 runs, each in its own child process and one after the other: side_by_side's bare persist (one
@@ -9,6 +9,10 @@ multi-file read_csv of every receipt file into one table, all text, file name ke
 each it prints wall time, CPU time (user + sys of the child, from os.wait4) and peak RSS, then
 the ratios ingest / persist and the ingest's five costliest phases (the warehouse's
 `ingest_runs` table, the same numbers as `IngestSummary.timings_seconds`).
+
+With --runs N the pair runs N times, persist and ingest alternating, and each round's ratios
+are printed, then their medians: on a shared machine whose speed drifts, the ratio within a
+round is steadier than either time.
 """
 
 from __future__ import annotations
@@ -16,6 +20,7 @@ from __future__ import annotations
 import argparse
 import json
 import shutil
+import statistics
 import sys
 from pathlib import Path
 
@@ -41,6 +46,7 @@ def parse_args() -> argparse.Namespace:
     )
     parser.add_argument("--threads", type=int, default=2, help="DuckDB threads")
     parser.add_argument("--memory-limit", default="4GB", help="DuckDB memory limit")
+    parser.add_argument("--runs", type=int, default=1, help="rounds of the pair (medians shown)")
     parser.add_argument("--skip-persist", action="store_true", help="run the ingest only")
     parser.add_argument("--child-persist", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--world", type=Path, help=argparse.SUPPRESS)
@@ -69,6 +75,27 @@ def main() -> None:
     info = ensure_world(args.workdir, args.lines, args.seed)
     world = Path(info["folder"]) / "world"
     runs = args.workdir / "ingest_phases"
+    print(f"world: {info['receipt_lines']:,} receipt lines ({world})")
+    print(f"threads {args.threads}, memory limit {args.memory_limit}")
+    ratios = []
+    for round_number in range(1, args.runs + 1):
+        if args.runs > 1:
+            print(f"round {round_number} of {args.runs}")
+        results = one_round(args, world, runs)
+        show_round(results)
+        if "bare persist" in results:
+            ratios.append(ratio_of(results))
+        show_phases(runs)
+    if len(ratios) > 1:
+        wall, cpu, peak = (statistics.median(r[i] for r in ratios) for i in range(3))
+        print(
+            f"median of {len(ratios)} rounds, ingest / persist: wall {wall:.2f}, cpu {cpu:.2f}, "
+            f"peak {peak:.2f}"
+        )
+
+
+def one_round(args: argparse.Namespace, world: Path, runs: Path) -> dict[str, dict]:
+    """The bare persist (unless skipped), then the ingest, each in its own child process."""
     shutil.rmtree(runs, ignore_errors=True)
     runs.mkdir(parents=True)
     results = {}
@@ -82,19 +109,31 @@ def main() -> None:
     binary = Path(sys.executable).parent / "demandprep"
     timing, _ = measure([str(binary), "ingest", str(config)], runs / "ingest.log")
     results["demandprep ingest"] = timing
-    print(f"world: {info['receipt_lines']:,} receipt lines ({world})")
-    print(f"threads {args.threads}, memory limit {args.memory_limit}")
+    return results
+
+
+def ratio_of(results: dict[str, dict]) -> tuple[float, float, float]:
+    """Ingest / persist: wall, CPU and peak RSS."""
+    base, ours = results["bare persist"], results["demandprep ingest"]
+    return (
+        ours["wall"] / base["wall"],
+        ours["cpu"] / base["cpu"],
+        ours["peak_mib"] / base["peak_mib"],
+    )
+
+
+def show_round(results: dict[str, dict]) -> None:
     for name, row in results.items():
         print(
             f"{name:18s} wall {row['wall']:6.1f} s  cpu {row['cpu']:6.1f} s  "
             f"peak RSS {row['peak_mib']:6.0f} MiB"
         )
     if "bare persist" in results:
-        base, ours = results["bare persist"], results["demandprep ingest"]
-        print(
-            f"ratio ingest / persist: wall {ours['wall'] / base['wall']:.2f}, "
-            f"cpu {ours['cpu'] / base['cpu']:.2f}, peak {ours['peak_mib'] / base['peak_mib']:.2f}"
-        )
+        wall, cpu, peak = ratio_of(results)
+        print(f"ratio ingest / persist: wall {wall:.2f}, cpu {cpu:.2f}, peak {peak:.2f}")
+
+
+def show_phases(runs: Path) -> None:
     try:
         phases = phase_seconds(runs / "warehouse" / "demandprep.duckdb")
     except Exception as error:  # an ingest from before phase timings: no ingest_runs table

@@ -309,3 +309,21 @@ def test_a_corrupt_gzip_file_fails_alone_as_unreadable(tmp_path: Path) -> None:
     others = sum(r.rows_accepted for r in summary.files if r.source == "receipts")
     assert others > 0
     assert query(config, "select count(*) from raw_lines") == [(others,)]
+
+
+@pytest.mark.parametrize("end", [b"\n", b"\r\n"])
+def test_a_line_not_valid_utf8_is_kept_without_its_terminator(tmp_path: Path, end: bytes) -> None:
+    config_path = copy_faults(tmp_path)
+    broken = clean_line(2).replace(b"B01", b"B\xff01")
+    path = write_receipts(
+        config_path.parent, "receipts_2024-03-05.csv", [clean_line(1), broken, clean_line(3)], end
+    )
+    config, summary = ingest(config_path)
+    assert summary.ok
+    (row,) = query(
+        config,
+        "select line_no, reason, original_text from quarantine where path = $p",
+        {"p": str(path)},
+    )
+    # the bytes as DuckDB writes a blob (a byte outside printable ASCII as \xNN), no LF or CR
+    assert row == (3, "unparseable_field", broken.decode("latin-1").replace("\xff", "\\xFF"))

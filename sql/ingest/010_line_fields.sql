@@ -31,6 +31,8 @@ decoded as (
     from lines
 ),
 
+-- a line that is not valid text keeps its bytes, in hex digits here (two a byte, so a suffix
+-- of two digits is the last byte): its terminator is cut off like a valid line's
 without_lf as (
     select
         *,
@@ -38,6 +40,11 @@ without_lf as (
             when ends_with(decoded_text, chr(10)) then left(decoded_text, -1)
             else decoded_text
         end as line_text,
+        case
+            when decoded_text is not null then null
+            when ends_with(hex(raw), '0A') then left(hex(raw), -2)
+            else hex(raw)
+        end as raw_hex,
     from decoded
 ),
 
@@ -49,6 +56,10 @@ unterminated as (
             when ends_with(line_text, chr(13)) then left(line_text, -1)
             else line_text
         end as text,
+        case
+            when ends_with(raw_hex, '0D') then left(raw_hex, -2)
+            else raw_hex
+        end as raw_hex_unterminated,
     from without_lf
 ),
 
@@ -112,7 +123,7 @@ final as (
         case
             -- a too-long line keeps its start; one that is not valid text, its bytes escaped
             when reason = 'line_too_long' then left(coalesce(text, raw::varchar), $kept_bytes)
-            when text is null then regexp_replace(raw::varchar, '(\x0D)?\x0A$', '')
+            when text is null then from_hex(raw_hex_unterminated)::varchar
             else text
         end as text,
         case when reason is null then quoted_fields end as fields,

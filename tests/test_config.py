@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from demandprep.config import load_config
+from demandprep.config import INGEST_OWN_COLUMNS, load_config
 from demandprep.config_reference import starter_toml
 from demandprep.errors import UserError
 
@@ -227,3 +227,22 @@ def test_several_problems_print_as_the_first_and_say_how_many_more(demo_config: 
         "Hint: write numbers and true/false without quotes, e.g. threads = 2. "
         "(1 more problem: `demandprep check` lists them all.)"
     )
+
+
+@pytest.mark.parametrize("name", sorted(INGEST_OWN_COLUMNS) + ["Line_No"])
+def test_a_column_named_like_the_ingest_own_columns_is_refused(
+    demo_config: Path, name: str
+) -> None:
+    # before the refusal, `path` silently held the file's path and `line_no` failed the file
+    # with a Binder error
+    message = error_of(edited(demo_config, 'organic = "organic"\n', f'{name} = "organic"\n'))
+    assert "'sources.catalogue.columns'" in message
+    assert f"{name!r}" in message
+    assert "another name" in message
+
+
+def test_two_columns_whose_names_differ_only_in_case_are_refused(demo_config: Path) -> None:
+    # DuckDB names are case-insensitive: both would become one column
+    message = error_of(edited(demo_config, 'organic = "organic"\n', 'Roaster = "organic"\n'))
+    assert "'sources.catalogue.columns'" in message
+    assert "'roaster' and 'Roaster'" in message

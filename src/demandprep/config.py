@@ -58,6 +58,12 @@ RECEIPT_OPTIONAL = tuple(name for name in RECEIPT_COLUMNS if name not in RECEIPT
 DECIMAL_LIMIT = 999_999_999_999.0
 # Settings that do not change how a source's files are read (see FileSource.settings_fingerprint).
 NOT_READING_SETTINGS = frozenset({"files", "returns_in_demand"})
+# Columns the ingest puts beside our column names while it reads a source (ingest/reader.py's
+# source view, ingest/references.py's checked rows and `ref_<table>` storage): a column of ours
+# with one of these names would clash with it (tests/test_ingest_own_columns.py).
+INGEST_OWN_COLUMNS = frozenset(
+    {"ordinal", "path", "line_no", "ingest_trimmed", "reason", "reason_field", "detail", "file_id"}
+)
 
 
 class Section(BaseModel):
@@ -142,7 +148,9 @@ class FileSource(Section):
     header: bool = described("Whether CSV files start with a header line.", default=True)
     columns: dict[Identifier, str] = described(
         "Our column names = the file's column names. A table: each key is our name, each value "
-        "the name in your file; the required names depend on the source.",
+        "the name in your file; the required names depend on the source. Our names are "
+        "case-insensitive and cannot be one the ingest gives its own columns: "
+        f"{', '.join(sorted(INGEST_OWN_COLUMNS))}.",
         default_factory=dict,
     )
     reject_limit_fraction: float = described(
@@ -160,6 +168,26 @@ class FileSource(Section):
         default=100,
         ge=0,
     )
+
+    @field_validator("columns", mode="after")
+    @classmethod
+    def _names_apart(cls, value: dict[str, str]) -> dict[str, str]:
+        """Our names are DuckDB column names: case-insensitive, and apart from the ingest's."""
+        seen: dict[str, str] = {}
+        for name in value:
+            if name.lower() in INGEST_OWN_COLUMNS:
+                own = ", ".join(sorted(INGEST_OWN_COLUMNS))
+                raise ValueError(
+                    f"{name!r} is a name the ingest gives its own columns ({own}); give that "
+                    "column another name here and wherever the config names it"
+                )
+            if name.lower() in seen:
+                raise ValueError(
+                    f"{seen[name.lower()]!r} and {name!r} differ only in case, which column "
+                    "names ignore; give one of them another name"
+                )
+            seen[name.lower()] = name
+        return value
 
     @field_validator("files", mode="after")
     @classmethod

@@ -22,7 +22,12 @@ import duckdb
 from demandprep.choices.pseudonyms import pseudonym_key
 from demandprep.config import FileSource, ProjectConfig
 from demandprep.errors import UserError
-from demandprep.ingest.reader import csv_parameters, file_columns, map_columns
+from demandprep.ingest.reader import (
+    csv_parameters,
+    file_columns,
+    map_columns,
+    refuse_stage_names,
+)
 from demandprep.sqlfiles import quote_identifier
 
 DELIMITERS = (",", ";", "\t", "|")
@@ -77,6 +82,11 @@ def source_header(
             problems.append(error)
         else:
             mapped[ours] = found[ours].name
+    staged = [c for c in columns if source.format == "parquet" or c.name in mapped.values()]
+    try:
+        refuse_stage_names(first, tuple(staged))
+    except UserError as error:
+        problems.append(error)
     return mapped, problems
 
 

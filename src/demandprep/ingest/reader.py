@@ -16,11 +16,15 @@ goes through `read_parquet`. After `stage_files`, these temporary objects exist 
 
 - `ingest_fields`: ordinal, position, line_no, text, fields (quoted lines only: the others are
   split as the stage reads them), field_count, reason, detail, record per line;
-- `ingest_stage`: ordinal (file position << 40 + line number), `ingest_file_path`, line_no and
-  every mapped source column (CSV: a view of the accepted-shape lines);
+- `ingest_stage`: `ingest_ordinal` (file position << 40 + line number), `ingest_file_path`,
+  and every mapped source column under the file's name for it (CSV: a view of the
+  accepted-shape lines, with `ingest_line_no` and `ingest_trimmed`; Parquet: every column, with
+  `ingest_row_number`); the stage's own columns are named so that a file's column (`line_no`,
+  `ordinal`...) never meets them, and a file column with one of their names is refused;
 - `ingest_rejected`: path, line_no, reason, detail, original_text of each refused line;
 - `ingest_file_records`: path, lines (physical, header included), records per file;
-- `ingest_numbered` (view): the stage with each record's physical line number (header = 1);
+- `ingest_numbered` (view): the stage with each record's physical line number (header = 1) as
+  `ingest_line_no`;
 - `ingest_source_lines` (view, `create_source_view`): ordinal, path, line_no + our names.
 """
 
@@ -48,6 +52,19 @@ from demandprep.sqlfiles import quote_identifier, run_sql
 FILE_PATH_COLUMN = "ingest_file_path"
 # per staged line: true when no field of it changes under trim (010), false for Parquet rows
 TRIMMED_COLUMN = "ingest_trimmed"
+ORDINAL_COLUMN = "ingest_ordinal"
+LINE_NO_COLUMN = "ingest_line_no"
+# the staged tables' own columns, beside the file's (read_parquet adds file_row_number)
+STAGE_COLUMNS = frozenset(
+    {
+        ORDINAL_COLUMN,
+        FILE_PATH_COLUMN,
+        LINE_NO_COLUMN,
+        TRIMMED_COLUMN,
+        "ingest_row_number",
+        "file_row_number",
+    }
+)
 STAGING_OBJECTS = (
     "ingest_source_lines",
     "ingest_numbered",
@@ -145,6 +162,20 @@ def map_columns(
     return mapped
 
 
+def refuse_stage_names(path: Path, columns: tuple[SourceColumn, ...]) -> None:
+    """A file column named like one of the stage's own would meet it there: refuse it.
+
+    `columns`: those that reach the stage (Parquet: every column; CSV: the mapped ones).
+    """
+    for column in columns:
+        if column.name.lower() in STAGE_COLUMNS:
+            raise UserError(
+                f"{path}: its column {column.name!r} has a name the ingest keeps for its own "
+                f"columns ({', '.join(sorted(STAGE_COLUMNS))}).",
+                "rename that column in the file.",
+            )
+
+
 def _missing_column(
     path: Path, columns: tuple[SourceColumn, ...], mapping: dict[str, str], ours: str
 ) -> UserError:
@@ -193,6 +224,7 @@ def stage_files(
     if source.format == "parquet":
         with timer.phase("read"):
             columns = file_columns(con, paths[0], source)
+            refuse_stage_names(paths[0], columns)
             mapped = map_columns(paths[0], columns, source.columns, source.header)
             try:
                 _stage_parquet(con, paths)
@@ -282,6 +314,7 @@ def _stage_csv(
         columns = _header_columns(path, fields, detail, source, name)
         try:
             mapped = map_columns(path, columns, source.columns, source.header)
+            refuse_stage_names(path, tuple(mapped.values()))  # only these reach the stage
         except UserError:
             if source.header and len(columns) == 1:
                 _check_delimiter(path, columns[0].name, source.delimiter, name)
@@ -303,7 +336,8 @@ def _stage_csv(
     # each line is split once, as the stage is read (010 keeps no list for unquoted lines)
     con.execute(
         "create temp view ingest_stage as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {FILE_PATH_COLUMN}, line_no, {TRIMMED_COLUMN}"
+        f"select ordinal as {ORDINAL_COLUMN}, {FILE_PATH_COLUMN}, line_no as {LINE_NO_COLUMN}, "
+        f"{TRIMMED_COLUMN}"
         + (f", {fields}" if fields else "")
         + f" from (select f.ordinal, b.path as {FILE_PATH_COLUMN}, f.line_no{places}, "
         f"f.trimmed as {TRIMMED_COLUMN}, "
@@ -395,7 +429,7 @@ def _stage_parquet(con: duckdb.DuckDBPyConnection, paths: list[Path]) -> None:
     # ordinal: file position in the batch, then row number; unique and in file order
     con.execute(
         "create temp table ingest_stage as "
-        "select (f.position::bigint << 40) + p.file_row_number + 1 as ordinal, "
+        f"select (f.position::bigint << 40) + p.file_row_number + 1 as {ORDINAL_COLUMN}, "
         "p.* exclude (file_row_number), p.file_row_number + 1 as ingest_row_number "
         f"from read_parquet($paths, file_row_number = true, filename = '{FILE_PATH_COLUMN}') p "
         f"join ingest_batch_files f on f.path = p.{FILE_PATH_COLUMN}",
@@ -405,7 +439,7 @@ def _stage_parquet(con: duckdb.DuckDBPyConnection, paths: list[Path]) -> None:
     run_sql(con, "ingest/014_parquet_records.sql")
     con.execute(
         "create temp view ingest_numbered as "
-        "select * exclude (ingest_row_number), ingest_row_number as line_no, "
+        f"select * exclude (ingest_row_number), ingest_row_number as {LINE_NO_COLUMN}, "
         f"false as {TRIMMED_COLUMN} from ingest_stage"
     )
 
@@ -423,7 +457,8 @@ def create_source_view(
     )
     con.execute(
         "create or replace temp view ingest_source_lines as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {FILE_PATH_COLUMN} as path, line_no, {TRIMMED_COLUMN}, {select} "
+        f"select {ORDINAL_COLUMN} as ordinal, {FILE_PATH_COLUMN} as path, "
+        f"{LINE_NO_COLUMN} as line_no, {TRIMMED_COLUMN}, {select} "
         "from ingest_numbered"
     )
 
@@ -456,13 +491,13 @@ def render_quarantined(
         pairs = ", ".join(
             f"{quote_identifier(c.name)} := {quote_identifier(c.name)}" for c in columns
         )
-        body, table = f"to_json(struct_pack({pairs}))", "ingest_stage"
+        body, table, ordinal = f"to_json(struct_pack({pairs}))", "ingest_stage", ORDINAL_COLUMN
     else:
-        body, table = "text", "ingest_fields"
+        body, table, ordinal = "text", "ingest_fields", "ordinal"
     con.execute(
         "create or replace temp table ingest_rendered as "  # noqa: S608 (quoted identifiers)
-        f"select ordinal, {body} as original_text from {table} "
-        "where ordinal in (select ordinal from ingest_checked where reason is not null)"
+        f"select {ordinal} as ordinal, {body} as original_text from {table} "
+        f"where {ordinal} in (select ordinal from ingest_checked where reason is not null)"
     )
 
 

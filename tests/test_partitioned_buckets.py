@@ -19,7 +19,8 @@ from test_partitioned_build import PARTITIONING, assert_same_tables, sample_copy
 
 from demandprep.config import ProjectConfig, load_config
 from demandprep.export.folder import latest_build, published_builds
-from demandprep.partitioned.buckets import BucketOutputs, build_bucket
+from demandprep.partitioned.buckets import BucketOutputs, build_bucket, remove_stale_buckets
+from demandprep.partitioned.plan import buckets_folder
 from demandprep.partitioned.runner import build_partitioned, map_in_process
 from demandprep.pipeline import BuildOutcome, run_build, run_ingest
 
@@ -98,11 +99,18 @@ def three_buckets(coffee_sample: Path, tmp_path_factory: pytest.TempPathFactory)
     then a forced night whose second bucket fails."""
     folder = tmp_path_factory.mktemp("three_buckets")
     config = sample_copy(coffee_sample, folder / "sample", PARTITIONING)
+    # what a build with five buckets left behind (a bucket warehouse holds households' cards)
+    stale = buckets_folder(config) / "bucket-2-of-5"
+    stale.mkdir(parents=True)
+    (stale / "demandprep.duckdb").write_bytes(b"an old bucket warehouse")
     ran: list[BucketOutputs] = []
     outcome = build_partitioned(
         config, map_in_process(config), map_buckets=recording_buckets(config, ran)
     )
-    facts: dict = {"published_before": published_builds(config.export.root)}
+    facts: dict = {
+        "published_before": published_builds(config.export.root),
+        "bucket_folders": sorted(path.name for path in buckets_folder(config).iterdir()),
+    }
 
     def no_bucket_may_run(buckets, warehouses):
         raise AssertionError("a night without new files mapped chooser buckets")
@@ -222,3 +230,28 @@ def test_sampled_alternatives_are_drawn_as_in_one_process_across_two_buckets(
     # the draws really sampled: some occasions kept 3 of a larger set
     assert pl.read_parquet(outcome.folder / "choices.parquet")["sampled"].sum() > 0
     assert_same_choice_files(sampled_single_process, outcome.folder)
+
+
+def test_a_build_removes_the_folders_of_buckets_of_another_count(three_buckets) -> None:
+    _, _, _, facts = three_buckets
+    expected = ["bucket-1-of-3", "bucket-2-of-3", "bucket-3-of-3", "inputs.duckdb"]
+    assert facts["bucket_folders"] == expected
+
+
+def test_only_bucket_folders_of_another_count_are_removed(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    folder = buckets_folder(config)
+    for name in ("bucket-1-of-2", "bucket-2-of-2", "bucket-1-of-3", "bucket-4-of-3", "notes"):
+        (folder / name).mkdir(parents=True)
+    (folder / "bucket-1-of-9").write_text("a file, not a bucket folder")
+    (folder / "inputs.duckdb").write_text("the buckets' inputs")
+    removed = remove_stale_buckets(config, 3)
+    assert sorted(path.name for path in removed) == [
+        "bucket-1-of-2",
+        "bucket-2-of-2",
+        "bucket-4-of-3",
+    ]
+    left = sorted(path.name for path in folder.iterdir())
+    assert left == ["bucket-1-of-3", "bucket-1-of-9", "inputs.duckdb", "notes"]

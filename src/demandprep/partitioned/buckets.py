@@ -23,6 +23,8 @@ environment, never as a task argument.
 from __future__ import annotations
 
 import os
+import re
+import shutil
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -57,6 +59,8 @@ BUCKET_FILES = {
 }
 # the union of every partition's lines, under the bucket's own raw_lines view
 PARTITION_LINES_VIEW = "partition_raw_lines"
+# a bucket's folder name (ChooserBucket.name)
+BUCKET_NAME = re.compile(r"^bucket-[0-9]+-of-[0-9]+$")
 
 
 @dataclass(frozen=True)
@@ -90,6 +94,23 @@ class BucketOutputs:
     input_warnings: list[str]
     # the process that ran it (a worker's, not the coordinator's), for the log and manifest
     process: int
+
+
+def remove_stale_buckets(config: ProjectConfig, count: int) -> list[Path]:
+    """Delete the folders of buckets that are not among `count` buckets; returns them.
+
+    A bucket's warehouse holds a copy of the households table (card ids): when the bucket count
+    changes, the old buckets' folders must not stay behind on the partitions' storage.
+    """
+    current = {ChooserBucket(index, count).name for index in range(count)}
+    stale = [
+        path
+        for path in sorted(buckets_folder(config).glob("bucket-*-of-*"))
+        if path.is_dir() and BUCKET_NAME.match(path.name) and path.name not in current
+    ]
+    for path in stale:
+        shutil.rmtree(path)
+    return stale
 
 
 def bucket_folder(config: ProjectConfig, bucket: ChooserBucket) -> Path:

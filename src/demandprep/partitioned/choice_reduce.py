@@ -28,7 +28,12 @@ from demandprep.choices.pseudonyms import pseudonym_key
 from demandprep.choices.validation import validate_choices
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
-from demandprep.partitioned.buckets import BucketOutputs, ChooserBucket, build_bucket
+from demandprep.partitioned.buckets import (
+    BucketOutputs,
+    ChooserBucket,
+    build_bucket,
+    remove_stale_buckets,
+)
 from demandprep.partitioned.choice_inputs import write_choice_inputs
 from demandprep.schemas.choices import Choosers
 from demandprep.stage import Stage
@@ -63,6 +68,7 @@ def choice_bucket_stages(
         write_choice_inputs(ctx.con, config)
         buckets = [ChooserBucket(index, count) for index in range(count)]
         outputs[:] = sorted(map_buckets(buckets, warehouses), key=lambda item: item.bucket.index)
+        remove_stale_buckets(config, count)
         for message in outputs[0].input_warnings:
             ctx.warn(message)
         ctx.facts["choice_buckets"] = bucket_facts(outputs)

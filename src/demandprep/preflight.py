@@ -77,17 +77,14 @@ def source_header(
     mapped, problems = {}, []
     for ours, theirs in source.columns.items():
         try:
-            found = map_columns(first, columns, {ours: theirs}, source.header)
+            mapped |= map_columns(first, columns, {ours: theirs}, source.header)
         except UserError as error:
             problems.append(error)
-        else:
-            mapped[ours] = found[ours].name
-    staged = [c for c in columns if source.format == "parquet" or c.name in mapped.values()]
     try:
-        refuse_stage_names(first, tuple(staged))
+        refuse_stage_names(first, source, columns, mapped)
     except UserError as error:
         problems.append(error)
-    return mapped, problems
+    return {ours: column.name for ours, column in mapped.items()}, problems
 
 
 def _other_delimiter(

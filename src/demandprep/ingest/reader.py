@@ -162,12 +162,18 @@ def map_columns(
     return mapped
 
 
-def refuse_stage_names(path: Path, columns: tuple[SourceColumn, ...]) -> None:
+def refuse_stage_names(
+    path: Path,
+    source: FileSource,
+    columns: tuple[SourceColumn, ...],
+    mapped: dict[str, SourceColumn],
+) -> None:
     """A file column named like one of the stage's own would meet it there: refuse it.
 
-    `columns`: those that reach the stage (Parquet: every column; CSV: the mapped ones).
+    Parquet stages every column of the file (`columns`), CSV only the mapped ones (`mapped`).
     """
-    for column in columns:
+    staged = columns if source.format == "parquet" else tuple(mapped.values())
+    for column in staged:
         if column.name.lower() in STAGE_COLUMNS:
             raise UserError(
                 f"{path}: its column {column.name!r} has a name the ingest keeps for its own "
@@ -224,8 +230,8 @@ def stage_files(
     if source.format == "parquet":
         with timer.phase("read"):
             columns = file_columns(con, paths[0], source)
-            refuse_stage_names(paths[0], columns)
             mapped = map_columns(paths[0], columns, source.columns, source.header)
+            refuse_stage_names(paths[0], source, columns, mapped)
             try:
                 _stage_parquet(con, paths)
             except duckdb.Error as error:
@@ -314,7 +320,7 @@ def _stage_csv(
         columns = _header_columns(path, fields, detail, source, name)
         try:
             mapped = map_columns(path, columns, source.columns, source.header)
-            refuse_stage_names(path, tuple(mapped.values()))  # only these reach the stage
+            refuse_stage_names(path, source, columns, mapped)
         except UserError:
             if source.header and len(columns) == 1:
                 _check_delimiter(path, columns[0].name, source.delimiter, name)

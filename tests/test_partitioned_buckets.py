@@ -255,3 +255,26 @@ def test_only_bucket_folders_of_another_count_are_removed(
     ]
     left = sorted(path.name for path in folder.iterdir())
     assert left == ["bucket-1-of-3", "bucket-1-of-9", "inputs.duckdb", "notes"]
+
+
+def test_a_build_without_choices_removes_what_the_chooser_buckets_left(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    config = sample_copy(coffee_sample, tmp_path / "sample", PARTITIONING)
+    path = config.config_path
+    text = path.read_text(encoding="utf-8")
+    choices_off = text.replace("[choices]\nenabled = true", "[choices]\nenabled = false")
+    path.write_text(choices_off, "utf-8")
+    config = load_config(path)
+    assert not config.choices.enabled
+    # what an earlier build with choices left: bucket warehouses and the inputs file both hold
+    # a copy of the households table (card ids)
+    folder = buckets_folder(config)
+    for name in ("bucket-1-of-3", "bucket-2-of-3"):
+        (folder / name).mkdir(parents=True)
+        (folder / name / "demandprep.duckdb").write_bytes(b"an old bucket warehouse")
+    (folder / "inputs.duckdb").write_bytes(b"the old buckets' inputs")
+    (folder / "notes").mkdir()
+    outcome = build_partitioned(config, map_in_process(config))
+    assert not (outcome.folder / "choices.parquet").exists()
+    assert sorted(item.name for item in folder.iterdir()) == ["notes"]

@@ -36,7 +36,7 @@ from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.partitioned.attached import partition_lines_view, warehouses_attached
-from demandprep.partitioned.choice_inputs import copy_choice_inputs
+from demandprep.partitioned.choice_inputs import choice_inputs_path, copy_choice_inputs
 from demandprep.partitioned.map import write_query
 from demandprep.partitioned.plan import buckets_folder, config_with_warehouse_in
 from demandprep.sqlfiles import run_sql
@@ -111,6 +111,21 @@ def remove_stale_buckets(config: ProjectConfig, count: int) -> list[Path]:
     for path in stale:
         shutil.rmtree(path)
     return stale
+
+
+def remove_every_bucket(config: ProjectConfig) -> list[Path]:
+    """Delete every bucket folder and the buckets' inputs file; returns what was removed.
+
+    For a build without choices: what an earlier build with choices left there holds copies of
+    the households table (card ids) that nothing reads any more.
+    """
+    removed = remove_stale_buckets(config, 0)
+    inputs = choice_inputs_path(config)
+    for path in (inputs, inputs.with_name(inputs.name + ".wal")):
+        if path.exists():
+            path.unlink()
+            removed.append(path)
+    return removed
 
 
 def bucket_folder(config: ProjectConfig, bucket: ChooserBucket) -> Path:

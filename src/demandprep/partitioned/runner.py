@@ -24,6 +24,7 @@ from demandprep.errors import UserError
 from demandprep.ingest.files import SOURCE_ORDER
 from demandprep.ingest.runner import discover_files, ingest_all
 from demandprep.partitioned.attached import partition_lines_view, partitions_attached
+from demandprep.partitioned.buckets import remove_every_bucket
 from demandprep.partitioned.choice_reduce import MapBuckets, map_buckets_in_process
 from demandprep.partitioned.map import PartitionSummaries, build_partition, kept_summaries
 from demandprep.partitioned.plan import (
@@ -94,6 +95,8 @@ def build_partitioned(
                 for stage in reduce_stages(config, summaries, buckets):
                     run_stage(stage, ctx)
                 folder = export_build(ctx)
+        if not config.choices.enabled:
+            remove_every_bucket(config)
         return BuildOutcome(folder=folder, ctx=ctx)
 
 

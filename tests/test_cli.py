@@ -301,3 +301,25 @@ def test_help_names_the_partitioning_section_literally() -> None:
     result = RUNNER.invoke(app, ["partitioned", "--help"], terminal_width=200)
     assert result.exit_code == 0
     assert "on a Dask cluster (section partitioning)." in " ".join(result.output.split())
+
+
+def test_a_receipts_header_with_a_mapped_column_twice_fails_check_and_ingest(
+    tmp_path: Path,
+) -> None:
+    config = copy_faults(tmp_path)
+    daily = sorted((config.parent / "receipts").rglob("*.csv"))[0]
+    lines = daily.read_text(encoding="utf-8").splitlines()
+    header = lines[0].split(";")
+    # a second 'qty' column at the end: before, its values replaced the first one's silently
+    lines = [lines[0] + ";qty"] + [line + ";7" for line in lines[1:]]
+    daily.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    expected = (
+        f"error: {daily}: the header names column 'qty' (mapped to 'quantity') twice, as "
+        f"columns {header.index('qty') + 1} and {len(header) + 1}. Hint: rename or remove one "
+        "of them in the file."
+    )
+    for command in ("check", "ingest"):
+        result = RUNNER.invoke(app, [command, str(config)], terminal_width=2000)
+        assert "Traceback" not in result.output
+        assert result.exit_code == 1, result.output
+        assert expected in error_lines(result.output), result.output

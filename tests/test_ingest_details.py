@@ -106,6 +106,23 @@ def test_missing_column_of_a_card_free_source_lists_the_file_columns() -> None:
     )
 
 
+def test_a_mapped_column_named_twice_in_the_header_is_refused_by_name() -> None:
+    # before: the later of the two columns was read, without a word
+    columns = tuple(SourceColumn(name, "VARCHAR") for name in ("shop", "qty", "area", "qty"))
+    with pytest.raises(UserError) as raised:
+        map_columns(Path("r.csv"), columns, {"store": "shop", "quantity": "qty"}, header=True)
+    assert raised.value.one_line() == (
+        "r.csv: the header names column 'qty' (mapped to 'quantity') twice, as columns 2 and 4. "
+        "Hint: rename or remove one of them in the file."
+    )
+
+
+def test_a_column_named_twice_but_not_mapped_is_no_problem() -> None:
+    columns = tuple(SourceColumn(name, "VARCHAR") for name in ("shop", "note", "note"))
+    mapped = map_columns(Path("s.csv"), columns, {"store": "shop"}, header=True)
+    assert mapped == {"store": columns[0]}
+
+
 def test_missing_column_of_a_card_source_quotes_no_header() -> None:
     columns = (SourceColumn("LC-7Q93K1-000", "VARCHAR"), SourceColumn("4", "VARCHAR"))
     with pytest.raises(UserError) as raised:

@@ -14,6 +14,7 @@ column), on an in-memory DuckDB connection, so it never touches the warehouse:
 
 from __future__ import annotations
 
+import csv
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -22,7 +23,9 @@ import duckdb
 from demandprep.choices.pseudonyms import pseudonym_key
 from demandprep.config import FileSource, ProjectConfig
 from demandprep.errors import UserError
+from demandprep.ingest.lines import LinesUnreadable, line_chunks
 from demandprep.ingest.reader import (
+    SourceColumn,
     csv_parameters,
     file_columns,
     map_columns,
@@ -69,6 +72,7 @@ def source_header(
         columns = file_columns(con, first, source)
     except Exception as error:  # noqa: BLE001 - any failure to read the header is one problem
         return {}, [_as_problem(error)]
+    columns = _names_as_written(first, source, columns)
     other = _other_delimiter(con, first, source, len(columns))
     if other is not None:
         hint = f"set delimiter = {_toml_string(other)} under [sources.{name}]."
@@ -85,6 +89,28 @@ def source_header(
     except UserError as error:
         problems.append(error)
     return {ours: column.name for ours, column in mapped.items()}, problems
+
+
+def _names_as_written(
+    path: Path, source: FileSource, columns: tuple[SourceColumn, ...]
+) -> tuple[SourceColumn, ...]:
+    """A CSV header's names as the file writes them: DuckDB's describe renames a repeated name
+    ('qty', 'qty_1'), which would hide that a mapped column is named twice (map_columns)."""
+    if source.format != "csv" or not source.header:
+        return columns
+    try:
+        first = next(line_chunks(path, source.encoding), None)
+    except LinesUnreadable:
+        return columns  # the ingest says why, with the file's line
+    text = None if first is None or first.num_rows == 0 else first["text"][0].as_py()
+    if text is None:
+        return columns
+    names = next(csv.reader([text.rstrip("\r\n")], delimiter=source.delimiter), [])
+    if len(names) != len(columns):
+        return columns
+    return tuple(
+        SourceColumn(name, column.type) for name, column in zip(names, columns, strict=True)
+    )
 
 
 def _other_delimiter(

@@ -156,10 +156,25 @@ def map_columns(
         if not header and theirs.isdigit() and 1 <= int(theirs) <= len(columns):
             mapped[ours] = columns[int(theirs) - 1]
         elif theirs in by_name:
+            _refuse_repeated(path, columns, ours, theirs)
             mapped[ours] = by_name[theirs]
         else:
             raise _missing_column(path, columns, mapping, ours)
     return mapped
+
+
+def _refuse_repeated(
+    path: Path, columns: tuple[SourceColumn, ...], ours: str, theirs: str
+) -> None:
+    """A mapped column the header names more than once: which one is meant is unknown."""
+    places = [index for index, column in enumerate(columns, start=1) if column.name == theirs]
+    if len(places) > 1:
+        shown = ", ".join(str(place) for place in places[:-1]) + f" and {places[-1]}"
+        raise UserError(
+            f"{path}: the header names column {theirs!r} (mapped to {ours!r}) "
+            f"{'twice' if len(places) == 2 else f'{len(places)} times'}, as columns {shown}.",
+            "rename or remove one of them in the file.",
+        )
 
 
 def refuse_stage_names(

@@ -488,6 +488,22 @@ def test_characteristic_named_like_a_share_column_is_refused():
         )
 
 
+def test_a_product_key_value_holding_the_separator_is_refused_by_sku():
+    # ('Alder|x', 'ground', 500) and ('Alder', 'x|ground', 500) both joined to one product id,
+    # 'Alder|x|ground|500', of two firms' SKUs: before, one product without a word
+    world = tiny_world()
+    world.catalogue[2] = ("B1", "coffee", "Alder|x", "Firm2", "ground", 500.0, "g", 500, 4, 1)
+    world.catalogue[3] = ("C1", "coffee", "Alder", "Firm1", "x|ground", 500.0, "g", 500, 5, 0)
+    with pytest.raises(UserError) as raised:
+        build(world)
+    assert raised.value.one_line() == (
+        "config key 'products.keys': 2 in-scope catalogue SKUs have a key value holding '|', "
+        "which joins the key values into the product id: B1 (roaster 'Alder|x'), "
+        "C1 (format 'x|ground'). Hint: remove the '|' from those catalogue values; two "
+        "products could otherwise get one id."
+    )
+
+
 def test_skus_of_one_product_that_disagree_on_a_characteristic_warn():
     world = tiny_world()
     world.catalogue[1] = ("A2", "coffee", "Alder", "Firm1", "beans", 250.0, "g", 250, 4, 0)

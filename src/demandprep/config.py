@@ -391,7 +391,8 @@ class ProductsSection(Section):
     """What one product is, and which catalogue columns describe it."""
 
     keys: list[Identifier] = described(
-        "Catalogue columns defining a product. Their values joined with '|' are the product id.",
+        "Catalogue columns defining a product. Their values joined with '|' are the product "
+        "id (a value holding '|' stops the build).",
         min_length=1,
     )
     firm: Identifier = described("Catalogue column of the owning firm.", default="firm")

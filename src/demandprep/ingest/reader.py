@@ -163,9 +163,7 @@ def map_columns(
     return mapped
 
 
-def _refuse_repeated(
-    path: Path, columns: tuple[SourceColumn, ...], ours: str, theirs: str
-) -> None:
+def _refuse_repeated(path: Path, columns: tuple[SourceColumn, ...], ours: str, theirs: str) -> None:
     """A mapped column the header names more than once: which one is meant is unknown."""
     places = [index for index, column in enumerate(columns, start=1) if column.name == theirs]
     if len(places) > 1:

@@ -54,6 +54,41 @@ def check_skus(ctx: BuildContext) -> None:
         )
 
 
+# the in-scope SKUs' key values that hold the separator of the product id (020 joins them)
+KEY_SEPARATOR_SQL = """
+    with catalogue_rows as (
+        select sku as "catalogue sku", columns(*)::varchar from catalogue
+    ),
+    cells as (
+        from catalogue_rows
+        unpivot (column_value for column_name in (columns(* exclude ("catalogue sku"))))
+    )
+    select cells."catalogue sku", column_name, column_value
+    from cells
+    join market_settings_catalogue_columns as roles using (column_name)
+    where roles.role = 'key' and contains(column_value, '|')
+        and cells."catalogue sku" in (select sku from market_skus)
+    order by 1, roles.position
+"""
+
+
+def check_key_separator(ctx: BuildContext) -> None:
+    """No in-scope key value holds '|': ('A|B', 'C') and ('A', 'B|C') would be one product."""
+    found = ctx.con.execute(KEY_SEPARATOR_SQL).fetchall()
+    if not found:
+        return
+    first = {}
+    for sku, column, value in found:
+        first.setdefault(sku, f"{sku} ({column} {value!r})")
+    shown = list(first.values())
+    raise UserError(
+        f"config key 'products.keys': {len(shown)} in-scope catalogue SKUs have a key value "
+        "holding '|', which joins the key values into the product id: "
+        f"{_listed(shown, len(shown))}.",
+        "remove the '|' from those catalogue values; two products could otherwise get one id.",
+    )
+
+
 def check_product_attributes(ctx: BuildContext, params: dict) -> None:
     """Warn when SKUs of one product disagree on firm, nest or a characteristic."""
     text = """

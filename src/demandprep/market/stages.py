@@ -157,7 +157,9 @@ def build_geographies(ctx: BuildContext) -> None:
 MARKET_STAGES: tuple[Stage, ...] = (
     Stage("market_settings", settings_stage),
     Stage("market_calendar", _table_stage("market_calendar")),
-    Stage("market_skus", _table_stage("market_skus", checks.check_skus)),
+    Stage(
+        "market_skus", _table_stage("market_skus", checks.check_skus, checks.check_key_separator)
+    ),
     Stage(
         "market_product_attributes", _table_stage("market_product_attributes", _check_attributes)
     ),

@@ -8,9 +8,10 @@ from pathlib import Path
 import duckdb
 import pyarrow.parquet as pq
 import pytest
+from ingest_fixtures import copy_faults, ingest
 from market_fixtures import build_context, market_config, tiny_world
 
-from demandprep.config import WarehouseSection
+from demandprep.config import WarehouseSection, load_config
 from demandprep.errors import UserError
 from demandprep.export import parquet
 from demandprep.memory import memory_shared_with_batches, parse_bytes
@@ -150,3 +151,32 @@ def test_a_stage_out_of_memory_is_one_line_naming_stage_limit_and_way_out(tmp_pa
     )
     assert isinstance(caught.value.__cause__, duckdb.OutOfMemoryException)
     assert "market_settings" not in ctx.timings
+
+
+def test_a_limit_too_low_to_open_the_warehouse_is_one_line(tmp_path: Path) -> None:
+    # before: a traceback ending in duckdb.OutOfMemoryException, from connect itself
+    with pytest.raises(UserError) as caught:
+        _warehouse(tmp_path, "1KB")
+    assert caught.value.one_line() == (
+        f"{tmp_path / 'w.duckdb'}: DuckDB cannot open the warehouse within "
+        "warehouse.memory_limit = 1KB. Hint: raise warehouse.memory_limit (the default is 4GB)."
+    )
+
+
+def test_an_ingest_out_of_memory_stops_with_one_line_and_ledgers_no_file(tmp_path: Path) -> None:
+    # before: the file was ledgered as failed (not its fault), and the ledger row itself ran
+    # out of memory too: a traceback
+    config_path = copy_faults(tmp_path)
+    text = config_path.read_text(encoding="utf-8")
+    config_path.write_text(text.replace('memory_limit = "1GB"', 'memory_limit = "1MB"'), "utf-8")
+    config = load_config(config_path)
+    assert config.warehouse.memory_limit == "1MB"
+    with pytest.raises(UserError) as caught:
+        ingest(config_path)
+    assert caught.value.one_line() == (
+        "stage ingest: DuckDB ran out of memory within warehouse.memory_limit = 1MB. "
+        "Hint: raise warehouse.memory_limit, or give warehouse.temp_directory "
+        f"({config.warehouse.temp_directory}) room to spill, and ingest again."
+    )
+    with duckdb.connect(str(config.warehouse.path), read_only=True) as con:
+        assert con.execute("select count(*) from ledger").fetchone() == (0,)

@@ -110,13 +110,15 @@ def out_of_memory_reported(stage: str, settings: WarehouseSection) -> Iterator[N
         raise out_of_memory_error(stage, settings) from error
 
 
-def out_of_memory_error(stage: str, settings: WarehouseSection) -> UserError:
+def out_of_memory_error(
+    stage: str, settings: WarehouseSection, again: str = "build again"
+) -> UserError:
     """The one line for DuckDB running out of memory in `stage`, with the way out."""
     return UserError(
         f"stage {stage}: DuckDB ran out of memory within warehouse.memory_limit = "
         f"{settings.memory_limit}.",
         f"raise warehouse.memory_limit, or give warehouse.temp_directory "
-        f"({settings.temp_directory}) room to spill, and build again.",
+        f"({settings.temp_directory}) room to spill, and {again}.",
     )
 
 

@@ -17,6 +17,8 @@ from demandprep.errors import UserError
 from demandprep.file_lock import pid_file_lock
 from demandprep.memory import duckdb_budget, remember_memory_limit
 
+DEFAULT_MEMORY_LIMIT = WarehouseSection.model_fields["memory_limit"].default
+
 
 def lock_path(database: Path) -> Path:
     """The advisory lock file that guards writes to `database`."""
@@ -51,12 +53,18 @@ def connect(settings: WarehouseSection, read_only: bool = False) -> duckdb.DuckD
     }
     try:
         con = duckdb.connect(str(settings.path), read_only=read_only, config=config)
+        remember_memory_limit(con, budget)
     except duckdb.IOException as error:
         raise UserError(
             f"{settings.path}: cannot open the warehouse ({str(error).splitlines()[0]}).",
             "another program may hold it open; close it and retry.",
         ) from None
-    remember_memory_limit(con, budget)
+    except duckdb.OutOfMemoryException:
+        raise UserError(
+            f"{settings.path}: DuckDB cannot open the warehouse within "
+            f"warehouse.memory_limit = {settings.memory_limit}.",
+            f"raise warehouse.memory_limit (the default is {DEFAULT_MEMORY_LIMIT}).",
+        ) from None
     return con
 
 

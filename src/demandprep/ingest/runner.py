@@ -33,6 +33,7 @@ Progress: `progress(event, **info)` is called with
 
 from __future__ import annotations
 
+import sys
 import time
 from collections.abc import Callable, Iterator
 from dataclasses import replace
@@ -75,6 +76,7 @@ from demandprep.ingest.references import (
 from demandprep.ingest.refusal import FilesRefused, Refusal, refusals
 from demandprep.ingest.results import FileResult, IngestSummary, summary_table
 from demandprep.ingest.timings import PhaseTimer, record_timings
+from demandprep.memory import out_of_memory_error
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
 
@@ -270,16 +272,31 @@ def ingest_batch(
     except (FileRefused, UserError, duckdb.Error) as error:
         con.execute("rollback")
         if len(files) > 1:
+            # file by file: one file may fit in memory where the batch did not
             return [
                 item for one in files for item in ingest_batch(con, config, [one], progress, timer)
             ]
+        if isinstance(error, duckdb.OutOfMemoryException):
+            # not the file's fault: nothing is ledgered, the ingest stops
+            raise out_of_memory_error("ingest", config.warehouse, "ingest again") from error
         return [_failed(con, files[0], _quotable(error, loader))]
     except BaseException:
         con.execute("rollback")
         raise
     finally:
-        drop_staging(con)
+        _drop_staging_after_batch(con)
     return results
+
+
+def _drop_staging_after_batch(con: duckdb.DuckDBPyConnection) -> None:
+    """drop_staging, except when DuckDB has no memory left for it while an error is on its way
+    out: that error says why, and the temporary tables go with the connection."""
+    on_its_way = sys.exc_info()[1]
+    try:
+        drop_staging(con)
+    except duckdb.OutOfMemoryException:
+        if on_its_way is None:
+            raise
 
 
 def _without_refused(

@@ -171,6 +171,20 @@ def test_a_file_of_decimal_points_under_a_comma_config_is_refused_whole(tmp_path
     ]
 
 
+def test_a_file_refused_for_its_dates_is_hinted_at_the_validity_window(tmp_path: Path) -> None:
+    # before: the hint named decimal, delimiter, timestamp format and mapping, never the window
+    config = write_project(
+        tmp_path, {"early.csv": receipt_lines(240)}, receipt_extra='valid_from = "2024-04-01"'
+    )
+    early = by_name(ingest(config))["early.csv"]
+    assert early.status == "refused"
+    assert early.error.endswith(
+        "mostly timestamp_out_of_range (first: line 2, sold_at shaped '9999-99-99 99:99:99'). "
+        "Hint: check "
+        "sources.receipts.valid_from and valid_to, then timestamp_format and timezone."
+    ), early.error
+
+
 def test_a_refused_file_is_not_read_again_until_its_settings_change(tmp_path: Path) -> None:
     config = write_project(tmp_path, {"bad.csv": receipt_lines(240, "12.50")})
     assert by_name(ingest(config))["bad.csv"].status == "refused"

@@ -145,6 +145,9 @@ def _first_example(
 
 def _hint(source_name: str, reason: str) -> str:
     key = f"sources.{source_name}"
+    if reason == "timestamp_out_of_range":
+        # dates read right but outside the window, or read wrong (format, timezone)
+        return f"check {key}.valid_from and valid_to, then timestamp_format and timezone."
     if reason in READING_REASONS:
         formats = ", timestamp_format" if source_name == "receipts" else ""
         return f"check {key}.decimal, delimiter{formats} and the columns mapping."

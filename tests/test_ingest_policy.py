@@ -579,3 +579,23 @@ def test_the_integer_macro_reads_only_digits(text: str, expected: int | None) ->
     con = duckdb.connect()
     run_sql(con, "ingest/005_ingest_macros.sql")
     assert con.execute("select ingest_integer($t)", {"t": text}).fetchone() == (expected,)
+
+
+def test_lines_of_an_unknown_sku_are_read_again_once_the_catalogue_lists_it(
+    tmp_path: Path,
+) -> None:
+    # a new product sells before the catalogue lists it: before, its lines stayed quarantined
+    # as unknown_sku after the catalogue was corrected, and no build ever saw them
+    new_sku = [line.replace(";K1;", ";K2;") for line in receipt_lines(3, day=2)]
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5) + new_sku})
+    ingest(config)
+    assert warehouse_rows(config) == (5, 3, 1)
+    catalogue = tmp_path / "catalogue.csv"
+    catalogue.write_text(catalogue.read_text() + "K2,coffee,500\n")
+    second = by_name(ingest(config))
+    assert second["a.csv"].status == "replaced"
+    assert warehouse_rows(config) == (8, 0, 2)
+    # read against today's catalogue: nothing stale left, so a third night reads nothing
+    third = by_name(ingest(config))
+    assert third["a.csv"].status == "unchanged"
+    assert query(config, "select count(*) from ledger where path like '%a.csv'")[0] == (2,)

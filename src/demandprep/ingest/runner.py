@@ -107,16 +107,22 @@ def ensure_tables(con: duckdb.DuckDBPyConnection) -> None:
 
 
 def discover_files(
-    con: duckdb.DuckDBPyConnection, config: ProjectConfig, reload: list[str] | None = None
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    reload: list[str] | None = None,
+    reread: dict[str, frozenset[Path]] | None = None,
 ) -> list[DiscoveredFile]:
     """Every input file of every source, in load order, as new, unchanged or changed.
 
-    `reload`: source names or globs of paths whose files are read again whatever the ledger says.
+    `reload`: source names or globs of paths whose files are read again whatever the ledger says;
+    `reread`: source name -> the paths read again likewise (stale_verdicts).
     """
     ensure_tables(con)
     known = current_versions(con)
     held_back = held_back_versions(con)
     targets = reload_targets(config, reload) if reload else {}
+    for name, paths in (reread or {}).items():
+        targets[name] = targets.get(name, frozenset()) | paths
     records = stamp_records(con)
     found = []
     for name, source in configured_sources(config):
@@ -159,9 +165,41 @@ def ingest_all(
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
     summary = IngestSummary(warnings=warnings + still_refused(discovered))
+    stale = stale_verdicts(con)
     for item in discovered:
-        if item.status == "unchanged":
+        if item.status == "unchanged" and str(item.path) not in stale:
             _report(notify, summary, _unchanged(item))
+    _read_files(con, config, to_read, notify, summary, timer)
+    # after the references of this night: a line quarantined against an older catalogue or
+    # stores table is judged again (the files read above were judged against today's)
+    stale = stale_verdicts(con)
+    if stale:
+        with timer.phase("discover"):
+            again = discover_files(con, config, reread={"receipts": frozenset(map(Path, stale))})
+        _read_files(
+            con, config, [item for item in again if str(item.path) in stale], notify, summary, timer
+        )
+    summary.timings_seconds = dict(timer.seconds)
+    record_timings(con, summary.timings_seconds, time.perf_counter() - started)
+    notify("done", summary=summary)
+    return summary
+
+
+def stale_verdicts(con: duckdb.DuckDBPyConnection) -> set[str]:
+    """Paths of current receipts files with lines quarantined as unknown_sku or unknown_store
+    before the catalogue or stores table they were judged against changed (075)."""
+    return {path for (path,) in run_sql(con, "ingest/075_stale_verdicts.sql").fetchall()}
+
+
+def _read_files(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    to_read: list[DiscoveredFile],
+    notify: Progress,
+    summary: IngestSummary,
+    timer: PhaseTimer,
+) -> None:
+    """Load the files batch by batch, reporting each file's result into `summary`."""
     receipts_prepared = False
     for batch in batches(to_read):
         if batch[0].source == "receipts" and not receipts_prepared:
@@ -178,10 +216,6 @@ def ingest_all(
             )
         for result in ingest_batch(con, config, batch, progress=notify, timer=timer):
             _report(notify, summary, result)
-    summary.timings_seconds = dict(timer.seconds)
-    record_timings(con, summary.timings_seconds, time.perf_counter() - started)
-    notify("done", summary=summary)
-    return summary
 
 
 def still_refused(discovered: list[DiscoveredFile]) -> list[str]:

@@ -599,3 +599,35 @@ def test_lines_of_an_unknown_sku_are_read_again_once_the_catalogue_lists_it(
     third = by_name(ingest(config))
     assert third["a.csv"].status == "unchanged"
     assert query(config, "select count(*) from ledger where path like '%a.csv'")[0] == (2,)
+
+
+def test_shelf_prices_and_receipts_of_an_unlisted_sku_come_back_with_the_catalogue(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    # the catalogue arrives without C0102 one night and with it the next: shelf prices and
+    # receipts lines of C0102 must be in the warehouse as a first ingest with it puts them
+    folder = tmp_path / "sample"
+    shutil.copytree(coffee_sample, folder, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    catalogue = folder / "catalogue.csv"
+    listed = catalogue.read_text(encoding="utf-8")
+    unlisted = "".join(
+        line for line in listed.splitlines(keepends=True) if not line.startswith("C0102,")
+    )
+    catalogue.write_text(unlisted, encoding="utf-8")
+    config = folder / "demandprep.toml"
+    ingest(config)
+    counts_sql = (
+        "select (select count(*) from raw_lines where sku = 'C0102'), "
+        "(select count(*) from shelf_prices where sku = 'C0102'), "
+        "(select count(*) from quarantine where reason = 'unknown_sku')"
+    )
+    before = query(config, counts_sql)[0]
+    assert before[0] == 0 and before[1] == 0 and before[2] > 0
+    catalogue.write_text(listed, encoding="utf-8")
+    ingest(config)
+    fresh = tmp_path / "fresh"
+    shutil.copytree(coffee_sample, fresh, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    ingest(fresh / "demandprep.toml")
+    expected = query(fresh / "demandprep.toml", counts_sql)[0]
+    assert expected[0] > 0 and expected[1] > 0
+    assert query(config, counts_sql)[0] == expected

@@ -1,6 +1,7 @@
--- current receipts files with lines quarantined against a reference table that changed after
--- the file was read: unknown_sku (catalogue) and unknown_store (stores). Read again, a line of
--- a SKU or store the corrected table now lists is accepted, as a first read would accept it.
+-- current files with lines quarantined against a reference table that changed after the file
+-- was read: unknown_sku (catalogue) and unknown_store (stores), in receipts and in the
+-- reference sources that name a SKU or store (shelf prices, ...). Read again, a line of a SKU
+-- or store the corrected table now lists is accepted, as a first read would accept it.
 -- "After" by file number (F + digits, increasing in ingest order, 063): ingested_at keeps
 -- whole seconds only
 with
@@ -22,14 +23,16 @@ verdicts as (
 ),
 
 stale_files as (
-    select distinct receipts.path,
-    from ledger as receipts
-    join quarantine on quarantine.file_id = receipts.file_id
+    select distinct
+        files.source,
+        files.path,
+    from ledger as files
+    join quarantine on quarantine.file_id = files.file_id
     join verdicts on verdicts.reason = quarantine.reason
     join reference_changes on reference_changes.source = verdicts.source
-    where receipts.source = 'receipts'
-        and receipts.status = 'current'
-        and try_cast(substr(receipts.file_id, 2) as bigint) < reference_changes.changed_in
+    where files.status = 'current'
+        and files.source <> verdicts.source
+        and try_cast(substr(files.file_id, 2) as bigint) < reference_changes.changed_in
 )
 
-select path from stale_files order by path
+select source, path from stale_files order by source, path

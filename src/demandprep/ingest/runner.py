@@ -167,28 +167,46 @@ def ingest_all(
     summary = IngestSummary(warnings=warnings + still_refused(discovered))
     stale = stale_verdicts(con)
     for item in discovered:
-        if item.status == "unchanged" and str(item.path) not in stale:
+        if item.status == "unchanged" and not _is_stale(item, stale):
             _report(notify, summary, _unchanged(item))
     _read_files(con, config, to_read, notify, summary, timer)
-    # after the references of this night: a line quarantined against an older catalogue or
-    # stores table is judged again (the files read above were judged against today's)
-    stale = stale_verdicts(con)
-    if stale:
-        with timer.phase("discover"):
-            again = discover_files(con, config, reread={"receipts": frozenset(map(Path, stale))})
-        _read_files(
-            con, config, [item for item in again if str(item.path) in stale], notify, summary, timer
-        )
+    _read_stale_again(con, config, notify, summary, timer)
     summary.timings_seconds = dict(timer.seconds)
     record_timings(con, summary.timings_seconds, time.perf_counter() - started)
     notify("done", summary=summary)
     return summary
 
 
-def stale_verdicts(con: duckdb.DuckDBPyConnection) -> set[str]:
-    """Paths of current receipts files with lines quarantined as unknown_sku or unknown_store
-    before the catalogue or stores table they were judged against changed (075)."""
-    return {path for (path,) in run_sql(con, "ingest/075_stale_verdicts.sql").fetchall()}
+def stale_verdicts(con: duckdb.DuckDBPyConnection) -> dict[str, frozenset[Path]]:
+    """Source -> paths of its current files with lines quarantined as unknown_sku or
+    unknown_store before the catalogue or stores table they were judged against changed (075)."""
+    found: dict[str, set[Path]] = {}
+    for source, path in run_sql(con, "ingest/075_stale_verdicts.sql").fetchall():
+        found.setdefault(source, set()).add(Path(path))
+    return {source: frozenset(paths) for source, paths in found.items()}
+
+
+def _read_stale_again(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    notify: Progress,
+    summary: IngestSummary,
+    timer: PhaseTimer,
+) -> None:
+    """After the night's files, read again those with a line quarantined against an older
+    catalogue or stores table (the files read tonight were judged against today's)."""
+    stale = stale_verdicts(con)
+    if not stale:
+        return
+    with timer.phase("discover"):
+        again = discover_files(con, config, reread=stale)
+    _read_files(
+        con, config, [item for item in again if _is_stale(item, stale)], notify, summary, timer
+    )
+
+
+def _is_stale(item: DiscoveredFile, stale: dict[str, frozenset[Path]]) -> bool:
+    return item.path in stale.get(item.source, frozenset())
 
 
 def _read_files(

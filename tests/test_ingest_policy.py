@@ -631,3 +631,56 @@ def test_shelf_prices_and_receipts_of_an_unlisted_sku_come_back_with_the_catalog
     expected = query(fresh / "demandprep.toml", counts_sql)[0]
     assert expected[0] > 0 and expected[1] > 0
     assert query(config, counts_sql)[0] == expected
+
+
+def _accepted_lines(config: Path) -> list[tuple]:
+    return query(config, "select store, sold_at, receipt, line from raw_lines order by all")
+
+
+@pytest.mark.parametrize("departure", ["withdrawn", "corrected"])
+def test_a_duplicate_is_accepted_once_the_copy_accepted_before_leaves(
+    tmp_path: Path, departure: str
+) -> None:
+    # b.csv re-sends a.csv's first line; when a.csv leaves (withdrawn, or corrected without
+    # that line), the line must be in the warehouse once, as a first ingest without it gives.
+    # Before: it stayed quarantined as duplicate_line and was in no table at all
+    first_day = receipt_lines(5)
+    config = write_project(tmp_path, {"a.csv": first_day, "b.csv": receipt_lines(4, day=2)})
+    (tmp_path / "receipts" / "b.csv").write_text(
+        "\n".join([HEADER, *receipt_lines(4, day=2), first_day[0]]) + "\n"
+    )
+    ingest(config)
+    assert warehouse_rows(config)[:2] == (9, 1)
+    if departure == "withdrawn":
+        loaded = load_config(config)
+        with open_warehouse(loaded.warehouse) as con:
+            withdraw_files(con, loaded, str(tmp_path / "receipts" / "a.csv"), "test")
+        expected_files = {"b.csv": receipt_lines(4, day=2) + first_day[:1]}
+    else:
+        (tmp_path / "receipts" / "a.csv").write_text("\n".join([HEADER, *first_day[1:]]) + "\n")
+        expected_files = {"a.csv": first_day[1:], "b.csv": receipt_lines(4, day=2) + first_day[:1]}
+    ingest(config)
+    fresh = write_project(tmp_path / "fresh", expected_files)
+    ingest(fresh)
+    assert warehouse_rows(fresh)[:2] == (len(_accepted_lines(fresh)), 0)
+    assert _accepted_lines(config) == _accepted_lines(fresh)
+    assert query(config, "select count(*) from quarantine")[0] == (0,)
+    # judged against today's files: the next night reads nothing again
+    assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
+def test_withdraw_reads_again_at_once_a_file_whose_duplicate_lost_its_copy(tmp_path: Path) -> None:
+    # a build right after the withdrawal must see the line, not only the next ingest
+    first_day = receipt_lines(5)
+    config = write_project(tmp_path, {"a.csv": first_day})
+    (tmp_path / "receipts" / "b.csv").write_text(
+        "\n".join([HEADER, *receipt_lines(4, day=2), first_day[0]]) + "\n"
+    )
+    ingest(config)
+    assert warehouse_rows(config)[:2] == (9, 1)
+    result = CliRunner().invoke(
+        app, ["withdraw", str(config), str(tmp_path / "receipts" / "a.csv")], terminal_width=2000
+    )
+    assert result.exit_code == 0, result.output
+    assert f"read again {tmp_path / 'receipts' / 'b.csv'} (5 rows accepted)" in result.output
+    assert warehouse_rows(config)[:2] == (5, 0)

@@ -74,3 +74,16 @@ create table if not exists file_stamps (
     sha256 varchar not null,
     recorded_at_ns bigint not null,
 );
+
+-- the sale days of each receipts file's lines quarantined as duplicate_line (032), and each
+-- receipts file version that left (superseded, withdrawn) with the highest file number at the
+-- time (065, 077): a duplicate whose accepted copy may have left is judged again (075)
+create table if not exists duplicate_days (
+    file_id varchar not null,
+    sale_day date not null,
+);
+
+create table if not exists ingest_departures (
+    file_id varchar not null,
+    left_in bigint not null,
+);

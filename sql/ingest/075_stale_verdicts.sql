@@ -1,7 +1,7 @@
--- current files with lines quarantined against a reference table that changed after the file
--- was read: unknown_sku (catalogue) and unknown_store (stores), in receipts and in the
--- reference sources that name a SKU or store (shelf prices, ...). Read again, a line of a SKU
--- or store the corrected table now lists is accepted, as a first read would accept it.
+-- current files with lines quarantined against something that changed after the file was
+-- read: unknown_sku (catalogue) and unknown_store (stores), in receipts and in the reference
+-- sources that name a SKU or store (shelf prices, ...), and duplicate_line (a receipts file
+-- that left). Read again, such a line is judged as a first read would judge it today.
 -- "After" by file number (F + digits, increasing in ingest order, 063): ingested_at keeps
 -- whole seconds only
 with
@@ -33,6 +33,33 @@ stale_files as (
     where files.status = 'current'
         and files.source <> verdicts.source
         and try_cast(substr(files.file_id, 2) as bigint) < reference_changes.changed_in
+),
+
+-- a receipts version that left after a file was read, on a day of the file's duplicates: the
+-- accepted copy of one of them may have left with it (its accepted lines span its sale days)
+departed_days as (
+    select
+        departures.left_in,
+        gone.first_sold_at::date as first_day,
+        gone.last_sold_at::date as last_day,
+    from ingest_departures as departures
+    join ledger as gone on gone.file_id = departures.file_id
+    where gone.first_sold_at is not null
+),
+
+stale_duplicates as (
+    select distinct
+        files.source,
+        files.path,
+    from ledger as files
+    join duplicate_days as days on days.file_id = files.file_id
+    join departed_days
+        on days.sale_day between departed_days.first_day and departed_days.last_day
+    where files.status = 'current'
+        and try_cast(substr(files.file_id, 2) as bigint) < departed_days.left_in
 )
 
-select source, path from stale_files order by source, path
+select source, path from stale_files
+union
+select source, path from stale_duplicates
+order by source, path

@@ -180,7 +180,7 @@ def withdraw_command(
     ] = "withdrawn by hand",
 ) -> None:
     """Remove the rows of ingested files from the warehouse; the ledger keeps why."""
-    from demandprep.ingest.runner import ensure_tables
+    from demandprep.ingest.runner import ensure_tables, judge_stale_again
     from demandprep.ingest.withdraw import withdraw_files
     from demandprep.warehouse import open_warehouse
 
@@ -189,8 +189,15 @@ def withdraw_command(
         with open_warehouse(project.warehouse) as con:
             ensure_tables(con)
             withdrawn = withdraw_files(con, project, path, reason)
+            # a duplicate whose accepted copy was withdrawn is judged again now
+            again = judge_stale_again(con, project)
         for result in withdrawn:
             say(f"{result.path} ({result.rows_read:,} rows)", "withdrawn")
+        for result in again:
+            if result.error:
+                say(result.error, "read again:", "red")
+            else:
+                say(f"{result.path} ({result.rows_accepted:,} rows accepted)", "read again")
 
 
 @app.command("build")

@@ -92,6 +92,7 @@ def _mark_duplicates(con: duckdb.DuckDBPyConnection, values_shown: bool) -> None
     }
     run_sql(con, "ingest/030_receipt_duplicates.sql", window)
     run_sql(con, "ingest/031_mark_duplicates.sql", {"values_shown": values_shown})
+    run_sql(con, "ingest/032_duplicate_days.sql")
 
 
 def _rule_parameters(source: ReceiptSource, mapped: dict[str, SourceColumn]) -> dict[str, object]:

@@ -186,6 +186,13 @@ def stale_verdicts(con: duckdb.DuckDBPyConnection) -> dict[str, frozenset[Path]]
     return {source: frozenset(paths) for source, paths in found.items()}
 
 
+def judge_stale_again(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[FileResult]:
+    """Read again the files with a verdict that is stale now (after a withdrawal); their results."""
+    summary, timer = IngestSummary(), PhaseTimer()
+    _read_stale_again(con, config, _ignore, summary, timer)
+    return summary.files
+
+
 def _read_stale_again(
     con: duckdb.DuckDBPyConnection,
     config: ProjectConfig,

@@ -18,7 +18,7 @@ from demandprep.config import ProjectConfig
 from demandprep.errors import UserError
 from demandprep.ingest.references import REFERENCE_SPECS, table_columns
 from demandprep.ingest.results import FileResult
-from demandprep.sqlfiles import quote_identifier
+from demandprep.sqlfiles import quote_identifier, run_sql
 
 
 def withdraw_files(
@@ -40,6 +40,7 @@ def withdraw_files(
                 {"ids": ids},
             )
         con.execute("delete from quarantine where list_contains($ids, file_id)", {"ids": ids})
+        run_sql(con, "ingest/077_withdrawn_departures.sql", {"ids": ids})
         con.execute(
             "update ledger set status = 'withdrawn', reason = $reason "
             "where list_contains($ids, file_id)",

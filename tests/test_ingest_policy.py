@@ -684,3 +684,22 @@ def test_withdraw_reads_again_at_once_a_file_whose_duplicate_lost_its_copy(tmp_p
     assert result.exit_code == 0, result.output
     assert f"read again {tmp_path / 'receipts' / 'b.csv'} (5 rows accepted)" in result.output
     assert warehouse_rows(config)[:2] == (5, 0)
+
+
+def test_a_file_refused_under_new_settings_takes_its_old_rows_out(tmp_path: Path) -> None:
+    # valid_to narrowed to the first day: the second day's file, read again, is refused (all
+    # its lines out of the window); before, its old version stayed current and its rows stayed
+    # in every build, although the settings in force refuse them
+    receipts = {"a.csv": receipt_lines(240), "b.csv": receipt_lines(240, day=2)}
+    config = write_project(tmp_path, receipts)
+    ingest(config)
+    assert warehouse_rows(config)[:2] == (480, 0)
+    narrowed = 'valid_to = "2024-03-01"'
+    write_project(tmp_path, receipts, receipt_extra=narrowed)
+    second = by_name(ingest(config))
+    assert second["b.csv"].status == "refused"
+    fresh = write_project(tmp_path / "fresh", receipts, receipt_extra=narrowed)
+    assert by_name(ingest(fresh))["b.csv"].status == "refused"
+    assert warehouse_rows(config)[:2] == warehouse_rows(fresh)[:2] == (240, 0)
+    statuses = "select version, status from ledger where path like '%b.csv' order by version"
+    assert query(config, statuses) == [(1, "superseded"), (2, "refused")]

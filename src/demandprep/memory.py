@@ -102,12 +102,14 @@ def shared_limit_bytes(configured_bytes: int, share: float = BATCH_READ_SHARE) -
 
 
 @contextmanager
-def out_of_memory_reported(stage: str, settings: WarehouseSection) -> Iterator[None]:
+def out_of_memory_reported(
+    stage: str, settings: WarehouseSection, again: str = "build again"
+) -> Iterator[None]:
     """Within the block, DuckDB running out of memory becomes `out_of_memory_error`'s line."""
     try:
         yield
     except duckdb.OutOfMemoryException as error:
-        raise out_of_memory_error(stage, settings) from error
+        raise out_of_memory_error(stage, settings, again) from error
 
 
 def out_of_memory_error(

@@ -13,6 +13,7 @@ from datetime import datetime
 import duckdb
 
 from demandprep.ingest.files import DiscoveredFile
+from demandprep.ingest.version_rows import remove_version_rows
 from demandprep.schemas.ingest import Ledger, Quarantine
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_query
@@ -177,12 +178,25 @@ def has_current_with(
 
 
 def record_failure(
-    con: duckdb.DuckDBPyConnection, discovered: DiscoveredFile, status: str, reason: str
+    con: duckdb.DuckDBPyConnection,
+    discovered: DiscoveredFile,
+    status: str,
+    reason: str,
+    replaces_previous: bool = False,
 ) -> str:
-    """Ledger a file that failed or was refused (no rows kept) with why; returns its file id."""
+    """Ledger a file that failed or was refused (no rows kept) with why; returns its file id.
+
+    `replaces_previous`: its older version leaves too (superseded, rows out), as a reading
+    under new settings replaces it whatever it finds."""
     con.execute("begin transaction")
     try:
         (item,) = assign_versions(con, discovered.source, [discovered])
+        previous = discovered.previous_file_id
+        if replaces_previous and previous is not None:
+            remove_version_rows(con, {discovered.source}, [previous])
+            run_sql(con, "ingest/078_superseded_by_refusal.sql", {"previous_file_id": previous})
+            ids = {"previous_file_id": previous, "file_id": item.file_id}
+            run_sql(con, "ingest/079_refusal_departure.sql", ids)
         run_sql(
             con,
             "ingest/066_failed_file.sql",

@@ -76,7 +76,7 @@ from demandprep.ingest.references import (
 from demandprep.ingest.refusal import FilesRefused, Refusal, refusals
 from demandprep.ingest.results import FileResult, IngestSummary, summary_table
 from demandprep.ingest.timings import PhaseTimer, record_timings
-from demandprep.memory import out_of_memory_error
+from demandprep.memory import out_of_memory_error, out_of_memory_reported
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
 
@@ -154,7 +154,18 @@ def ingest_all(
     """Ingest every new or changed file of every source; returns what happened to each file.
 
     The seconds of each phase go to `summary.timings_seconds` and the `ingest_runs` table.
+    DuckDB running out of memory is one line naming the limit (memory.py).
     """
+    with out_of_memory_reported("ingest", config.warehouse, "ingest again"):
+        return _ingest_every_file(con, config, progress, reload)
+
+
+def _ingest_every_file(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    progress: Progress | None,
+    reload: list[str] | None,
+) -> IngestSummary:
     started = time.perf_counter()
     notify = progress or _ignore
     timer = PhaseTimer()
@@ -532,7 +543,10 @@ def _failed(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, error: Excepti
 
 
 def _refused(con: duckdb.DuckDBPyConnection, item: DiscoveredFile, refusal: Refusal) -> FileResult:
-    file_id = ledger.record_failure(con, item, "refused", refusal.reason)
+    # read again under new settings: the old rows were read under settings no longer in force
+    file_id = ledger.record_failure(
+        con, item, "refused", refusal.reason, replaces_previous=item.settings_changed
+    )
     return FileResult(item.source, item.path, "refused", file_id, error=refusal.message)
 
 

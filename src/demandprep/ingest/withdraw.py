@@ -16,9 +16,9 @@ import duckdb
 
 from demandprep.config import ProjectConfig
 from demandprep.errors import UserError
-from demandprep.ingest.references import REFERENCE_SPECS, table_columns
 from demandprep.ingest.results import FileResult
-from demandprep.sqlfiles import quote_identifier, run_sql
+from demandprep.ingest.version_rows import remove_version_rows
+from demandprep.sqlfiles import run_sql
 
 
 def withdraw_files(
@@ -34,12 +34,7 @@ def withdraw_files(
     ids = [file_id for _source, _path, file_id, _rows in matched]
     con.execute("begin transaction")
     try:
-        for table in _row_tables(con, {source for source, *_ in matched}):
-            con.execute(
-                f"delete from {quote_identifier(table)} where list_contains($ids, file_id)",  # noqa: S608
-                {"ids": ids},
-            )
-        con.execute("delete from quarantine where list_contains($ids, file_id)", {"ids": ids})
+        remove_version_rows(con, {source for source, *_ in matched}, ids)
         run_sql(con, "ingest/077_withdrawn_departures.sql", {"ids": ids})
         con.execute(
             "update ledger set status = 'withdrawn', reason = $reason "
@@ -66,10 +61,3 @@ def _matching_current_files(
         "order by path"
     ).fetchall()
     return [row for row in rows if row[1] == glob or fnmatch(row[1], glob)]
-
-
-def _row_tables(con: duckdb.DuckDBPyConnection, sources: set[str]) -> list[str]:
-    """The tables holding the accepted rows of these sources, as they exist."""
-    tables = ["raw_lines"] if "receipts" in sources else []
-    tables += [REFERENCE_SPECS[name].storage for name in sorted(sources) if name in REFERENCE_SPECS]
-    return [table for table in tables if table_columns(con, table)]

@@ -703,3 +703,34 @@ def test_a_file_refused_under_new_settings_takes_its_old_rows_out(tmp_path: Path
     assert warehouse_rows(config)[:2] == warehouse_rows(fresh)[:2] == (240, 0)
     statuses = "select version, status from ledger where path like '%b.csv' order by version"
     assert query(config, statuses) == [(1, "superseded"), (2, "refused")]
+
+
+def _catalogue_type(config: Path, column: str) -> str:
+    return query(
+        config,
+        "select data_type from information_schema.columns "
+        "where table_name = 'catalogue' and column_name = $column",
+        {"column": column},
+    )[0][0]
+
+
+def test_a_reference_file_the_sniffer_refuses_is_typed_from_its_values(tmp_path: Path) -> None:
+    # a stray CR makes DuckDB's sniffer refuse the file; before, every column was then text
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    catalogue = tmp_path / "catalogue.csv"
+    catalogue.write_text(catalogue.read_text() + "K8,coffee,500\nK9,cof\rfee,9\n")
+    ingest(config)
+    assert _catalogue_type(config, "grams") == "BIGINT"
+    reasons = "select reason from quarantine where source = 'catalogue'"
+    assert query(config, reasons) == [("stray_carriage_return",)]
+
+
+def test_a_corrected_reference_file_is_typed_afresh(tmp_path: Path) -> None:
+    # version 1 writes its grams as text ('250 g'): text; version 2, corrected, as numbers.
+    # Before: the stored text type stayed for good, also after --reload
+    config = write_project(tmp_path, {"a.csv": receipt_lines(3)}, catalogue_grams="250 g")
+    ingest(config)
+    assert _catalogue_type(config, "grams") == "VARCHAR"
+    write_project(tmp_path, {"a.csv": receipt_lines(3)})
+    ingest(config)
+    assert _catalogue_type(config, "grams") == "BIGINT"

@@ -142,7 +142,11 @@ class ReferenceLoader:
                 typed = ()
         sniffed = {c.name: c.type for c in typed}
         for ours, theirs in mapped.items():
-            if ours not in self.spec.fixed_types and sniffed.get(theirs.name) == "VARCHAR":
+            # a column the sniffer gave no type (it refused the file) is text to it too
+            if (
+                ours not in self.spec.fixed_types
+                and sniffed.get(theirs.name, "VARCHAR") == "VARCHAR"
+            ):
                 sniffed[theirs.name] = refs.mostly_typed(con, ours, self._decimal())
         return sniffed
 

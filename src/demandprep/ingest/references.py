@@ -5,9 +5,11 @@ Rows live in `ref_<table>` with their file id and line number, so a changed file
 its own rows; the table the other steps read (`catalogue`, `stores`, ...) is a view of it with
 exactly the mapped columns, in our names. Known columns have fixed types (sku, store, date,
 price...); every other mapped column takes the type DuckDB's sniffer gives it in the first file
-(Parquet: its own type), or BIGINT/DOUBLE/DATE when the sniffer says text but at least 90% of
-the values are one (the others are quarantined as unparseable); later files are cast to the
-stored type. A change of a source's mapped columns (config) reloads all its files.
+(Parquet: its own type), or BIGINT/DOUBLE/DATE when the sniffer says text (or refuses the file)
+but at least 90% of the values are one (the others are quarantined as unparseable); later files
+are cast to the stored type. When every current file of a source is read again (new settings,
+new content, --reload; runner.mark_source_rebuilds), its table is rebuilt and typed afresh. A
+change of a source's mapped columns (config) reloads all its files.
 """
 
 from __future__ import annotations

@@ -393,31 +393,37 @@ def _without_refused(
 def mark_source_rebuilds(
     con: duckdb.DuckDBPyConnection, discovered: list[DiscoveredFile]
 ) -> list[DiscoveredFile]:
-    """Flag the files of each reference source whose every current file is read again for
-    new settings: only then may its table be rebuilt from nothing (no other file's rows lost)."""
+    """Flag the files of each reference source whose every current file is read again (new
+    settings, new content, a reload): only then may its table be rebuilt from nothing (no other
+    file's rows lost), its column types taken afresh from the new files."""
     current: dict[str, set[str]] = {}
     for (source, _path), version in current_versions(con).items():
         current.setdefault(source, set()).add(version.file_id)
     marked = []
     for name in dict.fromkeys(item.source for item in discovered):
         files = [item for item in discovered if item.source == name]
-        reread = {item.previous_file_id for item in files if item.settings_changed}
+        reread = {item.previous_file_id for item in files if item.status == "changed"}
         rebuild = name in REFERENCE_SPECS and bool(reread) and current.get(name, set()) <= reread
         marked += [replace(item, rebuilds_source=rebuild) for item in files]
     return marked
 
 
 def _reset_for_new_settings(con: duckdb.DuckDBPyConnection, files: list[DiscoveredFile]) -> None:
-    """Empty a reference source read again for new settings, so its types are sniffed afresh.
+    """Empty a reference source whose every file is read again, so its types are sniffed afresh.
 
     Only the first batch of the source does it: once one file is in with the new settings,
-    the later batches replace their own files' rows only.
+    the later batches replace their own files' rows only. A source read again for new content
+    is emptied when this batch replaces every current file of it (one batch, as a catalogue).
     """
     first = files[0]
     spec = REFERENCE_SPECS.get(first.source)
     if spec is None or not any(item.rebuilds_source for item in files):
         return
-    if not ledger.has_current_with(con, first.source, first.settings_fingerprint):
+    replaced = {item.previous_file_id for item in files}
+    if (
+        not ledger.has_current_with(con, first.source, first.settings_fingerprint)
+        or ledger.current_ids(con, first.source) <= replaced
+    ):
         drop_reference_storage(con, spec)
 
 

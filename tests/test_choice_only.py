@@ -99,3 +99,25 @@ def test_choice_only_summary_says_the_market_build_is_off(choice_only) -> None:
         f"summary: market build off (choice data only), {occasions:,} occasions, "
         f"{len(ctx.warnings)} warnings"
     )
+
+
+def test_a_product_key_value_holding_the_separator_stops_a_choice_only_build(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    # the choice build joins the key values with '|' itself when no market build ran; before,
+    # ('A|B', 'C') and ('A', 'B|C') gave one alternative without a word
+    config = copy_sample(coffee_sample, tmp_path / "sample")
+    config.write_text(choice_only_text(config.read_text()))
+    catalogue = config.parent / "catalogue.csv"
+    lines = catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
+    lines[1] = lines[1].replace(",beans,", ",beans|x,", 1)
+    catalogue.write_text("".join(lines), encoding="utf-8")
+    sku = lines[1].split(",")[0]
+    loaded = load_config(config)
+    run_ingest(loaded)
+    with pytest.raises(UserError) as caught:
+        run_build(loaded)
+    assert caught.value.one_line().startswith(
+        "config key 'products.keys': 1 in-scope catalogue SKUs have a key value holding '|', "
+        f"which joins the key values into the product id: {sku} (format 'beans|x')."
+    ), caught.value.one_line()

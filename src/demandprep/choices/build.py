@@ -26,6 +26,7 @@ from demandprep.choices.settings import FRINGE, OUTSIDE, ChoiceSettings, load_ch
 from demandprep.choices.validation import validate_choices
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
+from demandprep.market.checks import refuse_key_separators
 from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
@@ -76,6 +77,11 @@ def _run_on(con: duckdb.DuckDBPyConnection, params: dict[str, object], *names: s
         run_sql(con, f"choices/{name}.sql", params)
 
 
+def _found(ctx: BuildContext, settings: ChoiceSettings, name: str) -> list[tuple]:
+    """The rows of one SQL file of sql/choices/ that finds something wrong."""
+    return run_sql(ctx.con, f"choices/{name}.sql", settings.params()).fetchall()
+
+
 def prepare_choice_inputs(ctx: BuildContext) -> None:
     """Check key and settings; map SKUs to alternatives; stage shelf prices and category lines."""
     # the key first: a missing or short key stops the build before it writes anything
@@ -89,6 +95,7 @@ def prepare_choice_inputs(ctx: BuildContext) -> None:
     # absent optional inputs (households, shelf prices, market build) read as empty views
     create_input_views(ctx.con, ctx.config.market_build_enabled)
     _run(ctx, settings, *INPUT_FILES)
+    refuse_key_separators(_found(ctx, settings, "009_choice_key_separators"))
     _check_reserved_alternatives(ctx)
     _check_universe_matches(ctx, settings)
 

@@ -74,7 +74,11 @@ KEY_SEPARATOR_SQL = """
 
 def check_key_separator(ctx: BuildContext) -> None:
     """No in-scope key value holds '|': ('A|B', 'C') and ('A', 'B|C') would be one product."""
-    found = ctx.con.execute(KEY_SEPARATOR_SQL).fetchall()
+    refuse_key_separators(ctx.con.execute(KEY_SEPARATOR_SQL).fetchall())
+
+
+def refuse_key_separators(found: list[tuple[str, str, str]]) -> None:
+    """Stop on (sku, key column, value) rows of key values holding '|', naming a few SKUs."""
     if not found:
         return
     first = {}

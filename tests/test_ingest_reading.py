@@ -17,6 +17,11 @@ from rich.console import Console
 
 from demandprep.ingest.runner import summary_table
 
+UNREADABLE_HINT = (
+    "Hint: check that the file is whole (a cut or damaged copy?) and in the source's format "
+    "and encoding; a file that failed is read again at the next ingest."
+)
+
 HEADER = b"ticket;row;branch;stamp;article;qty;value;member;disc;kind"
 
 
@@ -305,6 +310,8 @@ def test_a_corrupt_gzip_file_fails_alone_as_unreadable(tmp_path: Path) -> None:
     (result,) = summary.failed
     assert result.path == path and result.unreadable
     assert result.error.startswith(f"{path}: cannot be read (")
+    # before: no hint
+    assert result.error.endswith(UNREADABLE_HINT), result.error
     assert "\n" not in result.error
     others = sum(r.rows_accepted for r in summary.files if r.source == "receipts")
     assert others > 0

@@ -278,7 +278,8 @@ def key_problems(config: ProjectConfig) -> list[UserError]:
 def _as_problem(error: Exception) -> UserError:
     if isinstance(error, UserError):
         return error
-    return UserError(" ".join(str(error).split()), "check that the file is a readable table.")
+    message, _, hint = " ".join(str(error).split()).partition(" Hint: ")
+    return UserError(message, hint or "check that the file is a readable table.")
 
 
 def _toml_string(text: str) -> str:

@@ -102,6 +102,15 @@ class FileUnreadable(FileRefused):
     """The file cannot be opened or decoded at all; a later attempt may succeed."""
 
 
+def unreadable(subject: object, why: str) -> FileUnreadable:
+    """`<subject>: cannot be read (<why>). Hint: ...` as one line."""
+    return FileUnreadable(
+        f"{subject}: cannot be read ({why}). Hint: check that the file is whole (a cut or "
+        "damaged copy?) and in the source's format and encoding; a file that failed is read "
+        "again at the next ingest."
+    )
+
+
 @dataclass(frozen=True)
 class SourceColumn:
     """A column as the file holds it: its name and DuckDB type."""
@@ -139,7 +148,7 @@ def file_columns(
     try:
         rows = con.execute(sql, params).fetchall()
     except duckdb.Error as error:
-        raise FileUnreadable(f"{path}: cannot be read ({first_line(error)}).") from None
+        raise unreadable(path, first_line(error)) from None
     return tuple(SourceColumn(name, str(kind)) for name, kind, *_ in rows)
 
 
@@ -249,7 +258,7 @@ def stage_files(
                 _stage_parquet(con, paths)
             except duckdb.Error as error:
                 names = paths[0] if len(paths) == 1 else f"one of {len(paths)} files"
-                raise FileUnreadable(f"{names}: cannot be read ({first_line(error)}).") from None
+                raise unreadable(names, first_line(error)) from None
     else:
         _read_lines(con, paths, source, timer)
         with timer.phase("classify"):
@@ -290,7 +299,7 @@ def _read_lines(
                     _split_lines(con, pieces, source)
                 pieces, size = [], 0
     except LinesUnreadable as error:
-        raise FileUnreadable(f"{error.path}: cannot be read ({error}).") from None
+        raise unreadable(error.path, str(error)) from None
     finally:
         chunks.close()  # stops the reader threads when a piece failed
     if pieces:

@@ -80,11 +80,14 @@ def fixture_config(
 
 
 def create_market_tables(
-    con: duckdb.DuckDBPyConnection, extra_rows: list[tuple[str, date, str, float]] = ()
+    con: duckdb.DuckDBPyConnection,
+    extra_rows: list[tuple[str, date, str, float]] = (),
+    zero_share_rows: list[tuple[str, date, str, float]] = (),
 ) -> None:
     """`stores`, `market_products` and `shares` as the ingest and market build would leave them.
 
-    `extra_rows` adds (store, period_start, product, price) product-markets."""
+    `extra_rows` adds (store, period_start, product, price) product-markets; `zero_share_rows`
+    likewise, on the shelf without sales (price: the shelf price; zero_shares = 'keep')."""
     con.execute("create table stores (store varchar, region varchar)")
     con.executemany("insert into stores values (?, ?)", list(STORE_REGIONS.items()))
     con.execute(
@@ -92,22 +95,34 @@ def create_market_tables(
         create table market_products (
             market varchar, geography varchar, period_start date, product varchar,
             firm varchar, nest varchar, roast_level integer, organic boolean,
-            units double, price double, is_fringe boolean
+            units double, price double, is_fringe boolean, is_zero_share boolean
         )
         """
     )
     rows = [(store, WEEK, product, price) for store, product, price in PRODUCT_MARKETS]
     rows += list(extra_rows)
-    for store, period, product, price in rows:
+    sold = [(row, 10, False) for row in rows] + [(row, 0, True) for row in zero_share_rows]
+    for (store, period, product, price), units, zero in sold:
         firm, roast, organic = PRODUCTS[product]
         con.execute(
-            "insert into market_products values (?, ?, ?, ?, ?, 'bag', ?, ?, 10, ?, false)",
-            [market_id(store, period), store, period, product, firm, roast, organic, price],
+            "insert into market_products values (?, ?, ?, ?, ?, 'bag', ?, ?, ?, ?, false, ?)",
+            [
+                market_id(store, period),
+                store,
+                period,
+                product,
+                firm,
+                roast,
+                organic,
+                units,
+                price,
+                zero,
+            ],
         )
-    for store, period in sorted({(store, period) for store, period, _, _ in rows}):
+    for store, period in sorted({(store, period) for (store, period, _, _), _, _ in sold}):
         con.execute(
             "insert into market_products values (?, ?, ?, 'fringe', null, null, null, null,"
-            " 3, ?, true)",
+            " 3, ?, true, false)",
             [market_id(store, period), store, period, FRINGE_PRICE],
         )
     con.execute(

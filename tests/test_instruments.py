@@ -9,6 +9,7 @@ from datetime import date
 import duckdb
 import pytest
 from instruments_fixtures import (
+    WEEK,
     A,
     B,
     C,
@@ -70,6 +71,20 @@ def test_product_sold_in_one_market_gets_null_and_flag_not_zero(full_build):
     assert instrument_value(con, A, "p4", "iv_hausman_missing") is True
     assert full_build.facts["hausman_missing"] == {"product_markets": 1, "of": 9}
     assert any("iv_hausman_missing" in w for w in full_build.warnings)
+
+
+def test_other_market_price_leaves_out_markets_where_the_product_did_not_sell(tmp_path):
+    # p4 sells only in A (7.0) and sits unsold on B's shelf at 9.0 (zero_shares = 'keep'): A's
+    # other-market price is still missing, B's is A's 7.0. Before: A got B's shelf price 9.0
+    con = duckdb.connect()
+    create_market_tables(con, zero_share_rows=[("S2", WEEK, "p4", 9.0)])
+    create_cost_shifters(con)
+    ctx = BuildContext(con=con, config=fixture_config(tmp_path, ALL_FAMILIES))
+    run_instrument_stages(ctx)
+    assert instrument_value(con, A, "p4", "iv_hausman_price") is None
+    assert instrument_value(con, A, "p4", "iv_hausman_missing") is True
+    assert instrument_value(con, B, "p4", "iv_hausman_price") == pytest.approx(7.0)
+    assert instrument_value(con, A, "p1", "iv_hausman_price") == pytest.approx((5.0 + 6.0) / 2)
 
 
 def test_other_market_price_can_leave_out_the_whole_region(tmp_path):

@@ -1,6 +1,9 @@
 -- The product-markets that get instruments: every inside product of every market.
 -- The composite fringe product is left out on purpose: its price and characteristics average
 -- many small products, so it is neither instrumented nor counted as anyone's rival.
+-- price: the transaction price, null where the product did not sell (a zero-share row kept on
+-- the shelf, zero_shares = 'keep' or 'add_one', carries a shelf price in market_products): such
+-- a market gives no other-market price (040), and a sale arriving there changes this row (013)
 create or replace table iv_products as
 
 with
@@ -12,7 +15,7 @@ market_products_rows as (
         period_start,
         product,
         firm,
-        price,
+        case when not is_zero_share then price end as price,
         is_fringe,
     from market_products
 ),

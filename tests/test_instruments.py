@@ -87,6 +87,23 @@ def test_other_market_price_leaves_out_markets_where_the_product_did_not_sell(tm
     assert instrument_value(con, A, "p1", "iv_hausman_price") == pytest.approx((5.0 + 6.0) / 2)
 
 
+def test_a_product_without_a_firm_counts_as_a_firm_of_its_own(tmp_path):
+    # p4 (only in A) has no firm: it is every other product's rival and has no own-firm
+    # partner; before, a null firm made every pair with it neither same-firm nor rival
+    con = duckdb.connect()
+    create_market_tables(con)
+    con.execute("update market_products set firm = null where product = 'p4'")
+    create_cost_shifters(con)
+    ctx = BuildContext(con=con, config=fixture_config(tmp_path, ALL_FAMILIES))
+    run_instrument_stages(ctx)
+    assert instrument_value(con, A, "p4", "iv_rival_count") == 3
+    assert instrument_value(con, A, "p4", "iv_firm_count") == 0
+    assert instrument_value(con, A, "p3", "iv_firm_count") == 0
+    assert instrument_value(con, A, "p1", "iv_rival_count") == 2
+    assert instrument_value(con, A, "p4", "iv_rival_sum_roast_level") == 1 + 3 + 2
+    assert any("no firm" in w and "p4" in w for w in ctx.warnings), ctx.warnings
+
+
 def test_other_market_price_can_leave_out_the_whole_region(tmp_path):
     ctx = build(tmp_path, {"hausman": {"exclude_same": "region"}})
     con = ctx.con

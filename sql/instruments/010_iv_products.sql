@@ -26,7 +26,9 @@ inside_products as (
         cast(geography as varchar) as geography,
         period_start,
         product,
-        cast(firm as varchar) as firm,
+        -- a product without a firm is a firm of its own (every other product's rival): a null
+        -- firm would make each pair with it neither same-firm nor rival (050, 051, 060)
+        coalesce(cast(firm as varchar), 'no firm: ' || product) as firm,
         price,
     from market_products_rows
     where not is_fringe

@@ -37,6 +37,7 @@ def prepare_instrument_inputs(ctx: BuildContext) -> None:
     characteristics = instrument_characteristics(ctx)
     _check_characteristics(characteristics, columns)
     run_sql(ctx.con, "instruments/010_iv_products.sql")
+    _warn_on_products_without_firm(ctx)
     run_sql(ctx.con, "instruments/011_instrument_values.sql")
     run_sql(ctx.con, "instruments/012_instrument_flags.sql")
     _require_products(ctx)
@@ -50,6 +51,20 @@ def prepare_instrument_inputs(ctx: BuildContext) -> None:
     else:
         create_empty_characteristics(ctx.con)
     plan_instrument_periods(ctx)
+
+
+def _warn_on_products_without_firm(ctx: BuildContext) -> None:
+    rows = ctx.con.execute(
+        "select distinct product from market_products "
+        "where firm is null and not is_fringe order by product"
+    ).fetchall()
+    if rows:
+        names = [product for (product,) in rows]
+        shown = ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
+        ctx.warn(
+            f"instruments: {len(names)} products have no firm (catalogue firm column empty): "
+            f"{shown}; each counts as a firm of its own, every other product's rival."
+        )
 
 
 def _check_characteristics(characteristics: list[str], columns: dict[str, str]) -> None:

@@ -231,3 +231,32 @@ def _columns(path: Path) -> list[str]:
             return next(csv.reader(handle))
     with pd.read_stata(path, iterator=True) as reader:
         return list(reader.variable_labels())
+
+
+def test_stata_copy_shortens_long_names_uniquely_and_keeps_them_in_the_labels(
+    tmp_path: Path,
+) -> None:
+    # Stata names hold 32 characters; before, pandas cut these two to names that swapped their
+    # meaning between tables ('_0caffeine...') and dropped their labels, without a word
+    from demandprep.export import stata
+
+    hot, cold = "caffeine_milligrams_per_serving_hot", "caffeine_milligrams_per_serving_cold"
+    source = tmp_path / "t.parquet"
+    pq.write_table(pa.table({"product": ["a", "b"], hot: [1.0, 2.0], cold: [3.0, 4.0]}), source)
+    labels = {"product": "the product", hot: "served hot", cold: "served cold"}
+    rows, renamed = stata.write_dta(source, tmp_path / "t.dta", labels)
+    assert rows == 2
+    # reference: pandas' own Stata reader
+    with pd.read_stata(tmp_path / "t.dta", iterator=True) as reader:
+        read_labels = reader.variable_labels()
+        frame = reader.read()
+    assert list(frame.columns) == ["product", renamed[hot], renamed[cold]]
+    assert all(len(name) <= 32 for name in frame.columns)
+    assert len(set(frame.columns)) == 3
+    assert renamed[hot].startswith(hot[:27])
+    # the same Stata name in every table, whichever other long names it holds
+    assert stata.stata_names([cold]) == {cold: renamed[cold]}
+    assert list(frame[renamed[cold]]) == [3.0, 4.0]
+    assert read_labels[renamed[hot]] == f"{hot}: served hot"
+    assert read_labels[renamed[cold]] == f"{cold}: served cold"
+    assert read_labels["product"] == "the product"

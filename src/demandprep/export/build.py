@@ -228,7 +228,13 @@ def _dta_copy(
         return []
     path = _subfolder(table.path, "dta") / f"{table.path.stem}.dta"
     labels = {entry.column: entry.description for entry, _ in entries}
-    rows = stata.write_dta(table.path, path, labels)
+    rows, renamed = stata.write_dta(table.path, path, labels)
+    if renamed:
+        pairs = ", ".join(f"{name} -> {short}" for name, short in renamed.items())
+        ctx.warn(
+            f"dta/{path.name}: names longer than Stata's {stata.NAME_CHARS} characters were "
+            f"shortened ({pairs}); each label starts with the full name"
+        )
     return [OutputFile(path, rows, derived_from=table.path.name)]
 
 

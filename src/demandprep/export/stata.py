@@ -6,6 +6,7 @@ the caller records a warning instead. The file's time stamp is fixed so the byte
 
 from __future__ import annotations
 
+import hashlib
 import os
 from collections.abc import Mapping
 from datetime import datetime
@@ -20,6 +21,7 @@ from demandprep.export.csv_safe import list_as_text
 MAX_ROWS = 5_000_000
 STATA_VERSION = 118
 LABEL_CHARS = 80
+NAME_CHARS = 32  # Stata's longest variable name
 STR_MAX = 2045
 # Why fixed: the header's time stamp would otherwise make every rebuild differ.
 FIXED_TIME_STAMP = datetime(2000, 1, 1)
@@ -30,9 +32,20 @@ def dta_fits(parquet_path: Path) -> bool:
     return pq.ParquetFile(parquet_path).metadata.num_rows <= MAX_ROWS
 
 
-def write_dta(parquet_path: Path, dta_path: Path, labels: Mapping[str, str]) -> int:
-    """Write `parquet_path` as a Stata file; column labels come from `labels`; returns rows."""
+def write_dta(
+    parquet_path: Path, dta_path: Path, labels: Mapping[str, str]
+) -> tuple[int, dict[str, str]]:
+    """Write `parquet_path` as a Stata file; column labels come from `labels`.
+
+    Returns the rows and the columns renamed for Stata's 32-character names (original -> Stata
+    name); a renamed column's label starts with its full name."""
     table = pq.read_table(parquet_path)
+    renamed = stata_names(table.column_names)
+    labels = {
+        renamed.get(name, name): (f"{name}: {text}" if name in renamed else text)
+        for name, text in labels.items()
+    }
+    table = table.rename_columns([renamed.get(name, name) for name in table.column_names])
     frame, convert_dates = _stata_frame(table)
     long_text = [
         name
@@ -54,7 +67,26 @@ def write_dta(parquet_path: Path, dta_path: Path, labels: Mapping[str, str]) -> 
         )
         handle.flush()
         os.fsync(handle.fileno())
-    return table.num_rows
+    return table.num_rows, renamed
+
+
+def stata_names(names: list[str]) -> dict[str, str]:
+    """Original -> Stata name for each name over NAME_CHARS: its start and 4 hex digits of its
+    md5, so a long name gets the same Stata name in every table (a counter after it in the rare
+    case that is taken too)."""
+    taken = {name for name in names if len(name) <= NAME_CHARS}
+    renamed: dict[str, str] = {}
+    for name in names:
+        if len(name) <= NAME_CHARS:
+            continue
+        digest = hashlib.md5(name.encode("utf-8"), usedforsecurity=False).hexdigest()[:4]
+        candidate, number = f"{name[: NAME_CHARS - 5]}_{digest}", 0
+        while candidate in taken:
+            number += 1
+            candidate = f"{name[: NAME_CHARS - 5 - len(str(number))]}{number}_{digest}"
+        taken.add(candidate)
+        renamed[name] = candidate
+    return renamed
 
 
 def _stata_frame(table: pa.Table) -> tuple[pd.DataFrame, dict[str, str]]:

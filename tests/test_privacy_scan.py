@@ -125,3 +125,19 @@ def test_household_file_without_header_is_refused_without_quoting_it(tmp_path: P
     log = build_log_path(config).read_text()
     assert "has no such column" in log
     assert [value for value in ids if value in log] == []
+
+
+def test_check_quotes_no_header_of_a_card_source_delivered_without_one(tmp_path: Path) -> None:
+    # before: check named each missing column but the card's with "its columns are <first
+    # line>", which held a card id (only ingest withheld it)
+    from demandprep.preflight import preflight_problems
+
+    write_inputs(tmp_path)
+    ids = input_ids(tmp_path)
+    for path in (tmp_path / "households.csv", tmp_path / "receipts" / "receipts_2024-03.csv"):
+        rows = path.read_text().splitlines()[1:]
+        path.write_text("\n".join(rows) + "\n")
+    problems = [problem.one_line() for problem in preflight_problems(scan_config(tmp_path))]
+    assert any("households.csv" in text for text in problems)
+    assert any("receipts_2024-03.csv" in text for text in problems)
+    assert [text for text in problems if any(value in text for value in ids)] == []

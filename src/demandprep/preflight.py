@@ -28,7 +28,7 @@ from demandprep.ingest.reader import (
     SourceColumn,
     csv_parameters,
     file_columns,
-    map_columns,
+    map_column,
     refuse_stage_names,
 )
 from demandprep.sqlfiles import quote_identifier
@@ -79,9 +79,9 @@ def source_header(
         message = f"{first}: the header has one column; the file seems to use {other!r}."
         return {}, [UserError(message, hint)]
     mapped, problems = {}, []
-    for ours, theirs in source.columns.items():
+    for ours in source.columns:
         try:
-            mapped |= map_columns(first, columns, {ours: theirs}, source.header)
+            mapped[ours] = map_column(first, columns, source.columns, ours, source.header)
         except UserError as error:
             problems.append(error)
     try:

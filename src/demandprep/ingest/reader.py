@@ -159,17 +159,22 @@ def map_columns(
 
     Without a header, a mapping value may also be a 1-based column position ("3").
     """
+    return {ours: map_column(path, columns, mapping, ours, header) for ours in mapping}
+
+
+def map_column(
+    path: Path, columns: tuple[SourceColumn, ...], mapping: dict[str, str], ours: str, header: bool
+) -> SourceColumn:
+    """The file's column for one of our names; a gap is a UserError. `mapping` is the source's
+    whole mapping: whether the file may carry card ids decides what the error quotes."""
+    theirs = mapping[ours]
+    if not header and theirs.isdigit() and 1 <= int(theirs) <= len(columns):
+        return columns[int(theirs) - 1]
     by_name = {column.name: column for column in columns}
-    mapped = {}
-    for ours, theirs in mapping.items():
-        if not header and theirs.isdigit() and 1 <= int(theirs) <= len(columns):
-            mapped[ours] = columns[int(theirs) - 1]
-        elif theirs in by_name:
-            _refuse_repeated(path, columns, ours, theirs)
-            mapped[ours] = by_name[theirs]
-        else:
-            raise _missing_column(path, columns, mapping, ours)
-    return mapped
+    if theirs not in by_name:
+        raise _missing_column(path, columns, mapping, ours)
+    _refuse_repeated(path, columns, ours, theirs)
+    return by_name[theirs]
 
 
 def _refuse_repeated(path: Path, columns: tuple[SourceColumn, ...], ours: str, theirs: str) -> None:

@@ -260,3 +260,18 @@ def test_stata_copy_shortens_long_names_uniquely_and_keeps_them_in_the_labels(
     assert read_labels[renamed[hot]] == f"{hot}: served hot"
     assert read_labels[renamed[cold]] == f"{cold}: served cold"
     assert read_labels["product"] == "the product"
+
+
+def test_a_build_without_choices_writes_no_choice_file_left_in_the_warehouse(
+    tmp_path: Path,
+) -> None:
+    # choices turned off after a build with them: the warehouse still holds that build's
+    # choices and choosers; before, every later build exported them again, stale
+    from demandprep.export.tables import plan_outputs
+
+    con = duckdb.connect()
+    fill_warehouse(con, occasions=30)
+    with_choices = {table.name for table in plan_outputs(con, export_config(tmp_path))}
+    assert {"choices", "choosers"} <= with_choices
+    without = {table.name for table in plan_outputs(con, export_config(tmp_path, choices=False))}
+    assert without == with_choices - {"choices", "choosers"}

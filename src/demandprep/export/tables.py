@@ -90,6 +90,8 @@ def plan_outputs(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[
             continue  # a choice-only project: even a market table left from before stays out
         if kind == "demographics" and config.demographic_draws.draws is None:
             continue  # draws not asked for: a table left from an earlier config stays out
+        if kind in ("choices", "choosers") and not config.choices.enabled:
+            continue  # choices off: an earlier build's choice tables stay out
         if table not in present:
             if required or (kind in ("choices", "choosers") and config.choices.enabled):
                 raise UserError(

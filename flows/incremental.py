@@ -10,7 +10,7 @@ import duckdb
 
 from demandprep.config import ProjectConfig
 from demandprep.export.folder import latest_build
-from demandprep.export.manifest import MANIFEST_NAME, input_records
+from demandprep.export.manifest import MANIFEST_NAME, input_records, key_fingerprint_of
 
 INGEST_STATUSES = ("new", "changed")
 
@@ -29,9 +29,12 @@ def latest_build_is_current(con: duckdb.DuckDBPyConnection, config: ProjectConfi
     if manifest_path is None or not manifest_path.is_file():
         return False
     manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
-    return manifest.get("config_hash") == config.config_hash() and _input_keys(
-        manifest.get("inputs", [])
-    ) == _input_keys(input_records(con))
+    return (
+        manifest.get("config_hash") == config.config_hash()
+        # another pseudonym key gives every chooser and occasion another id
+        and manifest.get("pseudonym_key_fingerprint") == key_fingerprint_of(config)
+        and _input_keys(manifest.get("inputs", [])) == _input_keys(input_records(con))
+    )
 
 
 def _input_keys(records: Sequence[dict[str, Any]]) -> set[tuple[str, str, str]]:

@@ -150,3 +150,16 @@ def test_no_card_to_chooser_link_outlives_a_killed_build(tmp_path):
         ).fetchall()
         con.close()
         assert linking == [], CHOICE_STAGES[stages - 1].name
+
+
+@pytest.mark.parametrize("key", [" long-enough-key-0123456789", "long-enough-key-0123456789\n"])
+def test_a_key_with_spaces_at_its_ends_is_refused(monkeypatch, key):
+    # before: the length check stripped them but the hash did not, so a key set once with a
+    # trailing newline and once without gave two sets of chooser ids without a word
+    monkeypatch.setenv(KEY_ENV, key)
+    with pytest.raises(UserError) as raised:
+        small_world().build()
+    assert raised.value.one_line().startswith(
+        f"environment variable {KEY_ENV} holds a pseudonym key with spaces or a line break at "
+        "its start or end"
+    )

@@ -554,3 +554,30 @@ def test_a_changed_summary_model_rebuilds_the_summaries_whole(world, monkeypatch
     assert manifest["full_build_reason"] == (
         "demandprep or its SQL changed since the summaries were built"
     )
+
+
+def test_a_new_pseudonym_key_rebuilds_and_says_every_id_changed(
+    tmp_path: Path, coffee_sample: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # before: a night with another key was "nothing new" and skipped, and the next build
+    # re-keyed every chooser and occasion id without a word
+    folder = tmp_path / "world"
+    shutil.copytree(coffee_sample, folder, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    config = load_config(folder / "demandprep.toml")
+    monkeypatch.setenv(config.choices.pseudonym_key_env, "first-key-0123456789abcdef")
+    pipeline.run_ingest(config)
+    first = pipeline.build_unless_current(config)
+    assert not first.skipped
+    assert pipeline.build_unless_current(config).skipped
+    monkeypatch.setenv(config.choices.pseudonym_key_env, "second-key-0123456789abcdef")
+    second = pipeline.build_unless_current(config)
+    assert not second.skipped
+    manifests = [
+        json.loads((item.folder / "manifest.json").read_text(encoding="utf-8"))
+        for item in (first, second)
+    ]
+    keys = [manifest["pseudonym_key_fingerprint"] for manifest in manifests]
+    assert len(set(keys)) == 2 and all(len(key) == 16 for key in keys)
+    assert "first-key" not in json.dumps(manifests[0])
+    assert any("pseudonym key" in text for text in manifests[1]["warnings"])
+    assert not any("pseudonym key" in text for text in manifests[0]["warnings"])

@@ -33,6 +33,7 @@ BATCH_ROWS = 200_000
 # the holdout draw reads 13 hex digits (52 bits) of a second keyed hash as a uniform number
 HOLDOUT_HEX_DIGITS = 13
 HOLDOUT_LABEL = b"holdout\x00"
+FINGERPRINT_LABEL = b"key fingerprint\x00"
 
 
 def pseudonym_key(env_name: str) -> bytes:
@@ -52,7 +53,25 @@ def pseudonym_key(env_name: str) -> bytes:
             "the key and recompute the pseudonyms.",
             f"set {env_name} to a long random secret, made for instance with {KEY_RECIPE}.",
         )
+    if value != value.strip():
+        raise UserError(
+            f"environment variable {env_name} holds a pseudonym key with spaces or a line break "
+            "at its start or end; they are part of the key, so a key set once with and once "
+            "without them would change every chooser id.",
+            f'set {env_name} without them (e.g. export {env_name}="$(cat keyfile)").',
+        )
     return value.encode("utf-8")
+
+
+def key_fingerprint(key: bytes) -> str:
+    """16 hex digits that tell keys apart without telling anything of the key: a keyed hash of
+    a fixed label (the manifest records it; a new key means new ids)."""
+    return hmac.new(key, FINGERPRINT_LABEL, hashlib.sha256).hexdigest()[:16]
+
+
+def configured_key_fingerprint(enabled: bool, env_name: str) -> str | None:
+    """The fingerprint of the key a build with choices uses (None without choices)."""
+    return key_fingerprint(pseudonym_key(env_name)) if enabled else None
 
 
 def chooser_pseudonym(key: bytes, card: str) -> str:

@@ -104,6 +104,11 @@ def write_build(
                 "quick_logit": [estimate.as_dict() for estimate in built.estimates],
             },
         )
+    if drift.get("pseudonym_key_changed"):
+        ctx.warn(
+            f"choices: the pseudonym key is not the one of build {drift['previous_build']}: "
+            "every chooser and occasion id changed, so ids do not join across the two builds"
+        )
     with _timed(ctx, "export.report"):
         report = write_report(
             ctx,

@@ -18,6 +18,7 @@ from typing import Any
 import duckdb
 
 from demandprep.config import ProjectConfig
+from demandprep.export.manifest import key_fingerprint_of
 
 TOP_CHANGES = 10  # largest share and price changes listed
 LISTED_KEYS = 20  # markets or products added or gone listed by name (all are counted)
@@ -161,6 +162,7 @@ def since_last_build(
         "previous_build": previous.name,
         "previous_built_at": manifest.get("built_at"),
         "config_changed": manifest.get("config_hash") != config.config_hash(),
+        "pseudonym_key_changed": _key_changed(manifest, config),
         "inputs": _inputs(manifest.get("inputs", []), current["inputs"]),
         "rows": _rows(manifest.get("outputs", []), current["outputs"]),
     }
@@ -178,6 +180,7 @@ def summary_line(drift: dict[str, Any]) -> str:
         return NO_PREVIOUS["summary"]
     inputs = drift["inputs"]
     parts = ["config changed"] if drift.get("config_changed") else []
+    parts += ["pseudonym key changed"] if drift.get("pseudonym_key_changed") else []
     parts += [
         f"{len(inputs['added'])} input files added, {len(inputs['gone'])} gone, "
         f"{len(inputs['changed'])} changed",
@@ -190,6 +193,12 @@ def summary_line(drift: dict[str, Any]) -> str:
             f"products +{products['added_count']}/-{products['gone_count']}"
         )
     return "; ".join(parts)
+
+
+def _key_changed(manifest: dict[str, Any], config: ProjectConfig) -> bool:
+    """Both builds made choices, with keys of other fingerprints (pseudonyms.py)."""
+    before, now = manifest.get("pseudonym_key_fingerprint"), key_fingerprint_of(config)
+    return before is not None and now is not None and before != now
 
 
 def _previous_manifest(previous: Path | None) -> dict[str, Any] | None:

@@ -16,6 +16,8 @@ import numpy as np
 import pyarrow as pa
 
 from demandprep import __version__
+from demandprep.choices.pseudonyms import configured_key_fingerprint
+from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 
 MANIFEST_NAME = "manifest.json"
@@ -85,6 +87,7 @@ def build_manifest(
         "built_at": built_at.isoformat(),
         "tool": {"name": "demandprep", "version": __version__},
         "config_hash": ctx.config.config_hash(),
+        "pseudonym_key_fingerprint": key_fingerprint_of(ctx.config),
         "config": ctx.config.resolved_dict(),
         "inputs": input_records(ctx.con),
         "outputs": [output_record(folder, output) for output in outputs],
@@ -95,6 +98,12 @@ def build_manifest(
         "market_build": market_build_record(ctx.config),
         **(extra or {}),
     }
+
+
+def key_fingerprint_of(config: ProjectConfig) -> str | None:
+    """The pseudonym key's fingerprint when the build makes choices (pseudonyms.py), else None."""
+    choices = config.choices
+    return configured_key_fingerprint(choices.enabled, choices.pseudonym_key_env)
 
 
 def build_scope(ctx: BuildContext) -> dict[str, Any]:

@@ -213,3 +213,20 @@ def test_report_lists_the_files_behind_the_warnings_with_their_reasons(tmp_path)
     for name, reason in (("d.csv", "truncated"), ("e.csv", "past the limit")):
         assert name in text and reason in text
     assert "c.csv: not gzip" not in text  # c.csv went in on its retry
+
+
+def test_a_current_file_the_config_no_longer_names_is_a_warning(tmp_path):
+    # the config's files now name another file: before, the old one's rows stayed (and won
+    # over the new file's as duplicate keys) with no word, as it still existed on disk
+    folder = drop_folder(tmp_path, "sizes_v1.csv")
+    con = duckdb.connect()
+    ingest_ledger(con)
+    insert_ledger(
+        con, [ledger_row("F1", "market_sizes", folder / "sizes_v1.csv", "current", rows_read=4)]
+    )
+    config = export_config(tmp_path)  # its sources name files elsewhere
+    assert input_warnings(con, config) == [
+        "inputs: 1 file no longer named by its source's files in the config, their rows still "
+        "in the warehouse (withdraw takes them out): sizes_v1.csv."
+    ]
+    assert input_warnings(con) == []

@@ -64,7 +64,7 @@ def write_build(
 
     `previous` is the published build this one is compared with (drift), None for a first."""
     built = BuildOutputs(staging_dir, staging_dir.name, built_at or datetime.now(UTC))
-    for message in input_warnings(ctx.con):
+    for message in input_warnings(ctx.con, ctx.config):
         ctx.warn(message)
     models = schema_models() if models is None else models
     notes = step_notes(ctx.con, ctx.config)

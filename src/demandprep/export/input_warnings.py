@@ -14,6 +14,7 @@ from pathlib import Path
 
 import duckdb
 
+from demandprep.config import ProjectConfig
 from demandprep.export.tables import table_columns
 
 # common practice, no source: a clean till or catalogue export quarantines next to nothing, so
@@ -84,24 +85,30 @@ class InputFile:
         return Path(self.path).name
 
 
-def input_warnings(con: duckdb.DuckDBPyConnection) -> list[str]:
-    """Every warning about the inputs, in a fixed order; none when there is no ledger."""
+def input_warnings(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig | None = None
+) -> list[str]:
+    """Every warning about the inputs, in a fixed order; none when there is no ledger.
+
+    With `config`, current files its sources' `files` no longer name are warned about too."""
     if not _has_table(con, "ledger"):
         return []
-    files = files_not_in(con) + files_gone(con)
+    files = files_not_in(con) + files_gone(con, config)
     messages = []
-    for status in (*STATUS_MEANINGS, "gone"):
+    for status in (*STATUS_MEANINGS, "gone", "unnamed"):
         items = [item for item in files if item.status == status]
         if items:
             messages.append(_files_message(status, items))
     return messages + quarantine_warnings(con)
 
 
-def files_needing_attention(con: duckdb.DuckDBPyConnection) -> list[InputFile]:
+def files_needing_attention(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig | None = None
+) -> list[InputFile]:
     """The files behind the warnings: latest versions that did not go in, then gone files."""
     if not _has_table(con, "ledger"):
         return []
-    return files_not_in(con) + files_gone(con)
+    return files_not_in(con) + files_gone(con, config)
 
 
 def files_not_in(con: duckdb.DuckDBPyConnection) -> list[InputFile]:
@@ -112,10 +119,28 @@ def files_not_in(con: duckdb.DuckDBPyConnection) -> list[InputFile]:
     return [InputFile(*row) for row in rows]
 
 
-def files_gone(con: duckdb.DuckDBPyConnection) -> list[InputFile]:
-    """Current files whose path no longer exists on disk."""
+def files_gone(
+    con: duckdb.DuckDBPyConnection, config: ProjectConfig | None = None
+) -> list[InputFile]:
+    """Current files whose path no longer exists on disk ('gone') or, with `config`, that its
+    sources' `files` no longer name ('unnamed'): their rows stay either way."""
     rows = con.execute(CURRENT_FILES).fetchall()
-    return [InputFile("gone", source, path) for source, path in rows if not Path(path).exists()]
+    named = _named_files(config) if config is not None else None
+    found = []
+    for source, path in rows:
+        if not Path(path).exists():
+            found.append(InputFile("gone", source, path))
+        elif named is not None and path not in named.get(source, set()):
+            found.append(InputFile("unnamed", source, path))
+    return found
+
+
+def _named_files(config: ProjectConfig) -> dict[str, set[str]]:
+    return {
+        name: {str(path) for path in source.resolved_files()}
+        for name, source in config.sources
+        if source is not None
+    }
 
 
 def quarantine_warnings(con: duckdb.DuckDBPyConnection) -> list[str]:
@@ -141,6 +166,11 @@ def _files_message(status: str, items: list[InputFile]) -> str:
         return (
             f"inputs: {count} gone from the drop folder, their rows still in the warehouse: "
             f"{shown}."
+        )
+    if status == "unnamed":
+        return (
+            f"inputs: {count} no longer named by its source's files in the config, their rows "
+            f"still in the warehouse (withdraw takes them out): {shown}."
         )
     return f"inputs: {count} {STATUS_MEANINGS[status]}: {shown}."
 

@@ -507,7 +507,7 @@ def _warnings(warnings: Sequence[str]) -> str:
 
 
 def _attention_table(ctx: BuildContext) -> str:
-    files = files_needing_attention(ctx.con)
+    files = files_needing_attention(ctx.con, ctx.config)
     if not files:
         return ""
     rows = pd.DataFrame(

@@ -734,3 +734,21 @@ def test_a_corrected_reference_file_is_typed_afresh(tmp_path: Path) -> None:
     write_project(tmp_path, {"a.csv": receipt_lines(3)})
     ingest(config)
     assert _catalogue_type(config, "grams") == "BIGINT"
+
+
+def test_a_moved_project_folder_reads_no_file_again(tmp_path: Path) -> None:
+    # the ledger keys files by absolute path: before, every file of a moved project was new,
+    # all its lines duplicates of themselves, and every file refused; a night with nothing built
+    before = tmp_path / "before"
+    config = write_project(before, {"a.csv": receipt_lines(5), "b.csv": receipt_lines(4, day=2)})
+    ingest(config)
+    rows = warehouse_rows(config)
+    after = tmp_path / "after"
+    shutil.move(before, after)
+    moved = after / "demandprep.toml"
+    results = ingest(moved)
+    assert {result.status for result in results.files} == {"unchanged"}
+    assert results.ok
+    assert warehouse_rows(moved) == rows
+    paths = query(moved, "select path from ledger where status = 'current' order by path")
+    assert all(path.startswith(str(after)) for (path,) in paths)

@@ -57,6 +57,7 @@ from demandprep.ingest.files import (
     stamp_records,
 )
 from demandprep.ingest.loaders import Loader, ReceiptLoader, ReferenceLoader
+from demandprep.ingest.moves import recognise_moves
 from demandprep.ingest.reader import (
     FileRefused,
     FileUnreadable,
@@ -141,6 +142,7 @@ def discover_files(
             workers=config.warehouse.threads,
             records=records,
         )
+    found = recognise_moves(con, found)
     record_stamps(con, found)
     return mark_source_rebuilds(con, found)
 

@@ -191,8 +191,9 @@ def _ingest_every_file(
 
 
 def stale_verdicts(con: duckdb.DuckDBPyConnection) -> dict[str, frozenset[Path]]:
-    """Source -> paths of its current files with lines quarantined as unknown_sku or
-    unknown_store before the catalogue or stores table they were judged against changed (075)."""
+    """Source -> paths of its current files with a verdict that may be stale (075): lines
+    quarantined as unknown_sku or unknown_store before the catalogue or stores table they were
+    judged against changed, or as duplicate_line before a receipts file of their day left."""
     found: dict[str, set[Path]] = {}
     for source, path in run_sql(con, "ingest/075_stale_verdicts.sql").fetchall():
         found.setdefault(source, set()).add(Path(path))
@@ -213,8 +214,8 @@ def _read_stale_again(
     summary: IngestSummary,
     timer: PhaseTimer,
 ) -> None:
-    """After the night's files, read again those with a line quarantined against an older
-    catalogue or stores table (the files read tonight were judged against today's)."""
+    """After the night's files, read again those with a stale verdict (stale_verdicts): the
+    files read tonight were judged against today's references and receipts."""
     stale = stale_verdicts(con)
     if not stale:
         return

@@ -752,3 +752,69 @@ def test_a_moved_project_folder_reads_no_file_again(tmp_path: Path) -> None:
     assert warehouse_rows(moved) == rows
     paths = query(moved, "select path from ledger where status = 'current' order by path")
     assert all(path.startswith(str(after)) for (path,) in paths)
+
+
+def test_duplicates_judged_again_settle_and_the_next_nights_read_nothing(tmp_path: Path) -> None:
+    # a.csv holds a line twice; b.csv repeats a's first line and has a line of its own on that
+    # day. a is corrected: b is read again. Before: re-reading one file counted as its old
+    # version leaving, which made the other's duplicate stale again, and the two files were
+    # read by turns every night
+    lines = receipt_lines(5, day=3)
+    config = write_project(tmp_path, {"a.csv": [*lines[:4], lines[1]]})
+    (tmp_path / "receipts" / "b.csv").write_text("\n".join([HEADER, lines[0], lines[4]]) + "\n")
+    ingest(config)
+    corrected = [*lines[:4], lines[1], *receipt_lines(1, day=6)]
+    (tmp_path / "receipts" / "a.csv").write_text("\n".join([HEADER, *corrected]) + "\n")
+    ingest(config)
+    for _night in range(2):
+        assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
+def test_a_catalogue_edit_that_lists_no_unknown_sku_reads_no_receipts_file_again(
+    tmp_path: Path,
+) -> None:
+    # only a quarantined SKU the catalogue now lists makes a file be read again; before, any
+    # catalogue change read again every file with an unknown_sku line
+    new_sku = [line.replace(";K1;", ";K2;") for line in receipt_lines(3, day=2)]
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5) + new_sku})
+    ingest(config)
+    catalogue = tmp_path / "catalogue.csv"
+    catalogue.write_text(catalogue.read_text() + "K7,coffee,750\n")
+    assert by_name(ingest(config))["a.csv"].status == "unchanged"
+    assert warehouse_rows(config)[:2] == (5, 3)
+
+
+def test_a_catalogue_missing_skus_for_one_night_loses_no_receipts_line(tmp_path: Path) -> None:
+    # night 2's catalogue lacks K1; night 3's is whole again. Before: night 2 read again the
+    # files with an unknown SKU, refused them (most lines unknown now) and took their rows out
+    # as for new settings; night 3 held them back as refused, and their rows stayed out
+    unknown = [line.replace(";K1;", ";K9;") for line in receipt_lines(3, day=2)]
+    config = write_project(tmp_path, {"a.csv": receipt_lines(200) + unknown})
+    ingest(config)
+    assert warehouse_rows(config)[:2] == (200, 3)
+    catalogue = tmp_path / "catalogue.csv"
+    whole = catalogue.read_text()
+    catalogue.write_text("item,category,grams\nK2,coffee,500\n")
+    ingest(config)
+    catalogue.write_text(whole)
+    ingest(config)
+    assert warehouse_rows(config)[:2] == (200, 3)
+
+
+def test_a_withdrawn_file_stays_out_after_the_project_folder_moves(tmp_path: Path) -> None:
+    # before: moves were only looked for among current files, so the withdrawn file was new
+    # under its new path and its rows went back in
+    before = tmp_path / "before"
+    config = write_project(before, {"a.csv": receipt_lines(5), "b.csv": receipt_lines(4, day=2)})
+    ingest(config)
+    loaded = load_config(config)
+    with open_warehouse(loaded.warehouse) as con:
+        withdraw_files(con, loaded, str(before / "receipts" / "b.csv"), "test")
+    after = tmp_path / "after"
+    shutil.move(before, after)
+    moved = after / "demandprep.toml"
+    results = ingest(moved)
+    assert {result.status for result in results.files} == {"unchanged"}
+    assert warehouse_rows(moved)[:2] == (5, 0)
+    statuses = "select status from ledger where path = $path order by version"
+    assert query(moved, statuses, {"path": str(after / "receipts" / "b.csv")}) == [("withdrawn",)]

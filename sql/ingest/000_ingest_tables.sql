@@ -87,3 +87,11 @@ create table if not exists ingest_departures (
     file_id varchar not null,
     left_in bigint not null,
 );
+
+-- the distinct SKUs and stores of each receipts file's lines quarantined as unknown_sku or
+-- unknown_store (033): a file is read again when the catalogue or stores table lists one (075)
+create table if not exists quarantined_keys (
+    file_id varchar not null,
+    reason varchar not null,
+    value varchar not null,
+);

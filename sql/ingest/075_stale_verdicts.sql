@@ -31,8 +31,26 @@ stale_files as (
     join verdicts on verdicts.reason = quarantine.reason
     join reference_changes on reference_changes.source = verdicts.source
     where files.status = 'current'
-        and files.source <> verdicts.source
+        and files.source not in (verdicts.source, 'receipts')
         and try_cast(substr(files.file_id, 2) as bigint) < reference_changes.changed_in
+),
+
+-- receipts (many files) are read again only for a SKU or store the tables now list, so an
+-- edit of the catalogue that lists none of them reads no receipts file again
+known_now as (
+    select 'unknown_sku' as reason, cast(sku as varchar) as value from catalogue
+    union all
+    select 'unknown_store' as reason, cast(store as varchar) as value from stores
+),
+
+stale_receipts as (
+    select distinct
+        files.source,
+        files.path,
+    from ledger as files
+    join quarantined_keys as keys on keys.file_id = files.file_id
+    semi join known_now on known_now.reason = keys.reason and known_now.value = keys.value
+    where files.status = 'current' and files.source = 'receipts'
 ),
 
 -- a receipts version that left after a file was read, on a day of the file's duplicates: the
@@ -60,6 +78,8 @@ stale_duplicates as (
 )
 
 select source, path from stale_files
+union
+select source, path from stale_receipts
 union
 select source, path from stale_duplicates
 order by source, path

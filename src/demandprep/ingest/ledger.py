@@ -100,8 +100,12 @@ def id_range(batch: list[BatchFile]) -> dict[str, str]:
     return {"first_file_id": batch[0].file_id, "last_file_id": batch[-1].file_id}
 
 
-def supersede_previous(con: duckdb.DuckDBPyConnection) -> None:
-    """Mark the older versions of the batch's changed files as superseded."""
+def supersede_previous(con: duckdb.DuckDBPyConnection, settings_fingerprint: str | None) -> None:
+    """Mark the older versions of the batch's changed files as superseded, and record those
+    that leave lines behind (071; `settings_fingerprint`: the batch's reading settings)."""
+    run_sql(
+        con, "ingest/071_superseded_departures.sql", {"settings_fingerprint": settings_fingerprint}
+    )
     run_sql(con, "ingest/065_supersede_previous.sql")
 
 

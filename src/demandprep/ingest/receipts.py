@@ -67,7 +67,8 @@ def check_receipt_lines(
     mapped: dict[str, SourceColumn],
     timer: PhaseTimer | None = None,
 ) -> None:
-    """Type and check the staged lines into `ingest_checked`, then mark the duplicates."""
+    """Type and check the staged lines into `ingest_checked`, then mark the duplicates and
+    record the unknown SKUs and stores."""
     timer = timer or PhaseTimer()
     values_shown = not carries_cards(mapped)
     with timer.phase("classify"):
@@ -78,6 +79,9 @@ def check_receipt_lines(
         )
     with timer.phase("dedupe"):
         _mark_duplicates(con, values_shown)
+    with timer.phase("classify"):
+        # the unknown SKUs and stores, so a table that lists one later brings the lines in (075)
+        run_sql(con, "ingest/033_quarantined_keys.sql")
 
 
 def _mark_duplicates(con: duckdb.DuckDBPyConnection, values_shown: bool) -> None:

@@ -194,6 +194,8 @@ def stale_verdicts(con: duckdb.DuckDBPyConnection) -> dict[str, frozenset[Path]]
     """Source -> paths of its current files with a verdict that may be stale (075): lines
     quarantined as unknown_sku or unknown_store before the catalogue or stores table they were
     judged against changed, or as duplicate_line before a receipts file of their day left."""
+    if not (table_columns(con, "catalogue") and table_columns(con, "stores")):
+        return {}  # before the first references are in, no verdict can be stale
     found: dict[str, set[Path]] = {}
     for source, path in run_sql(con, "ingest/075_stale_verdicts.sql").fetchall():
         found.setdefault(source, set()).add(Path(path))
@@ -221,9 +223,10 @@ def _read_stale_again(
         return
     with timer.phase("discover"):
         again = discover_files(con, config, reread=stale)
-    _read_files(
-        con, config, [item for item in again if _is_stale(item, stale)], notify, summary, timer
-    )
+    # the same bytes under the same settings: a refusal keeps the version read before (it is
+    # not a reading under new settings, which would take the old rows out)
+    rereads = [replace(item, settings_changed=False) for item in again if _is_stale(item, stale)]
+    _read_files(con, config, rereads, notify, summary, timer)
 
 
 def _is_stale(item: DiscoveredFile, stale: dict[str, frozenset[Path]]) -> bool:
@@ -442,7 +445,7 @@ def _load_batch(
         batch = ledger.assign_versions(con, files[0].source, files)
         ledger.create_batch_table(con, batch)
         if any(item.previous_file_id for item in files):
-            _remove_previous(con, loader)
+            _remove_previous(con, loader, files[0].settings_fingerprint)
     step = {"source": files[0].source, "path": first, "paths": [item.path for item in files]}
     staged = stage_files(con, [item.path for item in files], source, files[0].source, timer)
     notify("file_step", step="staged", rows=sum(staged.records.values()), **step)
@@ -478,13 +481,15 @@ def _load_batch(
     return [_loaded(item, counts[item.file_id], staged.lines) for item in batch]
 
 
-def _remove_previous(con: duckdb.DuckDBPyConnection, loader: Loader) -> None:
+def _remove_previous(
+    con: duckdb.DuckDBPyConnection, loader: Loader, settings_fingerprint: str | None
+) -> None:
     loader.remove_previous(con)
     con.execute(
         "delete from quarantine where file_id in (select previous_file_id "
         "from ingest_batch_files where previous_file_id is not null)"
     )
-    ledger.supersede_previous(con)
+    ledger.supersede_previous(con, settings_fingerprint)
 
 
 def _loaded(item: ledger.BatchFile, counts: ledger.FileCounts, lines: dict[str, int]) -> FileResult:

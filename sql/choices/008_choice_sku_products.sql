@@ -13,17 +13,8 @@ market_sku_products as (
     where $from_market
 ),
 
-category_skus as (
-    select
-        cast(sku as varchar) as catalogue_sku,
-        columns(lambda c: list_contains($product_keys, c))::varchar,
-    from catalogue
-    where not $from_market and list_contains($categories, cast(category as varchar))
-),
-
 sku_key_values as (
-    from category_skus
-    unpivot include nulls (key_value for key_name in (columns(* exclude (catalogue_sku))))
+    select catalogue_sku, key_name, key_value, from choice_sku_key_values
 ),
 
 catalogue_sku_products as (

@@ -35,6 +35,7 @@ from demandprep.warehouse import insertion_order_kept, one_thread
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
     "choice_universe",
+    "choice_sku_key_values",
     "choice_sku_products",
     "choice_alternative_map",
     "choice_shelf",
@@ -102,6 +103,7 @@ def prepare_choice_inputs(ctx: BuildContext) -> None:
 
 INPUT_FILES = (
     "005_choice_universe",
+    "007_choice_sku_key_values",
     "008_choice_sku_products",
     "010_choice_alternative_map",
     "015_choice_shelf",

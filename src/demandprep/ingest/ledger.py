@@ -169,15 +169,6 @@ def validate_batch(con: duckdb.DuckDBPyConnection, id_range: dict[str, str]) -> 
         validate_query(con, f"select * from {table} {in_batch}", id_range, model, table)  # noqa: S608
 
 
-def current_ids(con: duckdb.DuckDBPyConnection, source: str) -> set[str]:
-    """The file ids of the current versions of `source`'s files."""
-    rows = con.execute(
-        "select file_id from ledger where source = $source and status = 'current'",
-        {"source": source},
-    ).fetchall()
-    return {file_id for (file_id,) in rows}
-
-
 def has_current_with(
     con: duckdb.DuckDBPyConnection, source: str, settings_fingerprint: str | None
 ) -> bool:

@@ -402,9 +402,7 @@ def mark_source_rebuilds(
     """Flag the files of each reference source whose every current file is read again (new
     settings, new content, a reload): only then may its table be rebuilt from nothing (no other
     file's rows lost), its column types taken afresh from the new files."""
-    current: dict[str, set[str]] = {}
-    for (source, _path), version in current_versions(con).items():
-        current.setdefault(source, set()).add(version.file_id)
+    current = _current_ids(con)
     marked = []
     for name in dict.fromkeys(item.source for item in discovered):
         files = [item for item in discovered if item.source == name]
@@ -412,6 +410,14 @@ def mark_source_rebuilds(
         rebuild = name in REFERENCE_SPECS and bool(reread) and current.get(name, set()) <= reread
         marked += [replace(item, rebuilds_source=rebuild) for item in files]
     return marked
+
+
+def _current_ids(con: duckdb.DuckDBPyConnection) -> dict[str, set[str]]:
+    """Source -> the file ids of its current (or empty) versions."""
+    current: dict[str, set[str]] = {}
+    for (source, _path), version in current_versions(con).items():
+        current.setdefault(source, set()).add(version.file_id)
+    return current
 
 
 def _reset_for_new_settings(con: duckdb.DuckDBPyConnection, files: list[DiscoveredFile]) -> None:
@@ -428,7 +434,7 @@ def _reset_for_new_settings(con: duckdb.DuckDBPyConnection, files: list[Discover
     replaced = {item.previous_file_id for item in files}
     if (
         not ledger.has_current_with(con, first.source, first.settings_fingerprint)
-        or ledger.current_ids(con, first.source) <= replaced
+        or _current_ids(con).get(first.source, set()) <= replaced
     ):
         drop_reference_storage(con, spec)
 

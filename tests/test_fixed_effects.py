@@ -19,6 +19,7 @@ from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.export.quick_logit import quick_logit
 from demandprep.instruments.first_stage import measure_first_stage
+from demandprep.instruments.fixed_effects import _codes
 
 STORES = {f"S{i:02d}": ("north", "east", "south")[i % 3] for i in range(9)}
 WEEKS, PRODUCTS = 6, 5
@@ -206,3 +207,44 @@ def test_market_and_level_period_effects_are_accepted_by_the_config(tmp_path: Pa
     raw["instruments"]["first_stage_fixed_effects"] = effects
     config = parse_config(raw, tmp_path / "demandprep.toml", check_files=False)
     assert config.instruments.first_stage_fixed_effects == effects
+
+
+def _same_grouping(left: np.ndarray, right: list[tuple[object, ...]]) -> bool:
+    """True when two rows share a code exactly when they share a key (codes are labels only)."""
+    pairs = set(zip(left.tolist(), right, strict=True))
+    return len(pairs) == len(set(left.tolist())) == len(set(right))
+
+
+def test_group_codes_group_rows_by_their_key_tuples_nulls_apart() -> None:
+    # the reference is Python's own tuple equality, with None a value of its own: a null level
+    # value is not the text 'None' and not the empty text
+    rng = np.random.default_rng(3)
+    texts = np.asarray(
+        [["a", "b", "None", "", None, "a\x1fb"][i] for i in rng.integers(0, 6, 500)],
+        dtype=object,
+    )
+    days = np.asarray(
+        [
+            np.datetime64("2024-01-01") + np.timedelta64(7 * int(i), "D")
+            for i in rng.integers(0, 4, 500)
+        ]
+    )
+    words = np.asarray([["a", "b\x1f", "a\x1fb"][i] for i in rng.integers(0, 3, 500)], dtype=object)
+    masked = np.ma.masked_array(rng.integers(0, 3, 500), mask=rng.integers(0, 2, 500) == 1)
+
+    for columns in ([texts], [days], [texts, days], [words, texts], [masked, days]):
+        codes = _codes(*columns)
+        keys = list(
+            zip(
+                *[
+                    np.ma.asarray(c).astype(object).filled(None)
+                    if np.ma.isMaskedArray(c)
+                    else c.tolist()
+                    for c in columns
+                ],
+                strict=True,
+            )
+        )
+        assert codes.shape == (500,)
+        assert codes.min() == 0 and codes.max() == len(set(keys)) - 1
+        assert _same_grouping(codes, keys)

@@ -122,6 +122,30 @@ def _level_of_geography(
 
 def _codes(*columns: np.ndarray) -> np.ndarray:
     """Dense integer codes of the tuples of the given columns (nulls form their own group)."""
-    keys = np.asarray(["\x1f".join(map(str, values)) for values in zip(*columns, strict=True)])
-    _, codes = np.unique(keys, return_inverse=True)
-    return codes.reshape(-1)
+    codes = _dense(_column_codes(columns[0]))
+    for column in columns[1:]:
+        # one integer per pair of codes, made dense again, so it stays below rows squared
+        more = _dense(_column_codes(column))
+        codes = _dense(codes * (int(more.max(initial=0)) + 1) + more)
+    return codes
+
+
+def _dense(codes: np.ndarray) -> np.ndarray:
+    _, dense = np.unique(codes, return_inverse=True)
+    return dense.reshape(-1).astype(np.int64)
+
+
+def _column_codes(values: np.ndarray) -> np.ndarray:
+    # codes, not yet dense, of one column: vectorised (a Python join per row cost 0.36 s a night
+    # at 128,000 rows); a null is a value of its own, apart from any text, 'None' and '' too
+    missing = np.ma.getmaskarray(values) if np.ma.isMaskedArray(values) else None
+    array = np.ma.getdata(values)
+    if array.dtype == object:
+        nulls = np.equal(array, None)
+        missing = nulls if missing is None else missing | nulls
+        array = np.where(missing, "", array).astype(str)
+    elif missing is not None:
+        array = np.where(missing, array.flat[0] if array.size else 0, array)
+    _, codes = np.unique(array, return_inverse=True)
+    codes = codes.reshape(-1)
+    return codes if missing is None else codes * 2 + missing

@@ -601,6 +601,27 @@ def test_lines_of_an_unknown_sku_are_read_again_once_the_catalogue_lists_it(
     assert query(config, "select count(*) from ledger where path like '%a.csv'")[0] == (2,)
 
 
+def test_unknown_sku_lines_of_a_warehouse_without_their_keys_come_back_with_the_catalogue(
+    tmp_path: Path,
+) -> None:
+    # a warehouse ingested by a version before quarantined_keys has no keys for its unknown_sku
+    # lines: they must still come in once the catalogue lists the SKU, as in a fresh warehouse.
+    # Before, such lines stayed quarantined for good (only a --reload brought them in)
+    new_sku = [line.replace(";K1;", ";K2;") for line in receipt_lines(3, day=2)]
+    other_sku = [line.replace(";K1;", ";K9;") for line in receipt_lines(2, day=3)]
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5) + new_sku + other_sku})
+    ingest(config)
+    assert warehouse_rows(config) == (5, 5, 1)
+    query(config, "delete from quarantined_keys")  # as that version left it
+    catalogue = tmp_path / "catalogue.csv"
+    catalogue.write_text(catalogue.read_text() + "K2,coffee,500\n")
+    assert by_name(ingest(config))["a.csv"].status == "replaced"
+    assert warehouse_rows(config) == (8, 2, 2)
+    # read again, its keys are recorded (K9): an edit that lists no key of it reads nothing
+    catalogue.write_text(catalogue.read_text() + "K3,coffee,250\n")
+    assert by_name(ingest(config))["a.csv"].status == "unchanged"
+
+
 def test_shelf_prices_and_receipts_of_an_unlisted_sku_come_back_with_the_catalogue(
     coffee_sample: Path, tmp_path: Path
 ) -> None:
@@ -630,6 +651,62 @@ def test_shelf_prices_and_receipts_of_an_unlisted_sku_come_back_with_the_catalog
     ingest(fresh / "demandprep.toml")
     expected = query(fresh / "demandprep.toml", counts_sql)[0]
     assert expected[0] > 0 and expected[1] > 0
+    assert query(config, counts_sql)[0] == expected
+
+
+def test_lines_of_a_sku_the_catalogue_drops_are_quarantined_as_a_fresh_ingest_does(
+    tmp_path: Path,
+) -> None:
+    # the catalogue lists K2 one night and not the next (a mislabelled product taken out): its
+    # lines must leave raw_lines for the quarantine, as a first ingest against today's
+    # catalogue puts them. Before, they stayed accepted and still counted visits
+    lines = receipt_lines(5) + [x.replace(";K1;", ";K2;") for x in receipt_lines(3, day=2)]
+    config = write_project(tmp_path, {"a.csv": lines})
+    catalogue = tmp_path / "catalogue.csv"
+    listed = catalogue.read_text()
+    catalogue.write_text(listed + "K2,coffee,500\n")
+    ingest(config)
+    assert warehouse_rows(config) == (8, 0, 2)
+    catalogue.write_text(listed)
+    assert by_name(ingest(config))["a.csv"].status == "replaced"
+    fresh = write_project(tmp_path / "fresh", {"a.csv": lines})
+    ingest(fresh)
+    reasons = "select reason, line_no from quarantine order by all"
+    assert warehouse_rows(config) == warehouse_rows(fresh) == (5, 3, 1)
+    assert _accepted_lines(config) == _accepted_lines(fresh)
+    assert query(config, reasons) == query(fresh, reasons)
+    # compared with today's catalogue once: the next night reads nothing again
+    assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
+def test_shelf_prices_and_receipts_of_a_sku_the_catalogue_drops_leave_the_tables(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    folder = tmp_path / "sample"
+    shutil.copytree(coffee_sample, folder, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    config = folder / "demandprep.toml"
+    ingest(config)
+    catalogue = folder / "catalogue.csv"
+    catalogue.write_text(
+        "".join(
+            line
+            for line in catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
+            if not line.startswith("C0102,")
+        ),
+        encoding="utf-8",
+    )
+    counts_sql = (
+        "select (select count(*) from raw_lines where sku = 'C0102'), "
+        "(select count(*) from shelf_prices where sku = 'C0102'), "
+        "(select count(*) from quarantine where reason = 'unknown_sku')"
+    )
+    assert query(config, counts_sql)[0][:2] != (0, 0)
+    ingest(config)
+    fresh = tmp_path / "fresh"
+    shutil.copytree(folder, fresh, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    ingest(fresh / "demandprep.toml")
+    expected = query(fresh / "demandprep.toml", counts_sql)[0]
+    assert expected[:2] == (0, 0) and expected[2] > 0
     assert query(config, counts_sql)[0] == expected
 
 
@@ -666,6 +743,30 @@ def test_a_duplicate_is_accepted_once_the_copy_accepted_before_leaves(
     assert _accepted_lines(config) == _accepted_lines(fresh)
     assert query(config, "select count(*) from quarantine")[0] == (0,)
     # judged against today's files: the next night reads nothing again
+    assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
+def test_a_duplicate_of_a_warehouse_without_its_sale_days_is_judged_again(tmp_path: Path) -> None:
+    # a warehouse ingested by a version before duplicate_days has no sale days for its
+    # duplicate_line verdicts: when a receipts file leaves after the upgrade, the line must be
+    # in the warehouse once, as a first ingest without that file gives. Before, it stayed
+    # quarantined and was in no table
+    first_day = receipt_lines(5)
+    config = write_project(tmp_path, {"a.csv": first_day, "b.csv": receipt_lines(4, day=2)})
+    (tmp_path / "receipts" / "b.csv").write_text(
+        "\n".join([HEADER, *receipt_lines(4, day=2), first_day[0]]) + "\n"
+    )
+    ingest(config)
+    query(config, "delete from duplicate_days")  # as that version left it
+    (tmp_path / "receipts" / "a.csv").write_text("\n".join([HEADER, *first_day[1:]]) + "\n")
+    ingest(config)
+    fresh = write_project(
+        tmp_path / "fresh",
+        {"a.csv": first_day[1:], "b.csv": receipt_lines(4, day=2) + first_day[:1]},
+    )
+    ingest(fresh)
+    assert _accepted_lines(config) == _accepted_lines(fresh)
+    assert query(config, "select count(*) from quarantine")[0] == (0,)
     assert {result.status for result in ingest(config).files} == {"unchanged"}
 
 

@@ -95,3 +95,9 @@ create table if not exists quarantined_keys (
     reason varchar not null,
     value varchar not null,
 );
+
+-- the current catalogue and stores versions when the accepted rows were last compared with
+-- them (072, 073): a SKU or store they no longer list makes its files be read again
+create table if not exists listed_keys_state (
+    reference_versions varchar not null,
+);

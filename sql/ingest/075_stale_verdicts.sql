@@ -22,6 +22,24 @@ verdicts as (
     from (values ('unknown_sku', 'catalogue'), ('unknown_store', 'stores')) as v (reason, source)
 ),
 
+-- receipts files read by a version that recorded no keys (before quarantined_keys, 033) or no
+-- sale days of duplicates (before duplicate_days, 032): their verdicts are judged by the
+-- broader rules, file number against the tables' changes or any departure; read again, they
+-- record both
+keyless_receipts as (
+    select file_id from quarantine
+    where source = 'receipts' and reason in ('unknown_sku', 'unknown_store')
+    except
+    select file_id from quarantined_keys
+),
+
+dayless_receipts as (
+    select file_id from quarantine
+    where source = 'receipts' and reason = 'duplicate_line'
+    except
+    select file_id from duplicate_days
+),
+
 stale_files as (
     select distinct
         files.source,
@@ -31,7 +49,8 @@ stale_files as (
     join verdicts on verdicts.reason = quarantine.reason
     join reference_changes on reference_changes.source = verdicts.source
     where files.status = 'current'
-        and files.source not in (verdicts.source, 'receipts')
+        and files.source <> verdicts.source
+        and (files.source <> 'receipts' or files.file_id in (select file_id from keyless_receipts))
         and try_cast(substr(files.file_id, 2) as bigint) < reference_changes.changed_in
 ),
 
@@ -75,6 +94,18 @@ stale_duplicates as (
         on days.sale_day between departed_days.first_day and departed_days.last_day
     where files.status = 'current'
         and try_cast(substr(files.file_id, 2) as bigint) < departed_days.left_in
+),
+
+-- a dayless file's duplicates, after any receipts version left
+stale_dayless as (
+    select distinct
+        files.source,
+        files.path,
+    from ledger as files
+    join dayless_receipts using (file_id)
+    join ingest_departures as departures
+        on try_cast(substr(files.file_id, 2) as bigint) < departures.left_in
+    where files.status = 'current'
 )
 
 select source, path from stale_files
@@ -82,4 +113,6 @@ union
 select source, path from stale_receipts
 union
 select source, path from stale_duplicates
+union
+select source, path from stale_dayless
 order by source, path

@@ -77,6 +77,7 @@ from demandprep.ingest.references import (
 from demandprep.ingest.refusal import FilesRefused, Refusal, refusals
 from demandprep.ingest.results import FileResult, IngestSummary, summary_table
 from demandprep.ingest.timings import PhaseTimer, record_timings
+from demandprep.ingest.unlisted_keys import files_with_unlisted_keys, remember_listed_keys
 from demandprep.memory import out_of_memory_error, out_of_memory_reported
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import run_sql
@@ -216,17 +217,28 @@ def _read_stale_again(
     summary: IngestSummary,
     timer: PhaseTimer,
 ) -> None:
-    """After the night's files, read again those with a stale verdict (stale_verdicts): the
-    files read tonight were judged against today's references and receipts."""
-    stale = stale_verdicts(con)
-    if not stale:
-        return
-    with timer.phase("discover"):
-        again = discover_files(con, config, reread=stale)
-    # the same bytes under the same settings: a refusal keeps the version read before (it is
-    # not a reading under new settings, which would take the old rows out)
-    rereads = [replace(item, settings_changed=False) for item in again if _is_stale(item, stale)]
-    _read_files(con, config, rereads, notify, summary, timer)
+    """After the night's files, read again those with a stale verdict (stale_verdicts) or with
+    rows of a SKU or store no longer listed (unlisted_keys.py): the files read tonight were
+    judged against today's references and receipts."""
+    stale = _merged(stale_verdicts(con), files_with_unlisted_keys(con))
+    if stale:
+        with timer.phase("discover"):
+            again = discover_files(con, config, reread=stale)
+        # the same bytes under the same settings: a refusal keeps the version read before (it
+        # is not a reading under new settings, which would take the old rows out)
+        rereads = [
+            replace(item, settings_changed=False) for item in again if _is_stale(item, stale)
+        ]
+        _read_files(con, config, rereads, notify, summary, timer)
+    remember_listed_keys(con)
+
+
+def _merged(*found: dict[str, frozenset[Path]]) -> dict[str, frozenset[Path]]:
+    merged: dict[str, frozenset[Path]] = {}
+    for paths_by_source in found:
+        for source, paths in paths_by_source.items():
+            merged[source] = merged.get(source, frozenset()) | paths
+    return merged
 
 
 def _is_stale(item: DiscoveredFile, stale: dict[str, frozenset[Path]]) -> bool:

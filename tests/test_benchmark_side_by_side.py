@@ -41,14 +41,19 @@ def test_targets_say_which_ratio_misses_its_aim():
         "demandprep_ingest": row(14, 40),
         "demandprep_run": row(20, 30),
         "demandprep_one_day": row(2, 2),
+        "demandprep_nothing_new": row(1, 1),
     }
     met = {label: ok for label, _, _, ok in side_by_side.target_rows(results)}
+    floor = {label: value for label, value, _, _ in side_by_side.target_rows(results)}
 
     assert met["ingest / bare persist, wall"] is True  # 1.4
     assert met["ingest / bare persist, CPU"] is False  # 2.0
     assert met["full run / bare query, wall"] is True  # 2.0
     assert met["one more day / full run, wall"] is False  # 0.1
     assert met["pandas script / full run, wall"] is True  # 4.5
+    # the floor under the one-more-day run is shown, not judged
+    assert floor["(floor of the above) nothing-new run / full run, wall"] == pytest.approx(0.05)
+    assert met["(floor of the above) nothing-new run / full run, wall"] is None
 
 
 def test_a_skipped_contender_leaves_its_targets_unmeasured():

@@ -679,6 +679,31 @@ def test_lines_of_a_sku_the_catalogue_drops_are_quarantined_as_a_fresh_ingest_do
     assert {result.status for result in ingest(config).files} == {"unchanged"}
 
 
+def test_a_catalogue_delivered_again_with_the_same_skus_compares_no_accepted_line(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # a nightly catalogue export with new bytes but the same SKUs: the comparison with every
+    # accepted line (073) must not run, it costs a scan of raw_lines each night
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    ingest(config)
+    catalogue = tmp_path / "catalogue.csv"
+    catalogue.write_text(catalogue.read_text().replace("coffee,250", "coffee,260"))
+    ran: list[str] = []
+
+    def recording(con, name, params=None):
+        ran.append(name)
+        return run_sql(con, name, params)
+
+    monkeypatch.setattr("demandprep.ingest.unlisted_keys.run_sql", recording)
+    assert by_name(ingest(config))["catalogue.csv"].status == "replaced"
+    assert "ingest/073_unlisted_receipt_keys.sql" not in ran
+    # and one that drops a SKU does compare (K1 leaves: its lines go to the quarantine)
+    catalogue.write_text("item,category,grams\nK5,coffee,250\n")
+    assert by_name(ingest(config))["a.csv"].status == "replaced"
+    assert "ingest/073_unlisted_receipt_keys.sql" in ran
+    assert warehouse_rows(config)[:2] == (0, 5)
+
+
 def test_shelf_prices_and_receipts_of_a_sku_the_catalogue_drops_leave_the_tables(
     coffee_sample: Path, tmp_path: Path
 ) -> None:

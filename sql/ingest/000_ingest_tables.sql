@@ -96,8 +96,10 @@ create table if not exists quarantined_keys (
     value varchar not null,
 );
 
--- the current catalogue and stores versions when the accepted rows were last compared with
--- them (072, 073): a SKU or store they no longer list makes its files be read again
-create table if not exists listed_keys_state (
-    reference_versions varchar not null,
+-- the SKUs ('sku') and stores ('store') the catalogue and stores table listed when the accepted
+-- rows were last compared with them (ingest/unlisted_keys.py): a key that leaves the list makes
+-- the files with rows of it be read again (072, 073)
+create table if not exists listed_keys (
+    kind varchar not null,
+    value varchar not null,
 );

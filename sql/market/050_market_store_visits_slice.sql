@@ -49,13 +49,16 @@ calendar as (
         and build_ranges.last_period
 ),
 
+-- counted per store and day (a distinct count per group cost a quarter less than a group per
+-- visit at 39.8M lines)
 store_day_visits as (
     select
         store,
         sold_at::date as visit_date,
+        count(distinct receipt) as visits,
     from sale_lines
     where $receipt_ids_unique_per = 'store_day'
-    group by store, sold_at::date, receipt
+    group by store, sold_at::date
 ),
 
 -- the store part of a spanning visit's identity: null for every line when ids are chain-wide
@@ -81,11 +84,13 @@ visits as (
     select
         store,
         visit_date,
+        visits,
     from store_day_visits
     union all
     select
         first_line.store as store,
         first_line.sold_at::date as visit_date,
+        1 as visits,
     from spanning_visits
 ),
 
@@ -93,7 +98,7 @@ visits_in_periods as (
     select
         visits.store,
         calendar.period_start,
-        count(*) as visits,
+        sum(visits.visits)::bigint as visits,
     from visits
     inner join calendar on calendar.date = visits.visit_date
     group by all

@@ -40,6 +40,7 @@ from demandprep.ingest.runner import (
     discover_files,
     ensure_tables,
     ingest_file,
+    judge_stale_again,
     still_refused,
 )
 from demandprep.stage import Stage, run_stage
@@ -79,6 +80,21 @@ def ingest_task(
 ) -> FileResult:
     """Ingest one new or changed file; a file that cannot be read fails the task (and retries)."""
     return raise_if_failed(ingest_file(con, config, discovered))
+
+
+@task(name="read again", **NO_RESULTS)
+def read_again_task(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[FileResult]:
+    """After the night's files, read again the files whose verdicts the night made stale (a SKU
+    or store listed or no longer listed, a receipts file that left), as the direct ingest does;
+    a refusal is logged, not raised: the version read before stays."""
+    results = judge_stale_again(con, config)
+    for result in results:
+        message = f"read again {result.path} ({result.status})"
+        if result.status in ("refused", "failed"):
+            get_run_logger().warning(f"{message}: {result.error}")
+        else:
+            get_run_logger().info(message)
+    return results
 
 
 @task(name="stage", **NO_RESULTS)
@@ -146,6 +162,7 @@ def run_night(config: ProjectConfig, force_rebuild: bool) -> dict[str, Any]:
                 config,
                 item,
             )
+        call(read_again_task, con, config)
         if not force_rebuild and latest_build_is_current(con, config):
             message = f"nothing new since the latest build ({len(discovered)} files unchanged)"
             logger.info(message)

@@ -375,3 +375,38 @@ def test_night_holds_the_export_root_lock_while_it_publishes(
     assert seen == ["held"]
     with export_root_lock(config.export.root, timeout_seconds=0):
         pass  # and released once the night is over
+
+
+def test_night_reads_again_the_files_a_catalogue_change_judges_anew(
+    night_one: NightOne, tmp_path: Path
+) -> None:
+    # the catalogue stops listing C0102: the night must read again the receipts and shelf-price
+    # files with its rows, as the direct ingest does, so the warehouse equals a fresh ingest of
+    # the same files. Before, the flow ingested only new and changed files and kept every row
+    config = night_one.restore()
+    catalogue = night_one.folder / "catalogue.csv"
+    catalogue.write_text(
+        "".join(
+            line
+            for line in catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
+            if not line.startswith("C0102,")
+        ),
+        encoding="utf-8",
+    )
+    fresh = tmp_path / "fresh"
+    shutil.copytree(night_one.folder, fresh, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    run_ingest(load_config(fresh / "demandprep.toml"))
+
+    state = run_night(night_one.config_path)
+
+    assert state.is_completed(), state.message
+    counts = (
+        "select (select count(*) from raw_lines where sku = 'C0102'), "
+        "(select count(*) from shelf_prices where sku = 'C0102'), "
+        "(select count(*) from quarantine where reason = 'unknown_sku')"
+    )
+    with duckdb.connect(str(fresh / "warehouse" / "demandprep.duckdb"), read_only=True) as con:
+        expected = con.execute(counts).fetchone()
+    with duckdb.connect(str(config.warehouse.path), read_only=True) as con:
+        assert con.execute(counts).fetchone() == expected
+    assert expected[:2] == (0, 0) and expected[2] > 0

@@ -204,7 +204,8 @@ def stale_verdicts(con: duckdb.DuckDBPyConnection) -> dict[str, frozenset[Path]]
 
 
 def judge_stale_again(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[FileResult]:
-    """Read again the files with a verdict that is stale now (after a withdrawal); their results."""
+    """Read again the files with a verdict that is stale now (after a withdrawal, or after the
+    nightly flow's files); their results."""
     summary, timer = IngestSummary(), PhaseTimer()
     _read_stale_again(con, config, _ignore, summary, timer)
     return summary.files

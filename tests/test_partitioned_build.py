@@ -25,6 +25,7 @@ import demandprep.partitioned.map as partition_map
 from demandprep.config import ProjectConfig, load_config
 from demandprep.errors import UserError
 from demandprep.export.folder import latest_build, published_builds
+from demandprep.ingest.runner import ingest_all
 from demandprep.ingest.withdraw import withdraw_files
 from demandprep.partitioned.map import PartitionSummaries, build_partition
 from demandprep.partitioned.plan import plan_partitions, summary_path
@@ -625,3 +626,49 @@ def test_a_partition_mapped_in_both_rounds_reports_what_both_rebuilt() -> None:
         "periods_rebuilt": ["2024-01-01", "2024-02-12"],
         "full_build_reason": "new",
     }
+
+
+def test_files_the_partitions_read_again_are_ledgered_again_by_the_coordinator(
+    coffee_sample: Path, tmp_path: Path
+) -> None:
+    # the catalogue stops listing C0102: the partitions read their files with its lines again
+    # (same bytes, new versions) and quarantine those lines; the coordinator must ledger the new
+    # versions, as a one-process ingest of the same files does. Before, it kept the old counts
+    # and every later build stopped in check_lines_add_up, even after removing the partitions
+    config = sample_copy(coffee_sample, tmp_path / "p", PARTITIONING)
+    config.config_path.write_text(
+        config.config_path.read_text(encoding="utf-8").replace(
+            "[choices]\nenabled = true", "[choices]\nenabled = false"
+        ),
+        encoding="utf-8",
+    )
+    config = load_config(config.config_path)
+    build_partitioned(config, map_in_process(config))
+    catalogue = config.config_path.parent / "catalogue.csv"
+    catalogue.write_text(
+        "".join(
+            line
+            for line in catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
+            if not line.startswith("C0102,")
+        ),
+        encoding="utf-8",
+    )
+    outcome = build_partitioned(config, map_in_process(config))
+
+    assert outcome.folder is not None
+    single = sample_copy(coffee_sample, tmp_path / "single")
+    shutil.copy2(catalogue, single.config_path.parent / "catalogue.csv")
+    with open_warehouse(single.warehouse) as con:
+        ingest_all(con, single)
+    reasons = (
+        "select reason, count(*) from quarantine where source = 'receipts' group by all "
+        "order by all"
+    )
+    accepted = (
+        "select sum(rows_accepted) from ledger where source = 'receipts' and status = 'current'"
+    )
+    with open_warehouse(single.warehouse) as con:
+        expected = con.execute(reasons).fetchall(), con.execute(accepted).fetchone()
+    with open_warehouse(config.warehouse) as con:
+        assert (con.execute(reasons).fetchall(), con.execute(accepted).fetchone()) == expected
+    assert ("unknown_sku", 0) not in expected[0]

@@ -28,13 +28,15 @@ LEDGER_FILES = (
     "033_partitioned_quarantine_insert",
 )
 
-# a partition's latest ledger row of each receipts file version, and the lines it kept of it
+# a partition's ledger row of each receipts file version (the current one, else the latest: a
+# reading of the same bytes refused keeps the version before current), and the lines it kept
 PARTITION_VERSIONS = (
     "select versions.*, kept.lines, kept.first_sold_at, kept.last_sold_at from ("
     "select path, sha256, file_id, bytes, status, reason, rows_read, rows_accepted, "
     "rows_quarantined, ingested_at, settings_fingerprint from {p}.ledger "
     "where source = 'receipts' "
-    "qualify row_number() over (partition by path, sha256 order by version desc) = 1"
+    "qualify row_number() over (partition by path, sha256 "
+    "order by status in ('current', 'empty') desc, version desc) = 1"
     ") as versions left join ("
     "select file_id, count(*) as lines, min(sold_at) as first_sold_at, "
     "max(sold_at) as last_sold_at from {p}.raw_lines group by all"
@@ -77,6 +79,20 @@ def record_receipts_files(
     except BaseException:
         con.execute("rollback")
         raise
+
+
+def read_again_in_partitions(con: duckdb.DuckDBPyConnection, aliases: list[str]) -> dict[str, str]:
+    """The coordinator's current receipts files (path to sha256) that a partition read again
+    as the same bytes after the coordinator ledgered them (a SKU or store listed or no longer
+    listed, a duplicate's copy that left): their lines changed, so they are ledgered again."""
+    rows = con.execute(
+        f"with partition_rows as (select path, sha256, max(ingested_at) as ingested_at "  # noqa: S608
+        f"from ({union_of(aliases, PARTITION_VERSIONS)}) group by all) "
+        "select ledger.path, ledger.sha256 from ledger join partition_rows using (path, sha256) "
+        "where ledger.source = 'receipts' and ledger.status in ('current', 'empty') "
+        "and partition_rows.ingested_at > ledger.ingested_at"
+    ).fetchall()
+    return dict(rows)
 
 
 def check_partitions_agree(con: duckdb.DuckDBPyConnection, files: dict[str, str]) -> None:

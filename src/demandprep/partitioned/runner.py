@@ -38,7 +38,10 @@ from demandprep.partitioned.plan import (
     read_routing_record,
     require_partition_key,
 )
-from demandprep.partitioned.receipts_ledger import record_receipts_files
+from demandprep.partitioned.receipts_ledger import (
+    read_again_in_partitions,
+    record_receipts_files,
+)
 from demandprep.partitioned.reduce import reduce_stages
 from demandprep.partitioned.routing import misrouted, route_files
 from demandprep.pipeline import BuildOutcome
@@ -87,7 +90,7 @@ def build_partitioned(
             )
         partitions = [item.partition for item in summaries]
         with partitions_attached(con, config, partitions) as aliases:
-            record_receipts_files(con, aliases, fresh)
+            record_receipts_files(con, aliases, fresh | read_again_in_partitions(con, aliases))
             check_lines_add_up(con, config, summaries)
             ctx = BuildContext(con=con, config=config)
             with partition_lines_view(con, aliases):

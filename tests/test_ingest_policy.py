@@ -679,6 +679,115 @@ def test_lines_of_a_sku_the_catalogue_drops_are_quarantined_as_a_fresh_ingest_do
     assert {result.status for result in ingest(config).files} == {"unchanged"}
 
 
+def _two_catalogues(folder: Path, lines: list[str], first: str) -> Path:
+    """A project whose catalogue is catalogue.csv (`first`, after K1) and catalogue_b.csv (K2)."""
+    config = write_project(folder, {"a.csv": lines})
+    config.write_text(config.read_text().replace('["catalogue.csv"]', '["catalogue*.csv"]'))
+    (folder / "catalogue.csv").write_text(f"item,category,grams\nK1,coffee,250\n{first}")
+    (folder / "catalogue_b.csv").write_text("item,category,grams\nK2,coffee,500\n")
+    return config
+
+
+def test_a_reference_duplicate_key_is_judged_again_when_its_accepted_copy_leaves(
+    tmp_path: Path,
+) -> None:
+    # K2 is listed by catalogue.csv and by catalogue_b.csv (read after it: duplicate_key). When
+    # catalogue.csv stops listing K2, K2 must stay listed (from catalogue_b.csv) and its receipts
+    # lines accepted, as in a fresh ingest. Before, catalogue_b.csv's verdict was never judged
+    # again: K2 left the catalogue and its lines went to the quarantine as unknown_sku
+    lines = receipt_lines(3) + [x.replace(";K1;", ";K2;") for x in receipt_lines(2, day=2)]
+    config = _two_catalogues(tmp_path, lines, "K2,coffee,500\n")
+    ingest(config)
+    assert warehouse_rows(config) == (5, 1, 2)
+    (tmp_path / "catalogue.csv").write_text("item,category,grams\nK1,coffee,250\n")
+    ingest(config)
+    fresh = _two_catalogues(tmp_path / "fresh", lines, "")
+    ingest(fresh)
+    listed = "select sku from catalogue order by all"
+    reasons = "select reason, line_no from quarantine order by all"
+    assert query(config, listed) == query(fresh, listed) == [("K1",), ("K2",)]
+    assert _accepted_lines(config) == _accepted_lines(fresh)
+    assert query(config, reasons) == query(fresh, reasons) == []
+    assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
+def test_a_duplicate_of_a_line_whose_sku_the_catalogue_drops_is_judged_again(
+    tmp_path: Path,
+) -> None:
+    # b.csv repeats a line of a.csv (same store, day, receipt and line) but names K1 where a.csv
+    # names K2: b's copy is a duplicate while a's line is accepted. When the catalogue drops
+    # K2, a's line goes to the quarantine and b's copy must be accepted, as a fresh ingest
+    # does. Before, a's reading again left no departure, so b's verdict stayed
+    k2_line = receipt_lines(1, day=2)[0].replace(";K1;", ";K2;")
+    files = {"a.csv": [*receipt_lines(3), k2_line], "b.csv": [k2_line.replace(";K2;", ";K1;")]}
+    config = write_project(tmp_path, files)
+    catalogue = tmp_path / "catalogue.csv"
+    listed = catalogue.read_text()
+    catalogue.write_text(listed + "K2,coffee,500\n")
+    ingest(config)
+    assert warehouse_rows(config)[:2] == (4, 1)
+    catalogue.write_text(listed)
+    summary = ingest(config)
+    fresh = write_project(tmp_path / "fresh", files)
+    ingest(fresh)
+    reasons = "select reason, line_no from quarantine order by all"
+    assert _accepted_lines(config) == _accepted_lines(fresh)
+    assert query(config, reasons) == query(fresh, reasons) == [("unknown_sku", 5)]
+    # each file once in the night's summary, with its last status
+    assert sorted(result.path.name for result in summary.files) == [
+        "a.csv",
+        "b.csv",
+        "catalogue.csv",
+        "stores.csv",
+    ]
+
+
+def test_a_reading_again_refused_is_reported_and_not_tried_again_each_night(
+    tmp_path: Path,
+) -> None:
+    # the catalogue drops K2, the SKU of most of a.csv's lines: read again, a.csv is past the
+    # reject limit. The version read before stays (a refusal never takes rows out of a file
+    # read with the same bytes and settings) and each night says so; the next nights neither
+    # read it again nor add a refused ledger row. Before, it was read and refused every night
+    lines = receipt_lines(10) + [x.replace(";K1;", ";K2;") for x in receipt_lines(150, day=2)]
+    config = write_project(tmp_path, {"a.csv": lines})
+    catalogue = tmp_path / "catalogue.csv"
+    listed = catalogue.read_text()
+    catalogue.write_text(listed + "K2,coffee,500\n")
+    ingest(config)
+    catalogue.write_text(listed)
+    assert by_name(ingest(config))["a.csv"].status == "refused"
+    ledger_sql = "select status from ledger where path like '%a.csv' order by version"
+    assert query(config, ledger_sql) == [("current",), ("refused",)]
+    later = ingest(config)
+    assert by_name(later)["a.csv"].status == "unchanged"
+    assert query(config, ledger_sql) == [("current",), ("refused",)]
+    assert any("so the rows of the version read before stay in" in w for w in later.warnings)
+    assert warehouse_rows(config)[:2] == (160, 0)
+
+
+def test_rows_of_a_dropped_sku_in_a_file_away_that_night_leave_when_it_returns(
+    tmp_path: Path,
+) -> None:
+    # a.csv is out of its folder the night the catalogue drops K2 and back, unchanged, the
+    # next night: its K2 line must then go to the quarantine. Before, that night recorded the
+    # new list as compared, and the line stayed accepted for good
+    lines = [*receipt_lines(3), receipt_lines(1, day=2)[0].replace(";K1;", ";K2;")]
+    config = write_project(tmp_path, {"a.csv": lines})
+    catalogue = tmp_path / "catalogue.csv"
+    listed = catalogue.read_text()
+    catalogue.write_text(listed + "K2,coffee,500\n")
+    ingest(config)
+    away = tmp_path / "a.csv.away"
+    (tmp_path / "receipts" / "a.csv").rename(away)
+    catalogue.write_text(listed)
+    ingest(config)
+    away.rename(tmp_path / "receipts" / "a.csv")
+    ingest(config)
+    assert query(config, "select count(*) from raw_lines where sku = 'K2'") == [(0,)]
+    assert query(config, "select reason from quarantine") == [("unknown_sku",)]
+
+
 def test_a_catalogue_delivered_again_with_the_same_skus_compares_no_accepted_line(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:

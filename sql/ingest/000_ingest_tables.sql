@@ -103,3 +103,11 @@ create table if not exists listed_keys (
     kind varchar not null,
     value varchar not null,
 );
+
+-- the stores and days whose lines a partition's warehouse keeps (partitioned/map.py writes the
+-- one row before its ingest); empty in one process: every line (030)
+create temp table if not exists ingest_line_scope (
+    stores varchar[] not null,
+    first_day date,
+    after_last_day date,
+);

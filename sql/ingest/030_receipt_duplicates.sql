@@ -7,6 +7,13 @@
 create temp table ingest_duplicates as
 with
 
+-- a partition's warehouse keeps only its stores' and days' lines (ingest_line_scope, one row,
+-- written by partitioned/map.py; empty in one process): a line outside them has no earlier
+-- copy to meet there, so its verdict is its own partition's, and it is never a duplicate here
+line_scope as (
+    select stores, first_day, after_last_day from ingest_line_scope
+),
+
 candidates as not materialized (
     select
         ordinal,
@@ -17,6 +24,15 @@ candidates as not materialized (
         line,
     from ingest_checked
     where reason is null
+        and (
+            not exists (from line_scope)
+            or (
+                list_contains((select stores from line_scope), store)
+                and sold_at::date >= coalesce((select first_day from line_scope), sold_at::date)
+                and sold_at::date
+                    < coalesce((select after_last_day from line_scope), sold_at::date + 1)
+            )
+        )
 ),
 
 -- only the days this batch covers: raw_lines is appended in time order, so this prunes

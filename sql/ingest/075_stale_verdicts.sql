@@ -1,7 +1,8 @@
 -- current files with lines quarantined against something that changed after the file was
 -- read: unknown_sku (catalogue) and unknown_store (stores), in receipts and in the reference
--- sources that name a SKU or store (shelf prices, ...), and duplicate_line (a receipts file
--- that left). Read again, such a line is judged as a first read would judge it today.
+-- sources that name a SKU or store (shelf prices, ...), duplicate_line (a receipts file that
+-- left) and duplicate_key (a file of the same reference source that left). Read again, such a
+-- line is judged as a first read would judge it today.
 -- "After" by file number (F + digits, increasing in ingest order, 063): ingested_at keeps
 -- whole seconds only
 with
@@ -105,7 +106,23 @@ stale_dayless as (
     join dayless_receipts using (file_id)
     join ingest_departures as departures
         on try_cast(substr(files.file_id, 2) as bigint) < departures.left_in
+    join ledger as gone on gone.file_id = departures.file_id and gone.source = 'receipts'
     where files.status = 'current'
+),
+
+-- a reference file's duplicate_key rows, after a version of the same source left (reference
+-- sources are small: any departure of the source makes them stale)
+stale_reference_duplicates as (
+    select distinct
+        files.source,
+        files.path,
+    from ledger as files
+    semi join quarantine
+        on quarantine.file_id = files.file_id and quarantine.reason = 'duplicate_key'
+    join ingest_departures as departures
+        on try_cast(substr(files.file_id, 2) as bigint) < departures.left_in
+    join ledger as gone on gone.file_id = departures.file_id and gone.source = files.source
+    where files.status = 'current' and files.source <> 'receipts'
 )
 
 select source, path from stale_files
@@ -115,4 +132,6 @@ union
 select source, path from stale_duplicates
 union
 select source, path from stale_dayless
+union
+select source, path from stale_reference_duplicates
 order by source, path

@@ -97,6 +97,9 @@ class DiscoveredFile:
     held_back: str | None = None
     # the file's stamp and the sha256 just read from it, to record (None: taken from a record)
     new_record: StampRecord | None = None
+    # read again as the same bytes for rows of a SKU or store no longer listed: its accepted
+    # lines may leave, so the duplicates of them are judged again (071)
+    lines_may_leave: bool = False
 
 
 @dataclass(frozen=True)

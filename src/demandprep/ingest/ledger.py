@@ -100,11 +100,18 @@ def id_range(batch: list[BatchFile]) -> dict[str, str]:
     return {"first_file_id": batch[0].file_id, "last_file_id": batch[-1].file_id}
 
 
-def supersede_previous(con: duckdb.DuckDBPyConnection, settings_fingerprint: str | None) -> None:
+def supersede_previous(
+    con: duckdb.DuckDBPyConnection,
+    settings_fingerprint: str | None,
+    leaving: list[str] | None = None,
+) -> None:
     """Mark the older versions of the batch's changed files as superseded, and record those
-    that leave lines behind (071; `settings_fingerprint`: the batch's reading settings)."""
+    that leave lines behind (071; `settings_fingerprint`: the batch's reading settings;
+    `leaving`: paths read again as the same bytes whose accepted lines may leave)."""
     run_sql(
-        con, "ingest/071_superseded_departures.sql", {"settings_fingerprint": settings_fingerprint}
+        con,
+        "ingest/071_superseded_departures.sql",
+        {"settings_fingerprint": settings_fingerprint, "leaving": leaving or []},
     )
     run_sql(con, "ingest/065_supersede_previous.sql")
 

@@ -84,6 +84,9 @@ from demandprep.sqlfiles import run_sql
 
 BATCH_BYTES = 16 * 1024 * 1024  # ~1.3M lines of gzip CSV: staging stays well in memory
 BATCH_FILES = 256
+# rounds of reading again in one run (_read_stale_again): a file read again for a key no
+# longer listed can leave a duplicate's file stale, read in the next round
+REREAD_PASSES = 3
 
 Progress = Callable[..., Any]
 
@@ -179,9 +182,12 @@ def _ingest_every_file(
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
     summary = IngestSummary(warnings=warnings + still_refused(discovered))
+    # reported when read again (after the night's files), unless a refusal keeps them waiting
+    waiting = set(refused_since_last_change(con))
     stale = stale_verdicts(con)
     for item in discovered:
-        if item.status == "unchanged" and not _is_stale(item, stale):
+        read_again = _is_stale(item, stale) and (item.source, item.path) not in waiting
+        if item.status == "unchanged" and not read_again:
             _report(notify, summary, _unchanged(item))
     _read_files(con, config, to_read, notify, summary, timer)
     _read_stale_again(con, config, notify, summary, timer)
@@ -203,6 +209,13 @@ def stale_verdicts(con: duckdb.DuckDBPyConnection) -> dict[str, frozenset[Path]]
     return {source: frozenset(paths) for source, paths in found.items()}
 
 
+def refused_since_last_change(con: duckdb.DuckDBPyConnection) -> list[tuple[str, Path]]:
+    """(source, path) of the files whose latest reading was refused after the last change that
+    could turn a verdict (076): not read again for a stale verdict until the next change."""
+    rows = run_sql(con, "ingest/076_refused_since_last_change.sql").fetchall()
+    return [(source, Path(path)) for source, path in rows]
+
+
 def judge_stale_again(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[FileResult]:
     """Read again the files with a verdict that is stale now (after a withdrawal, or after the
     nightly flow's files); their results."""
@@ -220,18 +233,66 @@ def _read_stale_again(
 ) -> None:
     """After the night's files, read again those with a stale verdict (stale_verdicts) or with
     rows of a SKU or store no longer listed (unlisted_keys.py): the files read tonight were
-    judged against today's references and receipts."""
-    stale = _merged(stale_verdicts(con), files_with_unlisted_keys(con))
-    if stale:
-        with timer.phase("discover"):
-            again = discover_files(con, config, reread=stale)
-        # the same bytes under the same settings: a refusal keeps the version read before (it
-        # is not a reading under new settings, which would take the old rows out)
-        rereads = [
-            replace(item, settings_changed=False) for item in again if _is_stale(item, stale)
-        ]
-        _read_files(con, config, rereads, notify, summary, timer)
-    remember_listed_keys(con)
+    judged against today's references and receipts. A file read again for a key no longer
+    listed may take the accepted copy of another file's duplicate with it, so the verdicts are
+    looked at again after each pass (each file is read again once per run)."""
+    unlisted = files_with_unlisted_keys(con)
+    stale = _merged(stale_verdicts(con), unlisted)
+    # a reading of the same bytes refused after the last change is not tried again each night
+    done: set[tuple[str, Path]] = set(refused_since_last_change(con))
+    for _ in range(REREAD_PASSES):
+        todo = {
+            source: frozenset(path for path in paths if (source, path) not in done)
+            for source, paths in stale.items()
+        }
+        todo = {source: paths for source, paths in todo.items() if paths}
+        if not todo:
+            break
+        _read_again(con, config, todo, unlisted, notify, summary, timer)
+        done |= {(source, path) for source, paths in todo.items() for path in paths}
+        stale = stale_verdicts(con)
+    remember_listed_keys(con, keep_dropped=not _all_read_again(unlisted, summary))
+
+
+def _read_again(
+    con: duckdb.DuckDBPyConnection,
+    config: ProjectConfig,
+    todo: dict[str, frozenset[Path]],
+    unlisted: dict[str, frozenset[Path]],
+    notify: Progress,
+    summary: IngestSummary,
+    timer: PhaseTimer,
+) -> None:
+    with timer.phase("discover"):
+        again = discover_files(con, config, reread=todo)
+    # the same bytes under the same settings: a refusal keeps the version read before (it is
+    # not a reading under new settings, which would take the old rows out)
+    rereads = [
+        replace(item, settings_changed=False, lines_may_leave=_is_stale(item, unlisted))
+        for item in again
+        if _is_stale(item, todo)
+    ]
+    earlier = len(summary.files)
+    _read_files(con, config, rereads, notify, summary, timer)
+    # a file read again replaces its earlier result (unchanged) in the summary
+    again_paths = {(result.source, result.path) for result in summary.files[earlier:]}
+    summary.files[:earlier] = [
+        result
+        for result in summary.files[:earlier]
+        if (result.source, result.path) not in again_paths
+    ]
+
+
+def _all_read_again(unlisted: dict[str, frozenset[Path]], summary: IngestSummary) -> bool:
+    """True when every file with rows of a key no longer listed was judged again tonight (read,
+    or refused: the refusal is reported each night); not when one failed or was not in its
+    folder."""
+    judged = {
+        (result.source, result.path)
+        for result in summary.files
+        if result.status not in ("failed", "unchanged")
+    }
+    return all((source, path) in judged for source, paths in unlisted.items() for path in paths)
 
 
 def _merged(*found: dict[str, frozenset[Path]]) -> dict[str, frozenset[Path]]:
@@ -278,6 +339,10 @@ def still_refused(discovered: list[DiscoveredFile]) -> list[str]:
     return [
         f"{item.path}: refused before and unchanged since, so its rows are still out; fix the "
         "file or the source's settings, or read it again with --reload."
+        if item.previous_file_id is None
+        else f"{item.path}: refused when read again and unchanged since, so the rows of the "
+        "version read before stay in; fix the file or the source's settings, or read it "
+        "again with --reload."
         for item in discovered
         if item.held_back == "refused"
     ]
@@ -464,7 +529,7 @@ def _load_batch(
         batch = ledger.assign_versions(con, files[0].source, files)
         ledger.create_batch_table(con, batch)
         if any(item.previous_file_id for item in files):
-            _remove_previous(con, loader, files[0].settings_fingerprint)
+            _remove_previous(con, loader, files)
     step = {"source": files[0].source, "path": first, "paths": [item.path for item in files]}
     staged = stage_files(con, [item.path for item in files], source, files[0].source, timer)
     notify("file_step", step="staged", rows=sum(staged.records.values()), **step)
@@ -501,14 +566,15 @@ def _load_batch(
 
 
 def _remove_previous(
-    con: duckdb.DuckDBPyConnection, loader: Loader, settings_fingerprint: str | None
+    con: duckdb.DuckDBPyConnection, loader: Loader, files: list[DiscoveredFile]
 ) -> None:
     loader.remove_previous(con)
     con.execute(
         "delete from quarantine where file_id in (select previous_file_id "
         "from ingest_batch_files where previous_file_id is not null)"
     )
-    ledger.supersede_previous(con, settings_fingerprint)
+    leaving = [str(item.path) for item in files if item.lines_may_leave]
+    ledger.supersede_previous(con, files[0].settings_fingerprint, leaving)
 
 
 def _loaded(item: ledger.BatchFile, counts: ledger.FileCounts, lines: dict[str, int]) -> FileResult:

@@ -36,13 +36,19 @@ def files_with_unlisted_keys(con: duckdb.DuckDBPyConnection) -> dict[str, frozen
     return {source: frozenset(paths) for source, paths in found.items()}
 
 
-def remember_listed_keys(con: duckdb.DuckDBPyConnection) -> None:
-    """Record the SKUs and stores the warehouse's rows now agree with."""
+def remember_listed_keys(con: duckdb.DuckDBPyConnection, keep_dropped: bool = False) -> None:
+    """Record the SKUs and stores the warehouse's rows now agree with. `keep_dropped`: a file
+    with rows of a key no longer listed was not read again (refused, or not in its folder), so
+    the keys recorded before stay recorded too and the next ingest compares again."""
     if not _references_in(con):
         return
     run_sql(con, "ingest/072_listed_keys_views.sql")
-    con.execute("delete from listed_keys")
-    con.execute("insert into listed_keys select kind, value from ingest_current_keys")
+    if not keep_dropped:
+        con.execute("delete from listed_keys")
+    con.execute(
+        "insert into listed_keys select kind, value from ingest_current_keys "
+        "except select kind, value from listed_keys"
+    )
 
 
 def _keys_left_the_list(con: duckdb.DuckDBPyConnection) -> bool:

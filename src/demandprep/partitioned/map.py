@@ -73,6 +73,7 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
         ensure_tables(con)
         withdraw_unrouted_files(con, own, partition)
         last_file_id = last_ingested_file_id(con)
+        set_line_scope(con, partition)
         ingest_all(con, routed_config(own, partition))
         placement = placement_of_files_since(con, config, last_file_id)
         keep_partition_lines(con, partition)
@@ -163,6 +164,22 @@ def lines_per_file(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
         "where ledger.status = 'current' group by all"
     ).fetchall()
     return dict(rows)
+
+
+def set_line_scope(con: duckdb.DuckDBPyConnection, partition: Partition) -> None:
+    """Tell the ingest which lines this warehouse keeps (`ingest_line_scope`, 030): a line of
+    another partition's stores or days is judged there, never as a duplicate here, where its
+    earlier copies were deleted (keep_partition_lines) and a file read again may meet a later
+    copy first."""
+    con.execute("delete from ingest_line_scope")
+    con.execute(
+        "insert into ingest_line_scope values ($stores, $first_day, $after_last_day)",
+        {
+            "stores": list(partition.stores),
+            "first_day": partition.first_day,
+            "after_last_day": partition.after_last_day,
+        },
+    )
 
 
 def keep_partition_lines(con: duckdb.DuckDBPyConnection, partition: Partition) -> None:

@@ -246,3 +246,29 @@ def test_two_columns_whose_names_differ_only_in_case_are_refused(demo_config: Pa
     message = error_of(edited(demo_config, 'organic = "organic"\n', 'Roaster = "organic"\n'))
     assert "'sources.catalogue.columns'" in message
     assert "'roaster' and 'Roaster'" in message
+
+
+def test_tables_left_out_resolve_their_paths_against_the_config_folder(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # a config without [partitioning] or [export] gets their default folders beside the config
+    # file whatever the working directory, so its hash (and "nothing new") does not change with
+    # the folder a command runs from. Before, the defaults were resolved against the working
+    # directory when the module was imported
+    folder = tmp_path / "project"
+    folder.mkdir()
+    kept = []
+    for block in starter_toml().split("\n["):
+        if not block.startswith(("export]", "partitioning]")):
+            kept.append(block)
+    path = folder / "demandprep.toml"
+    path.write_text("\n[".join(kept), encoding="utf-8")
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    seen = []
+    for cwd in (folder, elsewhere):
+        monkeypatch.chdir(cwd)
+        config = load_config(path, check_files=False)
+        seen.append((config.partitioning.root, config.export.root, config.config_hash()))
+    assert seen[0] == seen[1]
+    assert seen[0][:2] == (folder / "partitions", folder / "builds")

@@ -102,6 +102,7 @@ class WarehouseSection(Section):
     path: LaxPath = described(
         "DuckDB warehouse file. Relative paths resolve against the config file's folder.",
         default=Path("warehouse/demandprep.duckdb"),
+        validate_default=True,
     )
     memory_limit: str = described(
         "Memory the process may use. DuckDB gets it less 256 MiB (at most half) for Python "
@@ -114,6 +115,7 @@ class WarehouseSection(Section):
     temp_directory: LaxPath = described(
         "Where DuckDB spills beyond memory_limit. Relative to the config file's folder.",
         default=Path("warehouse/tmp"),
+        validate_default=True,
     )
     lock_timeout_seconds: float = described(
         "How long a second writer waits. A second writer of the warehouse (or of the export "
@@ -642,6 +644,7 @@ class ExportSection(Section):
     root: LaxPath = described(
         "Folder of the build folders. With a latest pointer; relative to the config file's folder.",
         default=Path("builds"),
+        validate_default=True,
     )
     keep_last: int = described(
         "Builds kept when pruning. Older marked build folders are removed.",
@@ -745,6 +748,10 @@ class ScheduleSection(Section):
         return value
 
 
+# the tables whose defaults hold folders relative to the config file's folder
+TABLES_WITH_FOLDERS = ("warehouse", "export", "partitioning")
+
+
 class ProjectConfig(Section):
     """The whole config file."""
 
@@ -771,6 +778,17 @@ class ProjectConfig(Section):
         "Partitioned builds on a Dask cluster.", default=PartitioningSection()
     )
     config_path: Path | None = Field(None, exclude=True)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _tables_left_out_as_empty(cls, data: Any) -> Any:
+        # a table with folders that the file leaves out is validated as an empty one, so its
+        # default folders are resolved against this file's folder like written ones (a default
+        # instance was built at import, against the working directory of that moment)
+        if isinstance(data, dict):
+            missing = [name for name in TABLES_WITH_FOLDERS if name not in data]
+            data = {**data, **dict.fromkeys(missing, {})} if missing else data
+        return data
 
     @property
     def market_build_enabled(self) -> bool:

@@ -239,7 +239,8 @@ def _read_stale_again(
     unlisted = files_with_unlisted_keys(con)
     stale = _merged(stale_verdicts(con), unlisted)
     # a reading of the same bytes refused after the last change is not tried again each night
-    done: set[tuple[str, Path]] = set(refused_since_last_change(con))
+    waiting = set(refused_since_last_change(con))
+    done = set(waiting)
     for _ in range(REREAD_PASSES):
         todo = {
             source: frozenset(path for path in paths if (source, path) not in done)
@@ -251,7 +252,7 @@ def _read_stale_again(
         _read_again(con, config, todo, unlisted, notify, summary, timer)
         done |= {(source, path) for source, paths in todo.items() for path in paths}
         stale = stale_verdicts(con)
-    remember_listed_keys(con, keep_dropped=not _all_read_again(unlisted, summary))
+    remember_listed_keys(con, keep_dropped=not _all_judged(unlisted, summary, waiting))
 
 
 def _read_again(
@@ -283,11 +284,13 @@ def _read_again(
     ]
 
 
-def _all_read_again(unlisted: dict[str, frozenset[Path]], summary: IngestSummary) -> bool:
+def _all_judged(
+    unlisted: dict[str, frozenset[Path]], summary: IngestSummary, waiting: set[tuple[str, Path]]
+) -> bool:
     """True when every file with rows of a key no longer listed was judged again tonight (read,
-    or refused: the refusal is reported each night); not when one failed or was not in its
-    folder."""
-    judged = {
+    or refused, now or since the last change: the refusal is reported each night); not when
+    one failed or was not in its folder."""
+    judged = waiting | {
         (result.source, result.path)
         for result in summary.files
         if result.status not in ("failed", "unchanged")

@@ -440,6 +440,27 @@ def machine() -> str:
     )
 
 
+def code_version() -> str:
+    """The commit the benchmark runs (with '+changes' when the tree differs from it)."""
+    repo = Path(__file__).resolve().parents[1]
+    try:
+        commit = subprocess.run(
+            ["git", "-C", str(repo), "rev-parse", "--short", "HEAD"],
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
+        changed = subprocess.run(
+            ["git", "-C", str(repo), "status", "--porcelain", "--untracked-files=no"],
+            capture_output=True,
+            text=True,
+            check=True,
+        ).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return "unknown (no git)"
+    return commit + (" +changes" if changed else "")
+
+
 def table_lines(results: dict[str, dict]) -> list[str]:
     base = results["duckdb_query"]
     lines = [
@@ -742,7 +763,8 @@ def render(command: str, sections: list[str], by_size: dict[int, dict]) -> str:
         "",
         f"Command: `.venv/bin/python {command}`",
         "",
-        f"Date: {datetime.now(UTC):%Y-%m-%d %H:%M} UTC. Machine: {machine()}.",
+        f"Date: {datetime.now(UTC):%Y-%m-%d %H:%M} UTC. Code: commit {code_version()}. "
+        f"Machine: {machine()}.",
         "",
         "Each contender runs alone in its own process, one after the other. Wall time from the "
         "parent; CPU time is user + sys of the child and peak RSS its ru_maxrss (os.wait4). "

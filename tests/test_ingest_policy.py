@@ -788,6 +788,77 @@ def test_rows_of_a_dropped_sku_in_a_file_away_that_night_leave_when_it_returns(
     assert query(config, "select reason from quarantine") == [("unknown_sku",)]
 
 
+def test_a_quiet_night_after_a_dropped_sku_reads_no_file(tmp_path: Path) -> None:
+    # a.csv (with a duplicate of its own line) and b.csv are read again in one batch when the
+    # catalogue drops K1; every older version of a batch leaves before any file of it is
+    # judged, so a.csv's duplicate is not stale afterwards. Before, a.csv was read once more on
+    # the next, quiet night (its number was below b.csv's departure)
+    twice = receipt_lines(1)[0].replace(";K1;", ";K2;")
+    files = {
+        "a.csv": [twice, receipt_lines(2)[1], twice],
+        "b.csv": [receipt_lines(4)[2], receipt_lines(4)[3].replace(";K1;", ";K2;")],
+    }
+    config = write_project(tmp_path, files)
+    catalogue = tmp_path / "catalogue.csv"
+    catalogue.write_text(catalogue.read_text() + "K2,coffee,500\n")
+    ingest(config)
+    catalogue.write_text("item,category,grams\nK2,coffee,500\n")
+    night = by_name(ingest(config))
+    assert (night["a.csv"].status, night["b.csv"].status) == ("replaced", "replaced")
+    assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
+def test_a_refused_reading_keeps_the_dropped_keys_until_the_file_is_read(
+    tmp_path: Path,
+) -> None:
+    # the catalogue drops K2 and K3 one night: read again, a.csv is refused (most lines K2) and
+    # its version before stays. The next night lists K2 again but not K3: a.csv must be read
+    # again and its K3 lines quarantined, as a fresh ingest does. Before, the refusal counted
+    # as judged, K3 was forgotten, and its lines stayed accepted for good
+    lines = (
+        receipt_lines(10)
+        + [x.replace(";K1;", ";K2;") for x in receipt_lines(150, day=2)]
+        + [x.replace(";K1;", ";K3;") for x in receipt_lines(10, day=3)]
+    )
+    config = write_project(tmp_path, {"a.csv": lines})
+    catalogue = tmp_path / "catalogue.csv"
+    listed = catalogue.read_text()
+    catalogue.write_text(listed + "K2,coffee,500\nK3,coffee,250\n")
+    ingest(config)
+    catalogue.write_text(listed)
+    assert by_name(ingest(config))["a.csv"].status == "refused"
+    catalogue.write_text(listed + "K2,coffee,500\n")
+    assert by_name(ingest(config))["a.csv"].status == "replaced"
+    fresh = write_project(tmp_path / "fresh", {"a.csv": lines})
+    (tmp_path / "fresh" / "catalogue.csv").write_text(listed + "K2,coffee,500\n")
+    ingest(fresh)
+    assert warehouse_rows(config)[:2] == warehouse_rows(fresh)[:2] == (160, 10)
+    assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
+def test_a_file_refused_for_an_unknown_sku_is_read_once_the_catalogue_lists_it(
+    tmp_path: Path,
+) -> None:
+    # n.csv arrives with 150 lines of K9, which the catalogue does not list yet: refused. The
+    # next night's catalogue lists K9, and n.csv must come in as a fresh ingest takes it.
+    # Before, a refused file waited for new bytes or settings (or --reload) for good
+    config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
+    ingest(config)
+    new_file = [x.replace(";K1;", ";K9;") for x in receipt_lines(150, day=2)]
+    (tmp_path / "receipts" / "n.csv").write_text("\n".join([HEADER, *new_file]) + "\n")
+    assert by_name(ingest(config))["n.csv"].status == "refused"
+    quiet = ingest(config)
+    assert by_name(quiet)["n.csv"].status == "unchanged"
+    assert any("n.csv: refused before" in warning for warning in quiet.warnings)
+    catalogue = tmp_path / "catalogue.csv"
+    catalogue.write_text(catalogue.read_text() + "K9,coffee,250\n")
+    night = ingest(config)
+    assert by_name(night)["n.csv"].status == "new"
+    assert not any("n.csv" in warning for warning in night.warnings)
+    assert warehouse_rows(config)[:2] == (155, 0)
+    assert {result.status for result in ingest(config).files} == {"unchanged"}
+
+
 def test_a_catalogue_delivered_again_with_the_same_skus_compares_no_accepted_line(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:

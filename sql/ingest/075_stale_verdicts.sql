@@ -1,8 +1,9 @@
 -- current files with lines quarantined against something that changed after the file was
 -- read: unknown_sku (catalogue) and unknown_store (stores), in receipts and in the reference
 -- sources that name a SKU or store (shelf prices, ...), duplicate_line (a receipts file that
--- left) and duplicate_key (a file of the same reference source that left). Read again, such a
--- line is judged as a first read would judge it today.
+-- left) and duplicate_key (a file of the same reference source that left); and files refused
+-- before the catalogue or stores table changed. Read again, such a line is judged as a first
+-- read would judge it today.
 -- "After" by file number (F + digits, increasing in ingest order, 063): ingested_at keeps
 -- whole seconds only
 with
@@ -123,9 +124,34 @@ stale_reference_duplicates as (
         on try_cast(substr(files.file_id, 2) as bigint) < departures.left_in
     join ledger as gone on gone.file_id = departures.file_id and gone.source = files.source
     where files.status = 'current' and files.source <> 'receipts'
+),
+
+-- a file whose latest reading was refused (the version before, if any, stays current) is read
+-- again once the catalogue or stores table changed after the refusal: a refusal for SKUs or
+-- stores unknown then may not hold any more (076 keeps a refusal after the change waiting)
+latest_readings as (
+    select
+        source,
+        path,
+        status,
+        try_cast(substr(file_id, 2) as bigint) as number,
+    from ledger
+    qualify row_number() over (partition by source, path order by version desc) = 1
+),
+
+refused_before_change as (
+    select
+        latest_readings.source,
+        latest_readings.path,
+    from latest_readings
+    where latest_readings.status = 'refused'
+        and latest_readings.source not in ('catalogue', 'stores')
+        and latest_readings.number < (select max(changed_in) from reference_changes)
 )
 
 select source, path from stale_files
+union
+select source, path from refused_before_change
 union
 select source, path from stale_receipts
 union

@@ -181,16 +181,25 @@ def _ingest_every_file(
         discovered = discover_files(con, config, reload)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))
-    summary = IngestSummary(warnings=warnings + still_refused(discovered))
     # reported when read again (after the night's files), unless a refusal keeps them waiting
     waiting = set(refused_since_last_change(con))
     stale = stale_verdicts(con)
+    again = {
+        (item.source, item.path)
+        for item in discovered
+        if _is_stale(item, stale) and (item.source, item.path) not in waiting
+    }
+    summary = IngestSummary(warnings=warnings)
     for item in discovered:
-        read_again = _is_stale(item, stale) and (item.source, item.path) not in waiting
-        if item.status == "unchanged" and not read_again:
+        if item.status == "unchanged" and (item.source, item.path) not in again:
             _report(notify, summary, _unchanged(item))
     _read_files(con, config, to_read, notify, summary, timer)
     _read_stale_again(con, config, notify, summary, timer)
+    # after the re-reads: a refused file read and kept tonight is no longer held back
+    read = {(item.source, item.path) for item in summary.files if item.status != "unchanged"}
+    summary.warnings += still_refused(
+        [item for item in discovered if (item.source, item.path) not in read]
+    )
     summary.timings_seconds = dict(timer.seconds)
     record_timings(con, summary.timings_seconds, time.perf_counter() - started)
     notify("done", summary=summary)
@@ -239,8 +248,7 @@ def _read_stale_again(
     unlisted = files_with_unlisted_keys(con)
     stale = _merged(stale_verdicts(con), unlisted)
     # a reading of the same bytes refused after the last change is not tried again each night
-    waiting = set(refused_since_last_change(con))
-    done = set(waiting)
+    done = set(refused_since_last_change(con))
     for _ in range(REREAD_PASSES):
         todo = {
             source: frozenset(path for path in paths if (source, path) not in done)
@@ -252,7 +260,7 @@ def _read_stale_again(
         _read_again(con, config, todo, unlisted, notify, summary, timer)
         done |= {(source, path) for source, paths in todo.items() for path in paths}
         stale = stale_verdicts(con)
-    remember_listed_keys(con, keep_dropped=not _all_judged(unlisted, summary, waiting))
+    remember_listed_keys(con, keep_dropped=not _all_read_again(unlisted, summary))
 
 
 def _read_again(
@@ -284,18 +292,18 @@ def _read_again(
     ]
 
 
-def _all_judged(
-    unlisted: dict[str, frozenset[Path]], summary: IngestSummary, waiting: set[tuple[str, Path]]
-) -> bool:
-    """True when every file with rows of a key no longer listed was judged again tonight (read,
-    or refused, now or since the last change: the refusal is reported each night); not when
-    one failed or was not in its folder."""
-    judged = waiting | {
+def _all_read_again(unlisted: dict[str, frozenset[Path]], summary: IngestSummary) -> bool:
+    """True when every file with rows of a key no longer listed was read again tonight and kept.
+    Not when one was refused (its version before stays, rows of the key with it), failed, waits
+    after a refusal or was not in its folder: the dropped keys then stay recorded, and each
+    ingest compares again until the file is read (the cost of one scan of the accepted rows a
+    night while a refusal lasts)."""
+    kept = {
         (result.source, result.path)
         for result in summary.files
-        if result.status not in ("failed", "unchanged")
+        if result.status not in ("refused", "failed", "unchanged")
     }
-    return all((source, path) in judged for source, paths in unlisted.items() for path in paths)
+    return all((source, path) in kept for source, paths in unlisted.items() for path in paths)
 
 
 def _merged(*found: dict[str, frozenset[Path]]) -> dict[str, frozenset[Path]]:

@@ -38,9 +38,9 @@ def files_with_unlisted_keys(con: duckdb.DuckDBPyConnection) -> dict[str, frozen
 
 def remember_listed_keys(con: duckdb.DuckDBPyConnection, keep_dropped: bool = False) -> None:
     """Record the SKUs and stores the warehouse's rows now agree with. `keep_dropped`: a file
-    with rows of a key no longer listed was not judged again (its reading failed, or it was not
-    in its folder), so the keys recorded before stay recorded too and the next ingest compares
-    again."""
+    with rows of a key no longer listed was not read again and kept (refused, failed, waiting
+    after a refusal, or not in its folder), so the keys recorded before stay recorded too and
+    the next ingest compares again."""
     if not _references_in(con):
         return
     run_sql(con, "ingest/072_listed_keys_views.sql")

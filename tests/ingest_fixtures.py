@@ -37,6 +37,13 @@ def copy_faults(tmp_path: Path) -> Path:
     return target / "demandprep.toml"
 
 
+def drop_catalogue_line(catalogue: Path, sku: str) -> None:
+    """Rewrite a catalogue CSV without the row of `sku` (its first field)."""
+    lines = catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
+    kept = [line for line in lines if not line.startswith(f"{sku},")]
+    catalogue.write_text("".join(kept), encoding="utf-8")
+
+
 def ingest(config_path: Path):
     """Ingest every source of the config at `config_path`; returns (config, summary)."""
     config = load_config(config_path)

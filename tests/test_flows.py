@@ -16,6 +16,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
+from ingest_fixtures import drop_catalogue_line
 
 from demandprep.config import ProjectConfig, load_config
 from demandprep.errors import UserError
@@ -385,14 +386,7 @@ def test_night_reads_again_the_files_a_catalogue_change_judges_anew(
     # the same files. Before, the flow ingested only new and changed files and kept every row
     config = night_one.restore()
     catalogue = night_one.folder / "catalogue.csv"
-    catalogue.write_text(
-        "".join(
-            line
-            for line in catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
-            if not line.startswith("C0102,")
-        ),
-        encoding="utf-8",
-    )
+    drop_catalogue_line(catalogue, "C0102")
     fresh = tmp_path / "fresh"
     shutil.copytree(night_one.folder, fresh, ignore=shutil.ignore_patterns("warehouse", "builds"))
     run_ingest(load_config(fresh / "demandprep.toml"))

@@ -10,6 +10,7 @@ from pathlib import Path
 
 import duckdb
 import pytest
+from ingest_fixtures import drop_catalogue_line
 from typer.testing import CliRunner
 
 from demandprep.cli import app
@@ -892,14 +893,7 @@ def test_shelf_prices_and_receipts_of_a_sku_the_catalogue_drops_leave_the_tables
     config = folder / "demandprep.toml"
     ingest(config)
     catalogue = folder / "catalogue.csv"
-    catalogue.write_text(
-        "".join(
-            line
-            for line in catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
-            if not line.startswith("C0102,")
-        ),
-        encoding="utf-8",
-    )
+    drop_catalogue_line(catalogue, "C0102")
     counts_sql = (
         "select (select count(*) from raw_lines where sku = 'C0102'), "
         "(select count(*) from shelf_prices where sku = 'C0102'), "

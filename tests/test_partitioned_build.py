@@ -19,6 +19,7 @@ from typing import Any
 import duckdb
 import polars as pl
 import pytest
+from ingest_fixtures import drop_catalogue_line
 from polars.testing import assert_frame_equal
 
 import demandprep.partitioned.map as partition_map
@@ -645,14 +646,7 @@ def test_files_the_partitions_read_again_are_ledgered_again_by_the_coordinator(
     config = load_config(config.config_path)
     build_partitioned(config, map_in_process(config))
     catalogue = config.config_path.parent / "catalogue.csv"
-    catalogue.write_text(
-        "".join(
-            line
-            for line in catalogue.read_text(encoding="utf-8").splitlines(keepends=True)
-            if not line.startswith("C0102,")
-        ),
-        encoding="utf-8",
-    )
+    drop_catalogue_line(catalogue, "C0102")
     outcome = build_partitioned(config, map_in_process(config))
 
     assert outcome.folder is not None

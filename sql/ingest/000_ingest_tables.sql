@@ -111,3 +111,14 @@ create temp table if not exists ingest_line_scope (
     first_day date,
     after_last_day date,
 );
+
+-- each path's latest ledger row (the latest reading of it, whatever its status) with its file
+-- number (F + digits, increasing in ingest order): 075 and 076 compare readings with changes
+create or replace temp view ingest_latest_readings as
+select
+    source,
+    path,
+    status,
+    try_cast(substr(file_id, 2) as bigint) as number,
+from ledger
+qualify row_number() over (partition by source, path order by version desc) = 1;

@@ -129,21 +129,11 @@ stale_reference_duplicates as (
 -- a file whose latest reading was refused (the version before, if any, stays current) is read
 -- again once the catalogue or stores table changed after the refusal: a refusal for SKUs or
 -- stores unknown then may not hold any more (076 keeps a refusal after the change waiting)
-latest_readings as (
-    select
-        source,
-        path,
-        status,
-        try_cast(substr(file_id, 2) as bigint) as number,
-    from ledger
-    qualify row_number() over (partition by source, path order by version desc) = 1
-),
-
 refused_before_change as (
     select
         latest_readings.source,
         latest_readings.path,
-    from latest_readings
+    from ingest_latest_readings as latest_readings
     where latest_readings.status = 'refused'
         and latest_readings.source not in ('catalogue', 'stores')
         and latest_readings.number < (select max(changed_in) from reference_changes)

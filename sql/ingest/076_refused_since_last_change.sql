@@ -4,16 +4,6 @@
 -- rows of a key no longer listed) wait for the next such change. Numbers as in 075
 with
 
-latest as (
-    select
-        source,
-        path,
-        status,
-        try_cast(substr(file_id, 2) as bigint) as number,
-    from ledger
-    qualify row_number() over (partition by source, path order by version desc) = 1
-),
-
 last_change as (
     select greatest(
         coalesce((
@@ -27,7 +17,7 @@ last_change as (
 select
     latest.source,
     latest.path,
-from latest
+from ingest_latest_readings as latest
 cross join last_change
 where latest.status = 'refused' and latest.number > last_change.number
 order by latest.source, latest.path

@@ -228,6 +228,7 @@ def refused_since_last_change(con: duckdb.DuckDBPyConnection) -> list[tuple[str,
 def judge_stale_again(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[FileResult]:
     """Read again the files with a verdict that is stale now (after a withdrawal, or after the
     nightly flow's files); their results."""
+    ensure_tables(con)
     summary, timer = IngestSummary(), PhaseTimer()
     _read_stale_again(con, config, _ignore, summary, timer)
     return summary.files

@@ -442,23 +442,20 @@ def machine() -> str:
 
 def code_version() -> str:
     """The commit the benchmark runs (with '+changes' when the tree differs from it)."""
-    repo = Path(__file__).resolve().parents[1]
     try:
-        commit = subprocess.run(
-            ["git", "-C", str(repo), "rev-parse", "--short", "HEAD"],
-            capture_output=True,
-            text=True,
-            check=True,
-        ).stdout.strip()
-        changed = subprocess.run(
-            ["git", "-C", str(repo), "status", "--porcelain", "--untracked-files=no"],
-            capture_output=True,
-            text=True,
-            check=True,
-        ).stdout.strip()
+        commit = _git("rev-parse", "--short", "HEAD")
+        changed = _git("status", "--porcelain", "--untracked-files=no")
     except (OSError, subprocess.CalledProcessError):
         return "unknown (no git)"
     return commit + (" +changes" if changed else "")
+
+
+def _git(*args: str) -> str:
+    repo = Path(__file__).resolve().parents[1]
+    done = subprocess.run(
+        ["git", "-C", str(repo), *args], capture_output=True, text=True, check=True
+    )
+    return done.stdout.strip()
 
 
 def table_lines(results: dict[str, dict]) -> list[str]:

@@ -691,6 +691,12 @@ def one_round(
     try:
         print("running demandprep run (one more day) ...", flush=True)
         results["demandprep_one_day"] = run_demandprep("run", config, folder / "demandprep_day.log")
+        # read before the nothing-new run adds its own ingest_runs rows; the round's own wall
+        # stays beside them (the table shows the median over rounds)
+        one_day = results["demandprep_one_day"]
+        one_day["round_wall"] = one_day["wall"]
+        one_day["phases"] = ingest_phases(run_dir)
+        one_day["build_timings"] = build_timings(latest_build(run_dir))
         # the same files again: what every nightly run costs before it has anything to do
         print("running demandprep run (nothing new) ...", flush=True)
         results["demandprep_nothing_new"] = run_demandprep(
@@ -803,6 +809,7 @@ def render_size(info: dict, results: dict, ledger: dict, timings: dict) -> str:
         f"{results['demandprep_run']['wall']:.1f} s (median wall).",
         "",
         *ingest_phase_lines(results["demandprep_ingest"]),
+        *one_day_lines(results["demandprep_one_day"]),
     ]
     return "\n".join(lines)
 
@@ -815,6 +822,28 @@ def ingest_phase_lines(ingest: dict) -> list[str]:
         + "; ".join(top_costs(phases))
         + f". They add up to {sum(phases.values()):.1f} s of its {ingest['wall']:.1f} s "
         "(median wall); the rest is process start-up (imports) and closing the warehouse.",
+        "",
+    ]
+
+
+def one_day_lines(one_day: dict) -> list[str]:
+    """Where the `+1 day` run's wall time goes: its ingest phases (`ingest_runs`), its build
+    stages and export steps (manifest.json), and the rest that no timing covers."""
+    phases = one_day.get("phases", {})
+    timings = one_day.get("build_timings", {})
+    stages = {name: s for name, s in timings.items() if not name.startswith("export.")}
+    export = {name: s for name, s in timings.items() if name.startswith("export.")}
+    parts = [("ingest", phases, 3), ("build stages", stages, 5), ("export", export, 3)]
+    wall = one_day.get("round_wall", one_day["wall"])
+    rest = wall - sum(sum(part.values()) for _, part, _ in parts)
+    spent = "; ".join(
+        f"{label} {sum(part.values()):.1f} s ({'; '.join(top_costs(part, count))})"
+        for label, part, count in parts
+    )
+    return [
+        f"Where the `+1 day` run's {wall:.1f} s go (last round): {spent}; the rest {rest:.1f} s "
+        "(process start-up and imports, opening and closing the warehouse, and what no phase or "
+        "stage timing covers).",
         "",
     ]
 

@@ -74,6 +74,21 @@ def test_scaling_compares_time_growth_with_line_growth():
     assert "1,000 -> 10,000" in label
 
 
+def test_the_one_more_day_run_is_split_into_ingest_build_export_and_the_rest():
+    one_day = {
+        "wall": 5.0,
+        "phases": {"discover": 0.1, "classify": 0.3, "validate": 0.2},
+        "build_timings": {"shares": 0.4, "instruments": 1.1, "export.parquet": 0.5},
+    }
+    (text,) = [line for line in side_by_side.one_day_lines(one_day) if line]
+
+    assert "ingest 0.6 s (classify: 0.30 s; validate: 0.20 s; discover: 0.10 s)" in text
+    assert "build stages 1.5 s (instruments: 1.10 s; shares: 0.40 s)" in text
+    assert "export 0.5 s (export.parquet: 0.50 s)" in text
+    # what no timing covers: 5.0 - 0.6 - 1.5 - 0.5
+    assert "the rest 2.4 s" in text
+
+
 @pytest.mark.slow
 def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
     done = subprocess.run(
@@ -87,3 +102,4 @@ def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
         assert f"| {label} | " in done.stdout
     assert re.search(r"\| [\d,]+ lines: full run / bare query, wall \| [\d.]+ \|", done.stdout)
     assert re.search(r"Five largest phases of `demandprep ingest` .*: \w+: [\d.]+ s", done.stdout)
+    assert re.search(r"`\+1 day` .* ingest [\d.]+ s .* build stages [\d.]+ s", done.stdout)

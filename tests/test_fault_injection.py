@@ -109,10 +109,11 @@ class FaultRunner:
         return answer["outcome"]
 
     def close(self) -> None:
-        """Stop the server (its stdin closes, it exits)."""
-        assert self.process.stdin is not None
+        """Stop the server (its stdin closes, it exits) and close its output pipe."""
+        assert self.process.stdin is not None and self.process.stdout is not None
         self.process.stdin.close()
         self.process.wait(timeout=60)
+        self.process.stdout.close()
 
 
 @pytest.fixture(scope="module")

@@ -110,16 +110,17 @@ def write_project(folder: Path) -> Path:
 
 def run_and_kill(config: Path, step: str) -> int:
     """Start the ingest in a child process and SIGKILL it when it reports `step`."""
-    child = subprocess.Popen(
+    # the with block closes the output pipe once the child is gone
+    with subprocess.Popen(
         [sys.executable, "-c", CHILD, str(config)], stdout=subprocess.PIPE, text=True
-    )
-    assert child.stdout is not None
-    for line in child.stdout:
-        if line.strip() in (step, "finished"):
-            assert line.strip() == step, "the ingest finished before it could be killed"
-            os.kill(child.pid, signal.SIGKILL)
-            break
-    return child.wait(timeout=120)
+    ) as child:
+        assert child.stdout is not None
+        for line in child.stdout:
+            if line.strip() in (step, "finished"):
+                assert line.strip() == step, "the ingest finished before it could be killed"
+                os.kill(child.pid, signal.SIGKILL)
+                break
+        return child.wait(timeout=120)
 
 
 @pytest.mark.parametrize("step", ["inserting", pytest.param("staged", marks=pytest.mark.slow)])

@@ -5,11 +5,13 @@ create or replace table market_calendar as
 
 with
 
+-- the receipts' first and last sale day, from the ledger when it accounts for every line
+-- (market/inputs.py)
 sale_dates as (
     select
-        min(sold_at)::date as first_date,
-        max(sold_at)::date as last_date,
-    from raw_lines
+        first_date,
+        last_date,
+    from market_input_sale_dates
 ),
 
 shelf_dates as (

@@ -1,11 +1,12 @@
 """The partitions' warehouses attached read-only to the coordinator's connection.
 
 The coordinator holds no receipt line: the steps that need lines across partitions (the choice
-build, whose chooser histories cross stores; the demographic draws; the calendar's first and
-last sale day) read them where they are, through `raw_lines` as a temporary view over the
-union of the partitions' own `raw_lines`. The view lives on the connection only and shadows the
-coordinator's (empty) table there; nothing is copied. The partitions' file ids are replaced by
-the coordinator's ids of the same file versions, so the view reads as one warehouse's table.
+build, whose chooser histories cross stores; the demographic draws; the calendar's count of the
+lines against the ledger, market/inputs.py) read them where they are, through `raw_lines` as a
+temporary view over the union of the partitions' own `raw_lines`. The view lives on the connection
+only and shadows the coordinator's (empty) table there; nothing is copied. The partitions' file ids
+are replaced by the coordinator's ids of the same file versions, so the view reads as one
+warehouse's table.
 """
 
 from __future__ import annotations

@@ -19,6 +19,8 @@ child, from os.wait4) and peak RSS (the child's ru_maxrss):
   demandprep ingest  `demandprep ingest` alone on an empty warehouse (against the persist)
   demandprep run  `demandprep run` on an empty warehouse, choices off
   + one day       `demandprep run` again after the held-back day's file arrives
+  (optional)      the same two runs with the choice build on, in a warehouse of their own
+                  (--with-choices): what a night costs a project that builds choices
   (optional)      benchmarks/choices_scale.py, the choice build against its bare query, on its
                   own synthetic warehouse (--choices-occasions N)
 
@@ -78,6 +80,8 @@ CONTENDERS = {
     "demandprep_run": "demandprep run (empty)",
     "demandprep_one_day": "demandprep run (+1 day)",
     "demandprep_nothing_new": "demandprep run (nothing new)",
+    "demandprep_run_choices": "demandprep run, choices on (empty)",
+    "demandprep_one_day_choices": "demandprep run, choices on (+1 day)",
 }
 BARE_CONTENDERS = ("duckdb_query", "duckdb_persist", "polars", "pandas")
 # peak RSS per receipt line of the bare scripts, measured at 9,945,513 lines on 2026-12-02
@@ -298,8 +302,11 @@ def run_contender(name: str, world: Path, threads: int, memory: str, workdir: Pa
 # ---------------------------------------------------------------- demandprep
 
 
-def demandprep_config(world: Path, run_dir: Path, memory: str, threads: int) -> Path:
-    """The demo config on this world, changed to build only the bare contenders' table."""
+def demandprep_config(
+    world: Path, run_dir: Path, memory: str, threads: int, choices: bool = False
+) -> Path:
+    """The demo config on this world, changed to build only the bare contenders' table (and,
+    with `choices`, the choice build as well)."""
     path = write_config(world, run_dir, memory, threads)
     text = path.read_text(encoding="utf-8")
     changes = {
@@ -309,8 +316,9 @@ def demandprep_config(world: Path, run_dir: Path, memory: str, threads: int) -> 
         '\n[market_size.peak]\nmethod = "peak_multiple"\nmultiple = 3.0\n': "",
         '\n[market_size.catchment]\nmethod = "population"\nunits_per_person_per_day = 0.01\n': "",
         "outside_share_floor = 0.05": "outside_share_floor = 0.0",
-        "[choices]\nenabled = true": "[choices]\nenabled = false",
     }
+    if not choices:
+        changes["[choices]\nenabled = true"] = "[choices]\nenabled = false"
     for old, new in changes.items():
         if old not in text:
             raise SystemExit(f"the demo config changed; cannot find {old!r}")
@@ -355,11 +363,11 @@ class ChildFailed(Exception):
     """A contender's process exited non-zero (for a bare script: out of memory, typically)."""
 
 
-def measure(command: list[str], log: Path) -> tuple[dict, str]:
+def measure(command: list[str], log: Path, env: dict[str, str] | None = None) -> tuple[dict, str]:
     """Run a child; return wall seconds, CPU seconds and peak RSS (MiB) with its stdout."""
     started = time.perf_counter()
     with log.open("w") as errors:
-        child = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=errors, text=True)
+        child = subprocess.Popen(command, stdout=subprocess.PIPE, stderr=errors, text=True, env=env)
         output = child.stdout.read()
         _, status, usage = os.wait4(child.pid, 0)
         child.returncode = os.waitstatus_to_exitcode(status)
@@ -384,10 +392,12 @@ def run_bare(name: str, args: argparse.Namespace, world: Path, workdir: Path) ->
     return timing | json.loads(output.strip().splitlines()[-1])
 
 
-def run_demandprep(command: str, config: Path, log: Path) -> dict:
+def run_demandprep(
+    command: str, config: Path, log: Path, env: dict[str, str] | None = None
+) -> dict:
     binary = Path(sys.executable).parent / "demandprep"
     try:
-        timing, _ = measure([str(binary), command, str(config)], log)
+        timing, _ = measure([str(binary), command, str(config)], log, env)
     except ChildFailed as failed:
         raise SystemExit(str(failed)) from None
     return timing
@@ -524,6 +534,9 @@ def target_rows(results: dict) -> list[tuple[str, float | None, str, bool | None
     # not a target: the share of a full run that a run with nothing to do already costs
     value = ratio(results, "demandprep_nothing_new", "demandprep_run", "wall")
     rows.append(("(floor of the above) nothing-new run / full run, wall", value, "info", None))
+    if "demandprep_one_day_choices" in results:
+        value = ratio(results, "demandprep_one_day_choices", "demandprep_run_choices", "wall")
+        rows.append(("one more day / full run, choices on, wall", value, "<= 0.05", value <= 0.05))
     value = ratio(results, "pandas", "demandprep_run", "wall")
     rows.append(
         ("pandas script / full run, wall", value, ">= 4", None if value is None else value >= 4)
@@ -588,6 +601,12 @@ def parse_args() -> argparse.Namespace:
         type=int,
         default=0,
         help="also run benchmarks/choices_scale.py with this many occasions (0: skip)",
+    )
+    parser.add_argument(
+        "--with-choices",
+        action="store_true",
+        help="also run demandprep with the choice build on, from an empty warehouse and after "
+        "one more day (in a run folder of its own)",
     )
     parser.add_argument(
         "--skip",
@@ -707,7 +726,43 @@ def one_round(
     results["demandprep_one_day"] |= build_checksum(latest_build(run_dir))
     results["demandprep_one_day"]["lines"] = ledger_numbers(run_dir)["accepted"]
     results["demandprep_nothing_new"]["lines"] = results["demandprep_one_day"]["lines"]
+    if args.with_choices:
+        results |= runs_with_choices(args, info, folder)
     return results, ledger, first_build
+
+
+# invented data only: the pseudonyms of a benchmark world protect nobody
+BENCHMARK_PSEUDONYM_KEY = "side-by-side benchmark key, invented world"
+
+
+def runs_with_choices(args: argparse.Namespace, info: dict, folder: Path) -> dict[str, dict]:
+    """`demandprep run` with the choice build on: from an empty warehouse, then once more
+    after the held-back day arrives (its own run folder, so the runs above stay as they were)."""
+    world = folder / "world"
+    run_dir = fresh_folder(folder / "run_choices")
+    config = demandprep_config(world, run_dir, args.memory_limit, args.threads, choices=True)
+    env = os.environ | {"DEMANDPREP_PSEUDONYM_KEY": BENCHMARK_PSEUDONYM_KEY}
+    results = {}
+    print("running demandprep run, choices on (empty warehouse) ...", flush=True)
+    log = folder / "demandprep_run_choices.log"
+    results["demandprep_run_choices"] = run_demandprep("run", config, log, env)
+    results["demandprep_run_choices"] |= build_checksum(latest_build(run_dir))
+    results["demandprep_run_choices"]["lines"] = ledger_numbers(run_dir)["accepted"]
+    arrived = world / info["held_back"]
+    shutil.copy2(folder / "held_back" / info["held_back"], arrived)
+    try:
+        print("running demandprep run, choices on (one more day) ...", flush=True)
+        log = folder / "demandprep_day_choices.log"
+        one_day = run_demandprep("run", config, log, env)
+    finally:
+        arrived.unlink()
+    one_day["round_wall"] = one_day["wall"]
+    one_day["phases"] = ingest_phases(run_dir)
+    one_day["build_timings"] = build_timings(latest_build(run_dir))
+    one_day |= build_checksum(latest_build(run_dir))
+    one_day["lines"] = ledger_numbers(run_dir)["accepted"]
+    results["demandprep_one_day_choices"] = one_day
+    return results
 
 
 def ingest_only(args: argparse.Namespace, world: Path, folder: Path) -> dict:
@@ -811,6 +866,8 @@ def render_size(info: dict, results: dict, ledger: dict, timings: dict) -> str:
         *ingest_phase_lines(results["demandprep_ingest"]),
         *one_day_lines(results["demandprep_one_day"]),
     ]
+    if "demandprep_one_day_choices" in results:
+        lines += one_day_lines(results["demandprep_one_day_choices"], "`+1 day` (choices on)")
     return "\n".join(lines)
 
 
@@ -826,7 +883,7 @@ def ingest_phase_lines(ingest: dict) -> list[str]:
     ]
 
 
-def one_day_lines(one_day: dict) -> list[str]:
+def one_day_lines(one_day: dict, run: str = "`+1 day`") -> list[str]:
     """Where the `+1 day` run's wall time goes: its ingest phases (`ingest_runs`), its build
     stages and export steps (manifest.json), and the rest that no timing covers."""
     phases = one_day.get("phases", {})
@@ -841,7 +898,7 @@ def one_day_lines(one_day: dict) -> list[str]:
         for label, part, count in parts
     )
     return [
-        f"Where the `+1 day` run's {wall:.1f} s go (last round): {spent}; the rest {rest:.1f} s "
+        f"Where the {run} run's {wall:.1f} s go (last round): {spent}; the rest {rest:.1f} s "
         "(process start-up and imports, opening and closing the warehouse, and what no phase or "
         "stage timing covers).",
         "",
@@ -887,6 +944,10 @@ What the bare contenders do and what differs from demandprep:
   same week here). The choice build is off in these runs; --choices-occasions adds
   benchmarks/choices_scale.py, which times it against its bare query on its own synthetic
   warehouse.
+- demandprep run, choices on (with --with-choices): the same config with the demo's choice
+  build on (chooser-alternative rows for every loyalty-card visit, exported as Parquet), in a
+  warehouse of its own, from empty and then after the held-back day; its share table is the
+  same as above, so its checksum is too.
 """
 
 

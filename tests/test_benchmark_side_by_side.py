@@ -56,6 +56,22 @@ def test_targets_say_which_ratio_misses_its_aim():
     assert met["(floor of the above) nothing-new run / full run, wall"] is None
 
 
+def test_the_choice_build_night_is_judged_only_when_it_ran():
+    def row(wall):
+        return {"wall": wall, "cpu": wall, "peak_mib": 1.0}
+
+    base = {"duckdb_query": row(10), "demandprep_run": row(20), "demandprep_one_day": row(1)}
+    label = "one more day / full run, choices on, wall"
+    assert label not in {row[0] for row in side_by_side.target_rows(base)}
+
+    with_choices = base | {
+        "demandprep_run_choices": row(100),
+        "demandprep_one_day_choices": row(80),
+    }
+    rows = {name: (value, ok) for name, value, _, ok in side_by_side.target_rows(with_choices)}
+    assert rows[label] == (pytest.approx(0.8), False)
+
+
 def test_a_skipped_contender_leaves_its_targets_unmeasured():
     results = {"duckdb_query": {"wall": 1.0, "cpu": 1.0}, "pandas": {"skipped": "skipped: x"}}
     rows = {label: (value, ok) for label, value, _, ok in side_by_side.target_rows(results)}
@@ -93,7 +109,7 @@ def test_the_one_more_day_run_is_split_into_ingest_build_export_and_the_rest():
 def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
     done = subprocess.run(
         [sys.executable, str(BENCHMARKS / "side_by_side.py"), "--lines", "20000", "--no-doc"]
-        + ["--workdir", str(tmp_path)],
+        + ["--workdir", str(tmp_path), "--with-choices"],
         capture_output=True,
         text=True,
         check=True,
@@ -103,3 +119,10 @@ def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
     assert re.search(r"\| [\d,]+ lines: full run / bare query, wall \| [\d.]+ \|", done.stdout)
     assert re.search(r"Five largest phases of `demandprep ingest` .*: \w+: [\d.]+ s", done.stdout)
     assert re.search(r"`\+1 day` .* ingest [\d.]+ s .* build stages [\d.]+ s", done.stdout)
+    assert re.search(
+        r"\| [\d,]+ lines: one more day / full run, choices on, wall \| [\d.]+ \|", done.stdout
+    )
+    # the choice build's stages show where that night's time goes
+    assert re.search(
+        r"`\+1 day` \(choices on\) run's .* build stages [\d.]+ s \(.*choice", done.stdout
+    )

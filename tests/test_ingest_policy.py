@@ -495,6 +495,22 @@ def test_values_past_the_plausibility_bounds_are_quarantined(tmp_path: Path) -> 
     assert by_name(ingest(bounded))["a.csv"].quarantined == {"value_out_of_range": 3}
 
 
+def test_a_number_too_large_for_a_double_is_out_of_range_not_unparseable(tmp_path: Path) -> None:
+    # '1e400' is a number written in digits; only its size is wrong ('inf' and 'nan' are not
+    # numbers at all and stay unparseable)
+    lines = receipt_lines(1, qty="1e400") + receipt_lines(1, amount="-1e400", day=2)
+    lines += receipt_lines(1, qty="inf", day=3) + receipt_lines(1, day=4)
+    config = write_project(tmp_path, {"a.csv": lines})
+    result = by_name(ingest(config))["a.csv"]
+    assert result.quarantined == {"value_out_of_range": 2, "unparseable_field": 1}
+    details = query(config, "select reason, detail from quarantine order by line_no")
+    assert details == [
+        ("value_out_of_range", "quantity: beyond the sources.receipts bounds"),
+        ("value_out_of_range", "amount: beyond the sources.receipts bounds"),
+        ("unparseable_field", "quantity: not a number"),
+    ]
+
+
 def test_reference_numbers_are_read_strictly(tmp_path: Path) -> None:
     config = write_project(tmp_path, {"a.csv": receipt_lines(1)})
     skus = "".join(f"K{n},coffee,{250 + n}.5\n" for n in range(1, 10))

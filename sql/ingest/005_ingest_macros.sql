@@ -6,14 +6,25 @@
 create or replace temp macro ingest_finite(value) as
     case when isfinite(value) then value end;
 
+create or replace temp macro ingest_number_unbounded(text, mark) as
+    case
+        when mark = ',' and contains(text, '.') then null
+        when contains(text, '_') then null
+        else try_cast(replace(text, mark, '.') as double)
+    end;
+
 create or replace temp macro ingest_number(text, mark) as
-    ingest_finite(
-        case
-            when mark = ',' and contains(text, '.') then null
-            when contains(text, '_') then null
-            else try_cast(replace(text, mark, '.') as double)
-        end
-    );
+    ingest_finite(ingest_number_unbounded(text, mark));
+
+-- a receipt's number: as ingest_number, except that one written in digits but too large for a
+-- double ('1e400', cast to infinity) stays infinite, so that the bounds of 020 call it out of
+-- range rather than not a number; 'inf', 'infinity' and 'nan' (each with an n) stay null. The
+-- second branch runs only for values that are not finite
+create or replace temp macro ingest_receipt_number(text, mark) as
+    case
+        when isfinite(ingest_number_unbounded(text, mark)) then ingest_number_unbounded(text, mark)
+        when not contains(lower(text), 'n') then ingest_number_unbounded(text, mark)
+    end;
 
 -- a quarantine detail: the field and what is wrong with it, plus the value as written only when
 -- values_shown (sources without card ids: a card id can sit in any field of a line that has one)

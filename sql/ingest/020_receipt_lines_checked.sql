@@ -39,9 +39,10 @@ typed as (
             when $timestamp_format is null then try_cast(sold_at_text as timestamp)
             else try_strptime(sold_at_text, $timestamp_format)
         end as sold_at_written,
-        ingest_number(quantity_text, $decimal) as quantity,
-        ingest_number(amount_text, $decimal) as amount,
-        ingest_number(discount_text, $decimal) as discount,
+        -- infinite when written in digits but too large for a double: out of range below
+        ingest_receipt_number(quantity_text, $decimal) as quantity,
+        ingest_receipt_number(amount_text, $decimal) as amount,
+        ingest_receipt_number(discount_text, $decimal) as discount,
     from trimmed
 ),
 

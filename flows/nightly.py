@@ -34,7 +34,7 @@ from demandprep.export.tables import output_query, plan_outputs
 from demandprep.flows.build_log import append_build_log
 from demandprep.flows.incremental import files_to_ingest, latest_build_is_current
 from demandprep.flows.retry import raise_if_failed, retry_read_errors
-from demandprep.ingest.files import DiscoveredFile, check_sources_have_files
+from demandprep.ingest.files import DiscoveredFile, discovery_warnings
 from demandprep.ingest.results import FileResult
 from demandprep.ingest.runner import (
     discover_files,
@@ -61,7 +61,7 @@ def discover_task(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list
     ensure_tables(con)
     # as the direct ingest does: a source whose files were archived after their ingest keeps
     # its rows, with a warning (a changed reading setting reads its files again as replaced)
-    warnings = check_sources_have_files(con, config)
+    warnings = discovery_warnings(con, config)
     found = discover_files(con, config)
     for warning in warnings + still_refused(found):
         get_run_logger().warning(warning)

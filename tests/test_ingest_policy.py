@@ -458,6 +458,24 @@ def test_withdraw_removes_a_files_rows_and_keeps_it_out(tmp_path: Path) -> None:
     assert by_name(ingest(config))["b.csv"].status == "new"
 
 
+def test_a_matched_link_to_no_file_is_warned_about_not_skipped_silently(tmp_path: Path) -> None:
+    config = write_project(tmp_path, {"a.csv": receipt_lines(2)})
+    folder = tmp_path / "receipts"
+    (folder / "moved.csv").symlink_to(folder / "gone_elsewhere.csv")  # its target is gone
+    (folder / "loop.csv").symlink_to(folder / "loop.csv")  # points at itself
+    (folder / "folder.csv").mkdir()  # a folder matched by the glob is no input: no warning
+    summary = ingest(config)
+    assert by_name(summary)["a.csv"].rows_accepted == 2
+    assert not {"moved.csv", "loop.csv", "folder.csv"} & set(by_name(summary))
+    links = [warning for warning in summary.warnings if "symbolic link" in warning]
+    assert links == [
+        f"{config}: key 'sources.receipts.files': {folder / name} is a symbolic link to no file "
+        "(its target is gone, or the links form a loop), so it is not read; point it at the "
+        "file or remove it."
+        for name in ("loop.csv", "moved.csv")
+    ]
+
+
 def test_withdraw_of_nothing_is_a_user_error(tmp_path: Path) -> None:
     config = write_project(tmp_path, {"a.csv": receipt_lines(5)})
     ingest(config)

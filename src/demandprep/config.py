@@ -198,12 +198,20 @@ class FileSource(Section):
 
     def resolved_files(self) -> list[Path]:
         """Every file matched by the globs, sorted, without duplicates."""
+        return sorted(p for p in self._matched_paths() if p.is_file())
+
+    def links_to_no_file(self) -> list[Path]:
+        """Symbolic links the globs match that lead to no file (a target gone, or a loop),
+        sorted: `resolved_files` leaves them out, so the ingest warns about them."""
+        return sorted(p for p in self._matched_paths() if p.is_symlink() and not p.exists())
+
+    def _matched_paths(self) -> set[Path]:
         found: set[Path] = set()
         for pattern in self.files:
             path = Path(pattern)
             anchor = Path(path.anchor)
             found.update(anchor.glob(str(path.relative_to(anchor))))
-        return sorted(p for p in found if p.is_file())
+        return found
 
     def settings_fingerprint(self) -> str:
         """sha256 of the canonical JSON of the settings that decide how a file is read."""

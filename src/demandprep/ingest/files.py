@@ -306,6 +306,24 @@ def reload_targets(config: ProjectConfig, patterns: list[str]) -> dict[str, froz
     return {name: frozenset(paths) for name, paths in targets.items()}
 
 
+def discovery_warnings(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[str]:
+    """What a night's discovery warns about: sources whose globs match no file any more, and
+    matched symbolic links that lead to no file."""
+    return check_sources_have_files(con, config) + links_to_no_file(config)
+
+
+def links_to_no_file(config: ProjectConfig) -> list[str]:
+    """Warnings for symbolic links the sources' globs match that lead to no file: nothing is
+    read from them, and a night must not skip an input without saying so."""
+    return [
+        f"{config.config_path}: key 'sources.{name}.files': {link} is a symbolic link to no file "
+        "(its target is gone, or the links form a loop), so it is not read; point it at the "
+        "file or remove it."
+        for name, source in configured_sources(config)
+        for link in source.links_to_no_file()
+    ]
+
+
 def check_sources_have_files(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> list[str]:
     """Warnings for sources whose globs match nothing but whose files the warehouse holds.
 

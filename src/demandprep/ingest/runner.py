@@ -47,10 +47,10 @@ from demandprep.errors import UserError
 from demandprep.ingest import ledger
 from demandprep.ingest.files import (
     DiscoveredFile,
-    check_sources_have_files,
     configured_sources,
     current_versions,
     discover_source,
+    discovery_warnings,
     held_back_versions,
     record_stamps,
     reload_targets,
@@ -177,7 +177,7 @@ def _ingest_every_file(
     timer = PhaseTimer()
     ensure_tables(con)
     with timer.phase("discover"):
-        warnings = check_sources_have_files(con, config)
+        warnings = discovery_warnings(con, config)
         discovered = discover_files(con, config, reload)
     to_read = [item for item in discovered if item.status != "unchanged"]
     notify("start", files=len(discovered), bytes=sum(item.bytes for item in to_read))

@@ -27,7 +27,7 @@ from demandprep.export.folder import (
     check_export_root,
     export_root_lock,
     prune,
-    publish,
+    publish_build,
     write_staged_build,
 )
 from demandprep.export.tables import output_query, plan_outputs
@@ -119,9 +119,9 @@ def write_task(ctx: BuildContext) -> Path:
 
 
 @task(name="publish build", **NO_RESULTS)
-def publish_task(config: ProjectConfig, staging: Path) -> Path:
+def publish_task(ctx: BuildContext, staging: Path) -> Path:
     """Move the written build into place, then point `latest` at it."""
-    return publish(staging, config.export.root)
+    return publish_build(ctx, staging)
 
 
 @task(name="prune old builds", **NO_RESULTS)
@@ -178,7 +178,7 @@ def run_night(config: ProjectConfig, force_rebuild: bool) -> dict[str, Any]:
         # one publisher at a time per export root, from the staging cleanup to the pruning
         with export_root_lock(config.export.root, config.warehouse.lock_timeout_seconds):
             staging = call(write_task, ctx)
-            build = call(publish_task, config, staging)
+            build = call(publish_task, ctx, staging)
             call(prune_task, config)
     message = f"published {build.name} ({len(todo)} new or changed files)"
     logger.info(message)

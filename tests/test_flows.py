@@ -20,6 +20,7 @@ from ingest_fixtures import drop_catalogue_line
 
 from demandprep.config import ProjectConfig, load_config
 from demandprep.errors import UserError
+from demandprep.export import folder as export_folder
 from demandprep.export.folder import latest_build, published_builds
 from demandprep.export.root_lock import export_root_lock
 from demandprep.flows import nightly
@@ -358,7 +359,7 @@ def test_night_holds_the_export_root_lock_while_it_publishes(
     config = night_one.restore()
     add_next_day(night_one)
     seen: list[str] = []
-    real_publish = nightly.publish
+    real_publish = export_folder.publish  # the flow publishes through folder.publish_build
 
     def probing_publish(staging: Path, root: Path) -> Path:
         try:
@@ -368,7 +369,7 @@ def test_night_holds_the_export_root_lock_while_it_publishes(
             seen.append("held")
         return real_publish(staging, root)
 
-    monkeypatch.setattr(nightly, "publish", probing_publish)
+    monkeypatch.setattr(export_folder, "publish", probing_publish)
 
     state = run_night(night_one.config_path)
 

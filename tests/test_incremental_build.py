@@ -230,6 +230,33 @@ def test_crash_while_storing_instruments_keeps_the_old_ones_and_the_next_build_i
     assert_same_parquet(recovered, full_rebuild(world))
 
 
+def test_a_build_killed_before_publishing_leaves_its_periods_to_the_next_manifest(
+    world, tmp_path, monkeypatch
+):
+    from demandprep.export import folder
+
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+
+    def killed(*_args, **_kwargs):
+        raise RuntimeError("killed while publishing")
+
+    # the summaries and instruments of the new week are stored; no build shows them yet
+    with monkeypatch.context() as patch:
+        patch.setattr(folder, "publish", killed)
+        with pytest.raises(RuntimeError, match="killed"):
+            build(world)
+    recovered, manifest = build(world)
+    # nothing is recomputed now, but the published build differs from the last one there
+    assert manifest["build_mode"] == "incremental"
+    assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert manifest["facts"]["build_scope"]["periods_rebuilt"] == ["2024-02-12"]
+    # once published, a build owes nothing more
+    _same, after = build(world)
+    assert after["periods_rebuilt"] == []
+    assert_same_parquet(recovered, full_rebuild(world))
+
+
 def test_corrected_file_recomputes_the_periods_of_its_old_and_new_lines(world, tmp_path):
     build(world)
     # the correction keeps half of the day's lines and dates them a week later: the old

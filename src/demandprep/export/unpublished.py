@@ -1,0 +1,45 @@
+"""The periods recomputed by builds that were never published, owed to the next manifest.
+
+A build stores its period summaries and instrument values before its export. When the export
+dies before publishing (killed, power cut), the next night finds nothing to recompute, yet its
+build differs from the last published one in the periods the lost build recomputed. So each
+build's `periods_rebuilt` is recorded in the warehouse before its files are written, the
+manifest lists those of every build since the last publish, and a publish forgets them: the
+manifest's `periods_rebuilt` names every period whose rows may differ from the previous
+published build. A crash between publishing and forgetting only lists some periods twice.
+"""
+
+from __future__ import annotations
+
+import duckdb
+
+from demandprep.context import BuildContext
+
+TABLE_DDL = "create table if not exists unpublished_periods (period_start date not null)"
+
+
+def record_unpublished_periods(ctx: BuildContext) -> None:
+    """Store this build's `periods_rebuilt` and widen it to every unpublished build's."""
+    scope = ctx.facts.get("build_scope")
+    if scope is None:  # no market stages: no periods
+        return
+    con = ctx.con
+    con.execute(TABLE_DDL)
+    con.execute(
+        "insert into unpublished_periods select unnest($periods::date[]) "
+        "except select period_start from unpublished_periods",
+        {"periods": scope["periods_rebuilt"]},
+    )
+    scope["periods_rebuilt"] = unpublished_periods(con)
+
+
+def unpublished_periods(con: duckdb.DuckDBPyConnection) -> list[str]:
+    """The recorded periods, as ISO dates, in order."""
+    rows = con.execute("select distinct period_start from unpublished_periods order by 1")
+    return [row[0].isoformat() for row in rows.fetchall()]
+
+
+def forget_unpublished_periods(con: duckdb.DuckDBPyConnection) -> None:
+    """After a publish: the published build shows every recorded period."""
+    con.execute(TABLE_DDL)
+    con.execute("delete from unpublished_periods")

@@ -230,8 +230,9 @@ def test_crash_while_storing_instruments_keeps_the_old_ones_and_the_next_build_i
     assert_same_parquet(recovered, full_rebuild(world))
 
 
+@pytest.mark.parametrize("killed_in", ["write_staged_build", "publish"])
 def test_a_build_killed_before_publishing_leaves_its_periods_to_the_next_manifest(
-    world, tmp_path, monkeypatch
+    world, tmp_path, monkeypatch, killed_in
 ):
     from demandprep.export import folder
 
@@ -239,11 +240,11 @@ def test_a_build_killed_before_publishing_leaves_its_periods_to_the_next_manifes
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
 
     def killed(*_args, **_kwargs):
-        raise RuntimeError("killed while publishing")
+        raise RuntimeError("killed")
 
     # the summaries and instruments of the new week are stored; no build shows them yet
     with monkeypatch.context() as patch:
-        patch.setattr(folder, "publish", killed)
+        patch.setattr(folder, killed_in, killed)
         with pytest.raises(RuntimeError, match="killed"):
             build(world)
     recovered, manifest = build(world)

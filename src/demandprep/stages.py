@@ -11,15 +11,23 @@ from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.demographics import DEMOGRAPHIC_STAGES
+from demandprep.export.unpublished import record_unpublished_periods
 from demandprep.instruments.stages import INSTRUMENT_STAGES
 from demandprep.market.stages import MARKET_STAGES
 from demandprep.stage import Stage, run_stage
+
+# after the market and instrument stages and in their transaction, so a build that dies later
+# leaves its periods to the next manifest (export/unpublished.py); the partitions' maps stop
+# before it, at the period summaries
+UNPUBLISHED_PERIODS = Stage("unpublished_periods", record_unpublished_periods)
 
 
 def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
     """Every stage of a build, in the order they run, for this config."""
     # a choice-only project (no market-size assumption) runs no market or instrument stage
-    stages = MARKET_STAGES + INSTRUMENT_STAGES if config.market_build_enabled else ()
+    stages: tuple[Stage, ...] = ()
+    if config.market_build_enabled:
+        stages = (*MARKET_STAGES, *INSTRUMENT_STAGES, UNPUBLISHED_PERIODS)
     if config.market_build_enabled and config.demographic_draws.draws is not None:
         stages += DEMOGRAPHIC_STAGES
     if config.choices.enabled:

@@ -33,7 +33,7 @@ from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.export.manifest import input_records
 from demandprep.export.root_lock import LOCK_FILE, export_root_lock
-from demandprep.export.unpublished import forget_unpublished_periods, record_unpublished_periods
+from demandprep.export.unpublished import forget_unpublished_periods
 from demandprep.memory import out_of_memory_reported
 
 if TYPE_CHECKING:
@@ -99,8 +99,6 @@ def write_staged_build(
     root = ctx.config.export.root
     check_export_root(root)
     clean_stale_staging(root)
-    # before any file: a build that dies unpublished leaves its periods to the next manifest
-    record_unpublished_periods(ctx)
     with out_of_memory_reported("export", ctx.config.warehouse):
         build_id = new_build_id(ctx, built_at)
         try:

@@ -1,12 +1,14 @@
 """The periods recomputed by builds that were never published, owed to the next manifest.
 
-A build stores its period summaries and instrument values before its export. When the export
-dies before publishing (killed, power cut), the next night finds nothing to recompute, yet its
-build differs from the last published one in the periods the lost build recomputed. So each
-build's `periods_rebuilt` is recorded in the warehouse before its files are written, the
-manifest lists those of every build since the last publish, and a publish forgets them: the
-manifest's `periods_rebuilt` names every period whose rows may differ from the previous
-published build. A crash between publishing and forgetting only lists some periods twice.
+A build commits its period summaries and instrument values with its market-level stages. When
+it dies after that (in the choice build, the export, before publishing: killed, out of memory,
+power cut), the next night finds nothing to recompute, yet its build differs from the last
+published one in the periods the lost build recomputed. So the last market-level stage
+(`unpublished_periods`, committed with the summaries) records the build's `periods_rebuilt` in
+the warehouse and widens it to those of every build since the last publish, and a publish
+forgets them: the manifest's `periods_rebuilt` names every period whose rows may differ from
+the previous published build. A crash between publishing and forgetting only makes the next
+manifest list some periods again.
 """
 
 from __future__ import annotations

@@ -3,7 +3,7 @@
 A build commits its period summaries and instrument values with its market-level stages. When
 it dies after that (in the choice build, the export, before publishing: killed, out of memory,
 power cut), the next night finds nothing to recompute, yet its build differs from the last
-published one in the periods the lost build recomputed. So the last market-level stage
+published one in the periods the lost build recomputed. So a stage after the instruments
 (`unpublished_periods`, committed with the summaries) records the build's `periods_rebuilt` in
 the warehouse and widens it to those of every build since the last publish, and a publish
 forgets them: the manifest's `periods_rebuilt` names every period whose rows may differ from

@@ -163,3 +163,37 @@ def test_a_key_with_spaces_at_its_ends_is_refused(monkeypatch, key):
         f"environment variable {KEY_ENV} holds a pseudonym key with spaces or a line break at "
         "its start or end"
     )
+
+
+def test_a_build_with_choices_turned_off_drops_their_tables_from_the_warehouse(
+    tmp_path, coffee_sample, monkeypatch
+):
+    # before: the pseudonymised choice tables of the last build with choices stayed in the
+    # warehouse, unused and stale, after choices were turned off (data minimisation)
+    import shutil
+
+    from demandprep import pipeline
+    from demandprep.config import load_config
+
+    folder = tmp_path / "world"
+    shutil.copytree(coffee_sample, folder, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    path = folder / "demandprep.toml"
+    config = load_config(path)
+    monkeypatch.setenv(config.choices.pseudonym_key_env, "a-test-key-0123456789abcdef")
+    pipeline.run_ingest(config)
+    pipeline.run_build(config)
+    assert {"choices", "choosers"} <= warehouse_tables(config.warehouse.path)
+    text = path.read_text(encoding="utf-8")
+    path.write_text(text.replace("[choices]\nenabled = true", "[choices]\nenabled = false"))
+    pipeline.run_build(load_config(path))
+    left = warehouse_tables(config.warehouse.path)
+    assert not {"choices", "choosers"} & left
+    assert not [table for table in left if table.startswith("choice_")]
+
+
+def warehouse_tables(path) -> set[str]:
+    con = duckdb.connect(str(path), read_only=True)
+    try:
+        return {row[0] for row in con.execute("select table_name from duckdb_tables()").fetchall()}
+    finally:
+        con.close()

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-from demandprep.choices.stages import CHOICE_STAGES
+from demandprep.choices.stages import CHOICE_STAGES, CHOICES_OFF_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.demographics import DEMOGRAPHIC_STAGES
@@ -30,8 +30,7 @@ def build_stages(config: ProjectConfig) -> tuple[Stage, ...]:
         stages = (*MARKET_STAGES, *INSTRUMENT_STAGES, UNPUBLISHED_PERIODS)
     if config.market_build_enabled and config.demographic_draws.draws is not None:
         stages += DEMOGRAPHIC_STAGES
-    if config.choices.enabled:
-        stages += CHOICE_STAGES
+    stages += CHOICE_STAGES if config.choices.enabled else CHOICES_OFF_STAGES
     return stages
 
 

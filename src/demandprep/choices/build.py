@@ -247,6 +247,14 @@ def write_choices_table(ctx: BuildContext, settings: ChoiceSettings) -> None:
         ctx.con.execute(f"drop macro table if exists {macro}")
 
 
+def drop_choice_tables(ctx: BuildContext) -> None:
+    """Choices turned off: drop the tables of the last build that made them, and any working
+    table a failed one left. They are pseudonymised personal data no build uses or updates any
+    more, and turning choices back on rebuilds them whole."""
+    for table in ("choices", "choosers", *INTERMEDIATE_TABLES):
+        ctx.con.execute(f"drop table if exists {table}")
+
+
 def drop_intermediate_tables(ctx: BuildContext) -> None:
     """Drop the choice_* working tables (the card -> chooser map first) and the input views."""
     for table in INTERMEDIATE_TABLES:

@@ -6,6 +6,7 @@ from demandprep.choices.build import (
     build_choice_sets,
     build_choices,
     build_choosers,
+    drop_choice_tables,
     prepare_choice_inputs,
 )
 from demandprep.stage import Stage
@@ -19,3 +20,6 @@ CHOICE_STAGES: tuple[Stage, ...] = (
     Stage("choice_sets", build_choice_sets),
     Stage("choices", build_choices),
 )
+
+# with choices off: no stale choice table stays behind (run with the market-level stages)
+CHOICES_OFF_STAGES: tuple[Stage, ...] = (Stage("choice_tables_dropped", drop_choice_tables),)

@@ -709,13 +709,9 @@ def one_round(
     shutil.copy2(folder / "held_back" / info["held_back"], arrived)
     try:
         print("running demandprep run (one more day) ...", flush=True)
-        results["demandprep_one_day"] = run_demandprep("run", config, folder / "demandprep_day.log")
-        # read before the nothing-new run adds its own ingest_runs rows; the round's own wall
-        # stays beside them (the table shows the median over rounds)
-        one_day = results["demandprep_one_day"]
-        one_day["round_wall"] = one_day["wall"]
-        one_day["phases"] = ingest_phases(run_dir)
-        one_day["build_timings"] = build_timings(latest_build(run_dir))
+        one_day = run_demandprep("run", config, folder / "demandprep_day.log")
+        # read before the nothing-new run adds its own ingest_runs rows
+        results["demandprep_one_day"] = with_night_split(one_day, run_dir)
         # the same files again: what every nightly run costs before it has anything to do
         print("running demandprep run (nothing new) ...", flush=True)
         results["demandprep_nothing_new"] = run_demandprep(
@@ -723,8 +719,7 @@ def one_round(
         )
     finally:
         arrived.unlink()
-    results["demandprep_one_day"] |= build_checksum(latest_build(run_dir))
-    results["demandprep_one_day"]["lines"] = ledger_numbers(run_dir)["accepted"]
+    results["demandprep_one_day"] = with_build_numbers(results["demandprep_one_day"], run_dir)
     results["demandprep_nothing_new"]["lines"] = results["demandprep_one_day"]["lines"]
     if args.with_choices:
         results |= runs_with_choices(args, info, folder)
@@ -745,9 +740,9 @@ def runs_with_choices(args: argparse.Namespace, info: dict, folder: Path) -> dic
     results = {}
     print("running demandprep run, choices on (empty warehouse) ...", flush=True)
     log = folder / "demandprep_run_choices.log"
-    results["demandprep_run_choices"] = run_demandprep("run", config, log, env)
-    results["demandprep_run_choices"] |= build_checksum(latest_build(run_dir))
-    results["demandprep_run_choices"]["lines"] = ledger_numbers(run_dir)["accepted"]
+    results["demandprep_run_choices"] = with_build_numbers(
+        run_demandprep("run", config, log, env), run_dir
+    )
     arrived = world / info["held_back"]
     shutil.copy2(folder / "held_back" / info["held_back"], arrived)
     try:
@@ -756,13 +751,26 @@ def runs_with_choices(args: argparse.Namespace, info: dict, folder: Path) -> dic
         one_day = run_demandprep("run", config, log, env)
     finally:
         arrived.unlink()
-    one_day["round_wall"] = one_day["wall"]
-    one_day["phases"] = ingest_phases(run_dir)
-    one_day["build_timings"] = build_timings(latest_build(run_dir))
-    one_day |= build_checksum(latest_build(run_dir))
-    one_day["lines"] = ledger_numbers(run_dir)["accepted"]
-    results["demandprep_one_day_choices"] = one_day
+    results["demandprep_one_day_choices"] = with_build_numbers(
+        with_night_split(one_day, run_dir), run_dir
+    )
     return results
+
+
+def with_night_split(result: dict, run_dir: Path) -> dict:
+    """A one-more-day run's result with what its split needs: the round's own wall (the table
+    shows the median over rounds), its ingest phases and its build's timings."""
+    return result | {
+        "round_wall": result["wall"],
+        "phases": ingest_phases(run_dir),
+        "build_timings": build_timings(latest_build(run_dir)),
+    }
+
+
+def with_build_numbers(result: dict, run_dir: Path) -> dict:
+    """A run's result with its latest build's checksum and the lines its warehouse accepted."""
+    lines = ledger_numbers(run_dir)["accepted"]
+    return result | build_checksum(latest_build(run_dir)) | {"lines": lines}
 
 
 def ingest_only(args: argparse.Namespace, world: Path, folder: Path) -> dict:

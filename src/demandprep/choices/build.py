@@ -251,8 +251,9 @@ def drop_choice_tables(ctx: BuildContext) -> None:
     """Choices turned off: drop the tables of the last build that made them, and any working
     table a failed one left. They are pseudonymised personal data no build uses or updates any
     more, and turning choices back on rebuilds them whole."""
-    for table in ("choices", "choosers", *INTERMEDIATE_TABLES):
+    for table in ("choices", "choosers"):
         ctx.con.execute(f"drop table if exists {table}")
+    drop_intermediate_tables(ctx)
 
 
 def drop_intermediate_tables(ctx: BuildContext) -> None:

@@ -39,12 +39,13 @@ class Choices(pa.DataFrameModel):
     """One row per choice occasion and alternative (long format for conditional logit)."""
 
     occasion: str = pa.Field(
-        description="Choice occasion: one card visit, or one product of a split visit (/n); a "
-        "keyed hash of the store and receipt, not linkable to the till's record without the key.",
+        description="Choice occasion: one card visit, or one product of a split visit (/n); the "
+        "visit's day, then a keyed hash of the store and receipt, not linkable to the till's "
+        "record without the key. Ids sort by day.",
         metadata={
             "unit": "id",
-            "formula": "first 32 hex digits of HMAC-SHA256(key, 'occasion' NUL store NUL receipt)"
-            " [|| '/' || spend rank]",
+            "formula": "date(occasion_at) || ':' || first 32 hex digits of HMAC-SHA256(key, "
+            "'occasion' NUL store NUL [day NUL] receipt) [|| '/' || spend rank]",
         },
     )
     chooser: str = pa.Field(

@@ -120,9 +120,10 @@ def test_occasion_is_a_keyed_hash_of_store_day_and_receipt(monkeypatch):
     frame = choices_frame(small_world().build())
     # reference: Python's hmac module over "occasion", NUL, store, NUL, business day, NUL,
     # receipt (receipt ids restart daily by default); the chooser hashes the bare card id, so
-    # the prefix keeps the two kinds of hash apart
+    # the label keeps the two kinds of hash apart; the id starts with the visit's day
     expected = {
-        hmac.new(
+        "2024-01-15:"
+        + hmac.new(
             b"occasion-key-0123456789abcdef",
             b"occasion\x00S1\x002024-01-15\x00" + f"R{n:05d}".encode(),
             hashlib.sha256,

@@ -4,10 +4,14 @@
 -- their numbers every day) it is store, business day (sold_at::date) and receipt. With 'chain' a
 -- visit still belongs to one store here (an occasion happens in a store), so a chain-unique id
 -- that shows up in two stores stays two visits.
--- The visit id is HMAC-SHA256(key, 'occasion' NUL store NUL [day NUL] receipt), first 32 hex
--- digits (the day only with store_day), computed from the key's RFC 2104 pads
--- ($hmac_inner_pad, $hmac_outer_pad): stable across rebuilds, and no link to the till's receipt
--- without the key. 032 swaps the card for the chooser pseudonym.
+-- The visit id is the visit's day (YYYY-MM-DD), ':' and the first 32 hex digits of
+-- HMAC-SHA256(key, 'occasion' NUL store NUL [day NUL] receipt) (that day only with store_day),
+-- computed from the key's RFC 2104 pads ($hmac_inner_pad, $hmac_outer_pad): stable across
+-- rebuilds, and no link to the till's receipt without the key. The day comes first so that
+-- ids sort by day: `choices`, stored in id order, then keeps each day's rows together after
+-- the earlier days', and an incremental build replaces the rows from a day on (choices/scope.py).
+-- The day is occasion_at's, which every choice row carries anyway.
+-- 032 swaps the card for the chooser pseudonym.
 create or replace table choice_visits as
 
 with
@@ -45,7 +49,7 @@ receipts as (
 
 final as (
     select
-        left(
+        strftime(cast(occasion_at as date), '%Y-%m-%d') || ':' || left(
             sha256(
                 $hmac_outer_pad || unhex(sha256(
                     $hmac_inner_pad || $occasion_label

@@ -15,10 +15,11 @@ as all null, and the market build's SKU ids are used when they exist ($from_mark
 - Occasion: a visit with a card and a sale line. A visit has the market build's identity
   (markets.receipt_ids_unique_per): store, business day and receipt by default; store and
   receipt with 'store' or 'chain' (an occasion happens in one store, so a chain-unique id seen
-  in two stores stays two visits here). Its id is a keyed hash of that identity
-  (HMAC-SHA256 with the same key over "occasion" NUL store NUL [day NUL] receipt, 32 hex
-  digits; the prefix keeps it apart from chooser hashes), so it cannot be matched to the till's
-  record without the key and stays the same on every rebuild. With occasions =
+  in two stores stays two visits here). Its id is the visit's day and a keyed hash of that
+  identity (YYYY-MM-DD ':' HMAC-SHA256 with the same key over "occasion" NUL store NUL
+  [day NUL] receipt, 32 hex digits; the label keeps it apart from chooser hashes), so it cannot
+  be matched to the till's record without the key, stays the same on every rebuild and sorts
+  by day. With occasions =
   'category_visits' only visits that bought an alternative; with 'all_visits' every visit,
   choosing `none` when it bought none (`none` is in every set). Void lines net against their
   sale; returns are not choices.
@@ -26,7 +27,7 @@ as all null, and the market build's SKU ids are used when they exist ($from_mark
   market build's product universe; the others become the composite `fringe` when
   products.universe.rest = 'fringe', or count as no purchase when it is 'outside'.
 - Several alternatives in one visit: 'largest_spend' (ties: quantity, then id), 'split' (one
-  occasion `<visit hash>/n` per product, n by spend; each weighs 1/n in loyalty), 'drop' (the
+  occasion `<visit id>/n` per product, n by spend; each weighs 1/n in loyalty), 'drop' (the
   visit is no occasion and leaves no history).
 - Choice set: the store's latest shelf-price snapshot on or before the day (if younger than
   choice_set_window_days), else the alternatives the store sold on the choice_set_window_days

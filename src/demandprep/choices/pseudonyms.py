@@ -1,9 +1,10 @@
 """Keyed hashes of the choice build: chooser pseudonyms, occasion ids and the holdout flag.
 
-chooser = first 32 hex digits of HMAC-SHA256(key, card); occasion (a card visit) = first 32 hex
-digits of HMAC-SHA256(key, "occasion" NUL store NUL [day NUL] receipt; the day when receipt ids
-restart daily), computed in SQL from the key's RFC 2104 pads. The prefix keeps the two kinds of
-hash apart, so an occasion id can never equal a chooser id; both are stable across rebuilds with
+chooser = first 32 hex digits of HMAC-SHA256(key, card); occasion (a card visit) = its day
+(YYYY-MM-DD, so ids sort by day), ':' and the first 32 hex digits of HMAC-SHA256(key, "occasion"
+NUL store NUL [day NUL] receipt; the day when receipt ids restart daily), computed in SQL from
+the key's RFC 2104 pads. The label keeps the two kinds of hash apart, so an occasion id can never
+equal a chooser id; both are stable across rebuilds with
 the same key. The key comes from the environment variable named by choices.pseudonym_key_env, never
 from the config file, so neither can be recomputed from the repository; a key shorter than 16 bytes
 is refused. The card -> chooser table is a TEMP table: it dies with the build's connection, even
@@ -80,14 +81,16 @@ def chooser_pseudonym(key: bytes, card: str) -> str:
     return digest[:PSEUDONYM_HEX_DIGITS]
 
 
-def occasion_id(key: bytes, store: str, receipt: str, day: str | None = None) -> str:
+def occasion_id(key: bytes, store: str, receipt: str, on: str, day_in_identity: bool = True) -> str:
     """The occasion id of a card visit, as the SQL of the choice build computes it.
 
-    `day` (YYYY-MM-DD) is part of the visit's identity when receipt ids restart every day.
+    `on` is the visit's day (YYYY-MM-DD, of its first sale line), the id's sortable prefix; it
+    is also part of the hashed identity when receipt ids restart every day (`day_in_identity`).
     """
-    day_part = b"" if day is None else day.encode("utf-8") + b"\x00"
+    day_part = on.encode("utf-8") + b"\x00" if day_in_identity else b""
     message = OCCASION_LABEL + store.encode("utf-8") + b"\x00" + day_part + receipt.encode("utf-8")
-    return hmac.new(key, message, hashlib.sha256).hexdigest()[:PSEUDONYM_HEX_DIGITS]
+    digest = hmac.new(key, message, hashlib.sha256).hexdigest()[:PSEUDONYM_HEX_DIGITS]
+    return f"{on}:{digest}"
 
 
 def occasion_hash_parameters(key: bytes) -> dict[str, bytes]:

@@ -13,6 +13,7 @@ from choices_fixtures import ChoiceWorld, make_config
 from export_fixtures import fill_warehouse
 
 from demandprep.choices.build import write_choices_table
+from demandprep.choices.scope import scope_params
 from demandprep.choices.settings import load_choice_settings
 from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.choices.validation import model_checks, sql_check_names, validate_choices
@@ -98,7 +99,7 @@ def test_the_occasion_sets_are_written_in_order_however_many_rows():
     # a small build fits in one batch and keeps its order whatever the plan; a plan that keeps
     # insertion order shows "Batch Create Table As", one with a hash join "Create Table As"
     ctx = _one_visit_world_before_choices()
-    params = load_choice_settings(ctx.con, ctx.config).params()
+    params = {**load_choice_settings(ctx.con, ctx.config).params(), **scope_params(ctx.con)}
     text = sql_text("choices/062_choice_occasion_sets.sql")
     code = LINE_COMMENT.sub("", text)
     used = {k: v for k, v in params.items() if f"${k}" in code}
@@ -274,7 +275,7 @@ def _choice_plans(*names: str) -> dict[str, str]:
     ctx = BuildContext(con=con, config=make_config())
     for stage in CHOICE_STAGES[:-1]:
         run_stage(stage, ctx)
-    params = load_choice_settings(con, ctx.config).params()
+    params = {**load_choice_settings(con, ctx.config).params(), **scope_params(con)}
     plans = {}
     for name in names:
         text = sql_text(f"choices/{name}.sql")

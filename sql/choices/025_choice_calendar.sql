@@ -1,4 +1,4 @@
--- Every day of the receipt data with the start of its market period (markets.period).
+-- Every day of the receipt data with the start of its market period (markets.period, 024).
 create or replace table choice_calendar as
 
 with
@@ -19,13 +19,7 @@ days as (
 final as (
     select
         day,
-        case $period
-            when 'day' then day
-            -- $week_start is the ISO weekday (1 = Monday) a week starts on
-            when 'week' then day - cast((isodow(day) - $week_start + 7) % 7 as integer)
-            when 'month' then cast(date_trunc('month', day) as date)
-            else cast(date_trunc('quarter', day) as date)
-        end as period_start,
+        choice_period_start(day, $period, $week_start) as period_start,
     from days
 )
 

@@ -8,7 +8,8 @@
 -- ordered by md5(occasion, alternative), so the draw is fixed by the occasion on every rebuild.
 -- Stored in occasion order (the stage keeps insertion order), with every join done here, before
 -- the sort: 090 then unnests these rows without joining, so `choices` lands in (occasion,
--- alternative) order without sorting its rows.
+-- alternative) order without sorting its rows. An incremental build makes the rows of the
+-- occasions from $rebuilt_from on only (056); their ids sort after every kept occasion's (030).
 create or replace table choice_occasion_sets as
 
 with
@@ -54,6 +55,9 @@ occasions as (
     left join choice_visit_loyalty
         on choice_visit_loyalty.chooser_number = choice_visit_history.chooser_number
         and choice_visit_loyalty.loyalty_rank = choice_visit_history.loyalty_rank
+    -- the occasions this build recomputes (056): all, or those from $rebuilt_from on (none
+    -- when it is null)
+    where $every_occasion or choice_occasions.day >= $rebuilt_from
 ),
 
 full_sets as (

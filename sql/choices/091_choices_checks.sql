@@ -10,6 +10,8 @@
 -- The chooser pattern is checked once per occasion, on its smallest and largest chooser: the
 -- chooser is constant within an occasion (occasion_columns_constant), so that is every row.
 -- Row checks are count_if (cheaper than filtered counts, and equally blind to nulls).
+-- Only the occasions from $checked_from on ('' for all): an incremental build checks the rows
+-- it wrote; the kept ones passed the same checks when they were written (choices/scope.py).
 
 with
 
@@ -54,6 +56,7 @@ row_checks as (
         count_if(alternative = $outside and previous_choice)
             as previous_choice_inside,
     from choices
+    where occasion >= $checked_from or occasion is null
 ),
 
 occasions as (
@@ -79,6 +82,7 @@ occasions as (
         and min(burn_in) is not distinct from max(burn_in) and count(burn_in) in (0, count(*))
             as constant_columns,
     from choices
+    where occasion >= $checked_from or occasion is null
     group by occasion
 ),
 
@@ -102,6 +106,7 @@ stored_keys as (
         lag(occasion) over () as previous_occasion,
         lag(alternative) over () as previous_alternative,
     from choices
+    where occasion >= $checked_from or occasion is null
 ),
 
 order_checks as (

@@ -22,6 +22,14 @@ from demandprep.choices.pseudonyms import (
     occasion_hash_parameters,
     pseudonym_key,
 )
+from demandprep.choices.scope import (
+    drop_choice_state,
+    first_rebuilt_id,
+    forget_choice_state,
+    plan_choice_scope,
+    scope_params,
+    store_choice_state,
+)
 from demandprep.choices.settings import FRINGE, OUTSIDE, ChoiceSettings, load_choice_settings
 from demandprep.choices.validation import validate_choices
 from demandprep.context import BuildContext
@@ -62,6 +70,7 @@ INTERMEDIATE_TABLES = (
     "choice_alternative_attributes",
     "choice_store_day_info",
     "choice_store_day_markets",
+    "choice_build_scope",
 )
 
 
@@ -108,6 +117,7 @@ INPUT_FILES = (
     "010_choice_alternative_map",
     "015_choice_shelf",
     "020_choice_sales",
+    "024_choice_period_start",
     "025_choice_calendar",
     "027_choice_store_regions",
 )
@@ -175,7 +185,8 @@ def build_choice_history(ctx: BuildContext) -> None:
 
 
 def build_choice_sets(ctx: BuildContext) -> None:
-    """Choice sets per occasion (sampled if configured) and alternative prices and attributes."""
+    """Choice sets per occasion (sampled if configured) and alternative prices and attributes,
+    for the occasions this build recomputes (`scope.py`)."""
     settings = _settings(ctx)
     _run(
         ctx,
@@ -188,9 +199,10 @@ def build_choice_sets(ctx: BuildContext) -> None:
         "061_choice_store_day_sets",
         "079_choice_store_day_markets",  # before 062, which joins it: 090 joins nothing
     )
+    plan_choice_scope(ctx, settings)  # compares the store-day markets with the stored ones
     # stored sorted by occasion, so that `choices` is written in key order (see 090)
     with insertion_order_kept(ctx.con):
-        _run(ctx, settings, "062_choice_occasion_sets")
+        _run_on(ctx.con, {**settings.params(), **scope_params(ctx.con)}, "062_choice_occasion_sets")
     _run(
         ctx,
         settings,
@@ -208,16 +220,26 @@ def build_choosers(ctx: BuildContext) -> None:
 
 
 def build_choices(ctx: BuildContext) -> None:
-    """The long choices table, validated on every row; records facts and cleans up."""
-    write_choices_table(ctx, _settings(ctx))
-    validate_choices(ctx.con)
+    """The long choices table (whole, or its rows from the first recomputed day on), its new
+    rows validated; records facts, stores the state for the next build and cleans up."""
+    scope = scope_params(ctx.con)
+    forget_choice_state(ctx.con)
+    if scope["every_occasion"]:
+        write_choices_table(ctx, _settings(ctx))
+        validate_choices(ctx.con)
+    elif scope["rebuilt_from"] is not None:
+        first = first_rebuilt_id(scope["rebuilt_from"])
+        ctx.con.execute("delete from choices where occasion >= $first", {"first": first})
+        write_choices_table(ctx, _settings(ctx), create=False)
+        validate_choices(ctx.con, checked_from=first)
     facts = choice_facts(ctx.con, ctx.config)
     ctx.facts["choices"] = facts
     warn_on_facts(ctx, facts)
+    store_choice_state(ctx)
     drop_intermediate_tables(ctx)
 
 
-def write_choices_table(ctx: BuildContext, settings: ChoiceSettings) -> None:
+def write_choices_table(ctx: BuildContext, settings: ChoiceSettings, create: bool = True) -> None:
     """090's `choices`, stored in (occasion, alternative) order: each occasion joined to its
     store-day's map (086), in as many parts of the occasions as DuckDB has threads, each part
     on one thread and all at once (`parts.py`).
@@ -230,7 +252,9 @@ def write_choices_table(ctx: BuildContext, settings: ChoiceSettings) -> None:
     store-days) the list cost twice the CPU of one join.
     """
     params = settings.params()
-    _run(ctx, settings, "086_choice_occasion_maps_joined", "087_choice_rows", "088_choices_table")
+    _run(ctx, settings, "086_choice_occasion_maps_joined", "087_choice_rows")
+    if create:
+        _run(ctx, settings, "088_choices_table")
 
     def write_part(con: duckdb.DuckDBPyConnection, first: str, after: str | None) -> None:
         # the macros are TEMP: every connection defines its own
@@ -253,6 +277,7 @@ def drop_choice_tables(ctx: BuildContext) -> None:
     more, and turning choices back on rebuilds them whole."""
     for table in ("choices", "choosers"):
         ctx.con.execute(f"drop table if exists {table}")
+    drop_choice_state(ctx.con)
     drop_intermediate_tables(ctx)
 
 

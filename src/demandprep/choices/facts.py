@@ -40,10 +40,10 @@ def choice_facts(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> dict[
             "where burn_in",
         ),
         "rows": _one(con, "select count(*) from choices"),
-        "chosen_added_to_set": _one(
-            con, "select count(*) from choice_occasion_sets where chosen_added"
-        ),
-        "sampled_occasions": _one(con, "select count(*) from choice_occasion_sets where sampled"),
+        # from `choices`, whose kept rows count too (an incremental build makes the sets of
+        # the recomputed occasions only): one chosen row per occasion
+        "chosen_added_to_set": _one(con, "select count(*) from choices where added_to_set"),
+        "sampled_occasions": _one(con, "select count(*) from choices where sampled and chosen"),
         "store_days_with_shelf_set": _one(
             con, "select count(*) from choice_store_days where snapshot_date is not null"
         ),

@@ -50,11 +50,14 @@ OCCASION_CHECKS = (
 )
 
 
-def validate_choices(con: duckdb.DuckDBPyConnection, sample_rows: int = SAMPLE_ROWS) -> int:
-    """Validate the `choices` table against `Choices`; returns its rows, raises on failure."""
+def validate_choices(
+    con: duckdb.DuckDBPyConnection, sample_rows: int = SAMPLE_ROWS, checked_from: str = ""
+) -> int:
+    """Validate the rows of `choices` from occasion `checked_from` on ('': all) against
+    `Choices`; returns their count, raises on failure."""
     with insertion_order_kept(con):
-        _validate_sample(con, sample_rows)
-        counts = _sql_check_counts(con)
+        _validate_sample(con, sample_rows, checked_from)
+        counts = _sql_check_counts(con, checked_from)
     failures = {name: n for name, n in counts.items() if name not in COUNT_COLUMNS and n}
     if failures:
         raise UserError(
@@ -83,10 +86,13 @@ def sql_check_names() -> set[str]:
         con.close()
 
 
-def _validate_sample(con: duckdb.DuckDBPyConnection, sample_rows: int) -> None:
+def _validate_sample(con: duckdb.DuckDBPyConnection, sample_rows: int, checked_from: str) -> None:
     with memory_shared_with_batches(con):
-        first_rows = {"rows": sample_rows + 1}
-        rows = con.cursor().sql("select * from choices limit $rows", params=first_rows)
+        first_rows = {"rows": sample_rows + 1, "checked_from": checked_from}
+        rows = con.cursor().sql(
+            "select * from choices where occasion >= $checked_from or occasion is null limit $rows",
+            params=first_rows,
+        )
         sample = pl.from_arrow(rows.to_arrow_table())
     assert isinstance(sample, pl.DataFrame)
     if sample.height > sample_rows:
@@ -100,22 +106,23 @@ def _without_last_occasion(frame: pl.DataFrame) -> pl.DataFrame:
     return frame.slice(0, int(others[-1]) + 1 if len(others) else 0)
 
 
-def _sql_check_counts(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
-    counts = count_sql_checks(con, CHECKS_FILE, _check_parameters(), Choices)
+def _sql_check_counts(con: duckdb.DuckDBPyConnection, checked_from: str) -> dict[str, int]:
+    counts = count_sql_checks(con, CHECKS_FILE, _check_parameters(checked_from), Choices)
     if counts["rows_out_of_key_order"]:
         # a repeated pair need not sit next to its twin: group the pairs instead
-        counts.update(_repeated_keys(con))
+        counts.update(_repeated_keys(con, checked_from))
     return counts
 
 
-def _repeated_keys(con: duckdb.DuckDBPyConnection) -> dict[str, int]:
-    result = run_sql(con, REPEATED_KEYS_FILE)
+def _repeated_keys(con: duckdb.DuckDBPyConnection, checked_from: str) -> dict[str, int]:
+    result = run_sql(con, REPEATED_KEYS_FILE, {"checked_from": checked_from})
     names = [column[0] for column in result.description]
     return dict(zip(names, result.fetchone(), strict=True))
 
 
-def _check_parameters() -> dict[str, object]:
+def _check_parameters(checked_from: str = "") -> dict[str, object]:
     return {
+        "checked_from": checked_from,
         "outside": OUTSIDE,
         "fringe": FRINGE,
         "price_sources": list(PRICE_SOURCES),

@@ -32,6 +32,7 @@ from typing import Any
 import duckdb
 
 from demandprep.choices.pseudonyms import occasion_hash_parameters, pseudonym_key
+from demandprep.choices.scope import drop_choice_state
 from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
@@ -148,6 +149,9 @@ def build_bucket(
     rows: dict[str, int] = {}
     with open_warehouse(own.warehouse) as con:
         copy_choice_inputs(con, config)
+        # a bucket rebuilds every occasion: its inputs hold no record of reference files, so
+        # its state could not tell a changed households file (choices/scope.py)
+        drop_choice_state(con)
         with (
             warehouses_attached(con, warehouses) as aliases,
             partition_lines_view(con, aliases, PARTITION_LINES_VIEW),

@@ -1,0 +1,197 @@
+"""Incremental choice builds: a night recomputes the choice rows of the periods its files touch
+and keeps the earlier ones, and its Parquet files are byte for byte a full build's."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import polars as pl
+import pytest
+from test_incremental_build import (
+    EARLY_DAY,
+    LAST_DAY,
+    RECEIPTS,
+    assert_same_parquet,
+    build,
+    fresh_build,
+    rewrite_receipts,
+)
+
+from demandprep.choices import scope
+from demandprep.config import load_config
+from demandprep.warehouse import open_warehouse
+
+pytestmark = pytest.mark.usefixtures("one_line_report")
+
+
+@pytest.fixture()
+def world(tmp_path: Path, coffee_sample: Path) -> Path:
+    """A private copy of the sample (choices on) with its last day's file held back."""
+    folder = tmp_path / "world"
+    shutil.copytree(coffee_sample, folder, ignore=shutil.ignore_patterns("warehouse", "builds"))
+    (folder / RECEIPTS / LAST_DAY).rename(tmp_path / LAST_DAY)
+    return folder
+
+
+def choice_scope(manifest: dict) -> dict:
+    """What the choice build recomputed (the manifest's facts)."""
+    return manifest["facts"]["choice_scope"]
+
+
+def full_choice_rebuild(world: Path) -> Path:
+    """A full build of the same warehouse: every stored state is dropped first."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        for table in ("choice_state", "market_summary_state", "instrument_state"):
+            con.execute(f"drop table {table}")
+    folder, manifest = build(world)
+    assert choice_scope(manifest)["full_build_reason"] == scope.NO_STATE
+    return folder
+
+
+def kept_choices(world: Path, before: str) -> pl.DataFrame:
+    """The warehouse's choice rows of the occasions before a day, as stored."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        rows = con.sql("select * from choices where occasion < $before", params={"before": before})
+        frame = pl.from_arrow(rows.to_arrow_table())
+    assert isinstance(frame, pl.DataFrame)
+    return frame
+
+
+def test_occasion_ids_start_with_their_day_so_key_order_is_time_order(world):
+    folder, _manifest = build(world)
+    choices = pl.read_parquet(folder / "choices.parquet")
+    assert choices.height > 1000
+    days = choices["occasion_at"].dt.date().cast(pl.String)
+    assert (choices["occasion"].str.slice(0, 10) == days).all()
+    assert (choices["occasion"].str.slice(10, 1) == ":").all()
+    assert choices["occasion"].str.slice(11).str.contains(r"^[0-9a-f]{32}(/\d+)?$").all()
+
+
+def test_first_build_is_full_and_says_why(world):
+    _folder, manifest = build(world)
+    assert choice_scope(manifest) == {
+        "build_mode": "full",
+        "first_day_rebuilt": None,
+        "full_build_reason": scope.NO_STATE,
+    }
+
+
+def test_one_more_day_rebuilds_its_week_of_choices_only_and_equals_a_full_build(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    # a planted value in an untouched week survives: the night kept those rows
+    with open_warehouse(config.warehouse) as con:
+        con.execute("update choices set spend = 777.0 where spend is not null")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _folder, manifest = build(world)
+    assert choice_scope(manifest) == {
+        "build_mode": "incremental",
+        "first_day_rebuilt": "2024-02-12",
+        "full_build_reason": None,
+    }
+    kept = kept_choices(world, "2024-02-12").filter(pl.col("spend").is_not_null())
+    assert kept.height > 100
+    assert set(kept["spend"]) == {777.0}
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        recomputed = con.execute(
+            "select count(*), count_if(spend = 777.0) from choices "
+            "where chosen and occasion >= '2024-02-12'"
+        ).fetchone()
+    assert recomputed[0] > 100
+    assert recomputed[1] == 0
+
+
+@pytest.mark.parametrize(
+    "settings",
+    [
+        "",
+        # one occasion per product of a visit (ids with /n) and sampled sets
+        'multiple_purchases = "split"\nsampled_alternatives = 3\n',
+    ],
+    ids=["demo", "split_and_sampled"],
+)
+def test_one_more_day_writes_the_bytes_of_a_fresh_full_build(world, tmp_path, settings):
+    if settings:
+        config = world / "demandprep.toml"
+        text = config.read_text(encoding="utf-8")
+        text = text.replace('multiple_purchases = "largest_spend"\n', "")
+        config.write_text(text.replace("[choices]\n", f"[choices]\n{settings}"), encoding="utf-8")
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    incremental, manifest = build(world)
+    assert choice_scope(manifest)["first_day_rebuilt"] == "2024-02-12"
+    assert_same_parquet(incremental, fresh_build(world, tmp_path))
+
+
+def test_a_corrected_older_day_rebuilds_from_its_week_on(world, tmp_path):
+    build(world)
+    # the correction drops every fifth line of a Tuesday in the week of 2024-01-15
+    rewrite_receipts(
+        world / RECEIPTS / EARLY_DAY, lambda number, line: None if number % 5 == 0 else line
+    )
+    corrected, manifest = build(world)
+    assert choice_scope(manifest) == {
+        "build_mode": "incremental",
+        "first_day_rebuilt": "2024-01-15",
+        "full_build_reason": None,
+    }
+    assert_same_parquet(corrected, full_choice_rebuild(world))
+    # a fresh warehouse's ledger has never seen the file's first version
+    assert_same_parquet(corrected, fresh_build(world, tmp_path), leave_out=("ledger", "quarantine"))
+
+
+def test_a_night_without_new_files_rebuilds_no_choice_row(world, tmp_path):
+    build(world)
+    same, manifest = build(world)
+    assert choice_scope(manifest) == {
+        "build_mode": "incremental",
+        "first_day_rebuilt": None,
+        "full_build_reason": None,
+    }
+    assert_same_parquet(same, fresh_build(world, tmp_path))
+
+
+def test_a_changed_choice_setting_rebuilds_every_choice_row(world, tmp_path):
+    build(world)
+    config = world / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    config.write_text(text.replace("loyalty_smoothing = 0.8", "loyalty_smoothing = 0.7"))
+    changed, manifest = build(world)
+    assert choice_scope(manifest) == {
+        "build_mode": "full",
+        "first_day_rebuilt": None,
+        "full_build_reason": scope.CONFIG_CHANGED,
+    }
+    assert_same_parquet(changed, fresh_build(world, tmp_path))
+
+
+def test_a_new_pseudonym_key_rebuilds_every_choice_row(world, monkeypatch):
+    build(world)
+    monkeypatch.setenv("DEMANDPREP_PSEUDONYM_KEY", "another-test-key-not-secret")
+    _folder, manifest = build(world)
+    assert choice_scope(manifest)["full_build_reason"] == scope.KEY_CHANGED
+
+
+def test_a_build_that_dies_while_writing_choices_leaves_a_full_build_next(
+    world, tmp_path, monkeypatch
+):
+    from demandprep.choices import build as choice_build
+
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+
+    def crash(*_args, **_kwargs):
+        raise RuntimeError("power cut")
+
+    # the crash comes after the touched rows were deleted, before the new ones are written
+    with monkeypatch.context() as patch:
+        patch.setattr(choice_build, "write_in_parts", crash)
+        with pytest.raises(RuntimeError, match="power cut"):
+            build(world)
+    recovered, manifest = build(world)
+    assert choice_scope(manifest)["full_build_reason"] == scope.NO_STATE
+    assert_same_parquet(recovered, fresh_build(world, tmp_path))

@@ -6,6 +6,7 @@ from __future__ import annotations
 import shutil
 from pathlib import Path
 
+import duckdb
 import polars as pl
 import pytest
 from test_incremental_build import (
@@ -19,7 +20,9 @@ from test_incremental_build import (
 )
 
 from demandprep.choices import scope
+from demandprep.choices.settings import loyalty_block_size
 from demandprep.config import load_config
+from demandprep.sqlfiles import run_sql
 from demandprep.warehouse import open_warehouse
 
 pytestmark = pytest.mark.usefixtures("one_line_report")
@@ -195,3 +198,35 @@ def test_a_build_that_dies_while_writing_choices_leaves_a_full_build_next(
     recovered, manifest = build(world)
     assert choice_scope(manifest)["full_build_reason"] == scope.NO_STATE
     assert_same_parquet(recovered, fresh_build(world, tmp_path))
+
+
+def test_a_running_loyalty_sum_depends_on_earlier_purchases_only():
+    # an incremental build keeps the loyalty of earlier occasions, so later purchases must not
+    # move an earlier purchase's running sum (047) by a bit; DuckDB's windowed sum did, in its
+    # last bits, once the partitions and the rows sorted around them grew
+    con = duckdb.connect()
+    params = {"smoothing": 0.8, "loyalty_block": loyalty_block_size(0.8)}
+
+    def block_sums(purchases_per_chooser: int) -> dict[tuple, float]:
+        con.execute(
+            "create or replace table choice_visit_history as "
+            "select chooser * 1000 + rank as visit_number, chooser as chooser_number, "
+            "rank as loyalty_rank, true as is_purchase, false as burn_in "
+            "from range(2000) as c(chooser), range($purchases) as r(rank)",
+            {"purchases": purchases_per_chooser},
+        )
+        con.execute(
+            "create or replace table choice_occasions as "
+            "select visit_number, 'alt' || (hash(visit_number) % 3) as chosen_alternative, "
+            "1.0 / (1 + hash(visit_number) % 2) as history_weight from choice_visit_history"
+        )
+        run_sql(con, "choices/047_choice_loyalty_events.sql", params)
+        rows = con.execute(
+            "select chooser_number, alternative, purchase_rank, block_sum "
+            "from choice_loyalty_events"
+        ).fetchall()
+        return {tuple(row[:3]): row[3] for row in rows}
+
+    earlier, later = block_sums(100), block_sums(130)
+    assert len(earlier) == 200_000
+    assert {key: later[key] for key in earlier} == earlier

@@ -6,6 +6,12 @@
 -- starting at s the sum is a running sum of lambda^-position * x (position = r - s < B; B is
 -- chosen so lambda^-B stays near exp(600)). Older blocks enter through the previous block's
 -- total; blocks before that are weighted by lambda^B, about exp(-600), and vanish.
+-- The running sum adds each block's terms one by one from its first purchase (list_sum of the
+-- list's first k terms), so a purchase's sum depends on its earlier purchases only: DuckDB's
+-- windowed sum returns different last bits for the same rows when the partition or the rows
+-- sorted around it grow, and an incremental build keeps the loyalty of earlier occasions
+-- (choices/scope.py). A block holds one chooser's purchases of one alternative (at most a few
+-- hundred in the demo worlds; the k-th sum reads k terms).
 create or replace table choice_loyalty_events as
 
 with
@@ -35,14 +41,27 @@ blocked as (
     from events
 ),
 
+block_terms as (
+    select
+        chooser_number,
+        alternative,
+        block,
+        list(purchase_rank order by purchase_rank) as purchase_ranks,
+        list(weight * pow($smoothing, -block_position) order by purchase_rank) as terms,
+    from blocked
+    group by chooser_number, alternative, block
+),
+
 summed as (
     select
-        *,
-        sum(weight * pow($smoothing, -block_position)) over (
-            partition by chooser_number, alternative, block order by purchase_rank
-            rows between unbounded preceding and current row
+        chooser_number,
+        alternative,
+        block,
+        unnest(purchase_ranks) as purchase_rank,
+        unnest(
+            list_transform(range(1, len(terms) + 1), lambda k: list_sum(list_slice(terms, 1, k)))
         ) as block_sum,
-    from blocked
+    from block_terms
 ),
 
 block_totals as (
@@ -50,9 +69,8 @@ block_totals as (
         chooser_number,
         alternative,
         block,
-        max_by(block_sum, purchase_rank) as block_total,
-    from summed
-    group by chooser_number, alternative, block
+        list_sum(terms) as block_total,
+    from block_terms
 ),
 
 final as (

@@ -22,6 +22,7 @@ from test_incremental_build import (
 from demandprep.choices import scope
 from demandprep.choices.settings import loyalty_block_size
 from demandprep.config import load_config
+from demandprep.ingest.withdraw import withdraw_files
 from demandprep.sqlfiles import run_sql
 from demandprep.warehouse import open_warehouse
 
@@ -145,6 +146,17 @@ def test_a_corrected_older_day_rebuilds_from_its_week_on(world, tmp_path):
     assert_same_parquet(corrected, full_choice_rebuild(world))
     # a fresh warehouse's ledger has never seen the file's first version
     assert_same_parquet(corrected, fresh_build(world, tmp_path), leave_out=("ledger", "quarantine"))
+
+
+def test_a_withdrawn_file_rebuilds_from_the_week_its_lines_were_in(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        withdraw_files(con, config, str(RECEIPTS / EARLY_DAY), "sent twice by the till vendor")
+    (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
+    withdrawn, manifest = build(world)
+    assert choice_scope(manifest)["first_day_rebuilt"] == "2024-01-15"
+    assert_same_parquet(withdrawn, full_choice_rebuild(world))
 
 
 def test_a_night_without_new_files_rebuilds_no_choice_row(world, tmp_path):

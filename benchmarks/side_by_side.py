@@ -498,6 +498,11 @@ def build_timings(build: Path) -> dict[str, float]:
     return json.loads((build / "manifest.json").read_text())["timings_seconds"]
 
 
+def choice_scope(build: Path) -> dict | None:
+    """What the build's choice stages recomputed (manifest facts; None without choices)."""
+    return json.loads((build / "manifest.json").read_text())["facts"].get("choice_scope")
+
+
 def top_costs(timings: dict[str, float], count: int = 5) -> list[str]:
     slowest = sorted(timings.items(), key=lambda item: -item[1])[:count]
     return [f"{name}: {seconds:.2f} s" for name, seconds in slowest]
@@ -764,6 +769,7 @@ def with_night_split(result: dict, run_dir: Path) -> dict:
         "round_wall": result["wall"],
         "phases": ingest_phases(run_dir),
         "build_timings": build_timings(latest_build(run_dir)),
+        "choice_scope": choice_scope(latest_build(run_dir)),
     }
 
 
@@ -905,12 +911,24 @@ def one_day_lines(one_day: dict, run: str = "`+1 day`") -> list[str]:
         f"{label} {sum(part.values()):.1f} s ({'; '.join(top_costs(part, count))})"
         for label, part, count in parts
     )
-    return [
+    text = (
         f"Where the {run} run's {wall:.1f} s go (last round): {spent}; the rest {rest:.1f} s "
         "(process start-up and imports, opening and closing the warehouse, and what no phase or "
-        "stage timing covers).",
-        "",
-    ]
+        "stage timing covers)."
+    )
+    return [text + choice_scope_words(one_day.get("choice_scope")), ""]
+
+
+def choice_scope_words(scope: dict | None) -> str:
+    """' The choice build was ...' for a run with choices, '' without."""
+    if scope is None:
+        return ""
+    if scope["build_mode"] == "full":
+        return f" The choice build was full ({scope['full_build_reason']})."
+    first = scope["first_day_rebuilt"]
+    if first is None:
+        return " The choice build was incremental and recomputed no occasion."
+    return f" The choice build was incremental, from {first} on."
 
 
 WHAT_THEY_DO = """### How to read the checksums

@@ -105,6 +105,17 @@ def test_the_one_more_day_run_is_split_into_ingest_build_export_and_the_rest():
     assert "the rest 2.4 s" in text
 
 
+def test_the_one_more_day_split_says_what_the_choice_build_recomputed():
+    one_day = {
+        "wall": 5.0,
+        "build_timings": {"choices": 1.0},
+        "choice_scope": {"build_mode": "incremental", "first_day_rebuilt": "2025-12-22"},
+    }
+    (text,) = [line for line in side_by_side.one_day_lines(one_day) if line]
+
+    assert text.endswith("The choice build was incremental, from 2025-12-22 on.")
+
+
 @pytest.mark.slow
 def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
     done = subprocess.run(

@@ -107,6 +107,21 @@ def test_one_more_day_rebuilds_its_week_of_choices_only_and_equals_a_full_build(
         ).fetchone()
     assert recomputed[0] > 100
     assert recomputed[1] == 0
+    assert rows_stored_out_of_key_order(world) == 0
+
+
+def rows_stored_out_of_key_order(world: Path) -> int:
+    """Rows of the warehouse's `choices` not after the row stored before them in key order
+    (the export then sorts the whole table instead of streaming it)."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute("set preserve_insertion_order = true")
+        return con.execute(
+            "select count_if((occasion, alternative) <= (previous, previous_alternative)) "
+            "from (select occasion, alternative, lag(occasion) over () as previous, "
+            "lag(alternative) over () as previous_alternative from choices) "
+            "where previous is not null"
+        ).fetchone()[0]
 
 
 @pytest.mark.parametrize(

@@ -99,13 +99,24 @@ def one_thread(con: duckdb.DuckDBPyConnection) -> AbstractContextManager[None]:
     return _setting_within(con, "threads", 1)
 
 
+def join_sides_kept(con: duckdb.DuckDBPyConnection) -> AbstractContextManager[None]:
+    """Within the block, DuckDB probes a hash join with its left side as written.
+
+    Its optimizer otherwise builds the hash table on the side it estimates smaller, and a left
+    join turned right streams the other side's order: a range of few occasions joined to many
+    store-day maps came out in the maps' order."""
+    return _setting_within(con, "disabled_optimizers", "build_side_probe_side")
+
+
 def insertion_order_kept(con: duckdb.DuckDBPyConnection) -> AbstractContextManager[None]:
     """Within the block, DuckDB stores and scans rows in the order they were written."""
     return _setting_within(con, "preserve_insertion_order", True)
 
 
 @contextmanager
-def _setting_within(con: duckdb.DuckDBPyConnection, name: str, value: bool | int) -> Iterator[None]:
+def _setting_within(
+    con: duckdb.DuckDBPyConnection, name: str, value: bool | int | str
+) -> Iterator[None]:
     """DuckDB setting `name` (one of ours, never user text) at `value` within the block."""
     before = con.execute("select current_setting($name)", {"name": name}).fetchone()[0]
     con.execute(f"set {name} = {_setting_literal(value)}")
@@ -115,5 +126,7 @@ def _setting_within(con: duckdb.DuckDBPyConnection, name: str, value: bool | int
         con.execute(f"set {name} = {_setting_literal(before)}")
 
 
-def _setting_literal(value: bool | int) -> str:
+def _setting_literal(value: bool | int | str) -> str:
+    if isinstance(value, str):
+        return "'" + value.replace("'", "''") + "'"
     return ("true" if value else "false") if isinstance(value, bool) else str(int(value))

@@ -38,7 +38,7 @@ from demandprep.market.checks import refuse_key_separators
 from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
-from demandprep.warehouse import insertion_order_kept, one_thread
+from demandprep.warehouse import insertion_order_kept, join_sides_kept, one_thread
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
@@ -265,7 +265,8 @@ def write_choices_table(ctx: BuildContext, settings: ChoiceSettings, create: boo
     threads = int(ctx.con.execute("select current_setting('threads')").fetchone()[0])
     with insertion_order_kept(ctx.con):
         bounds = occasion_bounds(ctx.con, threads)
-        with one_thread(ctx.con):
+        # the occasions stay the probe side of 086's join even when fewer than the maps
+        with one_thread(ctx.con), join_sides_kept(ctx.con):
             write_in_parts(ctx.con, bounds, write_part)
     for macro in ("choice_rows", "choice_occasion_maps"):
         ctx.con.execute(f"drop macro table if exists {macro}")

@@ -7,7 +7,8 @@ Nothing long-table-sized is sorted: the per-occasion table choice_occasion_sets 
 everything its rows need (choosers included) and sorted by occasion, and `choices` unnests it
 with its store-day's map (`write_choices_table`), so its rows are stored in (occasion,
 alternative) order, the export's order.
-Intermediate tables are named choice_*; the last stage drops them, the card -> chooser map first.
+Intermediate tables are named choice_*; the last stage drops them, the card -> chooser map first
+(the incremental build's state, choice_state*, stays: `scope.py`).
 """
 
 from __future__ import annotations

@@ -24,7 +24,6 @@ reads a later day; the checks of `choices` ran on the kept rows when they were w
 
 from __future__ import annotations
 
-import hashlib
 import inspect
 from dataclasses import astuple, dataclass
 from datetime import date
@@ -37,6 +36,7 @@ from demandprep import __version__
 from demandprep.choices.pseudonyms import key_fingerprint, pseudonym_key
 from demandprep.choices.settings import ChoiceSettings, table_columns
 from demandprep.context import BuildContext
+from demandprep.fingerprints import current_reference_files, digest
 from demandprep.market.inputs import has_ledger
 from demandprep.schemas.choices import Choices, Choosers
 from demandprep.sqlfiles import run_sql, sql_text
@@ -97,10 +97,6 @@ class ChoiceFingerprint:
     alternatives_hash: str
 
 
-def _digest(values: list[Any]) -> str:
-    return hashlib.sha256(repr(values).encode()).hexdigest()
-
-
 def code_digest() -> str:
     """This tool's version, every choice SQL file, the stage code and the two models."""
     from demandprep.choices import build  # the stage code, which imports this module
@@ -108,20 +104,16 @@ def code_digest() -> str:
     folder = resources.files("demandprep.sql").joinpath("choices")
     names = sorted(entry.name for entry in folder.iterdir() if entry.name.endswith(".sql"))
     sources = [inspect.getsource(item) for item in (build, Choices, Choosers)]
-    return _digest([__version__, *(sql_text(f"choices/{name}") for name in names), *sources])
+    return digest([__version__, *(sql_text(f"choices/{name}") for name in names), *sources])
 
 
 def current_fingerprint(ctx: BuildContext) -> ChoiceFingerprint:
     """The fingerprint of this build (after the choice inputs: it reads the alternative map)."""
     con = ctx.con
-    references = con.execute(
-        "select source, path, sha256 from ledger "
-        "where status = 'current' and source <> 'receipts' order by all"
-    ).fetchall()
     key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
     return ChoiceFingerprint(
         config_hash=ctx.config.config_hash(),
-        references_hash=_digest(references),
+        references_hash=digest(current_reference_files(con)),
         code_hash=code_digest(),
         key_fingerprint=key_fingerprint(key),
         alternatives_hash=con.execute(ALTERNATIVES_DIGEST).fetchone()[0],

@@ -24,13 +24,11 @@ bit), and every later step pivots and sorts, so the Parquet files equal a full b
 
 from __future__ import annotations
 
-import hashlib
-from typing import Any
-
 import duckdb
 
 from demandprep import __version__
 from demandprep.context import BuildContext
+from demandprep.fingerprints import current_reference_files, digest
 from demandprep.market.inputs import has_ledger
 from demandprep.sqlfiles import run_sql, sql_text
 
@@ -140,12 +138,8 @@ def current_fingerprint(ctx: BuildContext) -> tuple[str, str, str]:
     """(config, reference files, tool and SQL) hashes; references '' without a ledger."""
     references = ""
     if has_ledger(ctx.con):
-        rows = ctx.con.execute(
-            "select source, path, sha256 from ledger "
-            "where status = 'current' and source <> 'receipts' order by all"
-        ).fetchall()
-        references = _digest(rows)
-    code = _digest([__version__, *(sql_text(name) for name in INSTRUMENT_SQL)])
+        references = digest(current_reference_files(ctx.con))
+    code = digest([__version__, *(sql_text(name) for name in INSTRUMENT_SQL)])
     return ctx.config.config_hash(), references, code
 
 
@@ -255,7 +249,3 @@ def _store_inputs(con: duckdb.DuckDBPyConnection, differentiation: list[str]) ->
 def _build_periods(con: duckdb.DuckDBPyConnection) -> list[str]:
     rows = con.execute("select period_start from iv_build_periods order by 1").fetchall()
     return [row[0].isoformat() for row in rows]
-
-
-def _digest(values: list[Any]) -> str:
-    return hashlib.sha256(repr(values).encode()).hexdigest()

@@ -23,11 +23,9 @@ the same bytes as a full one.
 
 from __future__ import annotations
 
-import hashlib
 import inspect
 from dataclasses import dataclass
 from datetime import datetime, time, timedelta
-from typing import Any
 
 import duckdb
 import pandera.polars as pa
@@ -36,6 +34,7 @@ from demandprep import __version__
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
+from demandprep.fingerprints import digest
 from demandprep.market.inputs import has_ledger
 from demandprep.schemas import market as market_schemas
 from demandprep.sqlfiles import quote_identifier, run_sql, sql_text
@@ -100,17 +99,13 @@ def current_fingerprint(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -
         "where status = 'current' and source <> 'receipts' order by all"
     ).fetchall()
     code = [__version__, *(sql_text(name) for name in SUMMARY_SQL), *summary_model_sources()]
-    return Fingerprint(config.config_hash(), _digest(references), _digest(code))
+    return Fingerprint(config.config_hash(), digest(references), digest(code))
 
 
 def summary_model_sources() -> list[str]:
     """The source of each summary's pandera model: only the recomputed rows meet it each
     night, so a changed model must see every period again."""
     return [inspect.getsource(market_schemas.MARKET_MODELS[name]) for name in SUMMARIES]
-
-
-def _digest(values: list[Any]) -> str:
-    return hashlib.sha256(repr(values).encode()).hexdigest()
 
 
 def plan_build_periods(ctx: BuildContext) -> None:

@@ -1,0 +1,25 @@
+"""What the incremental builds compare from one build to the next: digests of values, and the
+reference files the ledger holds now."""
+
+from __future__ import annotations
+
+import hashlib
+from typing import Any
+
+import duckdb
+
+CURRENT_REFERENCE_FILES = """
+select source, path, sha256 from ledger
+where status = 'current' and source <> 'receipts' order by all
+"""
+
+
+def digest(values: list[Any]) -> str:
+    """A sha256 of the values' repr: equal values, equal digest."""
+    return hashlib.sha256(repr(values).encode()).hexdigest()
+
+
+def current_reference_files(con: duckdb.DuckDBPyConnection) -> list[tuple]:
+    """(source, path, sha256) of every current file but the receipts, in order (the warehouse
+    must have a ledger)."""
+    return con.execute(CURRENT_REFERENCE_FILES).fetchall()

@@ -130,6 +130,29 @@ def test_config_hash_changes_with_a_setting(demo_config: Path) -> None:
     assert load_config(demo_config).config_hash() == after
 
 
+def test_build_hash_moves_with_what_a_build_computes_only(demo_config: Path) -> None:
+    config = load_config(demo_config)
+    runs_elsewhere = config.model_copy(
+        update={
+            "warehouse": config.warehouse.model_copy(update={"threads": 1, "memory_limit": "3GB"}),
+            "export": config.export.model_copy(update={"root": Path("/elsewhere/builds")}),
+            "partitioning": config.partitioning.model_copy(update={"local_workers": 5}),
+        }
+    )
+    assert runs_elsewhere.config_hash() != config.config_hash()
+    assert runs_elsewhere.build_hash() == config.build_hash()
+    # the file patterns are the ledger's business; the way a file is read is not
+    receipts = config.sources.receipts
+    moved_files = receipts.model_copy(update={"files": ["/elsewhere/receipts/*.csv.gz"]})
+    other_delimiter = receipts.model_copy(update={"delimiter": ";"})
+    for source, same in ((moved_files, True), (other_delimiter, False)):
+        sources = config.sources.model_copy(update={"receipts": source})
+        changed = config.model_copy(update={"sources": sources})
+        assert (changed.build_hash() == config.build_hash()) is same
+    shaped = load_config(edited(demo_config, "multiple = 3.0", "multiple = 2.5"))
+    assert shaped.build_hash() != config.build_hash()
+
+
 def test_committed_sample_config_validates_and_finds_its_files(coffee_sample: Path) -> None:
     config = load_config(coffee_sample / "demandprep.toml")
     receipts = config.sources.receipts.resolved_files()

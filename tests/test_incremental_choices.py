@@ -257,3 +257,41 @@ def test_a_running_loyalty_sum_depends_on_earlier_purchases_only():
     earlier, later = block_sums(100), block_sums(130)
     assert len(earlier) == 200_000
     assert {key: later[key] for key in earlier} == earlier
+
+
+RUN_SETTINGS_CHANGED = {
+    # where and how the build runs, not what it computes
+    'memory_limit = "2GB"': 'memory_limit = "3GB"',
+    "threads = 2": "threads = 1",
+    "lock_timeout_seconds = 30": "lock_timeout_seconds = 60",
+    'root = "builds"': 'root = "nightly_builds"',
+    "keep_last = 5": "keep_last = 9",
+    'description = "Committed': 'description = "Moved',
+    'cron = "30 2 * * *"': 'cron = "15 3 * * *"',
+}
+
+
+@pytest.mark.parametrize("change", ["folder_moved", "run_settings_changed"])
+def test_moving_the_project_or_changing_how_it_runs_keeps_the_night_incremental(
+    world, tmp_path, change
+):
+    build(world)
+    if change == "folder_moved":
+        world = Path(shutil.move(world, tmp_path / "moved" / "world"))
+    else:
+        config = world / "demandprep.toml"
+        text = config.read_text(encoding="utf-8")
+        for old, new in RUN_SETTINGS_CHANGED.items():
+            assert old in text
+            text = text.replace(old, new)
+        config.write_text(text, encoding="utf-8")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    night, manifest = build(world)
+    assert manifest["full_build_reason"] is None
+    assert manifest["facts"]["instrument_scope"]["full_build_reason"] is None
+    assert choice_scope(manifest) == {
+        "build_mode": "incremental",
+        "first_day_rebuilt": "2024-02-12",
+        "full_build_reason": None,
+    }
+    assert_same_parquet(night, full_choice_rebuild(world))

@@ -809,8 +809,46 @@ class ProjectConfig(Section):
 
     def config_hash(self) -> str:
         """sha256 of the resolved config in canonical JSON."""
-        canonical = json.dumps(self.resolved_dict(), sort_keys=True, separators=(",", ":"))
-        return hashlib.sha256(canonical.encode()).hexdigest()
+        return _canonical_hash(self.resolved_dict())
+
+    def build_hash(self) -> str:
+        """sha256 of the settings that shape what a build computes: the resolved config without
+        `RUN_SETTINGS` and the sources' file patterns. The incremental builds compare it, so a
+        moved project folder (every resolved path moves with it), another memory limit or
+        export root keeps the next night incremental. Which files are read is the ledger's
+        business: a file that arrives, leaves or moves is judged there."""
+        settings = self.resolved_dict()
+        for section, *keys in RUN_SETTINGS:
+            if keys:
+                settings[section] = {k: v for k, v in settings[section].items() if k not in keys}
+            else:
+                del settings[section]
+        for source in settings["sources"].values():
+            if isinstance(source, dict):
+                source.pop("files", None)
+        return _canonical_hash(settings)
+
+
+# Where and how a build runs, never what it computes (section, or section and its keys).
+RUN_SETTINGS: tuple[tuple[str, ...], ...] = (
+    ("project",),
+    ("warehouse",),
+    ("export",),
+    ("schedule",),
+    (
+        "partitioning",
+        "root",
+        "cluster_address",
+        "cluster_address_env",
+        "local_workers",
+        "partition_retries",
+    ),
+)
+
+
+def _canonical_hash(settings: dict[str, Any]) -> str:
+    canonical = json.dumps(settings, sort_keys=True, separators=(",", ":"))
+    return hashlib.sha256(canonical.encode()).hexdigest()
 
 
 def load_config(path: Path | str, check_files: bool = True) -> ProjectConfig:

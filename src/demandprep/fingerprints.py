@@ -9,7 +9,7 @@ from typing import Any
 import duckdb
 
 CURRENT_REFERENCE_FILES = """
-select source, path, sha256 from ledger
+select source, sha256 from ledger
 where status = 'current' and source <> 'receipts' order by all
 """
 
@@ -20,6 +20,6 @@ def digest(values: list[Any]) -> str:
 
 
 def current_reference_files(con: duckdb.DuckDBPyConnection) -> list[tuple]:
-    """(source, path, sha256) of every current file but the receipts, in order (the warehouse
-    must have a ledger)."""
+    """(source, sha256) of every current file but the receipts, in order (the warehouse must
+    have a ledger). Not the path: a file that moved with the same bytes computes the same."""
     return con.execute(CURRENT_REFERENCE_FILES).fetchall()

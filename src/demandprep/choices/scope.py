@@ -112,7 +112,7 @@ def current_fingerprint(ctx: BuildContext) -> ChoiceFingerprint:
     con = ctx.con
     key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
     return ChoiceFingerprint(
-        config_hash=ctx.config.config_hash(),
+        config_hash=ctx.config.build_hash(),
         references_hash=digest(current_reference_files(con)),
         code_hash=code_digest(),
         key_fingerprint=key_fingerprint(key),

@@ -140,7 +140,7 @@ def current_fingerprint(ctx: BuildContext) -> tuple[str, str, str]:
     if has_ledger(ctx.con):
         references = digest(current_reference_files(ctx.con))
     code = digest([__version__, *(sql_text(name) for name in INSTRUMENT_SQL)])
-    return ctx.config.config_hash(), references, code
+    return ctx.config.build_hash(), references, code
 
 
 def full_build_reason(

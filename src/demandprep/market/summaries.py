@@ -95,11 +95,11 @@ def current_fingerprint(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -
     """The fingerprint of this config, the current reference files, this tool's SQL and the
     summaries' models."""
     references = con.execute(
-        "select source, path, sha256 from market_input_ledger "
+        "select source, sha256 from market_input_ledger "
         "where status = 'current' and source <> 'receipts' order by all"
     ).fetchall()
     code = [__version__, *(sql_text(name) for name in SUMMARY_SQL), *summary_model_sources()]
-    return Fingerprint(config.config_hash(), digest(references), digest(code))
+    return Fingerprint(config.build_hash(), digest(references), digest(code))
 
 
 def summary_model_sources() -> list[str]:

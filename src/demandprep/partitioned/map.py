@@ -78,8 +78,8 @@ def build_partition(config: ProjectConfig, partition: Partition) -> PartitionSum
         placement = placement_of_files_since(con, config, last_file_id)
         keep_partition_lines(con, partition)
         lines = lines_per_file(con)
-        # the stages see the project's receipts globs, not tonight's routed list: the config's
-        # hash is the summaries' fingerprint, and it must not change with the files
+        # the stages see the project's receipts globs, not tonight's routed list (the
+        # summaries' fingerprint, `build_hash`, leaves file patterns out in any case)
         ctx = BuildContext(con=con, config=own)
         for stage in map_stages():
             run_stage(stage, ctx)

@@ -185,7 +185,7 @@ def inputs_digest(
 ) -> str:
     """A digest of what a partition's summaries are built from: config, files, tool and SQL."""
     code = [__version__, *(sql_text(name) for name in SUMMARY_SQL)]
-    values = [config.config_hash(), files, references, code]
+    values = [config.build_hash(), files, references, code]
     return hashlib.sha256(repr(values).encode()).hexdigest()
 
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 import duckdb
 
 from demandprep.choices.facts import choice_facts, warn_on_facts
+from demandprep.choices.file_state import drop_file_state, rows_changing
 from demandprep.choices.inputs import create_input_views, drop_input_views
 from demandprep.choices.parts import occasion_bounds, write_in_parts
 from demandprep.choices.pseudonyms import (
@@ -226,10 +227,12 @@ def build_choices(ctx: BuildContext) -> None:
     scope = scope_params(ctx.con)
     forget_choice_state(ctx.con)
     if scope["every_occasion"]:
+        rows_changing(ctx.con, None)  # the last exported file keeps no row for the next
         write_choices_table(ctx, _settings(ctx))
         validate_choices(ctx.con)
     elif scope["rebuilt_from"] is not None:
         first = first_rebuilt_id(scope["rebuilt_from"])
+        rows_changing(ctx.con, first)
         ctx.con.execute("delete from choices where occasion >= $first", {"first": first})
         write_choices_table(ctx, _settings(ctx), create=False)
         validate_choices(ctx.con, checked_from=first)
@@ -280,6 +283,7 @@ def drop_choice_tables(ctx: BuildContext) -> None:
     for table in ("choices", "choosers"):
         ctx.con.execute(f"drop table if exists {table}")
     drop_choice_state(ctx.con)
+    drop_file_state(ctx.con)
     drop_intermediate_tables(ctx)
 
 

@@ -13,6 +13,7 @@ import pandas as pd
 
 from demandprep.context import BuildContext
 from demandprep.export import csv_safe, stata
+from demandprep.export.choices_file import Layout, write_choices_file
 from demandprep.export.dictionary import (
     ColumnEntry,
     ModelMap,
@@ -150,20 +151,29 @@ def write_output_table(
     query = output_query(ctx.con, output, ctx.config)
     columns = ctx.con.sql(query.sql, params=query.params).columns
     docs = document_columns(output.kind, columns, ctx.config, models, notes)
-    written = write_query_parquet(
-        ctx.con,
-        query.sql,
-        query.params,
-        folder / output.file_name,
+    layout = Layout(
         ctx.config.export.row_group_rows,
         {name: entry.as_metadata() for name, entry in docs.items()},
         {
             "demandprep.table": output.kind,
             **{f"demandprep.{k}": v for k, v in output.metadata.items()},
         },
-        output.sort_keys,
-        query.stored_order_sql,
     )
+    path = folder / output.file_name
+    if output.kind == "choices":
+        written = write_choices_file(ctx, output, query, path, layout)
+    else:
+        written = write_query_parquet(
+            ctx.con,
+            query.sql,
+            query.params,
+            path,
+            layout.row_group_rows,
+            layout.column_docs,
+            layout.table_metadata,
+            output.sort_keys,
+            query.stored_order_sql,
+        )
     types = {item.name: str(item.type) for item in written.schema}
     return (
         OutputFile(written.path, written.rows, written.schema),

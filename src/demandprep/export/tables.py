@@ -135,9 +135,13 @@ def table_columns(con: duckdb.DuckDBPyConnection, table: str) -> list[str]:
 
 
 def output_query(
-    con: duckdb.DuckDBPyConnection, output: OutputTable, config: ProjectConfig
+    con: duckdb.DuckDBPyConnection,
+    output: OutputTable,
+    config: ProjectConfig,
+    after: tuple[Any, ...] | None = None,
 ) -> TableQuery:
-    """The ordered select that reads one output's rows from the warehouse."""
+    """The ordered select that reads one output's rows from the warehouse; with `after`
+    (values of its unique sort keys), only the rows whose keys come after those."""
     left_out = UNEXPORTED_COLUMNS.get(output.kind, ())
     columns = [c for c in table_columns(con, output.table) if c not in left_out]
     _refuse_card_columns(output, columns)
@@ -157,12 +161,25 @@ def output_query(
     if output.assumption is not None:
         where = " where assumption = $assumption"
         params["assumption"] = output.assumption
+    if after is not None:
+        where += f"{' and' if where else ' where'} {_after_keys(output.sort_keys)}"
+        params |= {f"after_{i}": value for i, value in enumerate(after)}
     # Why: extra sort columns cost time on big tables and change nothing when keys are unique.
     ties = [] if output.keys_unique else [c for c in columns if c not in output.sort_keys]
     order = ", ".join(f"{quote_identifier(c)} nulls last" for c in (*output.sort_keys, *ties))
     unsorted = f"select {', '.join(select)} from {output.table}{where}"  # noqa: S608
     stored = unsorted if output.stored_in_key_order and output.keys_unique else None
     return TableQuery(f"{unsorted} order by {order}", params, stored)
+
+
+def _after_keys(keys: tuple[str, ...]) -> str:
+    """Rows whose keys come after `$after_0`, `$after_1`, ... in key order (the first key's
+    bound alone lets DuckDB skip row groups by their min-max)."""
+    names = [quote_identifier(key) for key in keys]
+    clause = f"{names[-1]} > $after_{len(names) - 1}"
+    for i in range(len(names) - 2, -1, -1):
+        clause = f"({names[i]} > $after_{i} or ({names[i]} = $after_{i} and {clause}))"
+    return f"{names[0]} >= $after_0 and {clause}"
 
 
 def card_free_sources(config: ProjectConfig) -> list[str]:

@@ -24,6 +24,7 @@ from typing import Any
 import duckdb
 
 from demandprep.choices.facts import warn_on_facts
+from demandprep.choices.file_state import rows_changing
 from demandprep.choices.pseudonyms import pseudonym_key
 from demandprep.choices.validation import validate_choices
 from demandprep.config import ProjectConfig
@@ -82,6 +83,7 @@ def choice_bucket_stages(
     choosers_stage.__doc__ = "Load the buckets' choosers, sorted by chooser, and validate them."
 
     def choices_stage(ctx: BuildContext) -> None:
+        rows_changing(ctx.con, None)  # every row is loaded again
         load_bucket_table(ctx.con, "choices", outputs, "occasion, alternative")
         validate_choices(ctx.con)
         facts = combined_choice_facts(ctx.con, outputs)

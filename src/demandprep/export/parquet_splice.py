@@ -1,0 +1,203 @@
+"""One Parquet file from an earlier file's first row groups and a newly written file's row
+groups: byte for byte the file pyarrow writes for all those rows at once.
+
+A Parquet file is `PAR1`, the row groups' column chunks one after the other, the footer (the
+format's FileMetaData in Thrift's compact protocol: `thrift_compact.py`), its length and `PAR1`.
+pyarrow encodes each row group from its own rows only (a column chunk starts a new dictionary),
+so with fixed row groups (`export.row_group_rows`) a row group holding the same rows is the
+same bytes in both files. The spliced file is the earlier file up to its first row group not
+kept, the new file's row groups after its `PAR1`, and the new file's footer with the kept row
+groups' entries put first and the new ones' file positions moved by the length of what comes
+before them. Offsets that pyarrow leaves at 0 (a column chunk's deprecated `file_offset`) stay 0.
+
+Refused (`SpliceRefused`, the caller then writes the whole file) when the two files do not
+share their Parquet schema and writer, when either has page indexes or bloom filters (written
+after the row groups, so not in the copied part), when a kept row group is not of the fixed
+size, or when the earlier file is not the bytes its recorded sha256 says.
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import os
+import struct
+from dataclasses import dataclass
+from pathlib import Path
+
+from demandprep.export.thrift_compact import (
+    STRUCT,
+    Field,
+    encode_struct,
+    field_value,
+    read_struct,
+    set_field,
+)
+
+MAGIC = b"PAR1"
+CHUNK_BYTES = 8 << 20
+
+# Field ids of the Parquet format's parquet.thrift.
+FILE_SCHEMA, FILE_NUM_ROWS, FILE_ROW_GROUPS, FILE_CREATED_BY, FILE_COLUMN_ORDERS = 2, 3, 4, 6, 7
+GROUP_COLUMNS, GROUP_NUM_ROWS, GROUP_SORTING, GROUP_FILE_OFFSET, GROUP_ORDINAL = 1, 3, 4, 5, 7
+CHUNK_FILE_OFFSET, CHUNK_META_DATA, CHUNK_OFFSET_INDEX, CHUNK_COLUMN_INDEX = 2, 3, 4, 6
+META_DATA_PAGE, META_INDEX_PAGE, META_DICTIONARY_PAGE, META_BLOOM_FILTER = 9, 10, 11, 14
+CHUNK_POSITIONS = (CHUNK_FILE_OFFSET, CHUNK_OFFSET_INDEX, CHUNK_COLUMN_INDEX)
+META_POSITIONS = (META_DATA_PAGE, META_INDEX_PAGE, META_DICTIONARY_PAGE, META_BLOOM_FILTER)
+AFTER_ROW_GROUPS = (CHUNK_OFFSET_INDEX, CHUNK_COLUMN_INDEX)  # page indexes
+
+
+class SpliceRefused(Exception):
+    """The files cannot be spliced into the file a whole write would give; says why."""
+
+
+@dataclass
+class Footer:
+    """A Parquet file's footer: its fields, where it starts, and the file's size."""
+
+    fields: list[Field]
+    start: int
+    size: int
+
+    @property
+    def row_groups(self) -> list[list[Field]]:
+        return field_value(self.fields, FILE_ROW_GROUPS, (STRUCT, []))[1]
+
+
+def read_footer(path: Path) -> Footer:
+    """The footer of the Parquet file at `path` (only its last bytes are read)."""
+    with path.open("rb") as handle:
+        size = handle.seek(0, 2)
+        if size < 12:
+            raise SpliceRefused(f"{path.name} is too short to be a Parquet file")
+        handle.seek(size - 8)
+        tail = handle.read(8)
+        length = struct.unpack("<I", tail[:4])[0]
+        if tail[4:] != MAGIC or length > size - 12:
+            raise SpliceRefused(f"{path.name} does not end like a Parquet file")
+        handle.seek(size - 8 - length)
+        encoded = handle.read(length)
+    fields, end = read_struct(encoded)
+    if end != length:
+        raise SpliceRefused(f"{path.name}: its footer is not one FileMetaData struct")
+    return Footer(fields, size - 8 - length, size)
+
+
+def group_rows(group: list[Field]) -> int:
+    """The rows of one row group."""
+    return field_value(group, GROUP_NUM_ROWS)
+
+
+def group_start(group: list[Field]) -> int:
+    """Where a row group's bytes begin: its first column chunk's first page."""
+    starts = []
+    for chunk in field_value(group, GROUP_COLUMNS)[1]:
+        meta = field_value(chunk, CHUNK_META_DATA)
+        starts.append(field_value(meta, META_DICTIONARY_PAGE) or field_value(meta, META_DATA_PAGE))
+    return min(starts)
+
+
+def splice_refusal(kept: Footer, keep: int, written: Footer, row_group_rows: int) -> str | None:
+    """Why the first `keep` row groups of `kept` cannot precede `written`'s, or None."""
+    shared = (("schema", FILE_SCHEMA), ("writer", FILE_CREATED_BY), ("orders", FILE_COLUMN_ORDERS))
+    for name, number in shared:
+        if field_value(kept.fields, number) != field_value(written.fields, number):
+            return f"the earlier file's Parquet {name} differs"
+    if keep > len(kept.row_groups):
+        return "the earlier file has fewer row groups than kept"
+    if any(group_rows(group) != row_group_rows for group in kept.row_groups[:keep]):
+        return "a kept row group of the earlier file is not of the configured size"
+    if _written_after_row_groups(kept) or _written_after_row_groups(written):
+        return "a file has page indexes or bloom filters"
+    return None
+
+
+def _written_after_row_groups(footer: Footer) -> bool:
+    for group in footer.row_groups:
+        for chunk in field_value(group, GROUP_COLUMNS)[1]:
+            if any(field_value(chunk, number) for number in AFTER_ROW_GROUPS):
+                return True
+            if field_value(field_value(chunk, CHUNK_META_DATA), META_BLOOM_FILTER):
+                return True
+    return False
+
+
+def spliced_footer(kept: Footer, keep: int, written: Footer) -> tuple[bytes, int]:
+    """The footer of the spliced file and where `written`'s row groups begin in it."""
+    cut = group_start(kept.row_groups[keep]) if keep < len(kept.row_groups) else kept.start
+    shift = cut - len(MAGIC)
+    fields = copy.deepcopy(written.fields)
+    groups = field_value(fields, FILE_ROW_GROUPS)[1]
+    for group in groups:
+        _move(group, (GROUP_FILE_OFFSET,), shift)
+        ordinal = [entry for entry in group if entry[0] == GROUP_ORDINAL]
+        for entry in ordinal:
+            entry[2] += keep
+        for chunk in field_value(group, GROUP_COLUMNS)[1]:
+            _move(chunk, CHUNK_POSITIONS, shift)
+            _move(field_value(chunk, CHUNK_META_DATA), META_POSITIONS, shift)
+    all_groups = copy.deepcopy(kept.row_groups[:keep]) + groups
+    set_field(fields, FILE_ROW_GROUPS, (STRUCT, all_groups))
+    set_field(fields, FILE_NUM_ROWS, sum(group_rows(group) for group in all_groups))
+    return encode_struct(fields), cut
+
+
+def _move(fields: list[Field], numbers: tuple[int, ...], shift: int) -> None:
+    for entry in fields:
+        if entry[0] in numbers and entry[2] > 0:
+            entry[2] += shift
+
+
+def write_spliced(
+    kept_path: Path,
+    kept: Footer,
+    keep: int,
+    kept_sha256: str,
+    written_path: Path,
+    written: Footer,
+    target: Path,
+) -> str:
+    """Write the spliced file to `target`; returns its sha256.
+
+    The earlier file is read whole to check its sha256; on a mismatch `target` is removed and
+    `SpliceRefused` raised."""
+    footer, cut = spliced_footer(kept, keep, written)
+    target_hash, kept_hash = hashlib.sha256(), hashlib.sha256()
+    with target.open("wb") as out:
+        with kept_path.open("rb") as source:
+            _copy(source, cut, out, (kept_hash, target_hash))
+            _copy(source, kept.size - cut, None, (kept_hash,))
+        if kept_hash.hexdigest() != kept_sha256:
+            out.close()
+            target.unlink()
+            raise SpliceRefused("the earlier file is not the one recorded (sha256 differs)")
+        with written_path.open("rb") as source:
+            source.seek(len(MAGIC))
+            _copy(source, written.start - len(MAGIC), out, (target_hash,))
+        for part in (footer, struct.pack("<I", len(footer)), MAGIC):
+            out.write(part)
+            target_hash.update(part)
+        out.flush()
+        os.fsync(out.fileno())
+    return target_hash.hexdigest()
+
+
+def _copy(source, size: int, out, hashes: tuple) -> None:  # noqa: ANN001 - binary files
+    while size > 0:
+        block = source.read(min(CHUNK_BYTES, size))
+        if not block:
+            raise SpliceRefused("the earlier file is shorter than its footer says")
+        size -= len(block)
+        for digest in hashes:
+            digest.update(block)
+        if out is not None:
+            out.write(block)
+
+
+def file_sha256(path: Path) -> str:
+    """The sha256 of a file, read in blocks."""
+    digest = hashlib.sha256()
+    with path.open("rb") as handle:
+        while block := handle.read(CHUNK_BYTES):
+            digest.update(block)
+    return digest.hexdigest()

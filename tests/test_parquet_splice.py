@@ -1,0 +1,131 @@
+"""Parquet splicing: an earlier file's first row groups and a new file's row groups give the
+bytes pyarrow writes for all the rows at once (the reference is pyarrow's own whole write)."""
+
+from __future__ import annotations
+
+import hashlib
+from pathlib import Path
+
+import duckdb
+import pyarrow.parquet as pq
+import pytest
+
+from demandprep.export.parquet import write_query_parquet
+from demandprep.export.parquet_splice import (
+    SpliceRefused,
+    file_sha256,
+    read_footer,
+    splice_refusal,
+    write_spliced,
+)
+from demandprep.export.thrift_compact import encode_struct, read_struct
+
+ROWS_PER_GROUP = 1024
+KEYS = ("occasion", "alternative")
+COLUMNS = (
+    "occasion, alternative, chosen, price, loyalty, options, day, "
+    "case when i % 7 = 0 then null else i * 3 end as count"
+)
+
+
+@pytest.fixture()
+def con() -> duckdb.DuckDBPyConnection:
+    """Two tables sharing their first 6,000 rows; the second has other values after them
+    (one column changed, others not) and more rows."""
+    con = duckdb.connect()
+    con.execute(
+        """
+        create table rows_before as
+        select
+            i,
+            printf('2025-01-%02d:%08d', 1 + i // 2000, i // 4) as occasion,
+            'alt' || (i % 4) as alternative,
+            i % 4 = 0 as chosen,
+            round(1.5 + (i % 97) / 7.0, 4) as price,
+            sin(i) as loyalty,
+            ['a', 'b', 'c'][1:1 + i % 3] as options,
+            date '2025-01-01' + cast(i // 2000 as integer) as day,
+        from range(20000) as t(i)
+        """
+    )
+    con.execute(
+        "create table rows_after as "
+        "select * replace (case when i >= 6000 then price + 1 else price end as price) "
+        "from rows_before union all "
+        "select * replace (printf('2025-01-31:%08d', i) as occasion) from rows_before "
+        "where i < 3333"
+    )
+    return con
+
+
+def write(con: duckdb.DuckDBPyConnection, table: str, path: Path, where: str = "") -> Path:
+    """The table's rows in key order, written the way the export writes a data file."""
+    sql = f"select {COLUMNS} from {table} {where} order by occasion, alternative"  # noqa: S608
+    write_query_parquet(
+        con, sql, {}, path, ROWS_PER_GROUP, {}, {"demandprep.table": "probe"}, KEYS
+    )
+    return path
+
+
+def test_footers_read_and_written_back_are_pyarrows_bytes(con, tmp_path):
+    path = write(con, "rows_before", tmp_path / "whole.parquet")
+    footer = read_footer(path)
+    data = path.read_bytes()
+    encoded = data[footer.start : -8]
+    fields, end = read_struct(encoded)
+    assert end == len(encoded)
+    assert encode_struct(fields) == encoded
+    assert len(footer.row_groups) == pq.ParquetFile(path).metadata.num_row_groups == 20
+
+
+@pytest.mark.parametrize("keep", [1, 5])
+def test_kept_row_groups_and_new_ones_give_the_whole_write_bytes(con, tmp_path, keep):
+    before = write(con, "rows_before", tmp_path / "before.parquet")
+    whole = write(con, "rows_after", tmp_path / "whole.parquet")
+    last_kept = pq.read_table(before).slice(keep * ROWS_PER_GROUP - 1, 1).to_pylist()[0]
+    tail = write(
+        con,
+        "rows_after",
+        tmp_path / "tail.parquet",
+        f"where (occasion, alternative) > ('{last_kept['occasion']}', "
+        f"'{last_kept['alternative']}')",
+    )
+    kept, written = read_footer(before), read_footer(tail)
+    assert splice_refusal(kept, keep, written, ROWS_PER_GROUP) is None
+    target = tmp_path / "spliced.parquet"
+    sha256 = write_spliced(before, kept, keep, file_sha256(before), tail, written, target)
+    assert target.read_bytes() == whole.read_bytes()
+    assert sha256 == hashlib.sha256(whole.read_bytes()).hexdigest()
+    assert pq.read_table(target).equals(pq.read_table(whole))
+
+
+def test_an_earlier_file_that_is_not_the_recorded_one_is_refused(con, tmp_path):
+    before = write(con, "rows_before", tmp_path / "before.parquet")
+    tail = write(con, "rows_after", tmp_path / "tail.parquet", "where i >= 1024")
+    target = tmp_path / "spliced.parquet"
+    with pytest.raises(SpliceRefused, match="sha256 differs"):
+        write_spliced(
+            before, read_footer(before), 1, "0" * 64, tail, read_footer(tail), target
+        )
+    assert not target.exists()
+
+
+def test_row_groups_of_another_size_or_schema_are_refused(con, tmp_path):
+    before = write(con, "rows_before", tmp_path / "before.parquet")
+    other_size = tmp_path / "other_size.parquet"
+    sql = f"select {COLUMNS} from rows_after order by occasion, alternative"  # noqa: S608
+    write_query_parquet(con, sql, {}, other_size, 2048, {}, {}, KEYS)
+    kept = read_footer(before)
+    assert "configured size" in splice_refusal(kept, 2, read_footer(other_size), 2048)
+    other_schema = tmp_path / "other_schema.parquet"
+    sql = "select occasion, alternative from rows_after order by occasion, alternative"
+    write_query_parquet(con, sql, {}, other_schema, ROWS_PER_GROUP, {}, {}, KEYS)
+    refusal = splice_refusal(kept, 2, read_footer(other_schema), ROWS_PER_GROUP)
+    assert refusal == "the earlier file's Parquet schema differs"
+
+
+def test_a_file_that_is_not_parquet_is_refused(tmp_path):
+    path = tmp_path / "not.parquet"
+    path.write_bytes(b"PAR1" + b"x" * 40)
+    with pytest.raises(SpliceRefused, match="does not end like a Parquet file"):
+        read_footer(path)

@@ -61,9 +61,7 @@ def con() -> duckdb.DuckDBPyConnection:
 def write(con: duckdb.DuckDBPyConnection, table: str, path: Path, where: str = "") -> Path:
     """The table's rows in key order, written the way the export writes a data file."""
     sql = f"select {COLUMNS} from {table} {where} order by occasion, alternative"  # noqa: S608
-    write_query_parquet(
-        con, sql, {}, path, ROWS_PER_GROUP, {}, {"demandprep.table": "probe"}, KEYS
-    )
+    write_query_parquet(con, sql, {}, path, ROWS_PER_GROUP, {}, {"demandprep.table": "probe"}, KEYS)
     return path
 
 
@@ -104,9 +102,7 @@ def test_an_earlier_file_that_is_not_the_recorded_one_is_refused(con, tmp_path):
     tail = write(con, "rows_after", tmp_path / "tail.parquet", "where i >= 1024")
     target = tmp_path / "spliced.parquet"
     with pytest.raises(SpliceRefused, match="sha256 differs"):
-        write_spliced(
-            before, read_footer(before), 1, "0" * 64, tail, read_footer(tail), target
-        )
+        write_spliced(before, read_footer(before), 1, "0" * 64, tail, read_footer(tail), target)
     assert not target.exists()
 
 

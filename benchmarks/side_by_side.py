@@ -503,6 +503,11 @@ def choice_scope(build: Path) -> dict | None:
     return json.loads((build / "manifest.json").read_text())["facts"].get("choice_scope")
 
 
+def choices_file(build: Path) -> dict | None:
+    """How the build's export wrote the choices file (manifest facts; None without choices)."""
+    return json.loads((build / "manifest.json").read_text())["facts"].get("choices_file")
+
+
 def top_costs(timings: dict[str, float], count: int = 5) -> list[str]:
     slowest = sorted(timings.items(), key=lambda item: -item[1])[:count]
     return [f"{name}: {seconds:.2f} s" for name, seconds in slowest]
@@ -770,6 +775,7 @@ def with_night_split(result: dict, run_dir: Path) -> dict:
         "phases": ingest_phases(run_dir),
         "build_timings": build_timings(latest_build(run_dir)),
         "choice_scope": choice_scope(latest_build(run_dir)),
+        "choices_file": choices_file(latest_build(run_dir)),
     }
 
 
@@ -916,7 +922,8 @@ def one_day_lines(one_day: dict, run: str = "`+1 day`") -> list[str]:
         "(process start-up and imports, opening and closing the warehouse, and what no phase or "
         "stage timing covers)."
     )
-    return [text + choice_scope_words(one_day.get("choice_scope")), ""]
+    scope = choice_scope_words(one_day.get("choice_scope"))
+    return [text + scope + choices_file_words(one_day.get("choices_file")), ""]
 
 
 def choice_scope_words(scope: dict | None) -> str:
@@ -929,6 +936,19 @@ def choice_scope_words(scope: dict | None) -> str:
     if first is None:
         return " The choice build was incremental and recomputed no occasion."
     return f" The choice build was incremental, from {first} on."
+
+
+def choices_file_words(facts: dict | None) -> str:
+    """' The choices file kept ...' for a run with choices, '' without."""
+    if facts is None:
+        return ""
+    kept, written = facts["row_groups_kept"], facts["row_groups_written"]
+    if kept == 0:
+        return f" The choices file was written whole ({facts['written_whole_because']})."
+    return (
+        f" The choices file kept {kept:,} of its {kept + written:,} row groups from the last "
+        "build's file."
+    )
 
 
 WHAT_THEY_DO = """### How to read the checksums

@@ -116,6 +116,24 @@ def test_the_one_more_day_split_says_what_the_choice_build_recomputed():
     assert text.endswith("The choice build was incremental, from 2025-12-22 on.")
 
 
+def test_the_one_more_day_split_says_how_the_choices_file_was_written():
+    one_day = {
+        "wall": 5.0,
+        "choice_scope": {"build_mode": "incremental", "first_day_rebuilt": "2025-12-22"},
+        "choices_file": {"row_groups_kept": 280, "row_groups_written": 7},
+    }
+    (text,) = [line for line in side_by_side.one_day_lines(one_day) if line]
+    assert text.endswith(
+        "from 2025-12-22 on. The choices file kept 280 of its 287 row groups from the last "
+        "build's file."
+    )
+    whole = {"row_groups_kept": 0, "row_groups_written": 9, "written_whole_because": "why"}
+    (text,) = [
+        line for line in side_by_side.one_day_lines(one_day | {"choices_file": whole}) if line
+    ]
+    assert text.endswith("The choices file was written whole (why).")
+
+
 @pytest.mark.slow
 def test_the_benchmark_runs_every_contender_on_a_tiny_world(tmp_path):
     done = subprocess.run(

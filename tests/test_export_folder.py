@@ -82,7 +82,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 sys.path.insert(0, sys.argv[1])
 import duckdb
-from demandprep.export import build, parquet
+from demandprep.export import choices_file, parquet
 from demandprep.export.folder import export_build
 from export_fixtures import export_config, fixture_context
 
@@ -96,14 +96,14 @@ def stalling_groups(reader, size):
             time.sleep(600)
         yield group
 
-original_write = build.write_query_parquet
+original_write = choices_file.write_query_parquet
 
 def write(con, sql, params, path, *args, **kwargs):
     if path.name == "choices.parquet":
         parquet.row_groups = stalling_groups
     return original_write(con, sql, params, path, *args, **kwargs)
 
-build.write_query_parquet = write
+choices_file.write_query_parquet = write
 config = export_config(base, {"keep_last": 2, "row_group_rows": 1024})
 con = duckdb.connect(str(config.warehouse.path))
 export_build(fixture_context(con, config), now=datetime(2024, 3, 7, tzinfo=UTC))

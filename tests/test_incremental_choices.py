@@ -3,6 +3,7 @@ and keeps the earlier ones, and its Parquet files are byte for byte a full build
 
 from __future__ import annotations
 
+import json
 import shutil
 from pathlib import Path
 
@@ -295,3 +296,36 @@ def test_moving_the_project_or_changing_how_it_runs_keeps_the_night_incremental(
         "full_build_reason": None,
     }
     assert_same_parquet(night, full_choice_rebuild(world))
+
+
+def test_one_more_day_keeps_the_card_visits_of_earlier_weeks(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        columns = {row[0] for row in con.execute("describe choice_state_visits").fetchall()}
+        # a planted flag on the visits before the week the night touches survives it
+        planted = con.execute(
+            "update choice_state_visits set several_cards = true where day < '2024-02-12'"
+        ).fetchone()[0]
+    assert not columns & {"card", "receipt"}
+    assert planted > 100
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _folder, manifest = build(world)
+    with open_warehouse(config.warehouse) as con:
+        kept = con.execute(
+            "select count_if(several_cards), count_if(day >= '2024-02-12' and several_cards), "
+            "count_if(day >= '2024-02-12') from choice_state_visits where day >= '2024-01-01'"
+        ).fetchone()
+    assert kept[0] - kept[1] == planted
+    assert kept[2] > 100  # the touched week's visits were made again, unflagged
+    assert manifest["facts"]["choices"]["receipts_with_several_cards"] == kept[0]
+
+
+def test_one_more_day_counts_what_a_full_build_counts(world, tmp_path):
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _folder, night = build(world)
+    full = full_choice_rebuild(world)
+    counted = json.loads((full / "manifest.json").read_text(encoding="utf-8"))
+    assert night["facts"]["choices"] == counted["facts"]["choices"]
+    assert night["facts"]["choices"]["card_visits"] > 1000

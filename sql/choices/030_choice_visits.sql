@@ -11,8 +11,10 @@
 -- ids sort by day: `choices`, stored in id order, then keeps each day's rows together after
 -- the earlier days', and an incremental build replaces the rows from a day on (choices/scope.py).
 -- The day is occasion_at's, which every choice row carries anyway.
--- 032 swaps the card for the chooser pseudonym.
-create or replace table choice_visits as
+-- Only the visits from $visits_from on (null: all), the days this build makes again
+-- (028, choices/scope.py); 032 swaps the card for the chooser pseudonym, and the stage merges
+-- them with the kept visits of earlier days into choice_visits.
+create or replace table choice_scoped_visits as
 
 with
 
@@ -24,6 +26,7 @@ sale_lines as (
         nullif(trim(cast(card as varchar)), '') as card,
     from raw_lines
     where line_kind = 'sale'
+        and ($visits_from is null or sold_at >= $visits_from)
 ),
 
 identified_lines as (

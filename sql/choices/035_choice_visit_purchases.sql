@@ -1,22 +1,23 @@
--- Category purchases of card visits: net quantity and spend per visit (by its number, 032) and
--- alternative.
+-- Category purchases of the card visits this build makes (032, from $visits_from on): net
+-- quantity and spend per visit (by its number) and alternative.
 -- alternative is null for products outside the universe when products.universe.rest = 'outside'.
-create or replace table choice_visit_purchases as
+create or replace table choice_scoped_visit_purchases as
 
 with
 
 visit_lines as (
     select
-        choice_visits.visit_number,
+        visits.visit_number,
         choice_sales.alternative,
         choice_sales.quantity,
         choice_sales.net_amount,
     from choice_sales
-    join choice_visits
-        on choice_visits.store = choice_sales.store
-        and choice_visits.receipt = choice_sales.receipt
+    join choice_scoped_visits as visits
+        on visits.store = choice_sales.store
+        and visits.receipt = choice_sales.receipt
         -- visit_day is set when the visit's identity includes the business day
-        and coalesce(choice_visits.visit_day, choice_sales.day) = choice_sales.day
+        and coalesce(visits.visit_day, choice_sales.day) = choice_sales.day
+    where $visits_from is null or choice_sales.day >= $visits_from
 ),
 
 final as (

@@ -4,24 +4,26 @@
 -- then alternative id), 'split' makes one occasion per alternative, 'drop' drops the visit.
 -- history_weight is the visit's share in the loyalty recursion: 1, or 1/n for n split products.
 -- Visits go by their number (032) up to 062; the occasion id starts with the visit id.
-create or replace table choice_occasions as
+-- The occasions of the visits this build makes (from $visits_from on); the stage merges them
+-- with the kept ones of earlier days into choice_occasions.
+create or replace table choice_scoped_occasions as
 
 with
 
 visits as (
     select
-        choice_visits.visit,
-        choice_visits.visit_number,
-        choice_visits.store,
-        choice_visits.occasion_at,
-        choice_visits.day,
-        choice_visits.chooser,
-    from choice_visits
+        visit,
+        visit_number,
+        store,
+        occasion_at,
+        day,
+        chooser,
+    from choice_scoped_visits
 ),
 
 purchases as (
     select visit_number, alternative, quantity, spend
-    from choice_visit_purchases
+    from choice_scoped_visit_purchases
     where alternative is not null
 ),
 

@@ -2,44 +2,14 @@
 -- the earliest market period whose rows may have changed (null: none did). Rows of earlier
 -- occasions are kept from the last build. (A full build, choices/scope.py, writes its row
 -- itself: every_occasion.)
--- A period may have changed when a receipts file with a line in it arrived or left (superseded
--- by a correction, withdrawn; its first sale day, from the ledger or from the stored record, as
--- the calendar may no longer reach it) or when a store-day's market changed (the market build
+-- A period may have changed when a receipts file with a line in it arrived or left (the first
+-- day of the visits made again, 028) or when a store-day's market changed (the market build
 -- decides those). Everything later may change with it: store-period prices cover the whole
 -- period, choice sets and last observed prices read earlier days, a history earlier
 -- occasions; nothing reads a later day, so earlier periods hold.
 create or replace table choice_build_scope as
 
 with
-
-current_files as (
-    select
-        file_id,
-        sha256,
-        cast(first_sold_at as date) as first_day,
-    from ledger
-    where source = 'receipts' and status = 'current' and rows_accepted > 0
-),
-
-stored_files as (
-    select
-        file_id,
-        sha256,
-        first_day,
-    from choice_state_files
-),
-
-arrived_files as (
-    select first_day as day
-    from current_files
-    anti join stored_files using (file_id, sha256)
-),
-
-departed_files as (
-    select first_day as day
-    from stored_files
-    anti join current_files using (file_id, sha256)
-),
 
 current_markets as (
     select store, day, market
@@ -58,9 +28,7 @@ changed_markets as (
 ),
 
 touched_days as (
-    select day from arrived_files
-    union all
-    select day from departed_files
+    select visits_from as day from choice_visit_scope
     union all
     select day from changed_markets
 ),

@@ -18,6 +18,7 @@ import duckdb
 from demandprep.choices.facts import choice_facts, warn_on_facts
 from demandprep.choices.file_state import drop_file_state, rows_changing
 from demandprep.choices.inputs import create_input_views, drop_input_views
+from demandprep.choices.kept_visits import drop_kept, merge_scoped, restore_kept
 from demandprep.choices.parts import occasion_bounds, write_in_parts
 from demandprep.choices.pseudonyms import (
     build_pseudonym_table,
@@ -29,8 +30,10 @@ from demandprep.choices.scope import (
     first_rebuilt_id,
     forget_choice_state,
     plan_choice_scope,
+    plan_visit_scope,
     scope_params,
     store_choice_state,
+    visit_scope_params,
 )
 from demandprep.choices.settings import FRINGE, OUTSIDE, ChoiceSettings, load_choice_settings
 from demandprep.choices.validation import validate_choices
@@ -73,6 +76,9 @@ INTERMEDIATE_TABLES = (
     "choice_store_day_info",
     "choice_store_day_markets",
     "choice_build_scope",
+    "choice_visit_scope",
+    "choice_scoped_visits",
+    "choice_scoped_occasions",
 )
 
 
@@ -153,22 +159,42 @@ def _check_universe_matches(ctx: BuildContext, settings: ChoiceSettings) -> None
 
 
 def build_choice_occasions(ctx: BuildContext) -> None:
-    """Card visits (keyed-hash ids), chooser pseudonyms and the occasions after the policy.
+    """Card visits (keyed-hash ids), chooser pseudonyms and the occasions after the policy:
+    those of the days this build makes again, with the kept ones of earlier days
+    (`kept_visits.py`; every one in a full build).
 
     After 032 no persistent choice_* table holds a card id (the card -> chooser map is TEMP).
     """
     settings = _settings(ctx)
     key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
-    visit_parameters = {**settings.params(), **occasion_hash_parameters(key)}
-    run_sql(ctx.con, "choices/030_choice_visits.sql", visit_parameters)
+    plan_visit_scope(ctx, settings)
+    scope = visit_scope_params(ctx.con)
+    if scope["every_visit"]:
+        drop_kept(ctx.con)
+        offset = 0
+    else:
+        offset = restore_kept(ctx.con, scope["visits_from"])
+    # every card's pseudonym: the choosers table lists the kept visits' choosers too
     build_pseudonym_table(ctx.con, key, ctx.config.choices.holdout_fraction)
-    _run(
-        ctx,
-        settings,
-        "032_choice_visit_choosers",
-        "035_choice_visit_purchases",
-        "040_choice_occasions",
-    )
+    if not scope["every_visit"] and scope["visits_from"] is None:
+        return  # no receipts file arrived or left: every visit is kept
+    params = {
+        **settings.params(),
+        **occasion_hash_parameters(key),
+        "visits_from": scope["visits_from"],
+        "visit_number_offset": offset,
+    }
+    for name in VISIT_FILES:
+        run_sql(ctx.con, f"choices/{name}.sql", params)
+    merge_scoped(ctx.con, scope["every_visit"])
+
+
+VISIT_FILES = (
+    "030_choice_visits",
+    "032_choice_visit_choosers",
+    "035_choice_visit_purchases",
+    "040_choice_occasions",
+)
 
 
 def build_choice_history(ctx: BuildContext) -> None:

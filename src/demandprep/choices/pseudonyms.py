@@ -118,7 +118,8 @@ def holdout_draw(key: bytes, chooser: str) -> float:
 def build_pseudonym_table(
     con: duckdb.DuckDBPyConnection, key: bytes, holdout_fraction: float
 ) -> int:
-    """Write the TEMP table choice_pseudonyms(card, chooser, holdout) for choice_visits' cards.
+    """Write the TEMP table choice_pseudonyms(card, chooser, holdout) for every card of a sale
+    line (030 takes the card of a visit the same way), the kept visits' cards included.
 
     Temporary, so a build that dies leaves no card -> chooser map in the warehouse; every later
     stage runs on the same connection (the direct runner and the nightly flow both hold one).
@@ -130,7 +131,11 @@ def build_pseudonym_table(
     # a second cursor streams the cards while the first one inserts
     reader = (
         con.cursor()
-        .sql("select distinct card from choice_visits order by card")
+        .sql(
+            "select distinct nullif(trim(cast(card as varchar)), '') as card from raw_lines "
+            "where line_kind = 'sale' and nullif(trim(cast(card as varchar)), '') is not null "
+            "order by card"
+        )
         .to_arrow_reader(BATCH_ROWS)
     )
     cards = 0

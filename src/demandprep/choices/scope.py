@@ -1,21 +1,24 @@
 """Incremental choice builds: which occasions a build recomputes, and what it keeps for the next.
 
-- The occasions, their history and the choosers are computed whole every build (from the
-  card visits; a few seconds); the expensive part, each occasion's choice set with prices and
-  attributes (062) and its rows in `choices` (090), is made only for the occasions this build
-  recomputes: every one in a full build, else those from `rebuilt_from` on (056: the first day
-  of the earliest market period a receipts file that arrived or left touches, or where a
-  store-day's market changed). `choices` keeps the rows of the earlier occasions: occasion ids
-  start with their day (030), so the build deletes the rows from that day on and appends the
-  new ones, and the table stays in (occasion, alternative) order.
+- Card visits and their occasions are made from the receipt lines only from `visits_from` on
+  (028, planned first, in the occasions stage: the first day of the earliest market period a
+  receipts file that arrived or left touches); the earlier ones are kept from the last build
+  (`kept_visits.py`). The history and the choosers are computed whole from them (the history
+  runs across periods). Each occasion's choice set with prices and attributes (062) and its
+  rows in `choices` (090) are made only for the occasions from `rebuilt_from` on (056: that
+  day, or an earlier one where a store-day's market changed). `choices` keeps the rows of the
+  earlier occasions: occasion ids start with their day (030), so the build deletes the rows
+  from that day on and appends the new ones, and the table stays in (occasion, alternative)
+  order.
 - A full build when nothing is stored yet, or when what gives a row its meaning changed: the
   config, a reference file, this tool and its SQL, the pseudonym key, the alternatives (the
   product universe and the SKU map, which move with every market), or when receipt ids let a
   visit span days (markets.receipt_ids_unique_per other than store_day).
-- The state (fingerprint, the receipts files the rows come from with their first sale day, and
-  the store-day markets) is deleted before `choices` is touched and written, in one
-  transaction, after its new rows passed their checks: a build that dies in between leaves no
-  state, and the next one is full.
+- The state (fingerprint, the receipts files the rows come from with their first sale day, the
+  store-day markets, and the visits and occasions) is forgotten once the scope is planned,
+  before any kept table is touched, and written, in one transaction, after the new rows of
+  `choices` passed their checks: a build that dies in between leaves no state, and the next
+  one is full.
 
 A kept row equals what a full build would write: a choice set reads earlier days only, a price
 its store's (or region's) period or earlier days, a history earlier occasions, and nothing
@@ -33,6 +36,7 @@ from typing import Any
 import duckdb
 
 from demandprep import __version__
+from demandprep.choices.kept_visits import KEPT_TABLES, keep_for_next_build, kept_tables_stored
 from demandprep.choices.pseudonyms import key_fingerprint, pseudonym_key
 from demandprep.choices.settings import ChoiceSettings, table_columns
 from demandprep.context import BuildContext
@@ -72,6 +76,12 @@ KEY_CHANGED = "the pseudonym key changed since the choice rows were stored"
 ALTERNATIVES_CHANGED = (
     "the alternatives (product universe, SKU map) changed since the choice rows were stored"
 )
+
+EVERY_VISIT = """
+create or replace table choice_visit_scope as
+select true as every_visit, cast(null as date) as visits_from, cast($reason as varchar)
+    as full_build_reason
+"""
 
 EVERY_OCCASION = """
 create or replace table choice_build_scope as
@@ -150,14 +160,39 @@ def full_build_reason(ctx: BuildContext) -> str | None:
     return None
 
 
+def plan_visit_scope(ctx: BuildContext, settings: ChoiceSettings) -> None:
+    """Decide full or incremental and write `choice_visit_scope` (028), then forget the state:
+    from here on a build that dies leaves a full build to the next one.
+
+    Runs first in the occasions stage (after the choice inputs: the fingerprint reads the
+    alternative map)."""
+    con = ctx.con
+    con.execute(STATE_DDL)
+    reason = full_build_reason(ctx)
+    if reason is None and not kept_tables_stored(con):
+        reason = NO_STATE
+    if reason is None:
+        run_sql(con, "choices/028_choice_visit_scope.sql", settings.params())
+    else:
+        con.execute(EVERY_VISIT, {"reason": reason})
+    forget_choice_state(con)
+
+
+def visit_scope_params(con: duckdb.DuckDBPyConnection) -> dict[str, Any]:
+    """`every_visit`, `visits_from` (null: no visit made again) and the full build's reason."""
+    every_visit, visits_from, reason = con.execute(
+        "select every_visit, visits_from, full_build_reason from choice_visit_scope"
+    ).fetchone()
+    return {"every_visit": every_visit, "visits_from": visits_from, "full_build_reason": reason}
+
+
 def plan_choice_scope(ctx: BuildContext, settings: ChoiceSettings) -> None:
-    """Decide full or incremental, write `choice_build_scope` (056) and record the facts.
+    """Write `choice_build_scope` (056; full when the visits were) and record the facts.
 
     Runs after the store-day markets (079), which it compares with the stored ones.
     """
     con = ctx.con
-    con.execute(STATE_DDL)
-    reason = full_build_reason(ctx)
+    reason = visit_scope_params(con)["full_build_reason"]
     if reason is None:
         run_sql(con, "choices/056_choice_build_scope.sql", settings.params())
     else:
@@ -208,9 +243,10 @@ def store_choice_state(ctx: BuildContext) -> None:
             "insert into choice_state_store_day_markets "
             "select store, day, market from choice_store_day_markets"
         )
+        keep_for_next_build(con)
 
 
 def drop_choice_state(con: duckdb.DuckDBPyConnection) -> None:
     """Drop every state table (choices turned off, or a build that never keeps rows)."""
-    for table in STATE_TABLES:
+    for table in (*STATE_TABLES, *KEPT_TABLES.values()):
         con.execute(f"drop table if exists {table}")

@@ -47,6 +47,7 @@ from demandprep.warehouse import insertion_order_kept, join_sides_kept, one_thre
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
+    "choice_cards",
     "choice_universe",
     "choice_sku_key_values",
     "choice_sku_products",

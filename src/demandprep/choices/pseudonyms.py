@@ -128,15 +128,11 @@ def build_pseudonym_table(
         "create or replace temp table choice_pseudonyms "
         "(card varchar, chooser varchar, holdout boolean)"
     )
-    # a second cursor streams the cards while the first one inserts
+    # the cards in a working table the second cursor can see (raw_lines may be a TEMP view of
+    # this connection: a chooser bucket's); it streams them while the first one inserts
+    con.execute(CARDS_SQL)
     reader = (
-        con.cursor()
-        .sql(
-            "select distinct nullif(trim(cast(card as varchar)), '') as card from raw_lines "
-            "where line_kind = 'sale' and nullif(trim(cast(card as varchar)), '') is not null "
-            "order by card"
-        )
-        .to_arrow_reader(BATCH_ROWS)
+        con.cursor().sql("select card from choice_cards order by card").to_arrow_reader(BATCH_ROWS)
     )
     cards = 0
     for batch in reader:
@@ -145,7 +141,19 @@ def build_pseudonym_table(
         con.execute("insert into choice_pseudonyms select * from choice_pseudonym_batch")
         con.unregister("choice_pseudonym_batch")
         cards += mapped.num_rows
+    reader.close()
+    con.execute("drop table choice_cards")
     return cards
+
+
+CARDS_SQL = """
+create or replace table choice_cards as
+select distinct card
+from (
+    select nullif(trim(cast(card as varchar)), '') as card from raw_lines where line_kind = 'sale'
+)
+where card is not null
+"""
 
 
 def _pseudonym_batch(cards: list[str], key: bytes, holdout_fraction: float) -> pa.Table:

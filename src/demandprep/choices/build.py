@@ -79,6 +79,7 @@ INTERMEDIATE_TABLES = (
     "choice_build_scope",
     "choice_visit_scope",
     "choice_scoped_visits",
+    "choice_scoped_visit_purchases",
     "choice_scoped_occasions",
 )
 
@@ -175,23 +176,25 @@ def build_choice_occasions(ctx: BuildContext) -> None:
         offset = 0
     else:
         offset = restore_kept(ctx.con, scope["visits_from"])
-    # every card's pseudonym: the choosers table lists the kept visits' choosers too
-    build_pseudonym_table(ctx.con, key, ctx.config.choices.holdout_fraction)
-    if not scope["every_visit"] and scope["visits_from"] is None:
-        return  # no receipts file arrived or left: every visit is kept
     params = {
         **settings.params(),
         **occasion_hash_parameters(key),
         "visits_from": scope["visits_from"],
         "visit_number_offset": offset,
     }
-    for name in VISIT_FILES:
+    made_again = scope["every_visit"] or scope["visits_from"] is not None
+    if made_again:
+        run_sql(ctx.con, "choices/030_choice_visits.sql", params)
+    holdout = ctx.config.choices.holdout_fraction
+    build_pseudonym_table(ctx.con, key, holdout, every_visit=scope["every_visit"])
+    if not made_again:
+        return  # no receipts file arrived or left: every visit is kept
+    for name in AFTER_PSEUDONYMS:
         run_sql(ctx.con, f"choices/{name}.sql", params)
     merge_scoped(ctx.con, scope["every_visit"])
 
 
-VISIT_FILES = (
-    "030_choice_visits",
+AFTER_PSEUDONYMS = (
     "032_choice_visit_choosers",
     "035_choice_visit_purchases",
     "040_choice_occasions",

@@ -116,10 +116,12 @@ def holdout_draw(key: bytes, chooser: str) -> float:
 
 
 def build_pseudonym_table(
-    con: duckdb.DuckDBPyConnection, key: bytes, holdout_fraction: float
+    con: duckdb.DuckDBPyConnection, key: bytes, holdout_fraction: float, every_visit: bool
 ) -> int:
-    """Write the TEMP table choice_pseudonyms(card, chooser, holdout) for every card of a sale
-    line (030 takes the card of a visit the same way), the kept visits' cards included.
+    """Write the TEMP table choice_pseudonyms(card, chooser, holdout) for the cards of
+    `choice_scoped_visits` when it holds every visit, else for every card of a sale line (030
+    takes the card of a visit the same way): the choosers table lists the kept visits'
+    choosers too, and the kept visits hold no card.
 
     Temporary, so a build that dies leaves no card -> chooser map in the warehouse; every later
     stage runs on the same connection (the direct runner and the nightly flow both hold one).
@@ -130,7 +132,7 @@ def build_pseudonym_table(
     )
     # the cards in a working table the second cursor can see (raw_lines may be a TEMP view of
     # this connection: a chooser bucket's); it streams them while the first one inserts
-    con.execute(CARDS_SQL)
+    con.execute(CARDS_OF_VISITS if every_visit else CARDS_OF_SALE_LINES)
     reader = (
         con.cursor().sql("select card from choice_cards order by card").to_arrow_reader(BATCH_ROWS)
     )
@@ -146,7 +148,11 @@ def build_pseudonym_table(
     return cards
 
 
-CARDS_SQL = """
+CARDS_OF_VISITS = """
+create or replace table choice_cards as select distinct card from choice_scoped_visits
+"""
+
+CARDS_OF_SALE_LINES = """
 create or replace table choice_cards as
 select distinct card
 from (

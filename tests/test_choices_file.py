@@ -3,6 +3,7 @@ of unchanged rows are kept, and the file is byte for byte a full build's."""
 
 from __future__ import annotations
 
+import hashlib
 import shutil
 from pathlib import Path
 
@@ -67,6 +68,9 @@ def test_one_more_day_keeps_the_row_groups_before_its_week(world, tmp_path):
     assert facts["row_groups_written"] > 0
     kept_bytes = pq.ParquetFile(first / "choices.parquet").metadata.row_group(0)
     assert kept_bytes.num_rows == ROWS_PER_GROUP
+    # the manifest's checksum is the one the splice computed as it wrote: the file's
+    [record] = [o for o in manifest["outputs"] if o["path"] == "choices.parquet"]
+    assert record["sha256"] == hashlib.sha256((night / "choices.parquet").read_bytes()).hexdigest()
     assert_same_parquet(night, full_choice_rebuild(world))
 
 

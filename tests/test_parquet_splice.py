@@ -10,10 +10,10 @@ import duckdb
 import pyarrow.parquet as pq
 import pytest
 
+from demandprep.export.manifest import file_sha256
 from demandprep.export.parquet import write_query_parquet
 from demandprep.export.parquet_splice import (
     SpliceRefused,
-    file_sha256,
     read_footer,
     splice_refusal,
     write_spliced,

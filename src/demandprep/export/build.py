@@ -13,7 +13,7 @@ import pandas as pd
 
 from demandprep.context import BuildContext
 from demandprep.export import csv_safe, stata
-from demandprep.export.choices_file import Layout, write_choices_file
+from demandprep.export.choices_file import Layout, write_choices_file, write_output_query
 from demandprep.export.dictionary import (
     ColumnEntry,
     ModelMap,
@@ -34,7 +34,6 @@ from demandprep.export.manifest import (
     input_records,
     write_manifest,
 )
-from demandprep.export.parquet import write_query_parquet
 from demandprep.export.quick_logit import LogitEstimate, quick_logit
 from demandprep.export.report import ReportInputs, market_build_enabled, write_report
 from demandprep.export.report_data import table_exists
@@ -163,20 +162,10 @@ def write_output_table(
     if output.kind == "choices":
         written = write_choices_file(ctx, output, query, path, layout)
     else:
-        written = write_query_parquet(
-            ctx.con,
-            query.sql,
-            query.params,
-            path,
-            layout.row_group_rows,
-            layout.column_docs,
-            layout.table_metadata,
-            output.sort_keys,
-            query.stored_order_sql,
-        )
+        written = write_output_query(ctx, output, query, path, layout)
     types = {item.name: str(item.type) for item in written.schema}
     return (
-        OutputFile(written.path, written.rows, written.schema),
+        OutputFile(written.path, written.rows, written.schema, sha256=written.sha256),
         [(docs[name], types[name]) for name in columns],
     )
 

@@ -19,7 +19,7 @@ from __future__ import annotations
 import hashlib
 import inspect
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import pyarrow as pa
@@ -29,11 +29,11 @@ from demandprep import __version__
 from demandprep.choices.file_state import ChoicesFile, record_file, recorded_file
 from demandprep.context import BuildContext
 from demandprep.export import parquet
+from demandprep.export.manifest import file_sha256
 from demandprep.export.parquet import WrittenTable, write_query_parquet
 from demandprep.export.parquet_splice import (
     Footer,
     SpliceRefused,
-    file_sha256,
     read_footer,
     splice_refusal,
     write_spliced,
@@ -74,11 +74,11 @@ def write_choices_file(
         except SpliceRefused as refused:
             reason = str(refused)
     if written is None:
-        written = _write_whole(ctx, output, query, path, layout)
+        written = write_output_query(ctx, output, query, path, layout)
         sha256 = file_sha256(path)
     record_file(ctx.con, ChoicesFile(path.parent.name, sha256, written.rows, writer, None))
     ctx.facts["choices_file"] = _facts(written, kept if reason is None else None, layout, reason)
-    return written
+    return replace(written, sha256=sha256)  # the manifest need not read the file again
 
 
 def writer_signature(query: TableQuery, row_group_rows: int) -> str:
@@ -130,7 +130,7 @@ def _write_spliced(
     tail_path = path.with_name(f".{path.stem}.tail.parquet")
     try:
         after_kept = output_query(ctx.con, output, ctx.config, after=kept.last)
-        tail = _write_whole(ctx, output, after_kept, tail_path, layout)
+        tail = write_output_query(ctx, output, after_kept, tail_path, layout)
         rows = kept.keep * layout.row_group_rows + tail.rows
         total = ctx.con.execute(f"select count(*) from {output.table}").fetchone()[0]  # noqa: S608
         if rows != total:
@@ -147,9 +147,10 @@ def _write_spliced(
     return WrittenTable(path, rows, tail.schema), sha256
 
 
-def _write_whole(
+def write_output_query(
     ctx: BuildContext, output: OutputTable, query: TableQuery, path: Path, layout: Layout
 ) -> WrittenTable:
+    """A data file written whole from its query."""
     return write_query_parquet(
         ctx.con,
         query.sql,

@@ -33,6 +33,7 @@ class OutputFile:
     schema: pa.Schema | None = None
     derived_from: str | None = None
     notes: list[str] = field(default_factory=list)
+    sha256: str | None = None  # when the writer hashed the bytes as it wrote them
 
 
 def file_sha256(path: Path) -> str:
@@ -49,7 +50,7 @@ def output_record(folder: Path, output: OutputFile) -> dict[str, Any]:
     record: dict[str, Any] = {
         "path": output.path.relative_to(folder).as_posix(),
         "bytes": output.path.stat().st_size,
-        "sha256": file_sha256(output.path),
+        "sha256": output.sha256 or file_sha256(output.path),
     }
     if output.rows is not None:
         record["rows"] = output.rows

@@ -44,6 +44,7 @@ class WrittenTable:
     path: Path
     rows: int
     schema: pa.Schema
+    sha256: str | None = None  # set by a writer that hashed the bytes it wrote
 
 
 class RowsOutOfKeyOrder(Exception):

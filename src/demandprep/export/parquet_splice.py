@@ -192,12 +192,3 @@ def _copy(source, size: int, out, hashes: tuple) -> None:  # noqa: ANN001 - bina
             digest.update(block)
         if out is not None:
             out.write(block)
-
-
-def file_sha256(path: Path) -> str:
-    """The sha256 of a file, read in blocks."""
-    digest = hashlib.sha256()
-    with path.open("rb") as handle:
-        while block := handle.read(CHUNK_BYTES):
-            digest.update(block)
-    return digest.hexdigest()

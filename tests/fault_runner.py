@@ -48,7 +48,7 @@ TRAPS: dict[str, tuple[str, str, str]] = {
     # export: staging folder made / Nth data file written / before the manifest / before the
     # rename into place / before `latest` moves / after `latest` moved / while pruning
     "export.staging_opened": ("demandprep.export.folder", "_mark_as_ours", "after"),
-    "export.parquet": ("demandprep.export.build", "write_query_parquet", "after"),
+    "export.parquet": ("demandprep.export.choices_file", "write_query_parquet", "after"),
     "export.manifest": ("demandprep.export.build", "write_manifest", "before"),
     "export.rename": ("demandprep.export.folder", "os.rename", "before"),
     "export.latest": ("demandprep.export.folder", "os.replace", "before"),

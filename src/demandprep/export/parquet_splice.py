@@ -136,7 +136,9 @@ def spliced_footer(kept: Footer, keep: int, written: Footer) -> tuple[bytes, int
         for chunk in field_value(group, GROUP_COLUMNS)[1]:
             _move(chunk, CHUNK_POSITIONS, shift)
             _move(field_value(chunk, CHUNK_META_DATA), META_POSITIONS, shift)
-    all_groups = copy.deepcopy(kept.row_groups[:keep]) + groups
+    # the kept entries are encoded as they are, never changed: no copy (a deep copy of the
+    # 13.1M-line world's 284 entries took 1.2 s)
+    all_groups = kept.row_groups[:keep] + groups
     set_field(fields, FILE_ROW_GROUPS, (STRUCT, all_groups))
     set_field(fields, FILE_NUM_ROWS, sum(group_rows(group) for group in all_groups))
     return encode_struct(fields), cut

@@ -609,3 +609,140 @@ def test_a_new_pseudonym_key_rebuilds_and_says_every_id_changed(
     assert "first-key" not in json.dumps(manifests[0])
     assert any("pseudonym key" in text for text in manifests[1]["warnings"])
     assert not any("pseudonym key" in text for text in manifests[0]["warnings"])
+
+
+def market_tables(manifest: dict) -> dict:
+    """Whether the per-market tables (market_product_sales to shares) were sliced, and why not."""
+    return manifest["facts"]["market_tables"]
+
+
+PEAK_SIZES = '[market_size.peak]\nmethod = "peak_multiple"\nmultiple = 3.0\n'
+
+
+def without_peak_sizes(world: Path) -> Path:
+    """The world with no peak_multiple size: the held-back day moves store S07's peak week."""
+    config = world / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    assert PEAK_SIZES in text
+    config.write_text(text.replace(PEAK_SIZES, ""), encoding="utf-8")
+    return world
+
+
+def stored_net_revenues(world: Path, period: str) -> set[float]:
+    """The distinct net revenues of the stored share table's rows of one period."""
+    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
+    try:
+        rows = con.execute(
+            "select distinct net_revenue from shares where period_start = $period::date",
+            {"period": period},
+        ).fetchall()
+        return {row[0] for row in rows}
+    finally:
+        con.close()
+
+
+def plant_net_revenue(world: Path, *periods: str) -> None:
+    """Set every stored share row's net revenue of `periods` to 7777 (a value no build makes)."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute(
+            "update shares set net_revenue = 7777 where period_start in $periods::date[]",
+            {"periods": list(periods)},
+        )
+
+
+def test_one_more_day_keeps_the_stored_market_rows_of_the_other_weeks(world, tmp_path):
+    _folder, manifest = build(without_peak_sizes(world))
+    assert market_tables(manifest) == {
+        "build_mode": "full",
+        "full_build_reason": "the period summaries were rebuilt whole",
+    }
+    plant_net_revenue(world, "2024-01-15", "2024-02-12")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _folder, manifest = build(world)
+    assert market_tables(manifest) == {"build_mode": "incremental", "full_build_reason": None}
+    # the night rewrote its own week's rows and left the others as stored
+    assert stored_net_revenues(world, "2024-01-15") == {7777}
+    assert 7777 not in stored_net_revenues(world, "2024-02-12")
+
+
+def test_one_more_day_without_peak_sizes_equals_a_full_build(world, tmp_path):
+    build(without_peak_sizes(world))
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    night, manifest = build(world)
+    assert market_tables(manifest)["build_mode"] == "incremental"
+    assert_same_parquet(night, full_rebuild(world))
+    assert_same_parquet(night, fresh_build(world, tmp_path))
+
+
+def test_a_changed_universe_recomputes_every_market_row_after_it(world, tmp_path):
+    # which products are kept decides every market's inside products and fringe
+    build(without_peak_sizes(world))
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute(
+            "update product_universe set kept = not kept "
+            "where product = (select min(product) from product_universe where kept)"
+        )
+    plant_net_revenue(world, "2024-01-15")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    night, manifest = build(world)
+    assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert market_tables(manifest) == {
+        "build_mode": "full",
+        "full_build_reason": "the product universe's kept products changed",
+    }
+    assert 7777 not in stored_net_revenues(world, "2024-01-15")
+    assert_same_parquet(night, full_rebuild(world))
+
+
+def test_a_day_that_moves_a_peak_volume_recomputes_every_market_size(world, tmp_path):
+    # a peak_multiple size is the geography's largest period volume times the multiple: the
+    # held-back day makes its week store S07's largest, which moves S07's size in every week
+    build(world)
+    plant_net_revenue(world, "2024-01-15")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    night, manifest = build(world)
+    assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert market_tables(manifest) == {
+        "build_mode": "full",
+        "full_build_reason": "a geography's peak volume moved (peak_multiple sizes)",
+    }
+    assert 7777 not in stored_net_revenues(world, "2024-01-15")
+    assert_same_parquet(night, full_rebuild(world))
+
+
+def test_a_crash_before_the_market_tables_state_is_written_keeps_them_as_they_were(
+    world, tmp_path, monkeypatch
+):
+    from demandprep.market import slices
+
+    build(without_peak_sizes(world))
+    before = stored_net_revenues(world, "2024-02-12")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+
+    def crash(*_args, **_kwargs):
+        raise RuntimeError("power cut")
+
+    # every sliced table is merged when the state is written
+    with monkeypatch.context() as patch:
+        patch.setattr(slices, "store_slice_state", crash)
+        with pytest.raises(RuntimeError, match="power cut"):
+            build(world)
+    assert stored_net_revenues(world, "2024-02-12") == before
+    recovered, manifest = build(world)
+    assert market_tables(manifest) == {"build_mode": "incremental", "full_build_reason": None}
+    assert_same_parquet(recovered, full_rebuild(world))
+
+
+def test_a_changed_sliced_step_rebuilds_the_market_tables_whole(world, tmp_path, monkeypatch):
+    from demandprep.market import slices
+
+    build(without_peak_sizes(world))
+    plant_net_revenue(world, "2024-01-15")
+    changed = (*slices.SLICED_SQL, "market/080_product_universe.sql")
+    monkeypatch.setattr(slices, "SLICED_SQL", changed)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _night, manifest = build(world)
+    assert market_tables(manifest)["full_build_reason"] == slices.FINGERPRINT_CHANGED
+    assert 7777 not in stored_net_revenues(world, "2024-01-15")

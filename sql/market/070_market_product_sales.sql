@@ -1,7 +1,7 @@
 -- Demand per market and product (every in-scope product, before the universe rules), in
 -- units sold and in equivalent units. Decimal sums are exact; the one floating-point sum
 -- (equivalent units over a product's SKUs) runs in SKU order so it is the same every run.
-create or replace table market_product_sales as
+create or replace table market_product_sales_slice as
 
 with
 
@@ -16,6 +16,7 @@ sku_sales as (
         net_revenue,
         promo_units,
     from market_sku_sales
+    semi join market_slice_periods using (period_start)
 ),
 
 skus as (

@@ -1,7 +1,7 @@
 -- Zero-share product-markets: universe products on the shelf in a market (one that sold
 -- something) where they sold nothing, whatever the zero-share policy. market_products adds them
 -- as rows unless $zero_shares = 'drop'; the build counts them either way.
-create or replace table market_zero_sales as
+create or replace table market_zero_sales_slice as
 
 with
 
@@ -12,6 +12,7 @@ sales as (
         period_start,
         product,
     from market_product_sales
+    semi join market_slice_periods using (period_start)
     where equivalent_quantity > 0
 ),
 

@@ -3,7 +3,7 @@
 -- good), and, unless $zero_shares = 'drop', kept products on the shelf that did not sell
 -- (market_zero_sales).
 -- price = net revenue / equivalent units; a zero-sale row takes the mean shelf price instead.
-create or replace table market_products as
+create or replace table market_products_slice as
 
 with
 
@@ -19,6 +19,7 @@ sales as (
         gross_revenue,
         promo_units,
     from market_product_sales
+    semi join market_slice_periods using (period_start)
     where equivalent_quantity > 0
 ),
 
@@ -37,6 +38,7 @@ unsold_on_shelf as (
         product,
         shelf_price,
     from market_zero_sales
+    semi join market_slice_periods using (period_start)
 ),
 
 attributes as (

@@ -5,7 +5,7 @@
 --   table          the user's size for the geography and period start
 -- A size that cannot be worked out (missing or non-numeric population, no table row, two
 -- table rows) is null here; the stage stops and names those markets.
-create or replace table market_sizes as
+create or replace table market_sizes_slice as
 
 with
 
@@ -15,6 +15,7 @@ markets as (
         geography,
         period_start,
     from market_products
+    semi join market_slice_periods using (period_start)
 ),
 
 assumptions as (
@@ -48,6 +49,7 @@ geography_visits as (
         market_store_visits.period_start,
         sum(market_store_visits.visits)::bigint as visits,
     from market_store_visits
+    semi join market_slice_periods using (period_start)
     inner join store_geographies using (store)
     group by all
 ),
@@ -86,22 +88,11 @@ geography_populations as (
     group by all
 ),
 
-period_volumes as (
-    select
-        geography,
-        period_start,
-        sum(equivalent_quantity order by product) as volume,
-    from market_product_sales
-    where equivalent_quantity > 0
-    group by all
-),
-
 peak_volumes as (
     select
         geography,
-        max(volume) as peak_volume,
-    from period_volumes
-    group by geography
+        peak_volume,
+    from market_peak_volumes
 ),
 
 size_rows as (

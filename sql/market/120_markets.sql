@@ -2,7 +2,7 @@
 -- product, fringe included), outside share, product count and visits. The outside good is what
 -- the size leaves over: s_0 = 1 - Q / M; with $zero_shares = 'add_one' it is (M - Q + 1) /
 -- (M + J + 1), J the market's inside product count (see 130_shares.sql).
-create or replace table markets as
+create or replace table markets_slice as
 
 with
 
@@ -14,6 +14,7 @@ sizes as (
         period_start,
         market_size,
     from market_sizes
+    semi join market_slice_periods using (period_start)
 ),
 
 inside as (
@@ -22,6 +23,7 @@ inside as (
         sum(equivalent_quantity order by product) as inside_quantity,
         count(*) as product_count,
     from market_products
+    semi join market_slice_periods using (period_start)
     group by market
 ),
 
@@ -38,6 +40,7 @@ geography_visits as (
         market_store_visits.period_start,
         sum(market_store_visits.visits)::bigint as visits,
     from market_store_visits
+    semi join market_slice_periods using (period_start)
     inner join store_geographies using (store)
     group by all
 ),

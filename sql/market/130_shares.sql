@@ -6,12 +6,13 @@
 --   within_nest_share  s_j / sum of s_k over the market's products k of the same nest
 -- The add-one rule follows Gandhi, Lu & Shi's Laplace-type correction as recalled from memory:
 -- one unit added to every inside product and to the outside good.
-create or replace table shares as
+create or replace table shares_slice as
 
 with
 
 products as (
     select * from market_products
+    semi join market_slice_periods using (period_start)
 ),
 
 markets as (
@@ -22,6 +23,7 @@ markets as (
         outside_share,
         product_count,
     from markets
+    semi join market_slice_periods using (period_start)
 ),
 
 attributes as (

@@ -15,17 +15,22 @@ for, then the table's pandera model (demandprep.schemas.market) guards it:
                                   stored summary
   market_sku_sales           060  exact (decimal) demand sums per geography, period and SKU,
                                   likewise (market_sku_sales_slice)
-  market_product_sales       070  demand per market and product
+  market_product_sales       070  demand per market and product (*)
   product_universe           080  keep rules: top N, volume share, market presence
   market_availability        090  universe products on the shelf (for zero shares)
-  market_zero_sales          095  zero-share product-markets (on the shelf, no sales), any policy
-  market_products            100  inside products per market: kept, fringe, zero-sale rows
-  market_sizes               110  every assumption's size per market, side by side
-  markets                    120  size, inside quantity, outside share (stops when s_0 <= 0)
-  shares                     130  the share table, long over assumptions
+  market_zero_sales          095  zero-share product-markets (on the shelf, no sales), any
+                                  policy (*)
+  market_products            100  inside products per market: kept, fringe, zero-sale rows (*)
+  market_sizes               105  each geography's peak volume (106: did a kept size's move?)
+                             110  every assumption's size per market, side by side (*)
+  markets                    120  size, inside quantity, outside share (stops when s_0 <= 0) (*)
+  shares                     130  the share table, long over assumptions (*)
   products                   140  one row per product id: key parts, firm, nest, SKUs gathered
   market_geography_levels    150  stores columns holding one value per geography
   geographies                160  one row per geography with those levels and its store count
+
+(*) per-market tables kept between builds: the SQL writes `<table>_slice` for this build's
+periods and market/slices.py merges it (every period when it cannot slice).
 
 Choices made here, so that they are written down once:
 - demand lines are sales and voids (a void cancels a re-scan of the same visit and carries
@@ -52,7 +57,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 from demandprep.context import BuildContext
-from demandprep.market import checks, summaries
+from demandprep.market import checks, slices, summaries
 from demandprep.market.inputs import create_input_views
 from demandprep.market.settings import check_inputs, market_params, table_columns, write_settings
 from demandprep.schemas.market import MARKET_MODELS
@@ -127,6 +132,43 @@ def _summary_stage(table: str, *after: Check) -> Check:
     return run
 
 
+def _sliced_stage(
+    table: str, *after: Check, first: tuple[Check, ...] = (), prepare: Check | None = None
+) -> Check:
+    def run(ctx: BuildContext) -> None:
+        if prepare is not None:
+            prepare(ctx)
+        slices.prepare_slice(ctx)
+        run_sql(ctx.con, SQL_FILES[table], market_params(ctx.config))
+        recomputed = slices.merge_slice(ctx, table)
+        for check in first:
+            check(ctx)
+        rows = slices.validate_merged(ctx, table, recomputed, MARKET_MODELS[table])
+        ctx.facts.setdefault("market", {}).setdefault("rows", {})[table] = rows
+        for check in after:
+            check(ctx)
+        if table == slices.SLICED[-1]:  # every sliced table is stored now
+            slices.store_slice_state(ctx)
+
+    run.__name__ = f"build_{table}"
+    run.__doc__ = f"Recompute this build's periods of the {table} table and store them."
+    return run
+
+
+def plan_periods(ctx: BuildContext) -> None:
+    """Which periods the summaries and the per-market tables recompute."""
+    summaries.plan_build_periods(ctx)
+    slices.plan_slices(ctx)
+
+
+def build_universe(ctx: BuildContext) -> None:
+    """Build and validate the product universe; kept products that changed make the
+    per-market tables after it recompute every period."""
+    stored = slices.kept_products(ctx.con)
+    _table_stage("product_universe", checks.check_universe)(ctx)
+    slices.note_universe(ctx, stored)
+
+
 def _check_attributes(ctx: BuildContext) -> None:
     checks.check_product_attributes(ctx, market_params(ctx.config))
 
@@ -164,22 +206,25 @@ MARKET_STAGES: tuple[Stage, ...] = (
         "market_product_attributes", _table_stage("market_product_attributes", _check_attributes)
     ),
     Stage("market_store_geographies", _table_stage("market_store_geographies")),
-    Stage("market_build_periods", summaries.plan_build_periods),
+    Stage("market_build_periods", plan_periods),
     Stage(
         "market_store_visits", _summary_stage("market_store_visits", checks.check_store_coverage)
     ),
     Stage(
         "market_sku_sales", _summary_stage("market_sku_sales", checks.check_fractional_quantities)
     ),
-    Stage("market_product_sales", _table_stage("market_product_sales", checks.check_net_demand)),
-    Stage("product_universe", _table_stage("product_universe", checks.check_universe)),
+    Stage("market_product_sales", _sliced_stage("market_product_sales", checks.check_net_demand)),
+    Stage("product_universe", build_universe),
     Stage("market_availability", _table_stage("market_availability")),
-    Stage("market_zero_sales", _table_stage("market_zero_sales", checks.check_zero_sales)),
-    Stage("market_products", _table_stage("market_products")),
-    Stage("market_sizes", _table_stage("market_sizes", checks.check_market_sizes)),
+    Stage("market_zero_sales", _sliced_stage("market_zero_sales", checks.check_zero_sales)),
+    Stage("market_products", _sliced_stage("market_products")),
+    Stage(
+        "market_sizes",
+        _sliced_stage("market_sizes", checks.check_market_sizes, prepare=slices.plan_peak_volumes),
+    ),
     # the outside-share check names the markets; it runs before the schema's generic check
-    Stage("markets", _table_stage("markets", first=(checks.check_outside_shares,))),
-    Stage("shares", _table_stage("shares", _check_characteristics)),
+    Stage("markets", _sliced_stage("markets", first=(checks.check_outside_shares,))),
+    Stage("shares", _sliced_stage("shares", _check_characteristics)),
     Stage("products", _table_stage("products")),
     Stage("market_geography_levels", _table_stage("market_geography_levels")),
     Stage("geographies", build_geographies),

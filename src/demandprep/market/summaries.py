@@ -2,7 +2,8 @@
 
 The market build reads raw lines twice: visits per store and period (050) and demand per
 geography, period and SKU (060). Both tables stay in the warehouse between builds as period
-summaries; every later step (070 onward, instruments) reads them whole, and they are small.
+summaries; the later steps read them, and they are small (the per-market tables from 070 on
+keep their rows between builds as well: market/slices.py).
 
 - Each summary keeps its state: a fingerprint of what gives its rows their meaning (the
   config, the reference files, the tool and its SQL) and the receipts files its rows come from,
@@ -142,7 +143,7 @@ def full_build_reason(
         "where summary = $summary",
         {"summary": summary},
     ).fetchall()
-    if len(stored) != 1 or not _table_exists(con, summary):
+    if len(stored) != 1 or not stored_table_exists(con, summary):
         return NO_SUMMARIES
     before = Fingerprint(*stored[0])
     if before.code_hash != fingerprint.code_hash:
@@ -160,7 +161,7 @@ def full_build_reason(
     return None
 
 
-def _table_exists(con: duckdb.DuckDBPyConnection, table: str) -> bool:
+def stored_table_exists(con: duckdb.DuckDBPyConnection, table: str) -> bool:
     return bool(
         con.execute(
             "select count(*) from duckdb_tables() "

@@ -27,7 +27,6 @@ reads a later day; the checks of `choices` ran on the kept rows when they were w
 
 from __future__ import annotations
 
-import inspect
 from dataclasses import astuple, dataclass
 from datetime import date
 from importlib import resources
@@ -40,7 +39,7 @@ from demandprep.choices.kept_visits import KEPT_TABLES, keep_for_next_build, kep
 from demandprep.choices.pseudonyms import key_fingerprint, pseudonym_key
 from demandprep.choices.settings import ChoiceSettings, table_columns
 from demandprep.context import BuildContext
-from demandprep.fingerprints import current_reference_files, digest
+from demandprep.fingerprints import current_reference_files, digest, source_of
 from demandprep.market.inputs import has_ledger
 from demandprep.schemas.choices import Choices, Choosers
 from demandprep.sqlfiles import run_sql, sql_text
@@ -113,7 +112,7 @@ def code_digest() -> str:
 
     folder = resources.files("demandprep.sql").joinpath("choices")
     names = sorted(entry.name for entry in folder.iterdir() if entry.name.endswith(".sql"))
-    sources = [inspect.getsource(item) for item in (build, Choices, Choosers)]
+    sources = [source_of(item) for item in (build, Choices, Choosers)]
     return digest([__version__, *(sql_text(f"choices/{name}") for name in names), *sources])
 
 

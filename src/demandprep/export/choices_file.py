@@ -17,7 +17,6 @@ unchanged rows than one row group are left, or the two parts do not add up to th
 from __future__ import annotations
 
 import hashlib
-import inspect
 from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -39,6 +38,7 @@ from demandprep.export.parquet_splice import (
     write_spliced,
 )
 from demandprep.export.tables import OutputTable, TableQuery, output_query
+from demandprep.fingerprints import source_of
 
 
 @dataclass(frozen=True)
@@ -83,7 +83,7 @@ def write_choices_file(
 
 def writer_signature(query: TableQuery, row_group_rows: int) -> str:
     """What makes a row group's bytes: the query, the row group size and the writer."""
-    parts = [__version__, pa.__version__, inspect.getsource(parquet), query.sql, row_group_rows]
+    parts = [__version__, pa.__version__, source_of(parquet), query.sql, row_group_rows]
     return hashlib.sha256(repr(parts).encode()).hexdigest()
 
 

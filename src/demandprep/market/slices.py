@@ -25,14 +25,12 @@ the same bytes as a full build.
 
 from __future__ import annotations
 
-import inspect
-
 import duckdb
 import pandera.polars as pa
 
 from demandprep import __version__
 from demandprep.context import BuildContext
-from demandprep.fingerprints import digest
+from demandprep.fingerprints import digest, source_of
 from demandprep.market.summaries import (
     current_fingerprint,
     require_unique_key,
@@ -145,7 +143,7 @@ def is_whole(ctx: BuildContext) -> bool:
 def slice_fingerprint(con: duckdb.DuckDBPyConnection, ctx: BuildContext) -> tuple[str, str, str]:
     """(config, reference files, tool with the sliced tables' SQL and models) hashes."""
     summaries = current_fingerprint(con, ctx.config)
-    models = [inspect.getsource(market_schemas.MARKET_MODELS[name]) for name in SLICED]
+    models = [source_of(market_schemas.MARKET_MODELS[name]) for name in SLICED]
     code = digest([__version__, *(sql_text(name) for name in SLICED_SQL), *models])
     return summaries.config_hash, summaries.references_hash, code
 

@@ -24,7 +24,6 @@ the same bytes as a full one.
 
 from __future__ import annotations
 
-import inspect
 from dataclasses import dataclass
 from datetime import datetime, time, timedelta
 
@@ -35,7 +34,7 @@ from demandprep import __version__
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
-from demandprep.fingerprints import digest
+from demandprep.fingerprints import digest, source_of
 from demandprep.market.inputs import has_ledger
 from demandprep.schemas import market as market_schemas
 from demandprep.sqlfiles import quote_identifier, run_sql, sql_text
@@ -106,7 +105,7 @@ def current_fingerprint(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -
 def summary_model_sources() -> list[str]:
     """The source of each summary's pandera model: only the recomputed rows meet it each
     night, so a changed model must see every period again."""
-    return [inspect.getsource(market_schemas.MARKET_MODELS[name]) for name in SUMMARIES]
+    return [source_of(market_schemas.MARKET_MODELS[name]) for name in SUMMARIES]
 
 
 def plan_build_periods(ctx: BuildContext) -> None:

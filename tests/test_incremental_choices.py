@@ -329,3 +329,43 @@ def test_one_more_day_counts_what_a_full_build_counts(world, tmp_path):
     counted = json.loads((full / "manifest.json").read_text(encoding="utf-8"))
     assert night["facts"]["choices"] == counted["facts"]["choices"]
     assert night["facts"]["choices"]["card_visits"] > 1000
+
+
+def loyalty_rows(world: Path) -> tuple[int, int]:
+    """(rows of choice_loyalty_values, choosers with a purchase rank) of the last build (the
+    test keeps the working tables a build drops)."""
+    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
+    try:
+        return con.execute(
+            "select (select count(*) from choice_loyalty_values), "
+            "(select count(distinct chooser_number) from choice_visit_history where not burn_in)"
+        ).fetchone()
+    finally:
+        con.close()
+
+
+def test_one_more_day_values_loyalty_only_for_the_ranks_its_occasions_read(
+    world, tmp_path, monkeypatch
+):
+    # each loyalty value is a closed form of the chooser's block sums (048), so leaving out the
+    # ranks no recomputed occasion reads changes no value that one reads
+    from demandprep.choices import build as choice_build
+
+    # a short burn-in, so most of the sample's seven weeks have loyalty
+    config = world / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    assert "loyalty_burn_in_days = 56" in text
+    config.write_text(text.replace("loyalty_burn_in_days = 56", "loyalty_burn_in_days = 7"))
+    with monkeypatch.context() as patch:
+        patch.setattr(choice_build, "drop_intermediate_tables", lambda ctx: None)
+        build(world)
+        full_rows, choosers = loyalty_rows(world)
+        shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+        night, manifest = build(world)
+        night_rows, _choosers = loyalty_rows(world)
+    assert choice_scope(manifest)["build_mode"] == "incremental"
+    assert choosers > 50
+    # one week of seven: its choosers' ranks from their first one that week on (6,915 of
+    # 16,977 rows when written)
+    assert 0 < night_rows < full_rows / 2
+    assert_same_parquet(night, full_choice_rebuild(world))

@@ -7,6 +7,9 @@
 --          + (1 - lambda) lambda^p * (running sum of block b)
 --          + (1 - lambda) lambda^(p + 1) * lambda^(B - 1) * (total of block b - 1)
 -- where the latest purchase before n sits at position p = (n - 1) % B of block b = (n - 1) // B.
+-- Only the ranks from the lowest one an occasion of this build reads (056: every occasion, or
+-- those from $rebuilt_from on) are valued: each value is its own closed form, so leaving out
+-- earlier ranks changes no other.
 create or replace table choice_loyalty_values as
 
 with
@@ -15,6 +18,13 @@ chooser_ranks as (
     select chooser_number, max(loyalty_rank) as last_rank
     from choice_visit_history
     where not burn_in
+    group by chooser_number
+),
+
+needed_ranks as (
+    select chooser_number, min(loyalty_rank) as first_needed_rank
+    from choice_visit_history
+    where $every_occasion or day >= $rebuilt_from
     group by chooser_number
 ),
 
@@ -68,6 +78,14 @@ stretches as (
     select * from purchase_stretches
 ),
 
+needed_stretches as (
+    select
+        stretches.* replace (greatest(stretches.from_rank, needed_ranks.first_needed_rank)
+            as from_rank),
+    from stretches
+    join needed_ranks using (chooser_number)
+),
+
 ranks as (
     select
         chooser_number,
@@ -76,7 +94,7 @@ ranks as (
         block_sum,
         previous_block_total,
         unnest(range(from_rank, to_rank + 1)) as loyalty_rank,
-    from stretches
+    from needed_stretches
     where to_rank >= from_rank
 ),
 

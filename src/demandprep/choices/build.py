@@ -202,7 +202,8 @@ AFTER_PSEUDONYMS = (
 
 
 def build_choice_history(ctx: BuildContext) -> None:
-    """Each occasion's history from earlier occasions: previous purchase, counts, loyalty."""
+    """Each occasion's history from earlier occasions: previous purchase, counts, and the
+    loyalty events the values are made of (`build_choice_sets` values the ranks it needs)."""
     settings = _settings(ctx)
     _run(
         ctx,
@@ -211,8 +212,6 @@ def build_choice_history(ctx: BuildContext) -> None:
         "045_choice_visit_history",
         "046_choice_loyalty_start",
         "047_choice_loyalty_events",
-        "048_choice_loyalty_values",
-        "049_choice_visit_loyalty",
     )
 
 
@@ -232,9 +231,12 @@ def build_choice_sets(ctx: BuildContext) -> None:
         "079_choice_store_day_markets",  # before 062, which joins it: 090 joins nothing
     )
     plan_choice_scope(ctx, settings)  # compares the store-day markets with the stored ones
+    scoped = {**settings.params(), **scope_params(ctx.con)}
+    # loyalty only for the ranks the recomputed occasions read (048)
+    _run_on(ctx.con, scoped, "048_choice_loyalty_values", "049_choice_visit_loyalty")
     # stored sorted by occasion, so that `choices` is written in key order (see 090)
     with insertion_order_kept(ctx.con):
-        _run_on(ctx.con, {**settings.params(), **scope_params(ctx.con)}, "062_choice_occasion_sets")
+        _run_on(ctx.con, scoped, "062_choice_occasion_sets")
     _run(
         ctx,
         settings,

@@ -164,10 +164,13 @@ def write_spliced(
     The earlier file is read whole to check its sha256; on a mismatch `target` is removed and
     `SpliceRefused` raised."""
     footer, cut = spliced_footer(kept, keep, written)
-    target_hash, kept_hash = hashlib.sha256(), hashlib.sha256()
+    kept_hash = hashlib.sha256()
     with target.open("wb") as out:
         with kept_path.open("rb") as source:
-            _copy(source, cut, out, (kept_hash, target_hash))
+            _copy(source, cut, out, (kept_hash,))
+            # the kept bytes start both files: hashed once, the state copied (0.18 s a 325 MB
+            # file here)
+            target_hash = kept_hash.copy()
             _copy(source, kept.size - cut, None, (kept_hash,))
         if kept_hash.hexdigest() != kept_sha256:
             out.close()

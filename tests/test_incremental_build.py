@@ -658,12 +658,23 @@ def test_one_more_day_keeps_the_stored_market_rows_of_the_other_weeks(world, tmp
         "full_build_reason": "the period summaries were rebuilt whole",
     }
     plant_net_revenue(world, "2024-01-15", "2024-02-12")
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute(
+            "update market_availability set shelf_price = 7777 where market = 'S01/2024-01-15'"
+        )
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
     _folder, manifest = build(world)
     assert market_tables(manifest) == {"build_mode": "incremental", "full_build_reason": None}
     # the night rewrote its own week's rows and left the others as stored
     assert stored_net_revenues(world, "2024-01-15") == {7777}
     assert 7777 not in stored_net_revenues(world, "2024-02-12")
+    # the shelf availability reads no receipt: kept as stored
+    with open_warehouse(config.warehouse) as con:
+        kept = con.execute(
+            "select distinct shelf_price from market_availability where market = 'S01/2024-01-15'"
+        ).fetchall()
+    assert kept == [(7777,)]
 
 
 def test_one_more_day_without_peak_sizes_equals_a_full_build(world, tmp_path):

@@ -9,6 +9,8 @@ shelf availability (reference files and the universe) and the peak volume of eac
 - each SLICED table's SQL writes `<table>_slice` for the periods in `market_slice_periods`
   (the summaries' recomputed periods), and `merge_slice` replaces those periods' rows of the
   stored table (deleted, then inserted);
+- the shelf availability is kept as stored while the tables are sliced (after the universe,
+  so its kept products are known to be the same);
 - the tables are rebuilt for every period (`market_slice_periods` holds every calendar period,
   and the slice replaces the table) when the summaries were rebuilt whole, when no state is
   stored or its fingerprint (config, reference files, this tool's SQL and models) changed, in a
@@ -171,6 +173,12 @@ def plan_peak_volumes(ctx: BuildContext) -> None:
     moved = ctx.con.execute(sql_text("market/106_moved_peak_volumes.sql")).fetchone()[0]
     if moved:
         every_period_from_here(ctx, PEAKS_MOVED)
+
+
+def availability_holds(ctx: BuildContext) -> bool:
+    """True when the stored shelf availability still holds: it reads only reference files, the
+    config and the universe's kept products, and a build that slices found none changed."""
+    return not is_whole(ctx) and stored_table_exists(ctx.con, "market_availability")
 
 
 def merge_slice(ctx: BuildContext, table: str) -> str:

@@ -17,7 +17,8 @@ for, then the table's pandera model (demandprep.schemas.market) guards it:
                                   likewise (market_sku_sales_slice)
   market_product_sales       070  demand per market and product (*)
   product_universe           080  keep rules: top N, volume share, market presence
-  market_availability        090  universe products on the shelf (for zero shares)
+  market_availability        090  universe products on the shelf (for zero shares; kept as
+                                  stored while the per-market tables are sliced)
   market_zero_sales          095  zero-share product-markets (on the shelf, no sales), any
                                   policy (*)
   market_products            100  inside products per market: kept, fringe, zero-sale rows (*)
@@ -169,6 +170,15 @@ def build_universe(ctx: BuildContext) -> None:
     slices.note_universe(ctx, stored)
 
 
+def build_availability(ctx: BuildContext) -> None:
+    """Build and validate the shelf availability, unless the stored one still holds."""
+    if not slices.availability_holds(ctx):
+        _table_stage("market_availability")(ctx)
+        return
+    rows = ctx.con.execute("select count(*) from market_availability").fetchone()[0]
+    ctx.facts.setdefault("market", {}).setdefault("rows", {})["market_availability"] = rows
+
+
 def _check_attributes(ctx: BuildContext) -> None:
     checks.check_product_attributes(ctx, market_params(ctx.config))
 
@@ -215,7 +225,7 @@ MARKET_STAGES: tuple[Stage, ...] = (
     ),
     Stage("market_product_sales", _sliced_stage("market_product_sales", checks.check_net_demand)),
     Stage("product_universe", build_universe),
-    Stage("market_availability", _table_stage("market_availability")),
+    Stage("market_availability", build_availability),
     Stage("market_zero_sales", _sliced_stage("market_zero_sales", checks.check_zero_sales)),
     Stage("market_products", _sliced_stage("market_products")),
     Stage(

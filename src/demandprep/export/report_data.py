@@ -299,7 +299,14 @@ def alternatives_per_occasion(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """How many occasions offer each number of alternatives (rows per occasion)."""
     return con.sql(
         """
-        with per_occasion as (select occasion, count(*) as alternatives from choices group by 1)
+        -- every occasion has one chosen row, and an unsampled one as many rows as its
+        -- choice_set_size on every row (the build checks all three, sql/choices/091): only
+        -- sampled occasions need their rows counted (0.23 s against 0.46 s grouping 37.6M rows)
+        with per_occasion as (
+            select choice_set_size as alternatives from choices where chosen and not sampled
+            union all
+            select count(*) as alternatives from choices where sampled group by occasion
+        )
         select alternatives, count(*) as occasions
         from per_occasion
         group by alternatives

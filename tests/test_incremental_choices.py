@@ -331,24 +331,30 @@ def test_one_more_day_counts_what_a_full_build_counts(world, tmp_path):
     assert night["facts"]["choices"]["card_visits"] > 1000
 
 
-def loyalty_rows(world: Path) -> tuple[int, int]:
-    """(rows of choice_loyalty_values, choosers with a purchase rank) of the last build (the
-    test keeps the working tables a build drops)."""
+def working_rows(world: Path) -> dict[str, int]:
+    """Rows of the working tables a night may restrict to its occasions, and choosers with a
+    purchase rank, of the last build (the test keeps the working tables a build drops)."""
     con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
     try:
-        return con.execute(
-            "select (select count(*) from choice_loyalty_values), "
-            "(select count(distinct chooser_number) from choice_visit_history where not burn_in)"
-        ).fetchone()
+        counts = {
+            table: con.execute(f"select count(*) from {table}").fetchone()[0]  # noqa: S608
+            for table in ("choice_loyalty_values", "choice_alternative_prices")
+        }
+        counts["store_day_maps"] = con.execute(
+            "select count(*) from choice_store_day_info where alternative_info is not null"
+        ).fetchone()[0]
+        counts["ranked_choosers"] = con.execute(
+            "select count(distinct chooser_number) from choice_visit_history where not burn_in"
+        ).fetchone()[0]
+        return counts
     finally:
         con.close()
 
 
-def test_one_more_day_values_loyalty_only_for_the_ranks_its_occasions_read(
-    world, tmp_path, monkeypatch
-):
-    # each loyalty value is a closed form of the chooser's block sums (048), so leaving out the
-    # ranks no recomputed occasion reads changes no value that one reads
+def test_one_more_day_makes_loyalty_and_prices_only_for_its_occasions(world, tmp_path, monkeypatch):
+    # each loyalty value is a closed form of the chooser's block sums (048) and each price a
+    # value of its own store-day (070, 078), so leaving out what no recomputed occasion reads
+    # changes nothing it reads
     from demandprep.choices import build as choice_build
 
     # a short burn-in, so most of the sample's seven weeks have loyalty
@@ -359,13 +365,15 @@ def test_one_more_day_values_loyalty_only_for_the_ranks_its_occasions_read(
     with monkeypatch.context() as patch:
         patch.setattr(choice_build, "drop_intermediate_tables", lambda ctx: None)
         build(world)
-        full_rows, choosers = loyalty_rows(world)
+        full = working_rows(world)
         shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
         night, manifest = build(world)
-        night_rows, _choosers = loyalty_rows(world)
+        made = working_rows(world)
     assert choice_scope(manifest)["build_mode"] == "incremental"
-    assert choosers > 50
+    assert full["ranked_choosers"] > 50
     # one week of seven: its choosers' ranks from their first one that week on (6,915 of
-    # 16,977 rows when written)
-    assert 0 < night_rows < full_rows / 2
+    # 16,977 loyalty rows when written), its store-days' prices and maps
+    assert 0 < made["choice_loyalty_values"] < full["choice_loyalty_values"] / 2
+    for table in ("choice_alternative_prices", "store_day_maps"):
+        assert 0 < made[table] < full[table] / 4
     assert_same_parquet(night, full_choice_rebuild(world))

@@ -8,12 +8,15 @@
 --   missing               none of these (price null).
 -- promo: the shelf flag where the file has one, else whether at least half of the lines the
 -- price came from carried a discount (false when the price came from no line).
+-- Only the store-days of the occasions this build recomputes (056: all, or those from
+-- $rebuilt_from on): a price reads other days, but no price reads another store-day's price.
 create or replace table choice_alternative_prices as
 
 with
 
 keys as (
     select store, day, alternative from choice_set_candidates
+    where $every_occasion or day >= $rebuilt_from
     union
     select store, day, chosen_alternative as alternative
     from choice_occasion_sets

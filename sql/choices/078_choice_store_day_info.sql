@@ -3,13 +3,15 @@
 -- and characteristics (null where none is priced), so 090 can look alternatives up per
 -- occasion instead of joining the long table. The rows leave out store, day and alternative
 -- (the occasion's own and the map's key): 090 copies each occasion's entries, and narrower
--- entries copy faster.
+-- entries copy faster. Only the store-days of the occasions this build recomputes (056), whose
+-- prices 070 made.
 create or replace table choice_store_day_info as
 
 with
 
 store_days as (
     select store, day, store_day_index from choice_store_days
+    where $every_occasion or day >= $rebuilt_from
 ),
 
 priced as (

@@ -237,9 +237,10 @@ def build_choice_sets(ctx: BuildContext) -> None:
     # stored sorted by occasion, so that `choices` is written in key order (see 090)
     with insertion_order_kept(ctx.con):
         _run_on(ctx.con, scoped, "062_choice_occasion_sets")
-    _run(
-        ctx,
-        settings,
+    # prices and price maps only for the store-days of those occasions
+    _run_on(
+        ctx.con,
+        scoped,
         "070_choice_alternative_prices",
         "075_choice_alternative_attributes",
         "078_choice_store_day_info",

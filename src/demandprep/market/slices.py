@@ -12,10 +12,11 @@ shelf availability (reference files and the universe) and the peak volume of eac
 - the shelf availability is kept as stored while the tables are sliced (after the universe,
   so its kept products are known to be the same);
 - the tables are rebuilt for every period (`market_slice_periods` holds every period the
-  calendar or a summary knows, and the slice replaces the table) when the summaries were rebuilt whole, when no state is
-  stored or its fingerprint (config, reference files, this tool's SQL and models) changed, in a
-  partitioned build's reduce, and, from the first table that reads them on, when the universe's
-  kept products or a geography's peak volume differ from those the stored rows were made with.
+  calendar or a summary knows, and the slice replaces the table) when the summaries were
+  rebuilt whole, when no state is stored or its fingerprint (config, reference files, this
+  tool's SQL and models) changed, in a partitioned build's reduce, and, from the first table
+  that reads them on, when the universe's kept products or a geography's peak volume differ
+  from those the stored rows were made with.
 
 Only the recomputed rows meet the pandera model (the kept ones met it when they were stored);
 each table's key is checked whole in SQL, and the checks that warn or count read the whole

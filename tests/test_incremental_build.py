@@ -686,6 +686,18 @@ def test_one_more_day_without_peak_sizes_equals_a_full_build(world, tmp_path):
     assert_same_parquet(night, fresh_build(world, tmp_path))
 
 
+def assert_night_rebuilds_every_market_row(world: Path, tmp_path: Path, reason: str) -> None:
+    """The held-back day's night rebuilds its week's summaries and every per-market row, for
+    `reason`: a planted row of another week is gone, and the files are a full build's."""
+    plant_net_revenue(world, "2024-01-15")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    night, manifest = build(world)
+    assert manifest["periods_rebuilt"] == ["2024-02-12"]
+    assert market_tables(manifest) == {"build_mode": "full", "full_build_reason": reason}
+    assert 7777 not in stored_net_revenues(world, "2024-01-15")
+    assert_same_parquet(night, full_rebuild(world))
+
+
 def test_a_changed_universe_recomputes_every_market_row_after_it(world, tmp_path):
     # which products are kept decides every market's inside products and fringe
     build(without_peak_sizes(world))
@@ -695,32 +707,18 @@ def test_a_changed_universe_recomputes_every_market_row_after_it(world, tmp_path
             "update product_universe set kept = not kept "
             "where product = (select min(product) from product_universe where kept)"
         )
-    plant_net_revenue(world, "2024-01-15")
-    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
-    night, manifest = build(world)
-    assert manifest["periods_rebuilt"] == ["2024-02-12"]
-    assert market_tables(manifest) == {
-        "build_mode": "full",
-        "full_build_reason": "the product universe's kept products changed",
-    }
-    assert 7777 not in stored_net_revenues(world, "2024-01-15")
-    assert_same_parquet(night, full_rebuild(world))
+    assert_night_rebuilds_every_market_row(
+        world, tmp_path, "the product universe's kept products changed"
+    )
 
 
 def test_a_day_that_moves_a_peak_volume_recomputes_every_market_size(world, tmp_path):
     # a peak_multiple size is the geography's largest period volume times the multiple: the
     # held-back day makes its week store S07's largest, which moves S07's size in every week
     build(world)
-    plant_net_revenue(world, "2024-01-15")
-    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
-    night, manifest = build(world)
-    assert manifest["periods_rebuilt"] == ["2024-02-12"]
-    assert market_tables(manifest) == {
-        "build_mode": "full",
-        "full_build_reason": "a geography's peak volume moved (peak_multiple sizes)",
-    }
-    assert 7777 not in stored_net_revenues(world, "2024-01-15")
-    assert_same_parquet(night, full_rebuild(world))
+    assert_night_rebuilds_every_market_row(
+        world, tmp_path, "a geography's peak volume moved (peak_multiple sizes)"
+    )
 
 
 def test_a_crash_before_the_market_tables_state_is_written_keeps_them_as_they_were(

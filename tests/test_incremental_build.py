@@ -207,6 +207,18 @@ def test_a_moved_spread_keeps_the_squared_distances_of_untouched_periods(world):
     assert {value for _market, _product, value in squared} == {7777}
 
 
+def build_dies_in(world: Path, monkeypatch, module, name: str) -> None:  # noqa: ANN001
+    """Build once with `module.name` raising, as a power cut there would stop it."""
+
+    def crash(*_args, **_kwargs):
+        raise RuntimeError("power cut")
+
+    with monkeypatch.context() as patch:
+        patch.setattr(module, name, crash)
+        with pytest.raises(RuntimeError, match="power cut"):
+            build(world)
+
+
 def test_crash_while_storing_instruments_keeps_the_old_ones_and_the_next_build_is_right(
     world, tmp_path, monkeypatch
 ):
@@ -215,15 +227,8 @@ def test_crash_while_storing_instruments_keeps_the_old_ones_and_the_next_build_i
     build(world)
     before = stored_instrument(world, "iv_hausman_price", "2024-02-12")
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
-
-    def crash(*_args, **_kwargs):
-        raise RuntimeError("power cut")
-
     # the crash comes after the period rows were replaced, before the state is written
-    with monkeypatch.context() as patch:
-        patch.setattr(periods, "store_instrument_state", crash)
-        with pytest.raises(RuntimeError, match="power cut"):
-            build(world)
+    build_dies_in(world, monkeypatch, periods, "store_instrument_state")
     assert stored_instrument(world, "iv_hausman_price", "2024-02-12") == before
     recovered, manifest = build(world)
     assert instrument_scope(manifest)["periods_rebuilt"] == ["2024-02-12"]
@@ -729,15 +734,8 @@ def test_a_crash_before_the_market_tables_state_is_written_keeps_them_as_they_we
     build(without_peak_sizes(world))
     before = stored_net_revenues(world, "2024-02-12")
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
-
-    def crash(*_args, **_kwargs):
-        raise RuntimeError("power cut")
-
     # every sliced table is merged when the state is written
-    with monkeypatch.context() as patch:
-        patch.setattr(slices, "store_slice_state", crash)
-        with pytest.raises(RuntimeError, match="power cut"):
-            build(world)
+    build_dies_in(world, monkeypatch, slices, "store_slice_state")
     assert stored_net_revenues(world, "2024-02-12") == before
     recovered, manifest = build(world)
     assert market_tables(manifest) == {"build_mode": "incremental", "full_build_reason": None}

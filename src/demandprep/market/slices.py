@@ -171,7 +171,7 @@ def plan_peak_volumes(ctx: BuildContext) -> None:
     run_sql(ctx.con, "market/105_market_peak_volumes.sql")
     if is_whole(ctx):
         return
-    moved = ctx.con.execute(sql_text("market/106_moved_peak_volumes.sql")).fetchone()[0]
+    moved = run_sql(ctx.con, "market/106_moved_peak_volumes.sql").fetchone()[0]
     if moved:
         every_period_from_here(ctx, PEAKS_MOVED)
 

@@ -148,12 +148,15 @@ def _sliced_stage(
         ctx.facts.setdefault("market", {}).setdefault("rows", {})[table] = rows
         for check in after:
             check(ctx)
-        if table == slices.SLICED[-1]:  # every sliced table is stored now
-            slices.store_slice_state(ctx)
 
     run.__name__ = f"build_{table}"
     run.__doc__ = f"Recompute this build's periods of the {table} table and store them."
     return run
+
+
+def _store_slice_state(ctx: BuildContext) -> None:
+    # after the last sliced table (shares): every one is stored now
+    slices.store_slice_state(ctx)
 
 
 def plan_periods(ctx: BuildContext) -> None:
@@ -234,7 +237,7 @@ MARKET_STAGES: tuple[Stage, ...] = (
     ),
     # the outside-share check names the markets; it runs before the schema's generic check
     Stage("markets", _sliced_stage("markets", first=(checks.check_outside_shares,))),
-    Stage("shares", _sliced_stage("shares", _check_characteristics)),
+    Stage("shares", _sliced_stage("shares", _check_characteristics, _store_slice_state)),
     Stage("products", _table_stage("products")),
     Stage("market_geography_levels", _table_stage("market_geography_levels")),
     Stage("geographies", build_geographies),

@@ -3,7 +3,9 @@ bytes pyarrow writes for all the rows at once (the reference is pyarrow's own wh
 
 from __future__ import annotations
 
+import errno
 import hashlib
+import os
 from pathlib import Path
 
 import duckdb
@@ -76,8 +78,18 @@ def test_footers_read_and_written_back_are_pyarrows_bytes(con, tmp_path):
     assert len(footer.row_groups) == pq.ParquetFile(path).metadata.num_row_groups == 20
 
 
+def refuse_kernel_copy(source, out, count, offset_src=None, offset_dst=None):
+    """os.copy_file_range as on file systems that cannot copy between these files."""
+    raise OSError(errno.EXDEV, "Invalid cross-device link")
+
+
+@pytest.mark.parametrize("kernel_copy", [True, False], ids=["kernel copy", "read and write"])
 @pytest.mark.parametrize("keep", [1, 5])
-def test_kept_row_groups_and_new_ones_give_the_whole_write_bytes(con, tmp_path, keep):
+def test_kept_row_groups_and_new_ones_give_the_whole_write_bytes(
+    con, tmp_path, keep, kernel_copy, monkeypatch
+):
+    if not kernel_copy:
+        monkeypatch.setattr(os, "copy_file_range", refuse_kernel_copy)
     before = write(con, "rows_before", tmp_path / "before.parquet")
     whole = write(con, "rows_after", tmp_path / "whole.parquet")
     last_kept = pq.read_table(before).slice(keep * ROWS_PER_GROUP - 1, 1).to_pylist()[0]

@@ -161,30 +161,57 @@ def write_spliced(
 ) -> str:
     """Write the spliced file to `target`; returns its sha256.
 
-    The earlier file is read whole to check its sha256; on a mismatch `target` is removed and
-    `SpliceRefused` raised."""
+    The earlier file is read whole to check its sha256 first; on a mismatch `SpliceRefused` is
+    raised and `target` is not written. Its kept bytes are then copied by the kernel
+    (`os.copy_file_range`: 0.2 s a 550 MB file here, where reading and writing them through
+    Python took 1.3 s), so the earlier file, an old build's, must not change meanwhile: builds
+    are never rewritten, and the export root's lock keeps other builds out."""
     footer, cut = spliced_footer(kept, keep, written)
-    kept_hash = hashlib.sha256()
-    with target.open("wb") as out:
-        with kept_path.open("rb") as source:
-            _copy(source, cut, out, (kept_hash,))
-            # the kept bytes start both files: hashed once, the state copied (0.18 s a 325 MB
-            # file here)
-            target_hash = kept_hash.copy()
-            _copy(source, kept.size - cut, None, (kept_hash,))
-        if kept_hash.hexdigest() != kept_sha256:
-            out.close()
-            target.unlink()
-            raise SpliceRefused("the earlier file is not the one recorded (sha256 differs)")
+    target_hash = _verified_prefix_hash(kept_path, kept.size, cut, kept_sha256)
+    with target.open("wb", buffering=0) as out:
+        with kept_path.open("rb", buffering=0) as source:
+            _copy_prefix(source, out, cut)
         with written_path.open("rb") as source:
             source.seek(len(MAGIC))
             _copy(source, written.start - len(MAGIC), out, (target_hash,))
         for part in (footer, struct.pack("<I", len(footer)), MAGIC):
-            out.write(part)
+            _write_all(out, part)
             target_hash.update(part)
-        out.flush()
         os.fsync(out.fileno())
     return target_hash.hexdigest()
+
+
+def _verified_prefix_hash(path: Path, size: int, cut: int, recorded_sha256: str):  # noqa: ANN202
+    # the file is read once: the hash of its first `cut` bytes starts the spliced file's (the
+    # state copied), and the whole file's must be the recorded one
+    whole = hashlib.sha256()
+    with path.open("rb") as source:
+        _copy(source, cut, None, (whole,))
+        prefix = whole.copy()
+        _copy(source, size - cut, None, (whole,))
+    if whole.hexdigest() != recorded_sha256:
+        raise SpliceRefused("the earlier file is not the one recorded (sha256 differs)")
+    return prefix
+
+
+def _copy_prefix(source, out, size: int) -> None:  # noqa: ANN001 - binary files
+    """The first `size` bytes of `source` to `out`, in the kernel when it can."""
+    copied = 0
+    try:
+        while copied < size:
+            count = os.copy_file_range(source.fileno(), out.fileno(), size - copied, copied)
+            if count == 0:
+                raise SpliceRefused("the earlier file is shorter than its footer says")
+            copied += count
+    except (AttributeError, OSError):  # no copy_file_range here, or not across these files
+        source.seek(copied)
+        _copy(source, size - copied, out, ())
+
+
+def _write_all(out, data: bytes) -> None:  # noqa: ANN001 - a binary file without buffer
+    view = memoryview(data)
+    while view:
+        view = view[out.write(view) :]
 
 
 def _copy(source, size: int, out, hashes: tuple) -> None:  # noqa: ANN001 - binary files
@@ -196,4 +223,4 @@ def _copy(source, size: int, out, hashes: tuple) -> None:  # noqa: ANN001 - bina
         for digest in hashes:
             digest.update(block)
         if out is not None:
-            out.write(block)
+            _write_all(out, block)

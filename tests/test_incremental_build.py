@@ -142,6 +142,7 @@ def test_first_build_stores_the_instruments_and_says_why_it_was_full(world):
         "periods_rebuilt": manifest["periods_rebuilt"],
         "full_build_reason": "no instrument values are stored yet",
         "every_period": ["cost_shifters", "differentiation"],
+        "inputs_read": "every period",
     }
     assert len(stored_instrument(world, "iv_firm_sum_roast_level", "2024-01-15")) > 3
 
@@ -687,8 +688,62 @@ def test_one_more_day_without_peak_sizes_equals_a_full_build(world, tmp_path):
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
     night, manifest = build(world)
     assert market_tables(manifest)["build_mode"] == "incremental"
+    # the instruments read the market build's week and take the other weeks' stored inputs
+    assert instrument_scope(manifest)["inputs_read"] == "market build's periods"
+    assert instrument_scope(manifest)["periods_rebuilt"] == ["2024-02-12"]
     assert_same_parquet(night, full_rebuild(world))
     assert_same_parquet(night, fresh_build(world, tmp_path))
+
+
+def plant_stored_price(world: Path, period: str) -> None:
+    """Set the stored instrument input price of `period`'s product-markets to 7777."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute(
+            "update iv_stored_products set price = 7777 where period_start = $period::date",
+            {"period": period},
+        )
+
+
+def current_prices(world: Path, period: str) -> set[float]:
+    """The distinct prices of the last build's instrument inputs in `period`."""
+    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
+    try:
+        rows = con.execute(
+            "select distinct price from iv_products where period_start = $period::date",
+            {"period": period},
+        ).fetchall()
+        return {row[0] for row in rows}
+    finally:
+        con.close()
+
+
+def test_instrument_inputs_of_kept_weeks_come_from_their_stored_copy(world, tmp_path):
+    build(without_peak_sizes(world))
+    plant_stored_price(world, "2024-01-15")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    _night, manifest = build(world)
+    assert instrument_scope(manifest)["inputs_read"] == "market build's periods"
+    # a kept week is its stored copy (the market build did not touch it); the night's is read
+    assert current_prices(world, "2024-01-15") == {7777}
+    assert 7777 not in current_prices(world, "2024-02-12")
+
+
+def test_stored_inputs_of_other_market_tables_are_read_again_whole(world, tmp_path):
+    # the stored copy was made from market tables other than the ones this night merges into
+    # (a build that stored the market tables but not the instruments, say): every week is read
+    build(without_peak_sizes(world))
+    plant_stored_price(world, "2024-01-15")
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute("update instrument_state set market_generation = 'another generation'")
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    night, manifest = build(world)
+    assert market_tables(manifest)["build_mode"] == "incremental"
+    assert instrument_scope(manifest)["inputs_read"] == "every period"
+    assert instrument_scope(manifest)["periods_rebuilt"] == ["2024-01-15", "2024-02-12"]
+    assert 7777 not in current_prices(world, "2024-01-15")
+    assert_same_parquet(night, full_rebuild(world))
 
 
 def assert_night_rebuilds_every_market_row(world: Path, tmp_path: Path, reason: str) -> None:
@@ -699,6 +754,7 @@ def assert_night_rebuilds_every_market_row(world: Path, tmp_path: Path, reason: 
     night, manifest = build(world)
     assert manifest["periods_rebuilt"] == ["2024-02-12"]
     assert market_tables(manifest) == {"build_mode": "full", "full_build_reason": reason}
+    assert instrument_scope(manifest)["inputs_read"] == "every period"
     assert 7777 not in stored_net_revenues(world, "2024-01-15")
     assert_same_parquet(night, full_rebuild(world))
 

@@ -4,6 +4,9 @@
 -- price: the transaction price, null where the product did not sell (a zero-share row kept on
 -- the shelf, zero_shares = 'keep' or 'add_one', carries a shelf price in market_products): such
 -- a market gives no other-market price (040), and a sale arriving there changes this row (013)
+-- $keep_stored: the market build recomputed only the periods in market_slice_periods and kept
+-- the rows of the others, which the stored copy (iv_stored_products) was made from, so only
+-- the recomputed periods are read from market_products (periods.py, stored_inputs_hold)
 create or replace table iv_products as
 
 with
@@ -18,6 +21,8 @@ market_products_rows as (
         case when not is_zero_share then price end as price,
         is_fringe,
     from market_products
+    where not $keep_stored
+        or period_start in (select slice.period_start from market_slice_periods as slice)
 ),
 
 inside_products as (
@@ -34,6 +39,21 @@ inside_products as (
     where not is_fringe
 ),
 
+kept_products as (
+    select
+        market,
+        geography,
+        period_start,
+        product,
+        firm,
+        price,
+    from iv_stored_products
+    where $keep_stored
+        and period_start not in (select slice.period_start from market_slice_periods as slice)
+        -- a stored period the market tables no longer have is not brought back
+        and period_start in (select market.period_start from market_products as market)
+),
+
 final as (
     select
         market,
@@ -43,6 +63,15 @@ final as (
         firm,
         price,
     from inside_products
+    union all
+    select
+        market,
+        geography,
+        period_start,
+        product,
+        firm,
+        price,
+    from kept_products
 )
 
 select

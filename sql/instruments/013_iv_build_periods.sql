@@ -4,28 +4,38 @@
 -- (iv_stored_products, iv_stored_characteristics): a product-market that arrived or left, or a
 -- firm, price or characteristic value that moved. Hausman means, characteristic sums, counts
 -- and squared distances read only their own period, so stored values of other periods hold.
+-- $keep_stored: the inputs of periods outside market_slice_periods are the stored copy (010,
+-- 020), so only the periods in it are compared.
 create or replace table iv_build_periods as
 
 with
 
+compared_periods as (
+    select period_start from market_slice_periods
+),
+
 current_products as (
     select market, geography, period_start, product, firm, price,
     from iv_products
+    where not $keep_stored or period_start in (select period_start from compared_periods)
 ),
 
 stored_products as (
     select market, geography, period_start, product, firm, price,
     from iv_stored_products
+    where not $keep_stored or period_start in (select period_start from compared_periods)
 ),
 
 current_characteristics as (
     select market, product, period_start, firm, characteristic, value,
     from iv_characteristic_values
+    where not $keep_stored or period_start in (select period_start from compared_periods)
 ),
 
 stored_characteristics as (
     select market, product, period_start, firm, characteristic, value,
     from iv_stored_characteristics
+    where not $keep_stored or period_start in (select period_start from compared_periods)
 ),
 
 products_changed as (

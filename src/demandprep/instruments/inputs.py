@@ -10,7 +10,12 @@ from __future__ import annotations
 from demandprep.context import BuildContext
 from demandprep.errors import UserError
 from demandprep.instruments.columns import require_numeric_columns, require_table
-from demandprep.instruments.periods import create_empty_characteristics, plan_instrument_periods
+from demandprep.instruments.periods import (
+    create_empty_characteristics,
+    instrument_build_reason,
+    plan_instrument_periods,
+    stored_inputs_hold,
+)
 from demandprep.sqlfiles import run_sql
 
 MARKET_PRODUCT_COLUMNS = ("market", "geography", "period_start", "product", "firm", "price")
@@ -36,7 +41,9 @@ def prepare_instrument_inputs(ctx: BuildContext) -> None:
         )
     characteristics = instrument_characteristics(ctx)
     _check_characteristics(characteristics, columns)
-    run_sql(ctx.con, "instruments/010_iv_products.sql")
+    reason = instrument_build_reason(ctx)
+    keep_stored = stored_inputs_hold(ctx, reason)
+    run_sql(ctx.con, "instruments/010_iv_products.sql", {"keep_stored": keep_stored})
     _warn_on_products_without_firm(ctx)
     run_sql(ctx.con, "instruments/011_instrument_values.sql")
     run_sql(ctx.con, "instruments/012_instrument_flags.sql")
@@ -45,12 +52,12 @@ def prepare_instrument_inputs(ctx: BuildContext) -> None:
         run_sql(
             ctx.con,
             "instruments/020_iv_characteristic_values.sql",
-            {"characteristics": characteristics},
+            {"characteristics": characteristics, "keep_stored": keep_stored},
         )
         _require_complete_characteristics(ctx)
     else:
         create_empty_characteristics(ctx.con)
-    plan_instrument_periods(ctx)
+    plan_instrument_periods(ctx, reason, keep_stored)
 
 
 def _warn_on_products_without_firm(ctx: BuildContext) -> None:

@@ -8,7 +8,9 @@
   else the periods whose inputs (`iv_products`, `iv_characteristic_values`) differ from the
   copy stored with the values. The inputs are compared rather than the market build's
   `periods_rebuilt`, because a change in one period (a product entering the universe) can move
-  the product-markets of every period.
+  the product-markets of every period. When the market build kept every other period's rows of
+  the tables the copy was read from (`stored_inputs_hold`: the generations match), only its
+  periods are read and compared, and the copy stands for the others.
 - Per period: Hausman means (other markets of the same period), characteristic sums and counts
   and the squared distances (own market). Every period: the near-rival count when the
   characteristic's spread over all product-markets moved (`059_iv_spreads.sql`; a plain count,
@@ -30,6 +32,7 @@ from demandprep import __version__
 from demandprep.context import BuildContext
 from demandprep.fingerprints import current_reference_files, digest
 from demandprep.market.inputs import has_ledger
+from demandprep.market.slices import merged_into_generation, stored_generation
 from demandprep.sqlfiles import run_sql, sql_text
 
 # the steps whose text decides what a stored value means
@@ -56,6 +59,7 @@ create table if not exists instrument_state (
     references_hash varchar not null,
     code_hash varchar not null,
 );
+alter table instrument_state add column if not exists market_generation varchar;
 create table if not exists iv_stored_products (
     market varchar not null,
     geography varchar,
@@ -120,17 +124,42 @@ def create_empty_characteristics(con: duckdb.DuckDBPyConnection) -> None:
     con.execute(NO_CHARACTERISTICS_DDL)
 
 
-def plan_instrument_periods(ctx: BuildContext) -> None:
-    """Decide full or incremental and write the periods to compute into `iv_build_periods`."""
+def instrument_build_reason(ctx: BuildContext) -> str | None:
+    """Why every period's instruments must be computed (None: changed periods suffice); makes
+    the state tables of a warehouse that has none."""
+    ctx.con.execute(STATE_DDL)
+    # the input SQL names the market build's periods, which a build that ran no market stage
+    # on this connection does not have: none, and nothing is kept (stored_inputs_hold)
+    ctx.con.execute("create temp table if not exists market_slice_periods (period_start date)")
+    return full_build_reason(ctx.con, current_fingerprint(ctx))
+
+
+def stored_inputs_hold(ctx: BuildContext, reason: str | None) -> bool:
+    """True when the stored inputs equal this build's outside the market build's recomputed
+    periods (`market_slice_periods`): the values are incremental, and the market build kept
+    every other period's rows of the very tables the copies were stored from (the generation
+    it merged into is the one stored with the values, `market/slices.py`)."""
+    if reason is not None:
+        return False
+    merged_into = merged_into_generation(ctx)
+    stored = ctx.con.execute("select market_generation from instrument_state").fetchone()
+    return merged_into is not None and stored is not None and stored[0] == merged_into
+
+
+def plan_instrument_periods(ctx: BuildContext, reason: str | None, keep_stored: bool) -> None:
+    """Write the periods to compute into `iv_build_periods` (every one when `reason`)."""
     con = ctx.con
-    con.execute(STATE_DDL)
-    reason = full_build_reason(con, current_fingerprint(ctx))
-    run_sql(con, "instruments/013_iv_build_periods.sql", {"every_period": reason is not None})
+    run_sql(
+        con,
+        "instruments/013_iv_build_periods.sql",
+        {"every_period": reason is not None, "keep_stored": keep_stored},
+    )
     ctx.facts["instrument_scope"] = {
         "build_mode": "full" if reason is not None else "incremental",
         "periods_rebuilt": _build_periods(con),
         "full_build_reason": reason,
         "every_period": [],
+        "inputs_read": "market build's periods" if keep_stored else "every period",
     }
 
 
@@ -198,15 +227,22 @@ def store_instrument_values(ctx: BuildContext) -> None:
         ):
             _replace_rows(con, stored, fresh, column, is_full_build(ctx))
         _store_inputs(con, ctx.config.instruments.differentiation)
-        store_instrument_state(con, current_fingerprint(ctx))
+        store_instrument_state(con, current_fingerprint(ctx), stored_generation(con))
 
 
 def store_instrument_state(
-    con: duckdb.DuckDBPyConnection, fingerprint: tuple[str, str, str]
+    con: duckdb.DuckDBPyConnection,
+    fingerprint: tuple[str, str, str],
+    market_generation: str | None,
 ) -> None:
-    """Record the fingerprint the stored values were computed under."""
+    """Record the fingerprint the stored values were computed under and the generation of the
+    market tables their inputs were read from."""
     con.execute("delete from instrument_state")
-    con.execute("insert into instrument_state values (?, ?, ?)", list(fingerprint))
+    con.execute(
+        "insert into instrument_state "
+        "(config_hash, references_hash, code_hash, market_generation) values (?, ?, ?, ?)",
+        [*fingerprint, market_generation],
+    )
 
 
 def _replace_rows(

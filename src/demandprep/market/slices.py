@@ -20,13 +20,18 @@ shelf availability (reference files and the universe) and the peak volume of eac
 
 Only the recomputed rows meet the pandera model (the kept ones met it when they were stored);
 each table's key is checked whole in SQL, and the checks that warn or count read the whole
-table. The state is deleted when a build starts slicing and written once the last sliced table
-is stored, in the market stages' transaction: a build that dies in between leaves no state, and
-the next one rebuilds every period. Every later step sums in a fixed order, so a night writes
-the same bytes as a full build.
+table. The state is deleted when a build recomputes every period, and marked as merging (no
+generation) when it slices; it is written once the last sliced table is stored, in the market
+stages' transaction: a build that dies in between leaves no usable state, and the next one
+rebuilds every period. Each stored state has a new generation and, when the build sliced
+through the share table, the generation it merged into, so the instruments know whether the
+copies of market_products they keep are of the rows this build kept. Every later step sums in
+a fixed order, so a night writes the same bytes as a full build.
 """
 
 from __future__ import annotations
+
+import uuid
 
 import duckdb
 import pandera.polars as pa
@@ -64,12 +69,19 @@ SLICED_SQL = (
     "market/130_shares.sql",
 )
 
+# generation: a new id each time the tables are stored; merged_into: the generation whose
+# tables this build's slices were merged into (null when every period was recomputed), so a
+# later step that keeps copies of these tables' rows knows whether its copies are of the rows
+# this build kept (`instruments/periods.py`); a row whose generation is null is a build's that
+# is still merging (or died doing so)
 STATE_DDL = """
 create table if not exists market_slice_state (
     config_hash varchar not null,
     references_hash varchar not null,
     code_hash varchar not null,
 );
+alter table market_slice_state add column if not exists generation varchar;
+alter table market_slice_state add column if not exists merged_into varchar;
 """
 
 SUMMARIES_WHOLE = "the period summaries were rebuilt whole"
@@ -88,8 +100,9 @@ def plan_slices(ctx: BuildContext) -> None:
     con = ctx.con
     con.execute(STATE_DDL)
     reason = whole_build_reason(ctx)
-    con.execute("delete from market_slice_state")  # written again once every table is stored
     if reason is None:
+        # written again once every table is stored; until then it says what is being merged
+        con.execute("update market_slice_state set merged_into = generation, generation = null")
         periods = ctx.facts["build_scope"]["periods_rebuilt"]
         con.execute(
             "create or replace temp table market_slice_periods as "
@@ -98,6 +111,7 @@ def plan_slices(ctx: BuildContext) -> None:
         )
         ctx.facts["market_tables"] = {"build_mode": "incremental", "full_build_reason": None}
     else:
+        con.execute("delete from market_slice_state")  # written again once every table is stored
         every_period_from_here(ctx, reason)
 
 
@@ -107,7 +121,8 @@ def whole_build_reason(ctx: BuildContext) -> str | None:
     if ctx.facts.get("build_scope", {}).get("build_mode") != "incremental":
         return SUMMARIES_WHOLE
     stored = con.execute(
-        "select config_hash, references_hash, code_hash from market_slice_state"
+        "select config_hash, references_hash, code_hash from market_slice_state "
+        "where generation is not null"
     ).fetchall()
     if len(stored) != 1 or not all(stored_table_exists(con, table) for table in SLICED):
         return NO_STATE
@@ -213,9 +228,40 @@ def validate_merged(
 
 
 def store_slice_state(ctx: BuildContext) -> None:
-    """Record the fingerprint the stored per-market tables were made with."""
+    """Record the fingerprint the stored per-market tables were made with, a new generation,
+    and the one this build's slices were merged into."""
     con = ctx.con
+    merged_into = None
+    if not is_whole(ctx):
+        row = con.execute(
+            "select merged_into from market_slice_state where generation is null"
+        ).fetchone()
+        merged_into = row[0] if row else None
     con.execute("delete from market_slice_state")
     con.execute(
-        "insert into market_slice_state values (?, ?, ?)", list(slice_fingerprint(con, ctx))
+        "insert into market_slice_state "
+        "(config_hash, references_hash, code_hash, generation, merged_into) "
+        "values (?, ?, ?, ?, ?)",
+        [*slice_fingerprint(con, ctx), uuid.uuid4().hex, merged_into],
     )
+
+
+def stored_generation(con: duckdb.DuckDBPyConnection) -> str | None:
+    """The generation of the stored per-market tables; None while a build merges into them or
+    when none is recorded."""
+    con.execute(STATE_DDL)
+    row = con.execute(
+        "select generation from market_slice_state where generation is not null"
+    ).fetchone()
+    return row[0] if row else None
+
+
+def merged_into_generation(ctx: BuildContext) -> str | None:
+    """The generation of the tables this build merged its slices into, when it kept the rows
+    of every other period through the share table; None when it recomputed every period."""
+    if ctx.facts.get("market_tables", {}).get("build_mode") != "incremental":
+        return None
+    row = ctx.con.execute(
+        "select merged_into from market_slice_state where generation is not null"
+    ).fetchone()
+    return row[0] if row else None

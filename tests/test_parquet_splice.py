@@ -12,6 +12,7 @@ import duckdb
 import pyarrow.parquet as pq
 import pytest
 
+from demandprep.export.choices_file import row_groups_before
 from demandprep.export.manifest import file_sha256
 from demandprep.export.parquet import write_query_parquet
 from demandprep.export.parquet_splice import (
@@ -137,3 +138,30 @@ def test_a_file_that_is_not_parquet_is_refused(tmp_path):
     path.write_bytes(b"PAR1" + b"x" * 40)
     with pytest.raises(SpliceRefused, match="does not end like a Parquet file"):
         read_footer(path)
+
+
+@pytest.mark.parametrize(
+    "first",
+    [
+        "2025-01-01:00000000",  # the first row: no row before it
+        "2025-01-01:00000256",  # the first row of the second row group
+        "2025-01-03:00001500",  # inside a row group
+        "2025-01-11:00000000",  # after every row: the last, shorter row group is not counted
+    ],
+)
+def test_row_groups_before_a_key_are_the_whole_groups_below_it(con, tmp_path, first):
+    path = write(con, "rows_before", tmp_path / "sorted.parquet")
+    # the reference: the rows below `first`, counted on the read-back file, in whole row groups
+    occasions = pq.read_table(path, columns=["occasion"]).column("occasion").to_pylist()
+    below = sum(occasion < first for occasion in occasions)
+    assert row_groups_before(path, "occasion", first, ROWS_PER_GROUP) == below // ROWS_PER_GROUP
+
+
+def test_row_groups_before_a_key_need_the_files_statistics(con, tmp_path):
+    written = write(con, "rows_before", tmp_path / "sorted.parquet")
+    bare = tmp_path / "no_statistics.parquet"
+    pq.write_table(
+        pq.read_table(written), bare, row_group_size=ROWS_PER_GROUP, write_statistics=False
+    )
+    assert row_groups_before(bare, "occasion", "2025-01-03:00001500", ROWS_PER_GROUP) is None
+    assert row_groups_before(written, "no such column", "x", ROWS_PER_GROUP) is None

@@ -101,7 +101,7 @@ def kept_part(
     path = ctx.config.export.root / record.build_id / output.file_name
     if not path.is_file():
         return None, f"the last file (build {record.build_id}) is gone"
-    keep = min(_unchanged_rows(ctx, output, record), record.rows) // row_group_rows
+    keep = _kept_row_groups(ctx, output, record, path, row_group_rows)
     if keep == 0:
         return None, "fewer unchanged rows than one row group"
     try:
@@ -113,6 +113,41 @@ def kept_part(
     last_group = pq.ParquetFile(path).read_row_group(keep - 1, columns=list(output.sort_keys))
     last = tuple(column[-1].as_py() for column in last_group.columns)
     return KeptPart(path, footer, keep, last, record), None
+
+
+def _kept_row_groups(
+    ctx: BuildContext, output: OutputTable, record: ChoicesFile, path: Path, row_group_rows: int
+) -> int:
+    # the file's rows before `changed_from` are the table's: its statistics say how many whole
+    # row groups they fill (a count over the table took 0.3 s at 54M rows)
+    if record.changed_from is None:
+        return record.rows // row_group_rows
+    counted = row_groups_before(path, "occasion", record.changed_from, row_group_rows)
+    if counted is not None:
+        return counted
+    return min(_unchanged_rows(ctx, output, record), record.rows) // row_group_rows
+
+
+def row_groups_before(path: Path, column: str, first: str, row_group_rows: int) -> int | None:
+    """How many leading row groups of the file at `path` (sorted by `column`) hold
+    `row_group_rows` rows whose `column` is below `first`, from the row groups' statistics;
+    None when the file has no min/max statistics for `column`. A statistic cut short is a bound
+    above the values (Parquet's rule for max), so it can only give fewer row groups."""
+    metadata = pq.read_metadata(path)
+    leaves = [metadata.schema.column(index).path for index in range(metadata.num_columns)]
+    if column not in leaves:
+        return None
+    index = leaves.index(column)
+    groups = 0
+    for number in range(metadata.num_row_groups):
+        group = metadata.row_group(number)
+        statistics = group.column(index).statistics
+        if statistics is None or not statistics.has_min_max:
+            return None
+        if group.num_rows != row_group_rows or not statistics.max < first:
+            break
+        groups += 1
+    return groups
 
 
 def _unchanged_rows(ctx: BuildContext, output: OutputTable, record: ChoicesFile) -> int:

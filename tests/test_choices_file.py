@@ -7,6 +7,7 @@ import hashlib
 import shutil
 from pathlib import Path
 
+import duckdb
 import pyarrow.parquet as pq
 import pytest
 from test_incremental_build import EARLY_DAY, LAST_DAY, RECEIPTS, assert_same_parquet, build
@@ -74,12 +75,27 @@ def test_one_more_day_keeps_the_row_groups_before_its_week(world, tmp_path):
     assert_same_parquet(night, full_choice_rebuild(world))
 
 
+def recorded_footer_groups(world: Path) -> list[int] | None:
+    """The row group bounds recorded with the last exported choices file."""
+    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
+    try:
+        return con.execute("select footer_groups from choices_file_state").fetchone()[0]
+    finally:
+        con.close()
+
+
 def test_a_night_without_new_files_keeps_every_full_row_group(world):
     first, _manifest = build(world)
+    assert recorded_footer_groups(world) is None  # written whole: its footer was not read
     same, manifest = build(world)
     groups = pq.ParquetFile(first / "choices.parquet").metadata.num_row_groups
     assert choices_file(manifest)["row_groups_kept"] == groups - 1  # the last is not full
     assert (same / "choices.parquet").read_bytes() == (first / "choices.parquet").read_bytes()
+    # spliced: the bounds of its footer's entries are recorded, and the next night, which
+    # keeps those entries as their bytes, writes the same file again
+    assert len(recorded_footer_groups(world)) == groups + 1
+    again, _manifest = build(world)
+    assert (again / "choices.parquet").read_bytes() == (first / "choices.parquet").read_bytes()
 
 
 def test_a_night_that_died_before_its_export_leaves_its_rows_to_the_next(

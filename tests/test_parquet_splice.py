@@ -21,7 +21,7 @@ from demandprep.export.parquet_splice import (
     splice_refusal,
     write_spliced,
 )
-from demandprep.export.thrift_compact import encode_struct, read_struct
+from demandprep.export.thrift_compact import RawStruct, encode_struct, read_struct
 
 ROWS_PER_GROUP = 1024
 KEYS = ("occasion", "alternative")
@@ -104,10 +104,64 @@ def test_kept_row_groups_and_new_ones_give_the_whole_write_bytes(
     kept, written = read_footer(before), read_footer(tail)
     assert splice_refusal(kept, keep, written, ROWS_PER_GROUP) is None
     target = tmp_path / "spliced.parquet"
-    sha256 = write_spliced(before, kept, keep, file_sha256(before), tail, written, target)
+    sha256, _bounds = write_spliced(before, kept, keep, file_sha256(before), tail, written, target)
     assert target.read_bytes() == whole.read_bytes()
     assert sha256 == hashlib.sha256(whole.read_bytes()).hexdigest()
     assert pq.read_table(target).equals(pq.read_table(whole))
+
+
+def splice_rows_after(con, tmp_path: Path, before: Path, kept, keep: int, name: str):
+    """Splice `keep` row groups of `before` (its footer `kept`) with the rest of rows_after."""
+    last_kept = pq.read_table(before).slice(keep * ROWS_PER_GROUP - 1, 1).to_pylist()[0]
+    tail = write(
+        con,
+        "rows_after",
+        tmp_path / f"{name}.tail.parquet",
+        f"where (occasion, alternative) > ('{last_kept['occasion']}', "
+        f"'{last_kept['alternative']}')",
+    )
+    target = tmp_path / f"{name}.parquet"
+    _sha256, bounds = write_spliced(
+        before, kept, keep, file_sha256(before), tail, read_footer(tail), target
+    )
+    return target, bounds
+
+
+def test_recorded_bounds_keep_the_entries_as_bytes_and_splice_the_same_file(con, tmp_path):
+    before = write(con, "rows_before", tmp_path / "before.parquet")
+    whole = write(con, "rows_after", tmp_path / "whole.parquet").read_bytes()
+    first, bounds = splice_rows_after(con, tmp_path, before, read_footer(before), 5, "first")
+    assert first.read_bytes() == whole
+    # the bounds the splice wrote are where a whole reading finds each entry
+    parsed = read_footer(first)
+    assert parsed.group_bounds == bounds
+    raw = read_footer(first, bounds)
+    assert all(isinstance(group, RawStruct) for group in raw.row_groups)
+    assert [encode_struct(group) for group in parsed.row_groups] == list(raw.row_groups)
+    # a second splice keeps those entries as their bytes: still the whole write's bytes
+    second, again = splice_rows_after(con, tmp_path, first, raw, 7, "second")
+    assert second.read_bytes() == whole
+    assert again == bounds
+
+
+def test_bounds_that_do_not_fit_the_footer_read_it_whole(con, tmp_path):
+    path = write(con, "rows_before", tmp_path / "before.parquet")
+    whole = read_footer(path)
+    for wrong in ([5, 9, 12], [whole.group_bounds[0] + 1, *whole.group_bounds[1:]]):
+        footer = read_footer(path, wrong)
+        assert footer.row_groups == whole.row_groups
+        assert footer.group_bounds == whole.group_bounds
+
+
+def test_a_recorded_bound_off_the_cut_is_refused(con, tmp_path):
+    before = write(con, "rows_before", tmp_path / "before.parquet")
+    bounds = list(read_footer(before).group_bounds)
+    bounds[5] += 1  # where the sixth entry begins: the cut of a splice keeping five
+    kept = read_footer(before, bounds)
+    assert isinstance(kept.row_groups[0], RawStruct)  # they add up, so they are taken
+    with pytest.raises(SpliceRefused, match="bounds do not fit"):
+        splice_rows_after(con, tmp_path, before, kept, 5, "off")
+    assert not (tmp_path / "off.parquet").exists()
 
 
 def test_an_earlier_file_that_is_not_the_recorded_one_is_refused(con, tmp_path):

@@ -1,11 +1,13 @@
 """What the last exported choices file holds, for the next export to keep its row groups.
 
 One row in `choices_file_state`: the build that wrote the file, its sha256, its rows, the
-signature of the writer and query that made its bytes, and `changed_from`, the smallest
-occasion id from which the warehouse's `choices` may differ from the file (null: no row
-differs). The choice build lowers it before it deletes or appends rows, and forgets the row
-before it rebuilds every occasion, so a build that dies in between leaves it right; the export
-records a new row after it wrote the file (`export/choices_file.py`).
+signature of the writer and query that made its bytes, `changed_from`, the smallest occasion id
+from which the warehouse's `choices` may differ from the file (null: no row differs), and
+`footer_groups`, where each row group's entry begins in the file's footer (and the last ends;
+null when the file was written whole), so the next splice need not read them. The choice build
+lowers `changed_from` before it deletes or appends rows, and forgets the row before it rebuilds
+every occasion, so a build that dies in between leaves it right; the export records a new row
+after it wrote the file (`export/choices_file.py`).
 """
 
 from __future__ import annotations
@@ -21,7 +23,8 @@ create table if not exists choices_file_state (
     rows bigint not null,
     writer varchar not null,
     changed_from varchar,
-)
+);
+alter table choices_file_state add column if not exists footer_groups bigint[];
 """
 
 
@@ -34,6 +37,7 @@ class ChoicesFile:
     rows: int
     writer: str
     changed_from: str | None
+    footer_groups: list[int] | None = None
 
 
 def rows_changing(con: duckdb.DuckDBPyConnection, first_occasion: str | None) -> None:
@@ -53,7 +57,7 @@ def recorded_file(con: duckdb.DuckDBPyConnection) -> ChoicesFile | None:
     """The recorded file, if any."""
     con.execute(STATE_DDL)
     row = con.execute(
-        "select build_id, sha256, rows, writer, changed_from from choices_file_state"
+        "select build_id, sha256, rows, writer, changed_from, footer_groups from choices_file_state"
     ).fetchone()
     return ChoicesFile(*row) if row is not None else None
 
@@ -63,12 +67,15 @@ def record_file(con: duckdb.DuckDBPyConnection, exported: ChoicesFile) -> None:
     con.execute(STATE_DDL)
     con.execute("delete from choices_file_state")
     con.execute(
-        "insert into choices_file_state values ($build_id, $sha256, $rows, $writer, null)",
+        "insert into choices_file_state "
+        "(build_id, sha256, rows, writer, changed_from, footer_groups) "
+        "values ($build_id, $sha256, $rows, $writer, null, $footer_groups)",
         {
             "build_id": exported.build_id,
             "sha256": exported.sha256,
             "rows": exported.rows,
             "writer": exported.writer,
+            "footer_groups": exported.footer_groups,
         },
     )
 

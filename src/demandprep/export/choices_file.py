@@ -68,15 +68,16 @@ def write_choices_file(
     writer = writer_signature(query, layout.row_group_rows)
     kept, reason = kept_part(ctx, output, writer, layout.row_group_rows)
     written: WrittenTable | None = None
+    bounds = None
     if kept is not None:
         try:
-            written, sha256 = _write_spliced(ctx, output, kept, path, layout)
+            written, sha256, bounds = _write_spliced(ctx, output, kept, path, layout)
         except SpliceRefused as refused:
             reason = str(refused)
     if written is None:
         written = write_output_query(ctx, output, query, path, layout)
         sha256 = file_sha256(path)
-    record_file(ctx.con, ChoicesFile(path.parent.name, sha256, written.rows, writer, None))
+    record_file(ctx.con, ChoicesFile(path.parent.name, sha256, written.rows, writer, None, bounds))
     ctx.facts["choices_file"] = _facts(written, kept if reason is None else None, layout, reason)
     return replace(written, sha256=sha256)  # the manifest need not read the file again
 
@@ -105,7 +106,7 @@ def kept_part(
     if keep == 0:
         return None, "fewer unchanged rows than one row group"
     try:
-        footer = read_footer(path)
+        footer = read_footer(path, record.footer_groups)
     except SpliceRefused as refused:
         return None, str(refused)
     if keep > len(footer.row_groups):
@@ -161,7 +162,7 @@ def _unchanged_rows(ctx: BuildContext, output: OutputTable, record: ChoicesFile)
 
 def _write_spliced(
     ctx: BuildContext, output: OutputTable, kept: KeptPart, path: Path, layout: Layout
-) -> tuple[WrittenTable, str]:
+) -> tuple[WrittenTable, str, list[int]]:
     tail_path = path.with_name(f".{path.stem}.tail.parquet")
     try:
         after_kept = output_query(ctx.con, output, ctx.config, after=kept.last)
@@ -174,12 +175,12 @@ def _write_spliced(
         refusal = splice_refusal(kept.footer, kept.keep, tail_footer, layout.row_group_rows)
         if refusal is not None:
             raise SpliceRefused(refusal)
-        sha256 = write_spliced(
+        sha256, bounds = write_spliced(
             kept.path, kept.footer, kept.keep, kept.record.sha256, tail_path, tail_footer, path
         )
     finally:
         tail_path.unlink(missing_ok=True)
-    return WrittenTable(path, rows, tail.schema), sha256
+    return WrittenTable(path, rows, tail.schema), sha256, bounds
 
 
 def write_output_query(

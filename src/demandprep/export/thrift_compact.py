@@ -11,12 +11,17 @@ pyarrow's footers. Maps are not read: the Parquet footer has none.
 
 from __future__ import annotations
 
+from itertools import pairwise
 from typing import Any
 
 STOP, TRUE, FALSE, BYTE, I16, I32, I64, DOUBLE, BINARY, LIST, SET, MAP, STRUCT = range(13)
 INTEGERS = (I16, I32, I64)
 
 Field = list[Any]  # [field id, type, value]
+
+
+class RawStruct(bytes):
+    """A struct kept as its encoding (fields and stop byte): written back as it is, unread."""
 
 
 class CompactReader:
@@ -68,16 +73,16 @@ class CompactReader:
         raise ValueError(f"compact protocol type {kind} is not read here")
 
     def _list(self) -> tuple[int, list[Any]]:
-        header = self._byte()
-        size, kind = header >> 4, header & 0x0F
-        if size == 15:
-            size = self._varint()
+        size, kind = self._list_header()
         if kind in (TRUE, FALSE):  # a list's booleans are one byte each
             return kind, [self._byte() for _ in range(size)]
         return kind, [self.value(kind) for _ in range(size)]
 
-    def struct(self) -> list[Field]:
-        """A struct's fields up to its stop byte."""
+    def struct(self, marked: int | None = None, bounds: list[int] | None = None) -> list[Field]:
+        """A struct's fields up to its stop byte. Field `marked`, a list of structs, is read
+        element by element with the position where each begins and the last ends put in
+        `bounds`; when `bounds` already holds them, its elements are taken as `RawStruct`s at
+        those positions, unread, after checking the list's size and where it begins."""
         fields: list[Field] = []
         last = 0
         while True:
@@ -86,8 +91,40 @@ class CompactReader:
                 return fields
             delta, kind = header >> 4, header & 0x0F
             number = last + delta if delta else self._zigzag()
-            fields.append([number, kind, self.value(kind)])
+            if number == marked and kind == LIST and bounds is not None:
+                value = self._raw_structs(bounds) if bounds else self._marked_list(bounds)
+            else:
+                value = self.value(kind)
+            fields.append([number, kind, value])
             last = number
+
+    def _list_header(self) -> tuple[int, int]:
+        header = self._byte()
+        size, kind = header >> 4, header & 0x0F
+        if size == 15:
+            size = self._varint()
+        return size, kind
+
+    def _marked_list(self, bounds: list[int]) -> tuple[int, list[Any]]:
+        size, kind = self._list_header()
+        if kind != STRUCT:
+            raise ValueError("the marked field is not a list of structs")
+        items = []
+        for _ in range(size):
+            bounds.append(self.position)
+            items.append(self.struct())
+        bounds.append(self.position)
+        return kind, items
+
+    def _raw_structs(self, bounds: list[int]) -> tuple[int, list[Any]]:
+        size, kind = self._list_header()
+        if kind != STRUCT or size != len(bounds) - 1 or self.position != bounds[0]:
+            raise ValueError("the recorded bounds are not the marked list's")
+        if any(end <= start for start, end in pairwise(bounds)):
+            raise ValueError("the recorded bounds do not grow")
+        items = [RawStruct(self.data[start:end]) for start, end in pairwise(bounds)]
+        self.position = bounds[-1]
+        return kind, items
 
 
 class CompactWriter:
@@ -95,6 +132,7 @@ class CompactWriter:
 
     def __init__(self) -> None:
         self.out = bytearray()
+        self.bounds: list[int] = []  # where the marked list's elements begin, and its end
 
     def _varint(self, number: int) -> None:
         while number >= 0x80:
@@ -109,7 +147,9 @@ class CompactWriter:
         """One value of a type (a boolean field's value is in its header)."""
         if kind in (TRUE, FALSE):
             return
-        if kind == BYTE:
+        if isinstance(value, RawStruct):
+            self.out += value
+        elif kind == BYTE:
             self.out.append(value)
         elif kind in INTEGERS:
             self._zigzag(value)
@@ -125,20 +165,25 @@ class CompactWriter:
         else:
             raise ValueError(f"compact protocol type {kind} is not written here")
 
-    def _list(self, kind: int, items: list[Any]) -> None:
+    def _list(self, kind: int, items: list[Any], marked: bool = False) -> None:
         if len(items) < 15:
             self.out.append((len(items) << 4) | kind)
         else:
             self.out.append(0xF0 | kind)
             self._varint(len(items))
         for item in items:
+            if marked:
+                self.bounds.append(len(self.out))
             if kind in (TRUE, FALSE):
                 self.out.append(item)
             else:
                 self.value(kind, item)
+        if marked:
+            self.bounds.append(len(self.out))
 
-    def struct(self, fields: list[Field]) -> None:
-        """A struct's fields (short headers when the id grows by 1 to 15) and its stop byte."""
+    def struct(self, fields: list[Field], marked: int | None = None) -> None:
+        """A struct's fields (short headers when the id grows by 1 to 15) and its stop byte;
+        where the elements of list field `marked` begin (and the last ends) go to `bounds`."""
         last = 0
         for number, kind, value in fields:
             if kind in (TRUE, FALSE):
@@ -148,7 +193,10 @@ class CompactWriter:
             else:
                 self.out.append(kind)
                 self._zigzag(number)
-            self.value(kind, value)
+            if number == marked and kind == LIST:
+                self._list(*value, marked=True)
+            else:
+                self.value(kind, value)
             last = number
         self.out.append(STOP)
 
@@ -164,6 +212,26 @@ def encode_struct(fields: list[Field]) -> bytes:
     writer = CompactWriter()
     writer.struct(fields)
     return bytes(writer.out)
+
+
+def read_struct_marked(
+    data: bytes, marked: int, bounds: list[int] | None = None
+) -> tuple[list[Field], int, list[int]]:
+    """The struct encoded at the start of `data`, the position after it, and the bounds of its
+    list field `marked` (where each element begins, and where the last ends). Given `bounds`
+    (recorded from an earlier read or write of the same bytes), that list's elements come back
+    as `RawStruct`s, unread; `ValueError` when they do not fit."""
+    found = list(bounds) if bounds else []
+    reader = CompactReader(data)
+    fields = reader.struct(marked, found)
+    return fields, reader.position, found
+
+
+def encode_struct_marked(fields: list[Field], marked: int) -> tuple[bytes, list[int]]:
+    """The encoding of a struct and the bounds of its list field `marked` in it."""
+    writer = CompactWriter()
+    writer.struct(fields, marked)
+    return bytes(writer.out), writer.bounds
 
 
 def field_value(fields: list[Field], number: int, default: Any = None) -> Any:

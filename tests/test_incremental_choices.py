@@ -321,6 +321,40 @@ def test_one_more_day_keeps_the_card_visits_of_earlier_weeks(world, tmp_path):
     assert manifest["facts"]["choices"]["receipts_with_several_cards"] == kept[0]
 
 
+def test_one_more_day_reads_the_category_lines_of_its_week_only(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        # a planted amount on the lines before the week the night touches survives it
+        planted = con.execute(
+            "update choice_state_sales set net_amount = 7777 where day < '2024-02-12'"
+        ).fetchone()[0]
+    assert planted > 1000
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    build(world)
+    with open_warehouse(config.warehouse) as con:
+        kept = con.execute(
+            "select count_if(day < '2024-02-12' and net_amount = 7777), "
+            "count_if(day >= '2024-02-12' and net_amount = 7777), count_if(day >= '2024-02-12') "
+            "from choice_state_sales"
+        ).fetchone()
+    assert kept[0] == planted
+    assert kept[1] == 0 and kept[2] > 1000  # the touched week's lines were read again
+
+
+def test_a_full_choice_build_reads_every_category_line_again(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute("update choice_state_sales set net_amount = 7777")
+    full_choice_rebuild(world)
+    with open_warehouse(config.warehouse) as con:
+        planted = con.execute(
+            "select count_if(net_amount = 7777) from choice_state_sales"
+        ).fetchone()[0]
+    assert planted == 0
+
+
 def test_one_more_day_counts_what_a_full_build_counts(world, tmp_path):
     build(world)
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)

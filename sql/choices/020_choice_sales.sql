@@ -1,6 +1,9 @@
 -- Category sale and void lines of every receipt (card or not), mapped to alternatives.
 -- Net paid = amount - discount on every line; a void line cancels a sale line of its receipt.
-create or replace table choice_sales as
+-- $sales_from: the first day whose lines are read (null: every day); the lines of earlier days
+-- are kept from the last build (choices/kept_sales.py), which merges these into choice_sales.
+-- Compared on the sale time itself, so the scan skips the blocks of earlier days.
+create or replace table choice_scoped_sales as
 
 with
 
@@ -16,6 +19,7 @@ lines as (
         line_kind,
     from raw_lines
     where line_kind in ('sale', 'void')
+        and ($sales_from is null or sold_at >= cast($sales_from as timestamp))
 ),
 
 mapped as (

@@ -13,11 +13,14 @@ Intermediate tables are named choice_*; the last stage drops them, the card -> c
 
 from __future__ import annotations
 
+from datetime import date
+
 import duckdb
 
 from demandprep.choices.facts import choice_facts, warn_on_facts
 from demandprep.choices.file_state import drop_file_state, rows_changing
 from demandprep.choices.inputs import create_input_views, drop_input_views
+from demandprep.choices.kept_sales import stage_choice_sales
 from demandprep.choices.kept_visits import drop_kept, merge_scoped, restore_kept
 from demandprep.choices.parts import occasion_bounds, write_in_parts
 from demandprep.choices.pseudonyms import (
@@ -81,6 +84,7 @@ INTERMEDIATE_TABLES = (
     "choice_scoped_visits",
     "choice_scoped_visit_purchases",
     "choice_scoped_occasions",
+    "choice_scoped_sales",
 )
 
 
@@ -103,7 +107,8 @@ def _found(ctx: BuildContext, settings: ChoiceSettings, name: str) -> list[tuple
 
 
 def prepare_choice_inputs(ctx: BuildContext) -> None:
-    """Check key and settings; map SKUs to alternatives; stage shelf prices and category lines."""
+    """Check key and settings; map SKUs to alternatives; stage shelf prices; plan which days
+    this build makes again (`scope.py`) and stage the category's lines (`kept_sales.py`)."""
     # the key first: a missing or short key stops the build before it writes anything
     pseudonym_key(ctx.config.choices.pseudonym_key_env)
     settings = _settings(ctx)
@@ -118,6 +123,13 @@ def prepare_choice_inputs(ctx: BuildContext) -> None:
     refuse_key_separators(_found(ctx, settings, "009_choice_key_separators"))
     _check_reserved_alternatives(ctx)
     _check_universe_matches(ctx, settings)
+    plan_visit_scope(ctx, settings)
+    scope = visit_scope_params(ctx.con)
+
+    def read_lines(first_day: date | None) -> None:
+        run_sql(ctx.con, "choices/020_choice_sales.sql", {"sales_from": first_day})
+
+    stage_choice_sales(ctx.con, scope["every_visit"], scope["visits_from"], read_lines)
 
 
 INPUT_FILES = (
@@ -126,7 +138,6 @@ INPUT_FILES = (
     "008_choice_sku_products",
     "010_choice_alternative_map",
     "015_choice_shelf",
-    "020_choice_sales",
     "024_choice_period_start",
     "025_choice_calendar",
     "027_choice_store_regions",
@@ -169,8 +180,7 @@ def build_choice_occasions(ctx: BuildContext) -> None:
     """
     settings = _settings(ctx)
     key = pseudonym_key(ctx.config.choices.pseudonym_key_env)
-    plan_visit_scope(ctx, settings)
-    scope = visit_scope_params(ctx.con)
+    scope = visit_scope_params(ctx.con)  # planned by the inputs stage
     if scope["every_visit"]:
         drop_kept(ctx.con)
         offset = 0

@@ -19,6 +19,8 @@ from datetime import date
 
 import duckdb
 
+from demandprep.choices import kept_sales
+
 # the whole table a build reads -> the state table it is kept under between builds
 KEPT_TABLES = {
     "choice_visits": "choice_state_visits",
@@ -35,7 +37,7 @@ SCOPED_TABLES = (
 
 
 def kept_tables_stored(con: duckdb.DuckDBPyConnection) -> bool:
-    """True when the last build kept its visits and occasions."""
+    """True when the last build kept its visits, occasions and category lines."""
     names = {
         row[0]
         for row in con.execute(
@@ -43,7 +45,7 @@ def kept_tables_stored(con: duckdb.DuckDBPyConnection) -> bool:
             "where database_name = current_database() and schema_name = 'main'"
         ).fetchall()
     }
-    return all(state in names for state in KEPT_TABLES.values())
+    return all(state in names for state in (*KEPT_TABLES.values(), kept_sales.STATE))
 
 
 def restore_kept(con: duckdb.DuckDBPyConnection, visits_from: date | None) -> int:
@@ -89,6 +91,6 @@ def merge_scoped(con: duckdb.DuckDBPyConnection, every_visit: bool) -> None:
 
 def keep_for_next_build(con: duckdb.DuckDBPyConnection) -> None:
     """After a complete build, in its state transaction: the whole tables become the state."""
-    for table, state in KEPT_TABLES.items():
+    for table, state in (*KEPT_TABLES.items(), (kept_sales.SALES, kept_sales.STATE)):
         con.execute(f"drop table if exists {state}")
         con.execute(f"alter table {table} rename to {state}")

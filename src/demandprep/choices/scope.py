@@ -1,9 +1,10 @@
 """Incremental choice builds: which occasions a build recomputes, and what it keeps for the next.
 
 - Card visits and their occasions are made from the receipt lines only from `visits_from` on
-  (028, planned first, in the occasions stage: the first day of the earliest market period a
-  receipts file that arrived or left touches); the earlier ones are kept from the last build
-  (`kept_visits.py`). The history and the choosers are computed whole from them (the history
+  (028, planned in the inputs stage once the alternative map is made: the first day of the
+  earliest market period a receipts file that arrived or left touches); the earlier ones, and
+  the category's sale lines of earlier days, are kept from the last build (`kept_visits.py`,
+  `kept_sales.py`). The history and the choosers are computed whole from them (the history
   runs across periods). Each occasion's choice set with prices and attributes (062) and its
   rows in `choices` (090) are made only for the occasions from `rebuilt_from` on (056: that
   day, or an earlier one where a store-day's market changed). `choices` keeps the rows of the
@@ -35,6 +36,7 @@ from typing import Any
 import duckdb
 
 from demandprep import __version__
+from demandprep.choices import kept_sales
 from demandprep.choices.kept_visits import KEPT_TABLES, keep_for_next_build, kept_tables_stored
 from demandprep.choices.pseudonyms import key_fingerprint, pseudonym_key
 from demandprep.choices.settings import ChoiceSettings, table_columns
@@ -163,8 +165,8 @@ def plan_visit_scope(ctx: BuildContext, settings: ChoiceSettings) -> None:
     """Decide full or incremental and write `choice_visit_scope` (028), then forget the state:
     from here on a build that dies leaves a full build to the next one.
 
-    Runs first in the occasions stage (after the choice inputs: the fingerprint reads the
-    alternative map)."""
+    Runs in the inputs stage once the alternative map is made (the fingerprint reads it), before
+    the category's lines are read (`kept_sales.py`)."""
     con = ctx.con
     con.execute(STATE_DDL)
     reason = full_build_reason(ctx)
@@ -247,5 +249,5 @@ def store_choice_state(ctx: BuildContext) -> None:
 
 def drop_choice_state(con: duckdb.DuckDBPyConnection) -> None:
     """Drop every state table (choices turned off, or a build that never keeps rows)."""
-    for table in (*STATE_TABLES, *KEPT_TABLES.values()):
+    for table in (*STATE_TABLES, *KEPT_TABLES.values(), kept_sales.STATE):
         con.execute(f"drop table if exists {table}")

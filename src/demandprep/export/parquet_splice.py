@@ -118,7 +118,7 @@ def group_rows(group: list[Field]) -> int:
     return field_value(group, GROUP_NUM_ROWS)
 
 
-def group_start(group: list[Field] | RawStruct) -> int:
+def group_start(group: list[Field]) -> int:
     """Where a row group's bytes begin: its first column chunk's first page."""
     starts = []
     for chunk in field_value(group, GROUP_COLUMNS)[1]:

@@ -634,17 +634,22 @@ def without_peak_sizes(world: Path) -> Path:
     return world
 
 
-def stored_net_revenues(world: Path, period: str) -> set[float]:
-    """The distinct net revenues of the stored share table's rows of one period."""
+def distinct_in_period(world: Path, table: str, column: str, period: str) -> set:
+    """The distinct values of a warehouse table's column in the rows of one period."""
     con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
     try:
         rows = con.execute(
-            "select distinct net_revenue from shares where period_start = $period::date",
+            f"select distinct {column} from {table} where period_start = $period::date",  # noqa: S608
             {"period": period},
         ).fetchall()
         return {row[0] for row in rows}
     finally:
         con.close()
+
+
+def stored_net_revenues(world: Path, period: str) -> set[float]:
+    """The distinct net revenues of the stored share table's rows of one period."""
+    return distinct_in_period(world, "shares", "net_revenue", period)
 
 
 def plant_net_revenue(world: Path, *periods: str) -> None:
@@ -707,15 +712,7 @@ def plant_stored_price(world: Path, period: str) -> None:
 
 def current_prices(world: Path, period: str) -> set[float]:
     """The distinct prices of the last build's instrument inputs in `period`."""
-    con = duckdb.connect(str(world / "warehouse" / "demandprep.duckdb"), read_only=True)
-    try:
-        rows = con.execute(
-            "select distinct price from iv_products where period_start = $period::date",
-            {"period": period},
-        ).fetchall()
-        return {row[0] for row in rows}
-    finally:
-        con.close()
+    return distinct_in_period(world, "iv_products", "price", period)
 
 
 def test_instrument_inputs_of_kept_weeks_come_from_their_stored_copy(world, tmp_path):

@@ -13,8 +13,6 @@ Intermediate tables are named choice_*; the last stage drops them, the card -> c
 
 from __future__ import annotations
 
-from datetime import date
-
 import duckdb
 
 from demandprep.choices.facts import choice_facts, warn_on_facts
@@ -125,11 +123,7 @@ def prepare_choice_inputs(ctx: BuildContext) -> None:
     _check_universe_matches(ctx, settings)
     plan_visit_scope(ctx, settings)
     scope = visit_scope_params(ctx.con)
-
-    def read_lines(first_day: date | None) -> None:
-        run_sql(ctx.con, "choices/020_choice_sales.sql", {"sales_from": first_day})
-
-    stage_choice_sales(ctx.con, scope["every_visit"], scope["visits_from"], read_lines)
+    stage_choice_sales(ctx.con, scope["every_visit"], scope["visits_from"])
 
 
 INPUT_FILES = (

@@ -19,21 +19,20 @@ from datetime import date
 
 import duckdb
 
+from demandprep.sqlfiles import run_sql
+
 SALES = "choice_sales"
 STATE = "choice_state_sales"
 SCOPED = "choice_scoped_sales"
 
 
 def stage_choice_sales(
-    con: duckdb.DuckDBPyConnection,
-    every_visit: bool,
-    visits_from: date | None,
-    read_lines,  # noqa: ANN001 - runs 020 with its first day (None: every day)
+    con: duckdb.DuckDBPyConnection, every_visit: bool, visits_from: date | None
 ) -> None:
     """Make `choice_sales`: read whole, or the kept lines with those from `visits_from` on."""
     if every_visit:
         drop_kept_sales(con)
-        read_lines(None)
+        _read_lines(con, None)
         con.execute(f"alter table {SCOPED} rename to {SALES}")
         return
     con.execute(f"drop table if exists {SALES}")
@@ -41,9 +40,14 @@ def stage_choice_sales(
     if visits_from is None:
         return  # no receipts file arrived or left: every line is kept
     con.execute(f"delete from {SALES} where day >= $first", {"first": visits_from})  # noqa: S608
-    read_lines(visits_from)
+    _read_lines(con, visits_from)
     con.execute(f"insert into {SALES} select * from {SCOPED}")  # noqa: S608
     con.execute(f"drop table {SCOPED}")
+
+
+def _read_lines(con: duckdb.DuckDBPyConnection, first_day: date | None) -> None:
+    # the category's lines from `first_day` on (None: every day) into choice_scoped_sales
+    run_sql(con, "choices/020_choice_sales.sql", {"sales_from": first_day})
 
 
 def drop_kept_sales(con: duckdb.DuckDBPyConnection) -> None:

@@ -152,8 +152,7 @@ def row_groups_before(path: Path, column: str, first: str, row_group_rows: int) 
 
 
 def _unchanged_rows(ctx: BuildContext, output: OutputTable, record: ChoicesFile) -> int:
-    if record.changed_from is None:
-        return record.rows
+    # the table's rows before the first changed occasion (`_kept_row_groups` calls it only then)
     return ctx.con.execute(
         f"select count(*) from {output.table} where occasion < $first",  # noqa: S608
         {"first": record.changed_from},

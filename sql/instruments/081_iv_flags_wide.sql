@@ -1,4 +1,5 @@
--- One boolean column per instrument flag (e.g. iv_hausman_missing).
+-- One boolean column per instrument flag (e.g. iv_hausman_missing), for the periods the build
+-- assembles (`assembly_periods`).
 create or replace table iv_flags_wide as
 
 with
@@ -10,6 +11,7 @@ flag_rows as (
         flag,
         value,
     from iv_stored_flags
+    semi join assembly_periods using (period_start)
 )
 
 pivot flag_rows

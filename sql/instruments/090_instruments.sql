@@ -1,6 +1,8 @@
--- The instruments of every inside product-market, one row each: market, product, then the
--- iv_ columns of the configured families (the set depends on the config, hence the stars).
-create or replace table instruments as
+-- The instruments of every inside product-market of the periods the build assembles
+-- (`assembly_periods`), one row each: market, product, then the iv_ columns of the configured
+-- families (the set depends on the config, hence the stars). Merged into `instruments`
+-- (instruments/kept_assembly.py).
+create or replace table instruments_slice as
 
 with
 
@@ -9,6 +11,7 @@ products as (
         market,
         product,
     from iv_products
+    semi join assembly_periods using (period_start)
 ),
 
 final as (

@@ -15,16 +15,25 @@
   and the squared distances (own market). Every period: the near-rival count when the
   characteristic's spread over all product-markets moved (`059_iv_spreads.sql`; a plain count,
   cheap), and the cost shifters (cheap; their windows come from the whole list of periods).
-  The merge replaces an iv_ column's rows of each period the build computed.
+  The merge replaces an iv_ column's rows of each period the build computed and changed
+  (`076_iv_changed_periods.sql`: a period whose fresh rows all equal the stored ones, bit for
+  bit, keeps them).
 - The merge, the input copy (rewritten for the computed periods and those that left only)
   and the state are written in one transaction: a crash leaves the stored values as they
   were, and the next build recomputes from that record.
+- Each stored state has a new generation and, when the build merged into kept values, the
+  generation it merged into; before an incremental merge, `076_iv_changed_periods.sql` lists
+  the periods whose stored rows it changes. The tables assembled from the values keep the
+  other periods' rows when they were assembled from the generation merged into
+  (`kept_assembly.py`).
 
 Values of a period depend only on that period's inputs (and on the spread, compared bit for
 bit), and every later step pivots and sorts, so the Parquet files equal a full build's.
 """
 
 from __future__ import annotations
+
+import uuid
 
 import duckdb
 
@@ -51,6 +60,7 @@ INSTRUMENT_SQL = (
     "instruments/059_iv_spreads.sql",
     "instruments/060_instrument_values_differentiation.sql",
     "instruments/070_instrument_values_cost_shifters.sql",
+    "instruments/076_iv_changed_periods.sql",
 )
 
 STATE_DDL = """
@@ -60,6 +70,8 @@ create table if not exists instrument_state (
     code_hash varchar not null,
 );
 alter table instrument_state add column if not exists market_generation varchar;
+alter table instrument_state add column if not exists generation varchar;
+alter table instrument_state add column if not exists merged_into varchar;
 create table if not exists iv_stored_products (
     market varchar not null,
     geography varchar,
@@ -220,29 +232,51 @@ def spread_moved(ctx: BuildContext) -> bool:
 def store_instrument_values(ctx: BuildContext) -> None:
     """Merge this build's rows into the stored values and store their inputs, atomically."""
     con = ctx.con
+    full = is_full_build(ctx)
     with ctx.atomic():
+        if not full:
+            run_sql(con, "instruments/076_iv_changed_periods.sql")
         for stored, fresh, column in (
             ("iv_stored_values", "instrument_values", "instrument"),
             ("iv_stored_flags", "instrument_flags", "flag"),
         ):
-            _replace_rows(con, stored, fresh, column, is_full_build(ctx))
+            _replace_rows(con, stored, fresh, column, full)
         _store_inputs(con, ctx.config.instruments.differentiation)
-        store_instrument_state(con, current_fingerprint(ctx), stored_generation(con))
+        merged_into = None if full else stored_values_generation(con)
+        store_instrument_state(con, current_fingerprint(ctx), stored_generation(con), merged_into)
 
 
 def store_instrument_state(
     con: duckdb.DuckDBPyConnection,
     fingerprint: tuple[str, str, str],
     market_generation: str | None,
+    merged_into: str | None,
 ) -> None:
-    """Record the fingerprint the stored values were computed under and the generation of the
-    market tables their inputs were read from."""
+    """Record the fingerprint the stored values were computed under, the generation of the
+    market tables their inputs were read from, a new generation of the values and the one
+    this build merged into (None: every period was computed)."""
     con.execute("delete from instrument_state")
     con.execute(
-        "insert into instrument_state "
-        "(config_hash, references_hash, code_hash, market_generation) values (?, ?, ?, ?)",
-        [*fingerprint, market_generation],
+        "insert into instrument_state (config_hash, references_hash, code_hash, "
+        "market_generation, generation, merged_into) values (?, ?, ?, ?, ?, ?)",
+        [*fingerprint, market_generation, uuid.uuid4().hex, merged_into],
     )
+
+
+def stored_values_generation(con: duckdb.DuckDBPyConnection) -> str | None:
+    """The generation of the stored instrument values (None before the first, or when stored
+    by a version that kept none)."""
+    row = con.execute("select generation from instrument_state").fetchone()
+    return row[0] if row else None
+
+
+def merged_into_values(ctx: BuildContext) -> str | None:
+    """The generation of the values this build merged its periods into; None when it computed
+    every period."""
+    if is_full_build(ctx):
+        return None
+    row = ctx.con.execute("select merged_into from instrument_state").fetchone()
+    return row[0] if row else None
 
 
 def _replace_rows(
@@ -251,14 +285,21 @@ def _replace_rows(
     # the names are ours, never the user's; an iv_ column's rows of a period go as a whole
     if full:
         con.execute(f"delete from {stored}")  # noqa: S608
-    else:
-        con.execute(
-            f"delete from {stored} where exists (select 1 from {fresh} "  # noqa: S608
-            f"where {fresh}.{column} = {stored}.{column} "
-            f"and {fresh}.period_start = {stored}.period_start) "
-            f"or {stored}.period_start not in (select period_start from iv_products)"
-        )
-    con.execute(f"insert into {stored} by name from {fresh}")  # noqa: S608
+        con.execute(f"insert into {stored} by name from {fresh}")  # noqa: S608
+        return
+    # a period outside iv_changed_periods has every fresh row equal to its stored twin, bit
+    # for bit (076): only the changed periods' rows are written
+    con.execute(
+        f"delete from {stored} where ({stored}.period_start in "  # noqa: S608
+        "(select period_start from iv_changed_periods) "
+        f"and exists (select 1 from {fresh} where {fresh}.{column} = {stored}.{column} "
+        f"and {fresh}.period_start = {stored}.period_start)) "
+        f"or {stored}.period_start not in (select period_start from iv_products)"
+    )
+    con.execute(
+        f"insert into {stored} by name from {fresh} where period_start in "  # noqa: S608
+        "(select period_start from iv_changed_periods)"
+    )
 
 
 def _store_inputs(con: duckdb.DuckDBPyConnection, differentiation: list[str]) -> None:

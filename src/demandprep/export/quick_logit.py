@@ -25,7 +25,12 @@ from demandprep.instruments.fixed_effects import (
     fixed_effect_codes,
     row_columns,
 )
-from demandprep.instruments.regression import demean_within, dummy_columns, partial_f_test
+from demandprep.instruments.regression import (
+    Groups,
+    demean_within,
+    dummy_columns,
+    partial_f_test,
+)
 from demandprep.sqlfiles import quote_identifier
 
 SHARE_TABLE = "share_table"
@@ -218,15 +223,15 @@ def _estimate(data: LogitData, assumption: str, method: str) -> LogitEstimate:
 
 def effects_design(data: LogitData) -> Design:
     """Absorb the effect with most levels, add the others as dummies, drop collinear columns."""
-    codes = sorted(data.effect_codes, key=lambda c: len(np.unique(c)), reverse=True)
+    groups = sorted(map(Groups.of, data.effect_codes), key=lambda g: g.levels, reverse=True)
     extra = np.column_stack(
-        [np.empty((data.outcome.size, 0)), *(dummy_columns(c) for c in codes[1:])]
+        [np.empty((data.outcome.size, 0)), *(dummy_columns(g) for g in groups[1:])]
     )
     arrays = (data.outcome, data.price, data.exog, extra, data.instruments)
     absorbed = 0
-    if codes:
-        arrays = tuple(demean_within(a, codes[0]) for a in arrays)
-        absorbed = len(np.unique(codes[0]))
+    if groups:
+        arrays = tuple(demean_within(a, groups[0]) for a in arrays)
+        absorbed = groups[0].levels
     outcome, price, exog, extra, instruments = arrays
     # Order of preference: the constant, then the effects, then the characteristics, so a
     # characteristic constant within an effect is the column that drops out.

@@ -56,12 +56,12 @@ def partial_f_test(
     y = np.asarray(endogenous, dtype=float)
     z = np.asarray(instruments, dtype=float).reshape(len(y), -1)
     x = np.column_stack([np.ones(len(y)), np.asarray(exogenous, dtype=float).reshape(len(y), -1)])
-    codes = sorted(fixed_effects or [], key=lambda c: len(np.unique(c)), reverse=True)
+    groups = sorted(map(Groups.of, fixed_effects or []), key=lambda g: g.levels, reverse=True)
     absorbed_levels = 0
-    if codes:
-        x = np.column_stack([x, *[dummy_columns(c) for c in codes[1:]]])
-        y, z, x = (demean_within(a, codes[0]) for a in (y, z, x))
-        absorbed_levels = len(np.unique(codes[0]))
+    if groups:
+        x = np.column_stack([x, *[dummy_columns(g) for g in groups[1:]]])
+        y, z, x = (demean_within(a, groups[0]) for a in (y, z, x))
+        absorbed_levels = groups[0].levels
     rss_r, rank_r, _ = _least_squares(x, y)
     rss_u, rank_u, beta = _least_squares(np.column_stack([x, z]), y)
     df_num = rank_u - rank_r
@@ -105,18 +105,34 @@ def _least_squares(design: np.ndarray, y: np.ndarray) -> tuple[float, int, np.nd
     return float(residual @ residual), int(rank), scaled / scale
 
 
-def dummy_columns(codes: np.ndarray) -> np.ndarray:
-    """One 0/1 column per level of an integer-coded effect."""
-    levels, index = np.unique(codes, return_inverse=True)
-    out = np.zeros((len(codes), len(levels)))
-    out[np.arange(len(codes)), index] = 1.0
+@dataclass(frozen=True)
+class Groups:
+    """The levels of an integer-coded effect: each row's level as 0, 1, ... (in sorted code
+    order) and the rows per level, found once (a sort of every row) for all its uses."""
+
+    index: np.ndarray
+    counts: np.ndarray
+
+    @classmethod
+    def of(cls, codes: np.ndarray) -> Groups:
+        _, index = np.unique(codes, return_inverse=True)
+        return cls(index.reshape(-1), np.bincount(index.reshape(-1)))
+
+    @property
+    def levels(self) -> int:
+        return len(self.counts)
+
+
+def dummy_columns(groups: Groups) -> np.ndarray:
+    """One 0/1 column per level of an effect."""
+    out = np.zeros((len(groups.index), groups.levels))
+    out[np.arange(len(groups.index)), groups.index] = 1.0
     return out
 
 
-def demean_within(values: np.ndarray, codes: np.ndarray) -> np.ndarray:
+def demean_within(values: np.ndarray, groups: Groups) -> np.ndarray:
     """Subtract group means (the within transformation of a one-way fixed effect)."""
-    _, index = np.unique(codes, return_inverse=True)
-    counts = np.bincount(index)
+    index, counts = groups.index, groups.counts
     matrix = values.reshape(len(values), -1)
     demeaned = matrix.copy()
     for j in range(matrix.shape[1]):

@@ -7,8 +7,9 @@
 Generates a demo world (daily gzip CSV receipt files with the demo's seeded faults) of about
 --lines receipt lines (each size given, smallest first), or reuses the one cached in --workdir
 for that size and seed. The last day's file is held back. Then runs every contender in its own
-child process, one after the other (the disks synced before each, untimed), and measures its wall time, CPU time (user + sys of the
-child, from os.wait4) and peak RSS (the child's ru_maxrss):
+child process, one after the other (the disks synced before each, untimed), and measures its
+wall time, CPU time (user + sys of the child, from os.wait4) and peak RSS (the child's
+ru_maxrss):
 
   duckdb query    one typed read_csv over all files, join the catalogue, aggregate to the
                   visits-based store x week x product share table; nothing persisted (baseline)
@@ -851,7 +852,8 @@ def render(command: str, sections: list[str], by_size: dict[int, dict]) -> str:
         f"Machine: {machine()}.",
         "",
         "Each contender runs alone in its own process, one after the other, after the disks "
-        "are synced (untimed). Wall time from the parent; CPU time is user + sys of the child and peak RSS its ru_maxrss (os.wait4). "
+        "are synced (untimed). Wall time from the parent; CPU time is user + sys of the child "
+        "and peak RSS its ru_maxrss (os.wait4). "
         "Ratios are to the bare DuckDB query. With --runs above one, every contender runs once "
         "per round and the table shows the median per contender. A bare script whose peak "
         "memory, scaled from a smaller size, would not fit in this machine's memory is "

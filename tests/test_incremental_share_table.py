@@ -156,16 +156,24 @@ def test_a_moved_spread_rewrites_every_week_whose_counts_changed(world):
     assert_same_parquet(moved, full_rebuild(world))
 
 
-def test_share_rows_made_from_other_instrument_values_are_rewritten_whole(world):
-    # the kept rows were assembled from instrument values other than those this night merged
-    # into (a build that stored the values but died before the share table, say)
+def night_after(world: Path, statement: str) -> tuple[Path, dict]:
+    """Build, plant a value in a kept week, run `statement` on the warehouse, then build once
+    more with the held-back day; returns that night's folder and manifest."""
     build(world)
     plant(world, KEPT_WEEK)
     config = load_config(world / "demandprep.toml")
     with open_warehouse(config.warehouse) as con:
-        con.execute("update share_table_state set instrument_generation = 'another generation'")
+        con.execute(statement)
     add_the_held_back_day(world)
-    night, manifest = build(world)
+    return build(world)
+
+
+def test_share_rows_made_from_other_instrument_values_are_rewritten_whole(world):
+    # the kept rows were assembled from instrument values other than those this night merged
+    # into (a build that stored the values but died before the share table, say)
+    night, manifest = night_after(
+        world, "update share_table_state set instrument_generation = 'another generation'"
+    )
     assert share_table_scope(manifest)["full_build_reason"] == (
         "the stored share table was assembled from other instrument values or market tables"
     )
@@ -174,13 +182,7 @@ def test_share_rows_made_from_other_instrument_values_are_rewritten_whole(world)
 
 
 def test_market_tables_rebuilt_whole_rebuild_the_share_table_whole(world):
-    build(world)
-    plant(world, KEPT_WEEK)
-    config = load_config(world / "demandprep.toml")
-    with open_warehouse(config.warehouse) as con:
-        con.execute("delete from market_slice_state")
-    add_the_held_back_day(world)
-    _night, manifest = build(world)
+    _night, manifest = night_after(world, "delete from market_slice_state")
     assert manifest["facts"]["market_tables"]["build_mode"] == "full"
     assert share_table_scope(manifest)["build_mode"] == "full"
     assert share_table_scope(manifest)["full_build_reason"] == (

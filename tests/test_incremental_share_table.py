@@ -4,12 +4,14 @@ byte those of a full build of the same inputs."""
 
 from __future__ import annotations
 
+import gzip
 import shutil
 from pathlib import Path
 
 import duckdb
 import pytest
 from test_incremental_build import (
+    EARLY_DAY,
     LAST_DAY,
     RECEIPTS,
     assert_same_parquet,
@@ -18,10 +20,12 @@ from test_incremental_build import (
     distinct_in_period,
     fresh_build,
     full_rebuild,
+    rewrite_receipts,
     without_peak_sizes,
 )
 
 from demandprep.config import load_config
+from demandprep.ingest.withdraw import withdraw_files
 from demandprep.sqlfiles import run_sql
 from demandprep.warehouse import open_warehouse
 
@@ -114,6 +118,51 @@ def test_one_more_day_with_kept_share_rows_equals_a_full_build(world, tmp_path):
     assert share_table_scope(manifest)["build_mode"] == "incremental"
     assert_same_parquet(night, full_rebuild(world))
     assert_same_parquet(night, fresh_build(world, tmp_path))
+
+
+def test_a_corrected_early_file_rewrites_the_weeks_of_its_old_and_new_lines(world):
+    # the correction keeps the first half of a Tuesday's lines and dates them a week later
+    build(world)
+    plant(world, OTHER_KEPT_WEEK, NIGHT_WEEK)
+    early = world / RECEIPTS / EARLY_DAY
+    with gzip.open(early, "rt", encoding="utf-8") as handle:
+        half = (len(handle.read().splitlines()) - 1) // 2
+    rewrite_receipts(
+        early,
+        lambda number, line: (
+            line.replace(",2024-01-16 ", ",2024-01-23 ") if number < half else None
+        ),
+    )
+    _corrected, manifest = build(world)
+    assert share_table_scope(manifest) == {
+        "build_mode": "incremental",
+        "full_build_reason": None,
+        "periods_rebuilt": [KEPT_WEEK, OTHER_KEPT_WEEK],
+    }
+    assert planted(world, OTHER_KEPT_WEEK) == (False, False)
+    assert planted(world, NIGHT_WEEK) == (True, True)
+
+
+def test_a_corrected_early_file_equals_a_full_build(world):
+    build(world)
+    early = world / RECEIPTS / EARLY_DAY
+    rewrite_receipts(early, lambda number, line: None if number % 3 == 0 else line)
+    corrected, manifest = build(world)
+    assert share_table_scope(manifest)["build_mode"] == "incremental"
+    assert KEPT_WEEK in share_table_scope(manifest)["periods_rebuilt"]
+    assert_same_parquet(corrected, full_rebuild(world))
+
+
+def test_a_withdrawn_file_rewrites_its_week_and_equals_a_full_build(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        withdraw_files(con, config, str(RECEIPTS / EARLY_DAY), "sent twice by the till vendor")
+    (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
+    withdrawn, manifest = build(world)
+    assert share_table_scope(manifest)["build_mode"] == "incremental"
+    assert KEPT_WEEK in share_table_scope(manifest)["periods_rebuilt"]
+    assert_same_parquet(withdrawn, full_rebuild(world))
 
 
 def test_an_instrument_value_that_moved_in_a_kept_week_rewrites_that_week(world):

@@ -174,16 +174,30 @@ def test_a_night_without_new_files_rebuilds_no_period(world):
     assert_same_parquet(same, full_rebuild(world))
 
 
-def test_a_moved_spread_recomputes_the_near_rival_counts_of_every_period(world):
-    # Gandhi & Houde (2019): the near-rival count uses the characteristic's spread over every
-    # product-market, so when the spread moves no stored count can be kept
-    build(world)
+def move_spread_and_plant_near_counts(world: Path) -> None:
+    """Move every stored spread by one and plant -7 (a count no build makes) in every stored
+    near-rival count: the next build must count them all again."""
     config = load_config(world / "demandprep.toml")
     with open_warehouse(config.warehouse) as con:
         con.execute("update iv_stored_spreads set spread = spread + 1")
         con.execute(
             "update iv_stored_values set value = -7 where instrument = 'iv_diff_near_roast_level'"
         )
+
+
+def withdraw_early_day(world: Path, tmp_path: Path) -> None:
+    """Withdraw the early Tuesday's receipts file and move it out of the world."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        withdraw_files(con, config, str(RECEIPTS / EARLY_DAY), "sent twice by the till vendor")
+    (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
+
+
+def test_a_moved_spread_recomputes_the_near_rival_counts_of_every_period(world):
+    # Gandhi & Houde (2019): the near-rival count uses the characteristic's spread over every
+    # product-market, so when the spread moves no stored count can be kept
+    build(world)
+    move_spread_and_plant_near_counts(world)
     moved, manifest = build(world)
     assert instrument_scope(manifest)["periods_rebuilt"] == []
     assert instrument_scope(manifest)["every_period"] == ["cost_shifters", "differentiation"]
@@ -286,10 +300,7 @@ def test_corrected_file_recomputes_the_periods_of_its_old_and_new_lines(world, t
 
 def test_withdrawn_file_recomputes_the_periods_its_lines_were_in(world, tmp_path):
     build(world)
-    config = load_config(world / "demandprep.toml")
-    with open_warehouse(config.warehouse) as con:
-        withdraw_files(con, config, str(RECEIPTS / EARLY_DAY), "sent twice by the till vendor")
-    (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
+    withdraw_early_day(world, tmp_path)
     withdrawn, manifest = build(world)
     assert manifest["build_mode"] == "incremental"
     assert manifest["periods_rebuilt"] == ["2024-01-15"]

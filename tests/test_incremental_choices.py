@@ -18,12 +18,12 @@ from test_incremental_build import (
     build,
     fresh_build,
     rewrite_receipts,
+    withdraw_early_day,
 )
 
 from demandprep.choices import scope
 from demandprep.choices.settings import loyalty_block_size
 from demandprep.config import load_config
-from demandprep.ingest.withdraw import withdraw_files
 from demandprep.sqlfiles import run_sql
 from demandprep.warehouse import open_warehouse
 
@@ -166,10 +166,7 @@ def test_a_corrected_older_day_rebuilds_from_its_week_on(world, tmp_path):
 
 def test_a_withdrawn_file_rebuilds_from_the_week_its_lines_were_in(world, tmp_path):
     build(world)
-    config = load_config(world / "demandprep.toml")
-    with open_warehouse(config.warehouse) as con:
-        withdraw_files(con, config, str(RECEIPTS / EARLY_DAY), "sent twice by the till vendor")
-    (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
+    withdraw_early_day(world, tmp_path)
     withdrawn, manifest = build(world)
     assert choice_scope(manifest)["first_day_rebuilt"] == "2024-01-15"
     assert_same_parquet(withdrawn, full_choice_rebuild(world))

@@ -20,12 +20,13 @@ from test_incremental_build import (
     distinct_in_period,
     fresh_build,
     full_rebuild,
+    move_spread_and_plant_near_counts,
     rewrite_receipts,
+    withdraw_early_day,
     without_peak_sizes,
 )
 
 from demandprep.config import load_config
-from demandprep.ingest.withdraw import withdraw_files
 from demandprep.sqlfiles import run_sql
 from demandprep.warehouse import open_warehouse
 
@@ -155,10 +156,7 @@ def test_a_corrected_early_file_equals_a_full_build(world):
 
 def test_a_withdrawn_file_rewrites_its_week_and_equals_a_full_build(world, tmp_path):
     build(world)
-    config = load_config(world / "demandprep.toml")
-    with open_warehouse(config.warehouse) as con:
-        withdraw_files(con, config, str(RECEIPTS / EARLY_DAY), "sent twice by the till vendor")
-    (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
+    withdraw_early_day(world, tmp_path)
     withdrawn, manifest = build(world)
     assert share_table_scope(manifest)["build_mode"] == "incremental"
     assert KEPT_WEEK in share_table_scope(manifest)["periods_rebuilt"]
@@ -188,12 +186,9 @@ def test_a_moved_spread_rewrites_every_week_whose_counts_changed(world):
     # the near-rival counts of every period are recomputed when the spread moves; planted
     # counts differ from the night's in every week, so every week's rows are rewritten
     build(world)
+    move_spread_and_plant_near_counts(world)
     config = load_config(world / "demandprep.toml")
     with open_warehouse(config.warehouse) as con:
-        con.execute("update iv_stored_spreads set spread = spread + 1")
-        con.execute(
-            "update iv_stored_values set value = -7 where instrument = 'iv_diff_near_roast_level'"
-        )
         weeks = [
             row[0].isoformat()
             for row in con.execute("select distinct period_start from shares order by 1").fetchall()

@@ -30,6 +30,11 @@ EARLY_DAY = "receipts_2024-01-16.csv.gz"  # a Tuesday in the week of 2024-01-15
 @pytest.fixture()
 def world(tmp_path: Path, coffee_sample: Path) -> Path:
     """A private copy of the sample with choices off and its last day's file held back."""
+    return private_world(tmp_path, coffee_sample)
+
+
+def private_world(tmp_path: Path, coffee_sample: Path) -> Path:
+    """The `world` fixture's folder (for modules that share it)."""
     folder = tmp_path / "world"
     shutil.copytree(coffee_sample, folder)
     config = folder / "demandprep.toml"
@@ -142,6 +147,7 @@ def test_first_build_stores_the_instruments_and_says_why_it_was_full(world):
         "periods_rebuilt": manifest["periods_rebuilt"],
         "full_build_reason": "no instrument values are stored yet",
         "every_period": ["cost_shifters", "differentiation"],
+        "near_counts_recounted": [],
         "inputs_read": "every period",
     }
     assert len(stored_instrument(world, "iv_firm_sum_roast_level", "2024-01-15")) > 3
@@ -193,9 +199,11 @@ def withdraw_early_day(world: Path, tmp_path: Path) -> None:
     (world / RECEIPTS / EARLY_DAY).rename(tmp_path / EARLY_DAY)
 
 
-def test_a_moved_spread_recomputes_the_near_rival_counts_of_every_period(world):
+def test_a_spread_moved_past_a_gap_of_every_period_recounts_every_period(world):
     # Gandhi & Houde (2019): the near-rival count uses the characteristic's spread over every
-    # product-market, so when the spread moves no stored count can be kept
+    # product-market; a spread one higher passes a roast-level gap of every week (the sample's
+    # levels are whole numbers), so no stored count can be kept (test_near_rival_recount.py
+    # has the periods a smaller move recounts)
     build(world)
     move_spread_and_plant_near_counts(world)
     moved, manifest = build(world)

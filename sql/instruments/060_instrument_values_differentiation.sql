@@ -3,8 +3,8 @@
 -- of rivals whose difference is at most one standard deviation of the characteristic.
 -- The standard deviation is the sample one (n - 1) over all inside product-markets
 -- (iv_spreads). $characteristics: the checked characteristic names. Squared distances read only
--- their own market: they are computed for the iv_build_periods. Near-rival counts too, or for
--- every period when $every_period (the spread moved, so every count may move).
+-- their own market: they are computed for the iv_build_periods. Near-rival counts for the
+-- iv_near_periods (059): those and the periods a moved spread changes.
 insert into instrument_values
 
 with
@@ -32,7 +32,7 @@ chosen_periods as (
         value,
         in_build,
     from chosen
-    where $every_period or in_build
+    where period_start in (select near.period_start from iv_near_periods as near)
 ),
 
 spreads as (

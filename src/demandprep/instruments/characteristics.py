@@ -4,7 +4,7 @@ Pakes 1995) and differentiation measures (Gandhi & Houde 2019)."""
 from __future__ import annotations
 
 from demandprep.context import BuildContext
-from demandprep.instruments.periods import note_every_period, spread_moved
+from demandprep.instruments.near_periods import plan_near_counts
 from demandprep.sqlfiles import run_sql
 
 
@@ -24,17 +24,14 @@ def build_characteristic_sums(ctx: BuildContext) -> None:
 def build_differentiation(ctx: BuildContext) -> None:
     """Append iv_diff_sq_<c> and iv_diff_near_<c> for each configured characteristic.
 
-    Only the build's periods, unless a spread moved: then every near-rival count may move."""
+    Squared distances for the build's periods; near-rival counts for those and for the periods
+    where a moved spread changes a count (`near_periods.py`)."""
     characteristics = ctx.config.instruments.differentiation
     if not characteristics:
         return
-    params = {"characteristics": characteristics}
-    run_sql(ctx.con, "instruments/059_iv_spreads.sql", params)
-    every_period = spread_moved(ctx)
-    if every_period:
-        note_every_period(ctx, "differentiation")
+    plan_near_counts(ctx, characteristics)
     run_sql(
         ctx.con,
         "instruments/060_instrument_values_differentiation.sql",
-        params | {"every_period": every_period},
+        {"characteristics": characteristics},
     )

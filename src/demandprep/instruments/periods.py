@@ -12,9 +12,10 @@
   the tables the copy was read from (`stored_inputs_hold`: the generations match), only its
   periods are read and compared, and the copy stands for the others.
 - Per period: Hausman means (other markets of the same period), characteristic sums and counts
-  and the squared distances (own market). Every period: the near-rival count when the
-  characteristic's spread over all product-markets moved (`059_iv_spreads.sql`; a plain count,
-  cheap), and the cost shifters (cheap; their windows come from the whole list of periods).
+  and the squared distances (own market). The near-rival count also in the periods where a
+  moved spread over all product-markets changes a count (`near_periods.py`, which keeps the
+  rival gaps in `iv_stored_gaps`). Every period: the cost shifters (cheap; their windows come
+  from the whole list of periods).
   The merge replaces an iv_ column's rows of each period the build computed and changed
   (`076_iv_changed_periods.sql`: a period whose fresh rows all equal the stored ones, bit for
   bit, keeps them).
@@ -57,7 +58,9 @@ INSTRUMENT_SQL = (
     "instruments/042_instrument_flags_hausman.sql",
     "instruments/050_instrument_values_characteristic_sums.sql",
     "instruments/051_instrument_values_product_counts.sql",
-    "instruments/059_iv_spreads.sql",
+    "instruments/057_iv_rival_gaps.sql",
+    "instruments/058_iv_spreads.sql",
+    "instruments/059_iv_near_periods.sql",
     "instruments/060_instrument_values_differentiation.sql",
     "instruments/070_instrument_values_cost_shifters.sql",
     "instruments/076_iv_changed_periods.sql",
@@ -91,6 +94,11 @@ create table if not exists iv_stored_characteristics (
 create table if not exists iv_stored_spreads (
     characteristic varchar not null,
     spread double,
+);
+create table if not exists iv_stored_gaps (
+    period_start date not null,
+    characteristic varchar not null,
+    gap double,
 );
 create table if not exists iv_stored_values (
     market varchar not null,
@@ -171,6 +179,7 @@ def plan_instrument_periods(ctx: BuildContext, reason: str | None, keep_stored: 
         "periods_rebuilt": _build_periods(con),
         "full_build_reason": reason,
         "every_period": [],
+        "near_counts_recounted": [],
         "inputs_read": "market build's periods" if keep_stored else "every period",
     }
 
@@ -215,18 +224,6 @@ def note_every_period(ctx: BuildContext, family: str) -> None:
     families = ctx.facts["instrument_scope"]["every_period"]
     families.append(family)
     families.sort()
-
-
-def spread_moved(ctx: BuildContext) -> bool:
-    """True when a differentiation spread differs (bit for bit) from the stored one."""
-    if is_full_build(ctx):
-        return True
-    moved = ctx.con.execute(
-        "select count(*) from iv_spreads "
-        "full join iv_stored_spreads as stored using (characteristic) "
-        "where iv_spreads.spread is distinct from stored.spread"
-    ).fetchone()[0]
-    return bool(moved)
 
 
 def store_instrument_values(ctx: BuildContext) -> None:
@@ -305,10 +302,15 @@ def _replace_rows(
 def _store_inputs(con: duckdb.DuckDBPyConnection, differentiation: list[str]) -> None:
     # a period outside iv_build_periods equals its stored copy (013), so only the computed
     # periods and those that left are written: a night rewrites one period, not every one
-    for stored, current in (
+    copies = [
         ("iv_stored_products", "iv_products"),
         ("iv_stored_characteristics", "iv_characteristic_values"),
-    ):
+    ]
+    if differentiation:
+        copies.append(("iv_stored_gaps", "iv_rival_gaps"))
+    else:
+        con.execute("delete from iv_stored_gaps")
+    for stored, current in copies:
         con.execute(
             f"delete from {stored} where period_start in "  # noqa: S608
             "(select period_start from iv_build_periods) "

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import threading
 from pathlib import Path
 
 import duckdb
@@ -116,8 +117,67 @@ def test_too_few_rows_give_no_estimate(tmp_path: Path) -> None:
 
 def test_a_build_without_market_tables_has_no_quick_logit(tmp_path: Path) -> None:
     from demandprep.context import BuildContext
-    from demandprep.export.build import quick_logit_all
+    from demandprep.export.logit_alongside import estimates_alongside
 
     con = duckdb.connect()
     ctx = BuildContext(con=con, config=export_config(tmp_path))
-    assert quick_logit_all(ctx) == [] and ctx.warnings == []
+    with estimates_alongside(ctx) as estimates:
+        pass
+    assert estimates.result() == [] and ctx.warnings == []
+
+
+def test_the_export_estimates_on_a_thread_of_its_own_while_it_writes(warehouse, monkeypatch):
+    # the data files are written meanwhile; the estimates must equal the plain call's
+    from demandprep.context import BuildContext
+    from demandprep.export import logit_alongside as build
+
+    con, config = warehouse
+    threads: list[str] = []
+
+    def recorded(*args, **kwargs):
+        threads.append(threading.current_thread().name)
+        return quick_logit(*args, **kwargs)
+
+    monkeypatch.setattr(build, "quick_logit", recorded)
+    with build.estimates_alongside(BuildContext(con=con, config=config)) as estimates:
+        caller = threading.current_thread().name
+    assert estimates.result() == every_estimate(con, config)
+    assert len(estimates.result()) == 4  # OLS and IV for each of the two assumptions
+    assert threads and caller not in threads
+
+
+def test_a_failing_estimate_reaches_the_export(warehouse, monkeypatch):
+    from demandprep.context import BuildContext
+    from demandprep.errors import UserError
+    from demandprep.export import logit_alongside as build
+
+    con, config = warehouse
+
+    def failing(*_args, **_kwargs):
+        raise UserError("geography spans two regions", "use market effects")
+
+    monkeypatch.setattr(build, "quick_logit", failing)
+    with build.estimates_alongside(BuildContext(con=con, config=config)) as estimates:
+        pass
+    with pytest.raises(UserError, match="spans two regions"):
+        estimates.result()
+
+
+def test_inside_an_open_transaction_the_estimates_see_its_tables(tmp_path: Path) -> None:
+    # another cursor would read the last committed share table, not this transaction's
+    from demandprep.context import BuildContext
+    from demandprep.export import logit_alongside as build
+
+    con = duckdb.connect()
+    ctx = BuildContext(con=con, config=export_config(tmp_path))
+    with ctx.atomic():
+        fill_warehouse(con, occasions=5)
+        with build.estimates_alongside(ctx) as estimates:
+            pass
+        assert estimates.result() == every_estimate(con, ctx.config)
+        assert estimates.result()
+
+
+def every_estimate(con: duckdb.DuckDBPyConnection, config) -> list:
+    """The plain calls, one assumption after the other on the caller's connection."""
+    return [e for name in config.market_size for e in quick_logit(con, config, name)]

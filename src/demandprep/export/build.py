@@ -28,15 +28,15 @@ from demandprep.export.dictionary import (
 )
 from demandprep.export.drift import since_last_build
 from demandprep.export.input_warnings import input_warnings
+from demandprep.export.logit_alongside import estimates_alongside, warn_on_positive_price
 from demandprep.export.manifest import (
     OutputFile,
     build_manifest,
     input_records,
     write_manifest,
 )
-from demandprep.export.quick_logit import LogitEstimate, quick_logit
-from demandprep.export.report import ReportInputs, market_build_enabled, write_report
-from demandprep.export.report_data import table_exists
+from demandprep.export.quick_logit import LogitEstimate
+from demandprep.export.report import ReportInputs, write_report
 from demandprep.export.tables import OutputTable, output_query, plan_outputs
 
 
@@ -70,24 +70,27 @@ def write_build(
     notes = step_notes(ctx.con, ctx.config)
     entries: dict[str, list[tuple[ColumnEntry, str]]] = {}
     grains: dict[str, dict] = {}
-    with _timed(ctx, "export.parquet"):
-        for output in plan_outputs(ctx.con, ctx.config):
-            table, documented = write_output_table(ctx, output, staging_dir, models, notes)
-            built.tables.append(table)
-            entries[output.file_name] = documented
-            grains[output.file_name] = table_record(
-                output.kind, output.sort_keys, output.keys_unique
+    with estimates_alongside(ctx) as estimates:
+        with _timed(ctx, "export.parquet"):
+            for output in plan_outputs(ctx.con, ctx.config):
+                table, documented = write_output_table(ctx, output, staging_dir, models, notes)
+                built.tables.append(table)
+                entries[output.file_name] = documented
+                grains[output.file_name] = table_record(
+                    output.kind, output.sort_keys, output.keys_unique
+                )
+        built.others += [
+            OutputFile(path)
+            for path in write_dictionary(
+                staging_dir, dictionary_document(_sized(ctx, entries), grains, ctx.config)
             )
-    built.others += [
-        OutputFile(path)
-        for path in write_dictionary(
-            staging_dir, dictionary_document(_sized(ctx, entries), grains, ctx.config)
-        )
-    ]
-    with _timed(ctx, "export.extra_formats"):
-        built.others += write_extra_formats(ctx, built.tables, entries)
-    with _timed(ctx, "export.quick_logit"):
-        built.estimates = quick_logit_all(ctx)
+        ]
+        with _timed(ctx, "export.extra_formats"):
+            built.others += write_extra_formats(ctx, built.tables, entries)
+        # what is left of the estimates once the files are written
+        with _timed(ctx, "export.quick_logit"):
+            built.estimates = estimates.result()
+    warn_on_positive_price(ctx, built.estimates)
     with _timed(ctx, "export.drift"):
         drift = since_last_build(
             ctx.con,
@@ -187,24 +190,6 @@ def write_extra_formats(
         if "dta" in formats:
             written += _dta_copy(ctx, table, entries[source])
     return written
-
-
-def quick_logit_all(ctx: BuildContext) -> list[LogitEstimate]:
-    """Quick logit estimates for every assumption; a positive price coefficient is a warning.
-
-    A build without market tables (market build off) has none."""
-    if not market_build_enabled(ctx.config) or not table_exists(ctx.con, "share_table"):
-        return []
-    estimates = [
-        e for name in ctx.config.market_size for e in quick_logit(ctx.con, ctx.config, name)
-    ]
-    for estimate in estimates:
-        if estimate.price_coefficient > 0:
-            ctx.warn(
-                f"quick logit ({estimate.method.upper()}, assumption {estimate.assumption!r}): "
-                f"the price coefficient is positive ({estimate.price_coefficient:.3g})"
-            )
-    return estimates
 
 
 def _sized(

@@ -16,6 +16,7 @@ from demandprep import __version__
 from demandprep.config import ConfigInvalid, ProjectConfig, load_config
 from demandprep.config_reference import starter_toml
 from demandprep.errors import UserError
+from demandprep.process_tuning import tune_process
 
 app = typer.Typer(
     help="Turn receipt logs into validated datasets for discrete-choice demand estimation.",
@@ -23,6 +24,14 @@ app = typer.Typer(
     add_completion=False,
     pretty_exceptions_enable=False,
 )
+
+
+def entry() -> None:
+    """The console script: tune this process (`process_tuning.py`), then run the command."""
+    tune_process()
+    app()
+
+
 # Messages quote file headers, paths and config text: never read them as console markup.
 console = Console(stderr=True, markup=False, highlight=False)
 

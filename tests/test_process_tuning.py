@@ -51,3 +51,17 @@ def test_the_console_script_runs_the_tuning_entry() -> None:
 
     (script,) = [e for e in entry_points(group="console_scripts") if e.name == "demandprep"]
     assert script.value == "demandprep.cli:entry"
+
+
+def test_the_command_leaves_with_every_object_frozen() -> None:
+    # so the interpreter's shutdown skips walking them for cycles
+    code = (
+        "import atexit, gc, sys\n"
+        "import demandprep.cli as cli\n"
+        "atexit.register(lambda: print(gc.get_freeze_count() > 1000))\n"
+        "sys.argv = ['demandprep', '--version']\n"
+        "cli.entry()\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert out.returncode == 0
+    assert out.stdout.split() == ["0.1.0", "True"]

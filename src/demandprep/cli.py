@@ -16,7 +16,7 @@ from demandprep import __version__
 from demandprep.config import ConfigInvalid, ProjectConfig, load_config
 from demandprep.config_reference import starter_toml
 from demandprep.errors import UserError
-from demandprep.process_tuning import tune_process
+from demandprep.process_tuning import freeze_for_exit, tune_process
 
 app = typer.Typer(
     help="Turn receipt logs into validated datasets for discrete-choice demand estimation.",
@@ -27,9 +27,13 @@ app = typer.Typer(
 
 
 def entry() -> None:
-    """The console script: tune this process (`process_tuning.py`), then run the command."""
+    """The console script: tune this process (`process_tuning.py`), run the command, and leave
+    without a cycle hunt."""
     tune_process()
-    app()
+    try:
+        app()
+    finally:
+        freeze_for_exit()
 
 
 # Messages quote file headers, paths and config text: never read them as console markup.

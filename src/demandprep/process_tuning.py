@@ -11,6 +11,10 @@ before numpy loads (`cli.entry`). A program importing demandprep as a library ke
   0.16 s in 420 passes, 0.10 s of it in three full ones. After `COLLECT_AFTER` new objects a
   night makes two passes (0.05 s). Cyclic garbage is still collected, later; the data itself
   lives in DuckDB and Arrow, outside the collector.
+- No cycle hunt at exit. When the command is done, every object is frozen (`gc.freeze`), so the
+  interpreter's shutdown does not walk them all looking for cycles: the process frees its memory
+  as it exits anyway, and the command closed its warehouse and files itself. The same night
+  took 4.07 to 4.11 s against 4.29 to 4.37 s (four pairs).
 """
 
 from __future__ import annotations
@@ -28,3 +32,8 @@ def tune_process() -> None:
     for name, value in BLAS_THREADS.items():
         os.environ.setdefault(name, value)
     gc.set_threshold(COLLECT_AFTER, OLDER_PASSES, OLDER_PASSES)
+
+
+def freeze_for_exit() -> None:
+    """Move every object out of the collector's reach, for a shutdown that skips the cycle hunt."""
+    gc.freeze()

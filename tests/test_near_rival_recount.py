@@ -6,6 +6,8 @@ periods' counts, and its Parquet files equal a full build's."""
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import duckdb
@@ -72,12 +74,7 @@ def stored_spread(world: Path) -> float:
 def store_spread_and_plant(world: Path, spread: float, period: str | None = None) -> None:
     """Store `spread` as the one the stored counts were made with, and plant PLANTED in the
     stored near-rival counts (of `period`, or of every period)."""
-    config = load_config(world / "demandprep.toml")
-    with open_warehouse(config.warehouse) as con:
-        con.execute(
-            "update iv_stored_spreads set spread = $spread where characteristic = 'roast_level'",
-            {"spread": spread},
-        )
+    with _stored_spread_set(world, spread) as con:
         con.execute(
             "update iv_stored_values set value = $planted where instrument = $near "
             "and ($period::date is null or period_start = $period::date)",
@@ -143,12 +140,7 @@ def _near_rows(world: Path, period: str) -> list[tuple]:
 
 def _store_consistent_counts(world: Path, spread: float) -> None:
     """Store `spread` with the near-rival counts it gives (as a build with it would have)."""
-    config = load_config(world / "demandprep.toml")
-    with open_warehouse(config.warehouse) as con:
-        con.execute(
-            "update iv_stored_spreads set spread = $spread where characteristic = 'roast_level'",
-            {"spread": spread},
-        )
+    with _stored_spread_set(world, spread) as con:
         con.execute(
             "with chosen as (select * from iv_characteristic_values "
             "where characteristic = 'roast_level'), "
@@ -161,3 +153,15 @@ def _store_consistent_counts(world: Path, spread: float) -> None:
             "and stored.product = counts.product and stored.period_start = counts.period_start",
             {"spread": spread, "near": NEAR},
         )
+
+
+@contextmanager
+def _stored_spread_set(world: Path, spread: float) -> Iterator[duckdb.DuckDBPyConnection]:
+    """The warehouse, open, with `spread` stored as the roast level's spread."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        con.execute(
+            "update iv_stored_spreads set spread = $spread where characteristic = 'roast_level'",
+            {"spread": spread},
+        )
+        yield con

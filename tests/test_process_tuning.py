@@ -8,6 +8,7 @@ import os
 import subprocess
 import sys
 
+from demandprep import __version__
 from demandprep.process_tuning import COLLECT_AFTER
 
 # what the console script runs first, in a fresh interpreter, then what it reports
@@ -64,4 +65,4 @@ def test_the_command_leaves_with_every_object_frozen() -> None:
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert out.returncode == 0
-    assert out.stdout.split() == ["0.1.0", "True"]
+    assert out.stdout.split() == [__version__, "True"]

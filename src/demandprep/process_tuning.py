@@ -8,8 +8,8 @@ before numpy loads (`cli.entry`). A program importing demandprep as a library ke
 - Fewer garbage collections. Python's cycle collector starts a young-generation pass every 700
   new container objects and walks every object it holds in a full pass; importing the
   libraries (pandas, pandera, polars, pyarrow) makes several hundred thousand, so a night spent
-  0.16 s in 420 passes, 0.10 s of it in three full ones. After `COLLECT_AFTER` new objects a
-  night makes two passes (0.05 s). Cyclic garbage is still collected, later; the data itself
+  0.16 s in 420 passes, 0.10 s of it in three full ones. With a pass every `COLLECT_AFTER`
+  new objects a night makes four (0.05 s). Cyclic garbage is still collected, later; the data itself
   lives in DuckDB and Arrow, outside the collector.
 - No cycle hunt at exit. When the command is done, every object is frozen (`gc.freeze`), so the
   interpreter's shutdown does not walk them all looking for cycles: the process frees its memory

@@ -26,9 +26,8 @@ from demandprep.instruments.fixed_effects import (
     row_columns,
 )
 from demandprep.instruments.regression import (
-    Groups,
+    absorbed_and_dummies,
     demean_within,
-    dummy_columns,
     partial_f_test,
 )
 from demandprep.sqlfiles import quote_identifier
@@ -223,15 +222,12 @@ def _estimate(data: LogitData, assumption: str, method: str) -> LogitEstimate:
 
 def effects_design(data: LogitData) -> Design:
     """Absorb the effect with most levels, add the others as dummies, drop collinear columns."""
-    groups = sorted(map(Groups.of, data.effect_codes), key=lambda g: g.levels, reverse=True)
-    extra = np.column_stack(
-        [np.empty((data.outcome.size, 0)), *(dummy_columns(g) for g in groups[1:])]
-    )
+    effect, extra = absorbed_and_dummies(data.effect_codes, data.outcome.size)
     arrays = (data.outcome, data.price, data.exog, extra, data.instruments)
     absorbed = 0
-    if groups:
-        arrays = tuple(demean_within(a, groups[0]) for a in arrays)
-        absorbed = groups[0].levels
+    if effect is not None:
+        arrays = tuple(demean_within(a, effect) for a in arrays)
+        absorbed = effect.levels
     outcome, price, exog, extra, instruments = arrays
     # Order of preference: the constant, then the effects, then the characteristics, so a
     # characteristic constant within an effect is the column that drops out.

@@ -56,12 +56,12 @@ def partial_f_test(
     y = np.asarray(endogenous, dtype=float)
     z = np.asarray(instruments, dtype=float).reshape(len(y), -1)
     x = np.column_stack([np.ones(len(y)), np.asarray(exogenous, dtype=float).reshape(len(y), -1)])
-    groups = sorted(map(Groups.of, fixed_effects or []), key=lambda g: g.levels, reverse=True)
+    absorbed, dummies = absorbed_and_dummies(fixed_effects or [], len(y))
+    x = np.column_stack([x, dummies])
     absorbed_levels = 0
-    if groups:
-        x = np.column_stack([x, *[dummy_columns(g) for g in groups[1:]]])
-        y, z, x = (demean_within(a, groups[0]) for a in (y, z, x))
-        absorbed_levels = groups[0].levels
+    if absorbed is not None:
+        y, z, x = (demean_within(a, absorbed) for a in (y, z, x))
+        absorbed_levels = absorbed.levels
     rss_r, rank_r, _ = _least_squares(x, y)
     rss_u, rank_u, beta = _least_squares(np.column_stack([x, z]), y)
     df_num = rank_u - rank_r
@@ -121,6 +121,16 @@ class Groups:
     @property
     def levels(self) -> int:
         return len(self.counts)
+
+
+def absorbed_and_dummies(
+    fixed_effects: list[np.ndarray], rows: int
+) -> tuple[Groups | None, np.ndarray]:
+    """The effect with most levels, to absorb by demeaning within it (None without effects),
+    and the 0/1 columns of the others (rows x 0 when there are none)."""
+    groups = sorted(map(Groups.of, fixed_effects), key=lambda g: g.levels, reverse=True)
+    dummies = np.column_stack([np.empty((rows, 0)), *(dummy_columns(g) for g in groups[1:])])
+    return (groups[0] if groups else None), dummies
 
 
 def dummy_columns(groups: Groups) -> np.ndarray:

@@ -11,6 +11,7 @@ import duckdb
 from demandprep.config import ProjectConfig
 from demandprep.export.folder import latest_build
 from demandprep.export.manifest import MANIFEST_NAME, input_records, key_fingerprint_of
+from demandprep.fingerprints import code_fingerprint
 
 INGEST_STATUSES = ("new", "changed")
 
@@ -21,7 +22,8 @@ def files_to_ingest(discovered: Sequence[Any]) -> list[Any]:
 
 
 def latest_build_is_current(con: duckdb.DuckDBPyConnection, config: ProjectConfig) -> bool:
-    """True when `latest` was built from exactly the warehouse's current inputs and this config."""
+    """True when `latest` was built from exactly the warehouse's current inputs and this config,
+    by this very code (an upgrade or an edited step rebuilds)."""
     # Compared with the manifest rather than with tonight's discoveries, so a night that ingested
     # files and then failed is rebuilt the next night even when no further file arrives.
     latest = latest_build(config.export.root)
@@ -31,6 +33,7 @@ def latest_build_is_current(con: duckdb.DuckDBPyConnection, config: ProjectConfi
     manifest = json.loads(manifest_path.read_text(encoding="utf-8"))
     return (
         manifest.get("config_hash") == config.config_hash()
+        and manifest.get("tool", {}).get("code_fingerprint") == code_fingerprint()
         # another pseudonym key gives every chooser and occasion another id
         and manifest.get("pseudonym_key_fingerprint") == key_fingerprint_of(config)
         and _input_keys(manifest.get("inputs", [])) == _input_keys(input_records(con))

@@ -194,8 +194,8 @@ def test_second_run_with_nothing_new_skips_publishing(sample_run: SampleRun) -> 
         result = RUNNER.invoke(app, [command, str(sample_run.config)], terminal_width=2000)
         assert result.exit_code == 0, result.output
         assert result.output.splitlines()[-1] == (
-            f"nothing new since the latest build {before[-1]}: no input file and no setting "
-            "changed; skipped (pass --force to rebuild)"
+            f"nothing new since the latest build {before[-1]}: no input file, setting or "
+            "demandprep code changed; skipped (pass --force to rebuild)"
         )
         assert sample_run.published() == before
 

@@ -243,8 +243,8 @@ def build_with_progress(project: ProjectConfig, force: bool = False, con=None) -
     if outcome.folder is None or outcome.ctx is None:
         kept = outcome.kept.name if outcome.kept is not None else "latest"
         say(
-            f"nothing new since the latest build {kept}: no input file and no setting changed; "
-            "skipped (pass --force to rebuild)"
+            f"nothing new since the latest build {kept}: no input file, setting or demandprep "
+            "code changed; skipped (pass --force to rebuild)"
         )
         return None
     for warning in outcome.ctx.warnings:

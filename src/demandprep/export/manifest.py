@@ -19,6 +19,7 @@ from demandprep import __version__
 from demandprep.choices.pseudonyms import configured_key_fingerprint
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
+from demandprep.fingerprints import code_fingerprint
 
 MANIFEST_NAME = "manifest.json"
 HASH_BLOCK = 1 << 20
@@ -86,7 +87,11 @@ def build_manifest(
     return {
         "build_id": build_id,
         "built_at": built_at.isoformat(),
-        "tool": {"name": "demandprep", "version": __version__},
+        "tool": {
+            "name": "demandprep",
+            "version": __version__,
+            "code_fingerprint": code_fingerprint(),
+        },
         "config_hash": ctx.config.config_hash(),
         "pseudonym_key_fingerprint": key_fingerprint_of(ctx.config),
         "config": ctx.config.resolved_dict(),

@@ -14,6 +14,7 @@ from test_incremental_build import EARLY_DAY, LAST_DAY, RECEIPTS, assert_same_pa
 from test_incremental_choices import full_choice_rebuild, rewrite_receipts
 
 from demandprep.export import folder as export_folder
+from demandprep.export.parquet_splice import read_footer
 
 pytestmark = pytest.mark.usefixtures("one_line_report")
 
@@ -86,9 +87,13 @@ def recorded_footer_groups(world: Path) -> list[int] | None:
 
 def test_a_night_without_new_files_keeps_every_full_row_group(world):
     first, _manifest = build(world)
-    assert recorded_footer_groups(world) is None  # written whole: its footer was not read
-    same, manifest = build(world)
+    # written whole, its footer's bounds are recorded too: the first night after a full build
+    # need not read the whole footer (0.37 s for 288 row groups on a 13.1M-line world)
     groups = pq.ParquetFile(first / "choices.parquet").metadata.num_row_groups
+    whole_bounds = recorded_footer_groups(world)
+    assert len(whole_bounds) == groups + 1
+    assert whole_bounds == read_footer(first / "choices.parquet").group_bounds
+    same, manifest = build(world)
     assert choices_file(manifest)["row_groups_kept"] == groups - 1  # the last is not full
     assert (same / "choices.parquet").read_bytes() == (first / "choices.parquet").read_bytes()
     # spliced: the bounds of its footer's entries are recorded, and the next night, which

@@ -4,7 +4,7 @@ One row in `choices_file_state`: the build that wrote the file, its sha256, its 
 signature of the writer and query that made its bytes, `changed_from`, the smallest occasion id
 from which the warehouse's `choices` may differ from the file (null: no row differs), and
 `footer_groups`, where each row group's entry begins in the file's footer (and the last ends;
-null when the file was written whole), so the next splice need not read them. The choice build
+null when the footer could not be read), so the next splice need not read them. The choice build
 lowers `changed_from` before it deletes or appends rows, and forgets the row before it rebuilds
 every occasion, so a build that dies in between leaves it right; the export records a new row
 after it wrote the file (`export/choices_file.py`).

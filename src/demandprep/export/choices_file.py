@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Mapping
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, replace
 from pathlib import Path
 
@@ -33,6 +34,7 @@ from demandprep.export.parquet import WrittenTable, write_query_parquet
 from demandprep.export.parquet_splice import (
     Footer,
     SpliceRefused,
+    kept_prefix_hash,
     read_footer,
     splice_refusal,
     write_spliced,
@@ -174,6 +176,10 @@ def _write_spliced(
     ctx: BuildContext, output: OutputTable, kept: KeptPart, path: Path, layout: Layout
 ) -> tuple[WrittenTable, str, list[int]]:
     tail_path = path.with_name(f".{path.stem}.tail.parquet")
+    # the earlier file's check and kept bytes' hash read it whole (0.27 s for 325 MB): in a
+    # thread, while DuckDB and the writer make the new row groups
+    hashing = ThreadPoolExecutor(1, thread_name_prefix="demandprep-splice")
+    prefix = hashing.submit(kept_prefix_hash, kept.path, kept.footer, kept.keep, kept.record.sha256)
     try:
         after_kept = output_query(ctx.con, output, ctx.config, after=kept.last)
         tail = write_output_query(ctx, output, after_kept, tail_path, layout)
@@ -186,9 +192,17 @@ def _write_spliced(
         if refusal is not None:
             raise SpliceRefused(refusal)
         sha256, bounds = write_spliced(
-            kept.path, kept.footer, kept.keep, kept.record.sha256, tail_path, tail_footer, path
+            kept.path,
+            kept.footer,
+            kept.keep,
+            kept.record.sha256,
+            tail_path,
+            tail_footer,
+            path,
+            prefix.result(),
         )
     finally:
+        hashing.shutdown(cancel_futures=True)
         tail_path.unlink(missing_ok=True)
     return WrittenTable(path, rows, tail.schema), sha256, bounds
 

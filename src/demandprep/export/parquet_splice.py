@@ -24,6 +24,7 @@ import os
 import struct
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -158,10 +159,18 @@ def _written_after_row_groups(footer: Footer) -> bool:
     return False
 
 
+def kept_bytes(kept: Footer, keep: int) -> int:
+    """How many leading bytes of the earlier file the spliced file copies: up to its first row
+    group not kept (its footer when every row group is kept)."""
+    if keep < len(kept.row_groups):
+        return group_start(_fields(kept.row_groups[keep]))
+    return kept.start
+
+
 def spliced_footer(kept: Footer, keep: int, written: Footer) -> tuple[bytes, int, list[int]]:
     """The footer of the spliced file, where `written`'s row groups begin in the file, and
     where each row group's entry begins in the footer (and the last ends)."""
-    cut = group_start(_fields(kept.row_groups[keep])) if keep < len(kept.row_groups) else kept.start
+    cut = kept_bytes(kept, keep)
     shift = cut - len(MAGIC)
     fields = copy.deepcopy(written.fields)
     groups = field_value(fields, FILE_ROW_GROUPS)[1]
@@ -211,17 +220,22 @@ def write_spliced(
     written_path: Path,
     written: Footer,
     target: Path,
+    prefix_hash: Any = None,
 ) -> tuple[str, list[int]]:
     """Write the spliced file to `target`; returns its sha256 and its footer's row group
     bounds (for `read_footer` of the next splice).
 
-    The earlier file is read whole to check its sha256 first; on a mismatch `SpliceRefused` is
-    raised and `target` is not written. Its kept bytes are then copied by the kernel
+    The earlier file is read whole to check its sha256 first (`kept_prefix_hash`, unless its
+    result comes as `prefix_hash`, e.g. from a thread that ran while the new row groups were
+    written); on a mismatch `SpliceRefused` is raised and `target` is not written. Its kept
+    bytes are then copied by the kernel
     (`os.copy_file_range`: 0.2 s a 550 MB file here, where reading and writing them through
     Python took 1.3 s), so the earlier file, an old build's, must not change meanwhile: builds
     are never rewritten, and the export root's lock keeps other builds out."""
     footer, cut, bounds = spliced_footer(kept, keep, written)
-    target_hash = _verified_prefix_hash(kept_path, kept.size, cut, kept_sha256)
+    if prefix_hash is None:
+        prefix_hash = kept_prefix_hash(kept_path, kept, keep, kept_sha256)
+    target_hash = prefix_hash.copy()
     with target.open("wb", buffering=0) as out:
         with kept_path.open("rb", buffering=0) as source:
             _copy_prefix(source, out, cut)
@@ -233,6 +247,13 @@ def write_spliced(
             target_hash.update(part)
         os.fsync(out.fileno())
     return target_hash.hexdigest(), bounds
+
+
+def kept_prefix_hash(path: Path, kept: Footer, keep: int, recorded_sha256: str):  # noqa: ANN201
+    """The sha256 state of the earlier file's kept bytes (`kept_bytes`), which starts the
+    spliced file's hash, once the whole file is found to be its recorded sha256 (else
+    `SpliceRefused`). Reading and hashing release the GIL, so a thread can run it."""
+    return _verified_prefix_hash(path, kept.size, kept_bytes(kept, keep), recorded_sha256)
 
 
 def _verified_prefix_hash(path: Path, size: int, cut: int, recorded_sha256: str):  # noqa: ANN202

@@ -375,7 +375,9 @@ def working_rows(world: Path) -> dict[str, int]:
             "select count(*) from choice_store_day_info where alternative_info is not null"
         ).fetchone()[0]
         counts["ranked_choosers"] = con.execute(
-            "select count(distinct chooser_number) from choice_visit_history where not burn_in"
+            # the history is kept for the next build, under its state name
+            "select count(distinct chooser_number) from choice_state_visit_history "
+            "where not burn_in"
         ).fetchone()[0]
         return counts
     finally:
@@ -408,3 +410,56 @@ def test_one_more_day_makes_loyalty_and_prices_only_for_its_occasions(world, tmp
     for table in ("choice_alternative_prices", "store_day_maps"):
         assert 0 < made[table] < full[table] / 4
     assert_same_parquet(night, full_choice_rebuild(world))
+
+
+def stored_history(world: Path) -> list[tuple]:
+    """The kept visit history by chooser pseudonym (its numbers are only keys), in order."""
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        return con.execute(
+            "select n.chooser, h.visit_number, h.day, h.is_purchase, h.burn_in, "
+            "h.purchase_count, h.days_since_last_purchase, list_sort(h.previous_alternatives), "
+            "h.loyalty_rank, list_sort(h.purchase_alternatives) "
+            "from choice_state_visit_history h "
+            "join choice_state_chooser_numbers n using (chooser_number) order by all"
+        ).fetchall()
+
+
+def test_one_more_day_keeps_the_history_of_earlier_visits(world, tmp_path):
+    build(world)
+    config = load_config(world / "demandprep.toml")
+    with open_warehouse(config.warehouse) as con:
+        # a planted count on the visits before the week the night touches survives it
+        planted = con.execute(
+            "update choice_state_visit_history set purchase_count = -7 where day < '2024-02-12'"
+        ).fetchone()[0]
+    assert planted > 100
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    build(world)
+    with open_warehouse(config.warehouse) as con:
+        kept = con.execute(
+            "select count_if(day < '2024-02-12' and purchase_count = -7), "
+            "count_if(day >= '2024-02-12' and purchase_count = -7), count_if(day >= '2024-02-12') "
+            "from choice_state_visit_history"
+        ).fetchone()
+    assert kept[0] == planted
+    assert kept[1] == 0 and kept[2] > 100  # the touched week's visits got their history again
+
+
+def test_one_more_day_makes_the_history_a_full_build_makes(world, tmp_path):
+    # the touched week's history starts from each chooser's kept rows: first day, purchases
+    # before and after the burn-in, the latest purchase's day and alternatives
+    config = world / "demandprep.toml"
+    text = config.read_text(encoding="utf-8")
+    assert "loyalty_burn_in_days = 56" in text
+    config.write_text(text.replace("loyalty_burn_in_days = 56", "loyalty_burn_in_days = 7"))
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    build(world)
+    night = stored_history(world)
+    full_choice_rebuild(world)
+    full = stored_history(world)
+    assert night == full
+    late = [row for row in night if str(row[2]) >= "2024-02-12"]
+    assert sum(1 for row in late if row[3] and row[5] > 0 and row[7]) > 100
+    assert sum(1 for row in late if row[8] > 0) > 100

@@ -207,16 +207,20 @@ AFTER_PSEUDONYMS = (
 
 def build_choice_history(ctx: BuildContext) -> None:
     """Each occasion's history from earlier occasions: previous purchase, counts, and the
-    loyalty events the values are made of (`build_choice_sets` values the ranks it needs)."""
+    loyalty events the values are made of (`build_choice_sets` values the ranks it needs).
+    The kept visits' history is kept too (`kept_visits.HISTORY_TABLES`): 045 makes that of the
+    visits made again, from the kept rows of each chooser's earlier visits."""
     settings = _settings(ctx)
-    _run(
-        ctx,
-        settings,
+    scope = visit_scope_params(ctx.con)  # the kept history stops where the visits made start
+    made = {"every_visit": scope["every_visit"], "visits_from": scope["visits_from"]}
+    _run_on(
+        ctx.con,
+        {**settings.params(), **made},
+        "043_choice_history_tables",
         "044_choice_chooser_numbers",
         "045_choice_visit_history",
-        "046_choice_loyalty_start",
-        "047_choice_loyalty_events",
     )
+    _run(ctx, settings, "046_choice_loyalty_start", "047_choice_loyalty_events")
 
 
 def build_choice_sets(ctx: BuildContext) -> None:

@@ -37,7 +37,7 @@ import duckdb
 
 from demandprep import __version__
 from demandprep.choices import kept_sales
-from demandprep.choices.kept_visits import KEPT_TABLES, keep_for_next_build, kept_tables_stored
+from demandprep.choices.kept_visits import STORED_TABLES, keep_for_next_build, kept_tables_stored
 from demandprep.choices.pseudonyms import key_fingerprint, pseudonym_key
 from demandprep.choices.settings import ChoiceSettings, table_columns
 from demandprep.context import BuildContext
@@ -249,5 +249,5 @@ def store_choice_state(ctx: BuildContext) -> None:
 
 def drop_choice_state(con: duckdb.DuckDBPyConnection) -> None:
     """Drop every state table (choices turned off, or a build that never keeps rows)."""
-    for table in (*STATE_TABLES, *KEPT_TABLES.values(), kept_sales.STATE):
+    for table in (*STATE_TABLES, *STORED_TABLES.values(), kept_sales.STATE):
         con.execute(f"drop table if exists {table}")

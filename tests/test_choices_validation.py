@@ -13,7 +13,7 @@ from choices_fixtures import ChoiceWorld, make_config
 from export_fixtures import fill_warehouse
 
 from demandprep.choices.build import write_choices_table
-from demandprep.choices.scope import scope_params
+from demandprep.choices.scope import scope_params, visit_scope_params
 from demandprep.choices.settings import load_choice_settings
 from demandprep.choices.stages import CHOICE_STAGES
 from demandprep.choices.validation import model_checks, sql_check_names, validate_choices
@@ -300,7 +300,8 @@ def _choice_plans(*names: str) -> dict[str, str]:
     ctx = BuildContext(con=con, config=make_config())
     for stage in CHOICE_STAGES[:-1]:
         run_stage(stage, ctx)
-    params = {**load_choice_settings(con, ctx.config).params(), **scope_params(con)}
+    settings = load_choice_settings(con, ctx.config).params()
+    params = {**settings, **scope_params(con), **visit_scope_params(con)}
     plans = {}
     for name in names:
         text = sql_text(f"choices/{name}.sql")

@@ -5,7 +5,15 @@ from __future__ import annotations
 import duckdb
 import numpy as np
 
+from demandprep.choices.report_counts import count_choice_days
 from demandprep.export import report_data
+
+# the columns of `choices` the report's counts read (choices/report_counts.py), in this order
+CHOICE_COLUMNS = (
+    "occasion varchar, alternative varchar, chosen boolean, holdout boolean, sampled boolean, "
+    "choice_set_size bigint, loyalty double, burn_in boolean"
+)
+PLACES = ", ".join("?" * 8)
 
 
 def test_loyalty_distribution_counts_rows_per_tenth_outside_the_burn_in():
@@ -13,10 +21,15 @@ def test_loyalty_distribution_counts_rows_per_tenth_outside_the_burn_in():
     loyalty = np.concatenate([rng.random(500), [0.0, 0.1, 0.2999999, 0.9, 1.0, 1.0]])
     burn_in = rng.random(loyalty.size) < 0.3
     con = duckdb.connect()
-    con.execute("create table choices (loyalty double, burn_in boolean)")
-    rows = [(float(value), bool(flag)) for value, flag in zip(loyalty, burn_in, strict=True)]
-    con.executemany("insert into choices values (?, ?)", rows)
-    con.execute("insert into choices values (null, false), (null, true)")
+    con.execute(f"create table choices ({CHOICE_COLUMNS})")
+    rows = [
+        (f"2024-01-{1 + n % 28:02d}:o{n}", "a", True, False, False, 1, float(value), bool(flag))
+        for n, (value, flag) in enumerate(zip(loyalty, burn_in, strict=True))
+    ]
+    rows += [("2024-01-02:n1", "a", True, False, False, 1, None, False)]
+    rows += [("2024-01-02:n2", "a", True, False, False, 1, None, True)]
+    con.executemany(f"insert into choices values ({PLACES})", rows)
+    count_choice_days(con, None)  # as the choice build keeps them
     found = report_data.loyalty_distribution(con)
     # numpy: the tenth each loyalty falls in, 1.0 counted in the last one
     tenths = np.minimum(np.floor(loyalty[~burn_in] * 10), 9).astype(int)
@@ -28,10 +41,7 @@ def test_alternatives_per_occasion_counts_each_occasions_rows():
     # rows per occasion counted by grouping (the plain definition), on sampled and unsampled
     # occasions as the choice build writes them: one chosen row, set size on every row
     con = duckdb.connect()
-    con.execute(
-        "create table choices (occasion varchar, chosen boolean, choice_set_size bigint, "
-        "sampled boolean)"
-    )
+    con.execute(f"create table choices ({CHOICE_COLUMNS})")
     rng = np.random.default_rng(11)
     rows = []
     for number in range(300):
@@ -39,8 +49,13 @@ def test_alternatives_per_occasion_counts_each_occasions_rows():
         sampled = size > 4 and rng.random() < 0.5
         shown = 4 if sampled else size
         chosen = int(rng.integers(0, shown))
-        rows += [(f"o{number}", i == chosen, size, sampled) for i in range(shown)]
-    con.executemany("insert into choices values (?, ?, ?, ?)", rows)
+        day = f"2024-02-{1 + number % 20:02d}"
+        rows += [
+            (f"{day}:o{number}", f"a{i}", i == chosen, False, sampled, size, None, True)
+            for i in range(shown)
+        ]
+    con.executemany(f"insert into choices values ({PLACES})", rows)
+    count_choice_days(con, None)  # as the choice build keeps them
     expected = con.sql(
         "select alternatives, count(*) as occasions from "
         "(select count(*) as alternatives from choices group by occasion) "

@@ -26,6 +26,7 @@ from demandprep.choices.pseudonyms import (
     occasion_hash_parameters,
     pseudonym_key,
 )
+from demandprep.choices.report_counts import count_choice_days, counts_missing, drop_report_counts
 from demandprep.choices.scope import (
     drop_choice_state,
     first_rebuilt_id,
@@ -271,12 +272,16 @@ def build_choices(ctx: BuildContext) -> None:
         rows_changing(ctx.con, None)  # the last exported file keeps no row for the next
         write_choices_table(ctx, _settings(ctx))
         validate_choices(ctx.con)
+        count_choice_days(ctx.con, None)
     elif scope["rebuilt_from"] is not None:
         first = first_rebuilt_id(scope["rebuilt_from"])
         rows_changing(ctx.con, first)
         ctx.con.execute("delete from choices where occasion >= $first", {"first": first})
         write_choices_table(ctx, _settings(ctx), create=False)
         validate_choices(ctx.con, checked_from=first)
+        count_choice_days(ctx.con, first)
+    elif counts_missing(ctx.con):
+        count_choice_days(ctx.con, None)
     facts = choice_facts(ctx.con, ctx.config)
     ctx.facts["choices"] = facts
     warn_on_facts(ctx, facts)
@@ -325,6 +330,7 @@ def drop_choice_tables(ctx: BuildContext) -> None:
         ctx.con.execute(f"drop table if exists {table}")
     drop_choice_state(ctx.con)
     drop_file_state(ctx.con)
+    drop_report_counts(ctx.con)
     drop_intermediate_tables(ctx)
 
 

@@ -271,15 +271,15 @@ def zero_sales_total(con: duckdb.DuckDBPyConnection) -> int | None:
 
 def choice_summary(con: duckdb.DuckDBPyConnection) -> dict[str, float]:
     """Occasions, choosers, rows, mean alternatives per occasion and the holdout's size."""
-    # One chosen row per occasion (the choice build's invariant) counts occasions without a
-    # distinct count over the long table.
+    # the choice build's counts per day (choices/report_counts.py): one chosen row per
+    # occasion counts occasions without a distinct count over the long table
     occasions, rows, holdout_occasions = con.execute(
         """
         select
-            count(*) filter (where chosen),
-            count(*),
-            count(*) filter (where chosen and holdout),
-        from choices
+            coalesce(sum(count) filter (where measure = 'occasions'), 0)::bigint,
+            coalesce(sum(count) filter (where measure = 'rows'), 0)::bigint,
+            coalesce(sum(count) filter (where measure = 'holdout_occasions'), 0)::bigint,
+        from choice_report_counts
         """
     ).fetchall()[0]
     choosers, holdout_choosers = con.execute(
@@ -299,16 +299,9 @@ def alternatives_per_occasion(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """How many occasions offer each number of alternatives (rows per occasion)."""
     return con.sql(
         """
-        -- every occasion has one chosen row, and an unsampled one as many rows as its
-        -- choice_set_size on every row (the build checks all three, sql/choices/091): only
-        -- sampled occasions need their rows counted (0.23 s against 0.46 s grouping 37.6M rows)
-        with per_occasion as (
-            select choice_set_size as alternatives from choices where chosen and not sampled
-            union all
-            select count(*) as alternatives from choices where sampled group by occasion
-        )
-        select alternatives, count(*) as occasions
-        from per_occasion
+        select alternatives, sum(count)::bigint as occasions
+        from choice_report_counts
+        where measure = 'offered'
         group by alternatives
         order by alternatives
         """
@@ -319,11 +312,15 @@ def chosen_shares(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     """Share of occasions choosing each alternative, the most chosen first (at most 20)."""
     return con.sql(
         """
-        with chosen as (select alternative from choices where chosen),
-        total as (select count(*) as occasions from chosen)
-        select alternative, count(*) / any_value(total.occasions) as share
+        with chosen as (
+            select alternative, sum(count)::bigint as occasions
+            from choice_report_counts
+            where measure = 'chosen'
+            group by alternative
+        ),
+        total as (select sum(occasions)::bigint as occasions from chosen)
+        select alternative, chosen.occasions / total.occasions as share
         from chosen, total
-        group by alternative
         order by share desc, alternative
         limit 20
         """
@@ -335,11 +332,10 @@ def loyalty_distribution(con: duckdb.DuckDBPyConnection) -> pd.DataFrame:
     return con.sql(
         """
         with bins as (select range / 10 as low from range(10)),
-        -- grouped first, then joined to the bins: 0.31 s against 0.43 s over 37.6M rows here
         binned as (
-            select least(floor(loyalty * 10), 9) / 10 as low, count(loyalty) as rows,
-            from choices
-            where not burn_in
+            select loyalty_low as low, sum(count)::bigint as rows,
+            from choice_report_counts
+            where measure = 'loyalty'
             group by 1
         )
         select

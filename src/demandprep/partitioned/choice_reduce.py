@@ -26,6 +26,7 @@ import duckdb
 from demandprep.choices.facts import warn_on_facts
 from demandprep.choices.file_state import rows_changing
 from demandprep.choices.pseudonyms import pseudonym_key
+from demandprep.choices.report_counts import count_choice_days
 from demandprep.choices.validation import validate_choices
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
@@ -86,6 +87,7 @@ def choice_bucket_stages(
         rows_changing(ctx.con, None)  # every row is loaded again
         load_bucket_table(ctx.con, "choices", outputs, "occasion, alternative")
         validate_choices(ctx.con)
+        count_choice_days(ctx.con, None)
         facts = combined_choice_facts(ctx.con, outputs)
         ctx.facts["choices"] = facts
         warn_on_facts(ctx, facts)

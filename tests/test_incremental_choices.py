@@ -318,23 +318,32 @@ def test_one_more_day_keeps_the_card_visits_of_earlier_weeks(world, tmp_path):
     assert manifest["facts"]["choices"]["receipts_with_several_cards"] == kept[0]
 
 
-def test_one_more_day_reads_the_category_lines_of_its_week_only(world, tmp_path):
+TOUCHED_WEEK = "2024-02-12"  # the week of the held-back day
+
+
+def planted_then_night(world: Path, tmp_path: Path, table: str, column: str, value: int):
+    """Build, plant `value` in `column` of the state `table`'s rows before the touched week,
+    add the held-back day and build again; returns how many rows were planted, and after the
+    night: planted rows before the week, planted rows in it, and rows in it."""
     build(world)
     config = load_config(world / "demandprep.toml")
+    before, planted = f"day < '{TOUCHED_WEEK}'", f"{column} = {value}"
     with open_warehouse(config.warehouse) as con:
-        # a planted amount on the lines before the week the night touches survives it
-        planted = con.execute(
-            "update choice_state_sales set net_amount = 7777 where day < '2024-02-12'"
-        ).fetchone()[0]
-    assert planted > 1000
+        count = con.execute(f"update {table} set {planted} where {before}").fetchone()[0]
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
     build(world)
     with open_warehouse(config.warehouse) as con:
         kept = con.execute(
-            "select count_if(day < '2024-02-12' and net_amount = 7777), "
-            "count_if(day >= '2024-02-12' and net_amount = 7777), count_if(day >= '2024-02-12') "
-            "from choice_state_sales"
+            f"select count_if({before} and {planted}), count_if(not ({before}) and {planted}), "
+            f"count_if(not ({before})) from {table}"
         ).fetchone()
+    return count, kept
+
+
+def test_one_more_day_reads_the_category_lines_of_its_week_only(world, tmp_path):
+    # a planted amount on the lines before the week the night touches survives it
+    planted, kept = planted_then_night(world, tmp_path, "choice_state_sales", "net_amount", 7777)
+    assert planted > 1000
     assert kept[0] == planted
     assert kept[1] == 0 and kept[2] > 1000  # the touched week's lines were read again
 
@@ -426,22 +435,11 @@ def stored_history(world: Path) -> list[tuple]:
 
 
 def test_one_more_day_keeps_the_history_of_earlier_visits(world, tmp_path):
-    build(world)
-    config = load_config(world / "demandprep.toml")
-    with open_warehouse(config.warehouse) as con:
-        # a planted count on the visits before the week the night touches survives it
-        planted = con.execute(
-            "update choice_state_visit_history set purchase_count = -7 where day < '2024-02-12'"
-        ).fetchone()[0]
+    # a planted count on the visits before the week the night touches survives it
+    planted, kept = planted_then_night(
+        world, tmp_path, "choice_state_visit_history", "purchase_count", -7
+    )
     assert planted > 100
-    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
-    build(world)
-    with open_warehouse(config.warehouse) as con:
-        kept = con.execute(
-            "select count_if(day < '2024-02-12' and purchase_count = -7), "
-            "count_if(day >= '2024-02-12' and purchase_count = -7), count_if(day >= '2024-02-12') "
-            "from choice_state_visit_history"
-        ).fetchone()
     assert kept[0] == planted
     assert kept[1] == 0 and kept[2] > 100  # the touched week's visits got their history again
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import duckdb
 
+from demandprep.market.summaries import stored_table_exists
 from demandprep.sqlfiles import run_sql
 
 REPORT_COUNTS = "choice_report_counts"
@@ -51,10 +52,4 @@ def drop_report_counts(con: duckdb.DuckDBPyConnection) -> None:
 
 
 def _counts_stored(con: duckdb.DuckDBPyConnection) -> bool:
-    return bool(
-        con.execute(
-            "select count(*) from duckdb_tables() where table_name = $name "
-            "and database_name = current_database() and schema_name = 'main'",
-            {"name": REPORT_COUNTS},
-        ).fetchone()[0]
-    )
+    return stored_table_exists(con, REPORT_COUNTS)

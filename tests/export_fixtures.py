@@ -18,6 +18,7 @@ import duckdb
 import numpy as np
 import pandas as pd
 
+from demandprep.choices.report_counts import count_choice_days
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 
@@ -91,6 +92,7 @@ def fill_warehouse(con: duckdb.DuckDBPyConnection, occasions: int = 300, seed: i
     _create(con, "instrument_columns", INSTRUMENT_COLUMNS)
     choices = _choices(rng, occasions)
     _create(con, "choices", choices)
+    count_choice_days(con, None)  # the report's counts, kept with `choices` by the choice build
     _create(con, "choosers", _choosers(choices))
     ledger, reasons, quarantine = _ledger()
     _create(con, "ledger", ledger)

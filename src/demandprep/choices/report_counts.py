@@ -29,7 +29,7 @@ create table if not exists {REPORT_COUNTS} (
 def count_choice_days(con: duckdb.DuckDBPyConnection, counted_from: str | None) -> None:
     """Count the days of `choices` from the occasion id `counted_from` on (None: every day,
     the counts made again); without stored counts, every day is counted."""
-    if counted_from is None or not _counts_stored(con):
+    if counted_from is None or counts_missing(con):
         counted_from = None
         con.execute(f"drop table if exists {REPORT_COUNTS}")
     con.execute(COUNTS_DDL)
@@ -43,13 +43,9 @@ def count_choice_days(con: duckdb.DuckDBPyConnection, counted_from: str | None) 
 
 def counts_missing(con: duckdb.DuckDBPyConnection) -> bool:
     """True when no counts are stored (a warehouse made before them)."""
-    return not _counts_stored(con)
+    return not stored_table_exists(con, REPORT_COUNTS)
 
 
 def drop_report_counts(con: duckdb.DuckDBPyConnection) -> None:
     """Choices turned off: the counts go with the table they count."""
     con.execute(f"drop table if exists {REPORT_COUNTS}")
-
-
-def _counts_stored(con: duckdb.DuckDBPyConnection) -> bool:
-    return stored_table_exists(con, REPORT_COUNTS)

@@ -19,7 +19,6 @@ from typing import Any
 import pandas as pd
 
 from demandprep import __version__
-from demandprep.choices.report_counts import count_choice_days, counts_missing
 from demandprep.config import ProjectConfig
 from demandprep.context import BuildContext
 from demandprep.export import report_data, report_plots
@@ -101,8 +100,6 @@ def render_report(ctx: BuildContext, inputs: ReportInputs) -> str:
         ctx.con, "share_table"
     )
     choices_on = ctx.config.choices.enabled and report_data.table_exists(ctx.con, "choices")
-    if choices_on and counts_missing(ctx.con):
-        count_choice_days(ctx.con, None)  # a `choices` table no choice build counted
     choices = report_data.choice_summary(ctx.con) if choices_on else None
     sections = [
         _masthead(ctx, inputs, markets_on, choices),

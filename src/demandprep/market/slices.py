@@ -222,8 +222,8 @@ def validate_merged(
     con = ctx.con
     validate_table(con, recomputed, model, shown_as=table)
     if recomputed != table:
+        require_unique_key(con, table, model, recomputed)
         con.execute(f"drop table {recomputed}")
-        require_unique_key(con, table, model)
     return con.execute(f"select count(*) from {table}").fetchone()[0]  # noqa: S608
 
 

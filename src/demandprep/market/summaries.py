@@ -221,23 +221,32 @@ def store_summary(ctx: BuildContext, summary: str, model: type[pa.DataFrameModel
             con.execute(f"create or replace table {summary} as from {summary}_slice")  # noqa: S608
         else:
             _replace_periods(con, summary)
+        require_unique_key(con, summary, model, None if full else f"{summary}_slice")
         con.execute(f"drop table {summary}_slice")  # merged: the warehouse keeps one copy
-        require_unique_key(con, summary, model)
         rows = con.execute(f"select count(*) from {summary}").fetchone()[0]  # noqa: S608
         store_summary_state(con, summary, current_fingerprint(con, ctx.config))
     return rows
 
 
 def require_unique_key(
-    con: duckdb.DuckDBPyConnection, table: str, model: type[pa.DataFrameModel]
+    con: duckdb.DuckDBPyConnection,
+    table: str,
+    model: type[pa.DataFrameModel],
+    recomputed: str | None = None,
 ) -> None:
-    """Refuse `table` when two rows share its model's key (`Config.unique`), naming one key."""
+    """Refuse `table` when two rows share its model's key (`Config.unique`), naming one key.
+
+    `recomputed`: the table of the rows just merged into `table`; the rows kept from before
+    had unique keys when they were stored, so a repeated key holds one of these, and only
+    their keys are looked at (not every period's, as in a full build)."""
     key = model.to_schema().unique or []
     if not key:
         return
     columns = ", ".join(quote_identifier(column) for column in key)
+    # the table names are ours, never the user's
+    among = f" semi join {recomputed} using ({columns})" if recomputed else ""
     repeated = con.execute(
-        f"select count(*), {columns} from {table} group by all "  # noqa: S608
+        f"select count(*), {columns} from {table}{among} group by all "  # noqa: S608
         "having count(*) > 1 order by all limit 1"
     ).fetchall()
     if repeated:

@@ -27,6 +27,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from demandprep import __version__
+from demandprep.export.parquet_parts import write_row_groups
 from demandprep.memory import memory_shared_with_batches
 from demandprep.warehouse import insertion_order_kept
 
@@ -88,6 +89,8 @@ def _write_query(
     sort_keys: Sequence[str],
     check_order: bool,
 ) -> WrittenTable:
+    # as many row groups encoded at once as DuckDB may use threads (the user's setting)
+    encoders = max(1, int(con.execute("select current_setting('threads')").fetchone()[0]))
     with memory_shared_with_batches(con):
         reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
         try:
@@ -99,6 +102,7 @@ def _write_query(
                 table_metadata,
                 sort_keys,
                 sort_keys if check_order else (),
+                encoders,
             )
         finally:
             reader.close()  # a write that failed mid-stream must not leave the connection busy
@@ -167,14 +171,16 @@ def _write_batches(
     table_metadata: Mapping[str, str],
     sort_keys: Sequence[str],
     checked_keys: Sequence[str] = (),
+    encoders: int = 1,
 ) -> WrittenTable:
     """The reader's rows in row groups of `row_group_rows`, cut (and their `checked_keys`
     checked) on a thread while this one writes (`read_ahead`): on the 10M-occasion choice table
-    the cutting and the checks took 7 of the export's 59 s on the writer's thread."""
+    the cutting and the checks took 7 of the export's 59 s on the writer's thread. `encoders`
+    row groups are encoded at once (`parquet_parts.py`)."""
     schema = documented_schema(reader.schema, column_docs, table_metadata)
     groups = checked_row_groups(reader, row_group_rows, checked_keys)
     with read_ahead(groups) as ahead:
-        return _write_groups(iter(ahead), path, schema, row_group_rows, sort_keys)
+        return _write_groups(iter(ahead), path, schema, sort_keys, encoders)
 
 
 def checked_row_groups(
@@ -192,31 +198,31 @@ def _write_groups(
     groups: Iterator[pa.Table],
     path: Path,
     schema: pa.Schema,
-    row_group_rows: int,
     sort_keys: Sequence[str],
+    encoders: int,
 ) -> WrittenTable:
+    """The groups as the file's row groups, `encoders` of them encoded at once
+    (`parquet_parts.py`): the same bytes as one writer's."""
     names = schema.names
     sorting = [pq.SortingColumn(names.index(key)) for key in sort_keys]
-    rows = 0
+    options = {
+        "compression": COMPRESSION,
+        "compression_level": COMPRESSION_LEVEL,
+        "write_statistics": True,
+        "store_schema": True,
+        "sorting_columns": sorting or None,
+    }
     # the first group before the file opens: rows not stored in order mostly show in it, and
     # then no byte is written before the sorted query takes over
     first = next(groups, None)
     with path.open("wb") as handle:
-        writer = pq.ParquetWriter(
-            handle,
-            schema,
-            compression=COMPRESSION,
-            compression_level=COMPRESSION_LEVEL,
-            write_statistics=True,
-            store_schema=True,
-            sorting_columns=sorting or None,
-        )
-        try:
-            for group in chain([first] if first is not None else [], groups):
-                writer.write_table(group, row_group_size=row_group_rows)
-                rows += group.num_rows
-        finally:
-            writer.close()
+        if first is None:
+            pq.ParquetWriter(handle, schema, **options).close()  # no rows: the schema alone
+            rows = 0
+        else:
+            rows, _bounds = write_row_groups(
+                handle, chain([first], groups), schema, options, encoders
+            )
         handle.flush()
         os.fsync(handle.fileno())
     return WrittenTable(path, rows, schema)

@@ -5,12 +5,14 @@ from __future__ import annotations
 
 import io
 import threading
+from pathlib import Path
 
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
 from demandprep.export.parquet_parts import encoded_part, write_row_groups
+from demandprep.export.parquet_splice import read_footer
 
 GROUP_ROWS = 1_000
 OPTIONS = {
@@ -52,14 +54,17 @@ def single_writer_bytes(table: pa.Table) -> bytes:
 
 
 @pytest.mark.parametrize("rows", [1, GROUP_ROWS, 4 * GROUP_ROWS + 123])
-def test_parts_put_together_are_the_single_writers_bytes(rows: int) -> None:
+def test_parts_put_together_are_the_single_writers_bytes(rows: int, tmp_path: Path) -> None:
     table = invented_rows(rows)
-    out = io.BytesIO()
-    written, bounds = write_row_groups(out, groups_of(table, GROUP_ROWS), table.schema, OPTIONS)
+    path = tmp_path / "parts.parquet"
+    with path.open("wb") as out:
+        written, bounds = write_row_groups(out, groups_of(table, GROUP_ROWS), table.schema, OPTIONS)
     assert written == rows
-    assert out.getvalue() == single_writer_bytes(table)
+    assert path.read_bytes() == single_writer_bytes(table)
+    assert pq.read_table(path).equals(table)
+    # the footer entries' bounds it returns are those a reading of the footer finds
+    assert bounds == read_footer(path).group_bounds
     assert len(bounds) == -(-rows // GROUP_ROWS) + 1
-    assert pq.read_table(io.BytesIO(out.getvalue())).equals(table)
 
 
 def test_a_failing_group_stream_stops_the_encoders_and_raises_its_error() -> None:

@@ -46,6 +46,9 @@ class WrittenTable:
     rows: int
     schema: pa.Schema
     sha256: str | None = None  # set by a writer that hashed the bytes it wrote
+    # where each row group's entry begins in the footer's encoding (and the last ends), when
+    # the writer knows (`parquet_parts.write_row_groups`): the next splice reads the footer by them
+    footer_bounds: list[int] | None = None
 
 
 class RowsOutOfKeyOrder(Exception):
@@ -218,14 +221,14 @@ def _write_groups(
     with path.open("wb") as handle:
         if first is None:
             pq.ParquetWriter(handle, schema, **options).close()  # no rows: the schema alone
-            rows = 0
+            rows, bounds = 0, None
         else:
-            rows, _bounds = write_row_groups(
+            rows, bounds = write_row_groups(
                 handle, chain([first], groups), schema, options, encoders
             )
         handle.flush()
         os.fsync(handle.fileno())
-    return WrittenTable(path, rows, schema)
+    return WrittenTable(path, rows, schema, footer_bounds=bounds)
 
 
 def _keys_rising(group: pa.Table, keys: Sequence[str], before: tuple | None) -> tuple | None:

@@ -6,7 +6,7 @@ file and the first occasion that may differ from it). With fixed row groups
 (`export.row_group_rows`), the row groups of that file holding only unchanged rows are copied
 byte for byte, the rows after them are written from the warehouse, and the two are spliced into
 one file (`parquet_splice.py`): the bytes a whole write gives, for a fraction of its time (a
-whole write took about 0.5 s per million rows with one encoding thread, 0.47 s with two).
+whole write took 0.56 s per million rows with one encoding thread, 0.48 s with two).
 
 Written whole, with the reason in the manifest's `facts.choices_file`, when the choice build
 was not incremental, no file is recorded, the recorded file is gone from its build folder or

@@ -36,6 +36,10 @@ COMPRESSION = "zstd"
 # benchmarks/choices_scale.py (15M rows, 26 columns) level 1 wrote in 5.4 s against 8.3 s at
 # level 6 (6.1 s at 3), and the file was 0.2% larger (83.8 against 83.6 MiB).
 COMPRESSION_LEVEL = 1
+# Row groups encoded at once (`parquet_parts.py`). Each holds its rows and their encoding in
+# Python's memory, outside DuckDB's limit: two encoders raised the export's peak by 0.15 to
+# 0.2 GB on the 13.1M-line world's choices file, so more threads do not mean more encoders.
+ENCODERS_AT_MOST = 2
 
 
 @dataclass(frozen=True)
@@ -92,8 +96,9 @@ def _write_query(
     sort_keys: Sequence[str],
     check_order: bool,
 ) -> WrittenTable:
-    # as many row groups encoded at once as DuckDB may use threads (the user's setting)
-    encoders = max(1, int(con.execute("select current_setting('threads')").fetchone()[0]))
+    # as many row groups encoded at once as DuckDB may use threads, up to ENCODERS_AT_MOST
+    threads = int(con.execute("select current_setting('threads')").fetchone()[0])
+    encoders = max(1, min(threads, ENCODERS_AT_MOST))
     with memory_shared_with_batches(con):
         reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
         try:

@@ -24,16 +24,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from demandprep.export.parquet_splice import (
-    CHUNK_META_DATA,
-    CHUNK_POSITIONS,
     FILE_NUM_ROWS,
     FILE_ROW_GROUPS,
-    GROUP_COLUMNS,
-    GROUP_FILE_OFFSET,
-    GROUP_ORDINAL,
     MAGIC,
-    META_POSITIONS,
-    move_positions,
+    move_row_group,
 )
 from demandprep.export.thrift_compact import (
     STRUCT,
@@ -107,7 +101,7 @@ class _Assembly:
         if end != footer_length or len(groups) != 1 or data[:4] != MAGIC:
             raise ValueError("an encoded part is not a Parquet file of one row group")
         (group,) = groups
-        _moved(group, self.length - len(MAGIC), len(self.groups))
+        move_row_group(group, self.length - len(MAGIC), len(self.groups))
         self.out.write(data[len(MAGIC) : footer_start])
         self.length += footer_start - len(MAGIC)
         self.rows += field_value(fields, FILE_NUM_ROWS)
@@ -125,14 +119,3 @@ class _Assembly:
         for piece in (encoded, struct.pack("<I", len(encoded)), MAGIC):
             self.out.write(piece)
         return self.rows, bounds
-
-
-def _moved(group: list[Field], shift: int, ordinal: int) -> None:
-    """A part's only row group entry, moved `shift` bytes on and numbered `ordinal`."""
-    move_positions(group, (GROUP_FILE_OFFSET,), shift)
-    for entry in group:
-        if entry[0] == GROUP_ORDINAL:
-            entry[2] = ordinal
-    for chunk in field_value(group, GROUP_COLUMNS)[1]:
-        move_positions(chunk, CHUNK_POSITIONS, shift)
-        move_positions(field_value(chunk, CHUNK_META_DATA), META_POSITIONS, shift)

@@ -15,6 +15,7 @@ from demandprep.export.parquet_parts import encoded_part, write_row_groups
 from demandprep.export.parquet_splice import read_footer
 
 GROUP_ROWS = 1_000
+ENCODERS = 2
 OPTIONS = {
     "compression": "zstd",
     "compression_level": 1,
@@ -58,7 +59,9 @@ def test_parts_put_together_are_the_single_writers_bytes(rows: int, tmp_path: Pa
     table = invented_rows(rows)
     path = tmp_path / "parts.parquet"
     with path.open("wb") as out:
-        written, bounds = write_row_groups(out, groups_of(table, GROUP_ROWS), table.schema, OPTIONS)
+        written, bounds = write_row_groups(
+            out, groups_of(table, GROUP_ROWS), table.schema, OPTIONS, ENCODERS
+        )
     assert written == rows
     assert path.read_bytes() == single_writer_bytes(table)
     assert pq.read_table(path).equals(table)
@@ -76,7 +79,7 @@ def test_a_failing_group_stream_stops_the_encoders_and_raises_its_error() -> Non
 
     before = threading.active_count()
     with pytest.raises(LookupError, match="rows out of order"):
-        write_row_groups(io.BytesIO(), groups_then_failure(), table.schema, OPTIONS)
+        write_row_groups(io.BytesIO(), groups_then_failure(), table.schema, OPTIONS, ENCODERS)
     assert threading.active_count() == before
 
 

@@ -44,7 +44,7 @@ def write_row_groups(
     groups: Iterable[pa.Table],
     schema: pa.Schema,
     options: Mapping[str, Any],
-    encoders: int = 2,
+    encoders: int,
 ) -> tuple[int, list[int]]:
     """Write a Parquet file of `groups`, one row group each, to `out` (at its start); returns
     its rows and where each row group's entry begins in the footer (and the last ends).

@@ -4,6 +4,7 @@ and keeps the earlier ones, and its Parquet files are byte for byte a full build
 from __future__ import annotations
 
 import json
+import re
 import shutil
 from pathlib import Path
 
@@ -125,6 +126,16 @@ def rows_stored_out_of_key_order(world: Path) -> int:
         ).fetchone()[0]
 
 
+def with_choice_settings(config: Path, settings: str) -> None:
+    """The config's [choices] section with `settings` (TOML lines) in place of its own lines
+    for those keys."""
+    text = config.read_text(encoding="utf-8")
+    for line in settings.splitlines():
+        key = line.split("=")[0].strip()
+        text = re.sub(rf"(?m)^{key} = .*\n", "", text)
+    config.write_text(text.replace("[choices]\n", f"[choices]\n{settings}"), encoding="utf-8")
+
+
 @pytest.mark.parametrize(
     "settings",
     [
@@ -135,15 +146,36 @@ def rows_stored_out_of_key_order(world: Path) -> int:
     ids=["demo", "split_and_sampled"],
 )
 def test_one_more_day_writes_the_bytes_of_a_fresh_full_build(world, tmp_path, settings):
-    if settings:
-        config = world / "demandprep.toml"
-        text = config.read_text(encoding="utf-8")
-        text = text.replace('multiple_purchases = "largest_spend"\n', "")
-        config.write_text(text.replace("[choices]\n", f"[choices]\n{settings}"), encoding="utf-8")
+    with_choice_settings(world / "demandprep.toml", settings)
     build(world)
     shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
     incremental, manifest = build(world)
     assert choice_scope(manifest)["first_day_rebuilt"] == "2024-02-12"
+    assert_same_parquet(incremental, fresh_build(world, tmp_path))
+
+
+def test_sets_and_prices_read_from_the_kept_days_before_the_rebuilt_week(world, tmp_path):
+    # a two-day set window, a one-day price window and shelf prices for one store only: the
+    # other stores' sets on the rebuilt week's first day come from the last two kept days, the
+    # first a night's sales table holds, and some alternatives offered are priced by their
+    # last sale or, failing that, the region's median of the week
+    with_choice_settings(
+        world / "demandprep.toml", "choice_set_window_days = 2\nprice_window_days = 1\n"
+    )
+    shelf = world / "shelf_prices.csv"
+    lines = shelf.read_text(encoding="utf-8").splitlines(keepends=True)
+    shelf.write_text(
+        "".join(lines[:1] + [x for x in lines[1:] if x.startswith("S01,")]), encoding="utf-8"
+    )
+    build(world)
+    shutil.copy(tmp_path / LAST_DAY, world / RECEIPTS / LAST_DAY)
+    incremental, manifest = build(world)
+    assert choice_scope(manifest)["first_day_rebuilt"] == "2024-02-12"
+    rebuilt = pl.read_parquet(incremental / "choices.parquet").filter(
+        pl.col("occasion") >= "2024-02-12"
+    )
+    sources = set(rebuilt["price_source"])
+    assert {"store_last_observed", "region_period_median"} <= sources
     assert_same_parquet(incremental, fresh_build(world, tmp_path))
 
 

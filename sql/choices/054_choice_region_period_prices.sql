@@ -1,4 +1,6 @@
 -- Median net unit price paid per region, market period and alternative (all receipts).
+-- Only the periods of the recomputed occasions (056: all, or those from $rebuilt_from on, the
+-- first day of a period): an occasion's prices read its own period only (070).
 create or replace table choice_region_period_prices as
 
 with
@@ -16,6 +18,7 @@ sale_lines as (
     where choice_sales.line_kind = 'sale'
         and choice_sales.quantity > 0
         and choice_sales.alternative is not null
+        and ($every_occasion or choice_calendar.period_start >= $rebuilt_from)
 ),
 
 final as (

@@ -1,23 +1,29 @@
 -- The inside alternatives available in each store-day: the shelf-price snapshot where there is
 -- one, else every alternative the store sold on one of the $set_window_days days before (earlier
--- days only, so a later purchase never changes an earlier set).
+-- days only, so a later purchase never changes an earlier set). Only the store-days of the
+-- occasions this build recomputes (056: all, or those from $rebuilt_from on).
 create or replace table choice_set_candidates as
 
 with
 
+store_days as (
+    select store, day, snapshot_date from choice_store_days
+    where $every_occasion or day >= $rebuilt_from
+),
+
 shelf_members as (
     select distinct
-        choice_store_days.store,
-        choice_store_days.day,
+        store_days.store,
+        store_days.day,
         choice_shelf.alternative,
-    from choice_store_days
+    from store_days
     join choice_shelf
-        on choice_shelf.store = choice_store_days.store
-        and choice_shelf.date = choice_store_days.snapshot_date
+        on choice_shelf.store = store_days.store
+        and choice_shelf.date = store_days.snapshot_date
 ),
 
 sales_days as (
-    select store, day from choice_store_days where snapshot_date is null
+    select store, day from store_days where snapshot_date is null
 ),
 
 store_alternatives as (

@@ -1,11 +1,14 @@
 -- Each store-day's choice set as a sorted list: its available inside alternatives, plus the
--- outside alternative when every visit is an occasion (choices.occasions = 'all_visits').
+-- outside alternative when every visit is an occasion (choices.occasions = 'all_visits'). Only
+-- the store-days of the occasions this build recomputes (056: all, or those from $rebuilt_from
+-- on).
 create or replace table choice_store_day_sets as
 
 with
 
 store_days as (
     select store, day from choice_store_days
+    where $every_occasion or day >= $rebuilt_from
 ),
 
 inside as (

@@ -228,19 +228,21 @@ def build_choice_sets(ctx: BuildContext) -> None:
     """Choice sets per occasion (sampled if configured) and alternative prices and attributes,
     for the occasions this build recomputes (`scope.py`)."""
     settings = _settings(ctx)
-    _run(
-        ctx,
-        settings,
+    _run(ctx, settings, "079_choice_store_day_markets")  # before 062, which joins it
+    plan_choice_scope(ctx, settings)  # compares the store-day markets with the stored ones
+    scoped = {**settings.params(), **scope_params(ctx.con)}
+    # the sales, prices and sets the recomputed occasions read; the store-days all (the facts
+    # count them, and their numbers must not change with the scope)
+    _run_on(
+        ctx.con,
+        scoped,
         "050_choice_store_day_sales",
         "052_choice_store_period_prices",
         "054_choice_region_period_prices",
         "055_choice_store_days",
         "060_choice_set_candidates",
         "061_choice_store_day_sets",
-        "079_choice_store_day_markets",  # before 062, which joins it: 090 joins nothing
     )
-    plan_choice_scope(ctx, settings)  # compares the store-day markets with the stored ones
-    scoped = {**settings.params(), **scope_params(ctx.con)}
     # loyalty only for the ranks the recomputed occasions read (048)
     _run_on(ctx.con, scoped, "048_choice_loyalty_values", "049_choice_visit_loyalty")
     # stored sorted by occasion, so that `choices` is written in key order (see 090)

@@ -13,7 +13,6 @@ import pytest
 from test_incremental_build import EARLY_DAY, LAST_DAY, RECEIPTS, assert_same_parquet, build
 from test_incremental_choices import full_choice_rebuild, rewrite_receipts
 
-from demandprep.export import choices_file as choices_export
 from demandprep.export import folder as export_folder
 from demandprep.export.parquet_splice import read_footer
 
@@ -156,20 +155,4 @@ def test_an_unpublished_build_leaves_the_next_night_a_whole_write(world, tmp_pat
             build(world)
     night, manifest = build(world)
     assert choices_file(manifest)["written_whole_because"].endswith("is gone")
-    assert_same_parquet(night, full_choice_rebuild(world))
-
-
-def test_a_splice_refused_after_its_kept_bytes_were_copied_writes_the_file_whole(
-    world, tmp_path, monkeypatch
-):
-    build(world)
-    add_last_day(world, tmp_path)
-    # the refusal comes once the new row groups are written, after the thread copied the kept
-    # bytes into the file
-    monkeypatch.setattr(choices_export, "splice_refusal", lambda *args: "refused for the test")
-    night, manifest = build(world)
-    assert choices_file(manifest)["written_whole_because"] == "refused for the test"
-    assert not list(night.glob(".choices*"))
-    [record] = [o for o in manifest["outputs"] if o["path"] == "choices.parquet"]
-    assert record["sha256"] == hashlib.sha256((night / "choices.parquet").read_bytes()).hexdigest()
     assert_same_parquet(night, full_choice_rebuild(world))

@@ -17,10 +17,8 @@ from demandprep.export.manifest import file_sha256
 from demandprep.export.parquet import write_query_parquet
 from demandprep.export.parquet_splice import (
     SpliceRefused,
-    finish_spliced,
     read_footer,
     splice_refusal,
-    write_kept_prefix,
     write_spliced,
 )
 from demandprep.export.thrift_compact import RawStruct, encode_struct, read_struct
@@ -173,28 +171,6 @@ def test_an_earlier_file_that_is_not_the_recorded_one_is_refused(con, tmp_path):
     with pytest.raises(SpliceRefused, match="sha256 differs"):
         write_spliced(before, read_footer(before), 1, "0" * 64, tail, read_footer(tail), target)
     assert not target.exists()
-
-
-def test_a_splice_that_fails_after_its_kept_bytes_leaves_no_file(con, tmp_path):
-    before = write(con, "rows_before", tmp_path / "before.parquet")
-    tail = write(con, "rows_after", tmp_path / "tail.parquet", "where i >= 1024")
-    written = read_footer(tail)
-    tail.unlink()  # the new row groups are gone when the kept bytes are already written
-    target = tmp_path / "spliced.parquet"
-    with pytest.raises(FileNotFoundError):
-        write_spliced(before, read_footer(before), 1, file_sha256(before), tail, written, target)
-    assert not target.exists()
-
-
-def test_kept_bytes_of_another_splice_are_refused(con, tmp_path):
-    before = write(con, "rows_before", tmp_path / "before.parquet")
-    kept = read_footer(before)
-    target = tmp_path / "spliced.parquet"
-    prefix = write_kept_prefix(before, kept, 2, file_sha256(before), target)
-    assert target.read_bytes() == before.read_bytes()[: prefix.cut]
-    tail = write(con, "rows_after", tmp_path / "tail.parquet", "where i >= 1024")
-    with pytest.raises(SpliceRefused, match="kept bytes alone"):
-        finish_spliced(target, prefix, kept, 1, tail, read_footer(tail))
 
 
 def test_row_groups_of_another_size_or_schema_are_refused(con, tmp_path):

@@ -34,10 +34,10 @@ from demandprep.export.parquet import WrittenTable, write_query_parquet
 from demandprep.export.parquet_splice import (
     Footer,
     SpliceRefused,
-    finish_spliced,
+    kept_prefix_hash,
     read_footer,
     splice_refusal,
-    write_kept_prefix,
+    write_spliced,
 )
 from demandprep.export.tables import OutputTable, TableQuery, output_query
 from demandprep.fingerprints import source_of
@@ -177,14 +177,10 @@ def _write_spliced(
     ctx: BuildContext, output: OutputTable, kept: KeptPart, path: Path, layout: Layout
 ) -> tuple[WrittenTable, str, list[int]]:
     tail_path = path.with_name(f".{path.stem}.tail.parquet")
-    # the earlier file's check (it is read whole: 0.27 s for 325 MB), the copy of its kept
-    # bytes into `path` and their flush to disk run on a thread while DuckDB and the writer
-    # make the new row groups
-    copying = ThreadPoolExecutor(1, thread_name_prefix="demandprep-splice")
-    prefix = copying.submit(
-        write_kept_prefix, kept.path, kept.footer, kept.keep, kept.record.sha256, path
-    )
-    spliced = False
+    # the earlier file's check and kept bytes' hash read it whole (0.27 s for 325 MB): in a
+    # thread, while DuckDB and the writer make the new row groups
+    hashing = ThreadPoolExecutor(1, thread_name_prefix="demandprep-splice")
+    prefix = hashing.submit(kept_prefix_hash, kept.path, kept.footer, kept.keep, kept.record.sha256)
     try:
         after_kept = output_query(ctx.con, output, ctx.config, after=kept.last)
         tail = write_output_query(ctx, output, after_kept, tail_path, layout)
@@ -196,15 +192,19 @@ def _write_spliced(
         refusal = splice_refusal(kept.footer, kept.keep, tail_footer, layout.row_group_rows)
         if refusal is not None:
             raise SpliceRefused(refusal)
-        sha256, bounds = finish_spliced(
-            path, prefix.result(), kept.footer, kept.keep, tail_path, tail_footer
+        sha256, bounds = write_spliced(
+            kept.path,
+            kept.footer,
+            kept.keep,
+            kept.record.sha256,
+            tail_path,
+            tail_footer,
+            path,
+            prefix.result(),
         )
-        spliced = True
     finally:
-        copying.shutdown(cancel_futures=True)  # waits for a copy under way
+        hashing.shutdown(cancel_futures=True)
         tail_path.unlink(missing_ok=True)
-        if not spliced:
-            path.unlink(missing_ok=True)
     return WrittenTable(path, rows, tail.schema), sha256, bounds
 
 

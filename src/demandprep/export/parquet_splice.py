@@ -219,15 +219,6 @@ def _move_positions(fields: list[Field], numbers: tuple[int, ...], shift: int) -
             entry[2] += shift
 
 
-@dataclass(frozen=True)
-class KeptPrefix:
-    """The spliced file's first bytes, written: the earlier file's kept bytes (`kept_bytes`),
-    where they end and the sha256 state of them, which starts the spliced file's hash."""
-
-    cut: int
-    hash: Any
-
-
 def write_spliced(
     kept_path: Path,
     kept: Footer,
@@ -236,55 +227,25 @@ def write_spliced(
     written_path: Path,
     written: Footer,
     target: Path,
+    prefix_hash: Any = None,
 ) -> tuple[str, list[int]]:
     """Write the spliced file to `target`; returns its sha256 and its footer's row group
-    bounds (for `read_footer` of the next splice): `write_kept_prefix`, then
-    `finish_spliced`. On a refusal or an error `target` is left unwritten."""
-    prefix = write_kept_prefix(kept_path, kept, keep, kept_sha256, target)
-    try:
-        return finish_spliced(target, prefix, kept, keep, written_path, written)
-    except BaseException:
-        target.unlink(missing_ok=True)
-        raise
+    bounds (for `read_footer` of the next splice).
 
-
-def write_kept_prefix(
-    kept_path: Path, kept: Footer, keep: int, kept_sha256: str, target: Path
-) -> KeptPrefix:
-    """Start `target` with the earlier file's kept bytes, flushed to disk.
-
-    The earlier file is read whole to check its sha256 first; on a mismatch `SpliceRefused` is
-    raised and `target` is not written. The kept bytes are then copied by the kernel
+    The earlier file is read whole to check its sha256 first (`kept_prefix_hash`, unless its
+    result comes as `prefix_hash`, e.g. from a thread that ran while the new row groups were
+    written); on a mismatch `SpliceRefused` is raised and `target` is not written. Its kept
+    bytes are then copied by the kernel
     (`os.copy_file_range`: 0.2 s a 550 MB file here, where reading and writing them through
     Python took 1.3 s), so the earlier file, an old build's, must not change meanwhile: builds
-    are never rewritten, and the export root's lock keeps other builds out. Reading, hashing,
-    copying and flushing release the GIL: the export runs this on a thread while DuckDB and the
-    writer make the new row groups (`choices_file.py`)."""
-    cut = kept_bytes(kept, keep)
-    prefix_hash = _verified_prefix_hash(kept_path, kept.size, cut, kept_sha256)
+    are never rewritten, and the export root's lock keeps other builds out."""
+    footer, cut, bounds = spliced_footer(kept, keep, written)
+    if prefix_hash is None:
+        prefix_hash = kept_prefix_hash(kept_path, kept, keep, kept_sha256)
+    target_hash = prefix_hash.copy()
     with target.open("wb", buffering=0) as out:
         with kept_path.open("rb", buffering=0) as source:
             _copy_prefix(source, out, cut)
-        # flushed here, off the caller's path: the fsync of `finish_spliced` writes the rest only
-        os.fdatasync(out.fileno())
-    return KeptPrefix(cut, prefix_hash)
-
-
-def finish_spliced(
-    target: Path,
-    prefix: KeptPrefix,
-    kept: Footer,
-    keep: int,
-    written_path: Path,
-    written: Footer,
-) -> tuple[str, list[int]]:
-    """Append `written`'s row groups and the spliced footer to `target`, which holds `prefix`
-    alone; returns the spliced file's sha256 and its footer's row group bounds."""
-    footer, cut, bounds = spliced_footer(kept, keep, written)
-    target_hash = prefix.hash.copy()
-    with target.open("r+b", buffering=0) as out:
-        if cut != prefix.cut or out.seek(0, 2) != cut:
-            raise SpliceRefused(f"{target.name} does not hold this splice's kept bytes alone")
         with written_path.open("rb") as source:
             source.seek(len(MAGIC))
             _copy(source, written.start - len(MAGIC), out, (target_hash,))
@@ -293,6 +254,13 @@ def finish_spliced(
             target_hash.update(part)
         os.fsync(out.fileno())
     return target_hash.hexdigest(), bounds
+
+
+def kept_prefix_hash(path: Path, kept: Footer, keep: int, recorded_sha256: str):  # noqa: ANN201
+    """The sha256 state of the earlier file's kept bytes (`kept_bytes`), which starts the
+    spliced file's hash, once the whole file is found to be its recorded sha256 (else
+    `SpliceRefused`). Reading and hashing release the GIL, so a thread can run it."""
+    return _verified_prefix_hash(path, kept.size, kept_bytes(kept, keep), recorded_sha256)
 
 
 def _verified_prefix_hash(path: Path, size: int, cut: int, recorded_sha256: str):  # noqa: ANN202

@@ -91,6 +91,13 @@ def transaction(con: duckdb.DuckDBPyConnection) -> Iterator[None]:
     con.execute("commit")
 
 
+def threads_of(con: duckdb.DuckDBPyConnection) -> int:
+    """How many threads DuckDB may use on this connection now (`warehouse.threads` unless a
+    block changed it)."""
+    # fetchall, not fetchone: a result read to its end leaves the connection free
+    return int(con.execute("select current_setting('threads')").fetchall()[0][0])
+
+
 def one_thread(con: duckdb.DuckDBPyConnection) -> AbstractContextManager[None]:
     """Within the block, DuckDB runs each statement on one thread (then the threads set before).
 

@@ -45,7 +45,12 @@ from demandprep.market.checks import refuse_key_separators
 from demandprep.schemas.choices import Choosers
 from demandprep.sqlfiles import run_sql
 from demandprep.validate import validate_table
-from demandprep.warehouse import insertion_order_kept, join_sides_kept, one_thread
+from demandprep.warehouse import (
+    insertion_order_kept,
+    join_sides_kept,
+    one_thread,
+    threads_of,
+)
 
 INTERMEDIATE_TABLES = (
     "choice_pseudonyms",
@@ -314,9 +319,8 @@ def write_choices_table(ctx: BuildContext, settings: ChoiceSettings, create: boo
         part = {**params, "first_occasion": first, "after_occasion": after}
         _run_on(con, part, "090_choices")
 
-    threads = int(ctx.con.execute("select current_setting('threads')").fetchone()[0])
     with insertion_order_kept(ctx.con):
-        bounds = occasion_bounds(ctx.con, threads)
+        bounds = occasion_bounds(ctx.con, threads_of(ctx.con))
         # the occasions stay the probe side of 086's join even when fewer than the maps
         with one_thread(ctx.con), join_sides_kept(ctx.con):
             write_in_parts(ctx.con, bounds, write_part)

@@ -29,7 +29,7 @@ import pyarrow.parquet as pq
 from demandprep import __version__
 from demandprep.export.parquet_parts import write_row_groups
 from demandprep.memory import memory_shared_with_batches
-from demandprep.warehouse import insertion_order_kept
+from demandprep.warehouse import insertion_order_kept, threads_of
 
 COMPRESSION = "zstd"
 # Level 1: the export is bound by this writer's one thread. On the 1M-occasion choice table of
@@ -97,8 +97,7 @@ def _write_query(
     check_order: bool,
 ) -> WrittenTable:
     # as many row groups encoded at once as DuckDB may use threads, up to ENCODERS_AT_MOST
-    threads = int(con.execute("select current_setting('threads')").fetchone()[0])
-    encoders = max(1, min(threads, ENCODERS_AT_MOST))
+    encoders = max(1, min(threads_of(con), ENCODERS_AT_MOST))
     with memory_shared_with_batches(con):
         reader = con.sql(sql, params=dict(params)).to_arrow_reader(row_group_rows)
         try:

@@ -48,6 +48,7 @@ from demandprep.ingest.lines import (
 from demandprep.ingest.timings import PhaseTimer
 from demandprep.personal import carries_cards
 from demandprep.sqlfiles import quote_identifier, run_sql
+from demandprep.warehouse import threads_of
 
 FILE_PATH_COLUMN = "ingest_file_path"
 # per staged line: true when no field of it changes under trim (010), false for Parquet rows
@@ -285,7 +286,7 @@ def _read_lines(
     # many threads as DuckDB has; DuckDB splits them into `ingest_fields` in pieces of about
     # HANDOFF_BYTES, straight from Arrow (the reader threads read on meanwhile)
     run_sql(con, "ingest/009_ingest_fields_table.sql")
-    workers = int(con.execute("select current_setting('threads')").fetchall()[0][0])
+    workers = threads_of(con)
     pieces: list[pa.Table] = []
     size = 0
     chunks = batch_line_chunks(paths, source.encoding, workers, source.delimiter)
